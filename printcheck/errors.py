@@ -1,0 +1,50 @@
+"""The one family of errors printcheck raises on purpose.
+
+Every message says what was wrong, the value, and what to do, on one line.  The CLI
+catches :class:`PrintcheckError` once and exits 2 with its message.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "PrintcheckError",
+    "PhotoError",
+    "LayoutError",
+    "SpecError",
+    "LocateError",
+    "OptionError",
+    "HistoryError",
+    "ReportError",
+]
+
+
+class PrintcheckError(Exception):
+    """Base of every error printcheck raises for bad input or an unusable photo."""
+
+
+class PhotoError(PrintcheckError, OSError):
+    """A photo could not be read or used (missing, truncated, too large, not an image)."""
+
+
+class LayoutError(PrintcheckError, ValueError):
+    """A layout file is malformed or inconsistent."""
+
+
+class SpecError(PrintcheckError, ValueError):
+    """A spec file or spec name is malformed or unknown."""
+
+
+class LocateError(PrintcheckError, ValueError):
+    """The layout's markers could not be found or do not fit the layout."""
+
+
+class OptionError(PrintcheckError, ValueError):
+    """A command-line option or job setting has an unusable value."""
+
+
+class HistoryError(PrintcheckError, OSError):
+    """The history database could not be opened, read or written."""
+
+
+class ReportError(PrintcheckError, OSError):
+    """An output file could not be written."""

@@ -1,0 +1,418 @@
+"""Layouts: where the fiducial markers sit relative to the analysed window.
+
+A layout is read from the TOML contract in DESIGN.md.  Whatever the file's ``units``,
+the :class:`Layout` holds every coordinate in millimetres in the layout frame
+(x right, y down).
+
+Keys beyond the contract (all optional, added by printcheck):
+
+``[window] margin``
+    How far past the window edge the surface shows in photos, in the layout's units.
+    Spots that straddle the window edge are measured whole within this margin.  The
+    built-in card hides the surface beyond its cut-out, so its margin is 0; for other
+    layouts it defaults to 5 mm.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from printcheck.errors import LayoutError
+from printcheck.units import MM_PER_IN
+
+__all__ = [
+    "ARUCO_DICTIONARY_SIZES",
+    "Marker",
+    "Window",
+    "Layout",
+    "parse_layout",
+    "read_layout",
+    "card_layout",
+    "layout_to_toml",
+    "CARD_MARKER_MM",
+    "CARD_GAP_MM",
+]
+
+# Number of markers in each of OpenCV's predefined ArUco dictionaries
+# (cv2.aruco.getPredefinedDictionary(...).bytesList.shape[0]; checked in the tests).
+ARUCO_DICTIONARY_SIZES: dict[str, int] = {
+    "DICT_4X4_50": 50,
+    "DICT_4X4_100": 100,
+    "DICT_4X4_250": 250,
+    "DICT_4X4_1000": 1000,
+    "DICT_5X5_50": 50,
+    "DICT_5X5_100": 100,
+    "DICT_5X5_250": 250,
+    "DICT_5X5_1000": 1000,
+    "DICT_6X6_50": 50,
+    "DICT_6X6_100": 100,
+    "DICT_6X6_250": 250,
+    "DICT_6X6_1000": 1000,
+    "DICT_7X7_50": 50,
+    "DICT_7X7_100": 100,
+    "DICT_7X7_250": 250,
+    "DICT_7X7_1000": 1000,
+    "DICT_ARUCO_ORIGINAL": 1024,
+    "DICT_APRILTAG_16h5": 30,
+    "DICT_APRILTAG_25h9": 35,
+    "DICT_APRILTAG_36h10": 2320,
+    "DICT_APRILTAG_36h11": 587,
+    "DICT_ARUCO_MIP_36h12": 250,
+}
+
+DEFAULT_MARGIN_MM = 5.0
+CARD_MARKER_MM = 12.0  # side of each printed card marker
+CARD_GAP_MM = 4.0  # clear paper between the window edge and the markers
+
+Point = tuple[float, float]
+
+
+@dataclass(frozen=True)
+class Marker:
+    """One fiducial marker: its id and its four corners in mm, in OpenCV's order."""
+
+    id: int
+    corners_mm: tuple[Point, Point, Point, Point]
+
+
+@dataclass(frozen=True)
+class Window:
+    """The analysed rectangle in the layout frame, in mm."""
+
+    x_mm: float
+    y_mm: float
+    width_mm: float
+    height_mm: float
+
+    @property
+    def area_mm2(self) -> float:
+        return self.width_mm * self.height_mm
+
+
+@dataclass(frozen=True)
+class Layout:
+    """A validated layout, every coordinate in mm.
+
+    Attributes
+    ----------
+    name : str
+    dictionary : str
+        Name of one of OpenCV's predefined ArUco dictionaries, e.g. ``"DICT_4X4_50"``.
+    units : {"mm", "in"}
+        The units the file was written in (kept for writing it back).
+    window : Window
+    markers : tuple of Marker
+    exclusions : tuple of polygons, each a tuple of (x, y) points in mm
+    margin_mm : float
+        How far past the window the surface shows (see module docstring).
+    source : str
+        Where the layout came from (a file path or ``"built-in"``), for messages.
+    """
+
+    name: str
+    dictionary: str
+    units: str
+    window: Window
+    markers: tuple[Marker, ...]
+    exclusions: tuple[tuple[Point, ...], ...] = ()
+    margin_mm: float = DEFAULT_MARGIN_MM
+    source: str = "built-in"
+
+    @property
+    def marker_ids(self) -> tuple[int, ...]:
+        return tuple(m.id for m in self.markers)
+
+    def marker(self, marker_id: int) -> Marker:
+        for m in self.markers:
+            if m.id == marker_id:
+                return m
+        raise KeyError(marker_id)
+
+
+# --------------------------------------------------------------------------- parsing
+
+
+def _fail(source: str, key: str, problem: str) -> LayoutError:
+    return LayoutError(f"layout {source}: {key}: {problem}")
+
+
+def _number(value: Any, source: str, key: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise _fail(source, key, f"must be a number, got {value!r}")
+    if not math.isfinite(float(value)):
+        raise _fail(source, key, f"must be a finite number, got {value!r}")
+    return float(value)
+
+
+def _point(value: Any, source: str, key: str, scale: float) -> Point:
+    if not isinstance(value, list | tuple) or len(value) != 2:
+        raise _fail(source, key, f"must be a point [x, y], got {value!r}")
+    return (
+        _number(value[0], source, key) * scale,
+        _number(value[1], source, key) * scale,
+    )
+
+
+def _polygon_area(points: tuple[Point, ...]) -> float:
+    area = 0.0
+    for (x0, y0), (x1, y1) in zip(points, points[1:] + points[:1], strict=True):
+        area += x0 * y1 - x1 * y0
+    return area / 2.0
+
+
+def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
+    """Validate a layout read from TOML and convert it to millimetres.
+
+    Parameters
+    ----------
+    data : dict
+        The parsed TOML document.
+    source : str
+        Name used in error messages (usually the file path).
+
+    Raises
+    ------
+    LayoutError
+        Naming the source, the key and the problem, e.g.
+        ``layout card.toml: marker 7: corners must be 4 points, got 3``.
+    """
+    if not isinstance(data, dict):
+        raise _fail(source, "(top level)", "must be a TOML table")
+    known = {"name", "dictionary", "units", "window", "marker", "exclude"}
+    unknown = sorted(set(data) - known)
+    if unknown:
+        raise _fail(source, unknown[0], f"unknown key; expected one of {sorted(known)}")
+
+    name = data.get("name", Path(source).stem if source != "<memory>" else "layout")
+    if not isinstance(name, str) or not name.strip():
+        raise _fail(source, "name", f"must be a non-empty string, got {name!r}")
+
+    if "dictionary" not in data:
+        raise _fail(source, "dictionary", "missing; name an OpenCV ArUco dictionary such as DICT_4X4_50")
+    dictionary = data["dictionary"]
+    if not isinstance(dictionary, str) or dictionary not in ARUCO_DICTIONARY_SIZES:
+        raise _fail(
+            source,
+            "dictionary",
+            f"unknown ArUco dictionary {dictionary!r}; use one of OpenCV's predefined "
+            f"names, e.g. DICT_4X4_50, DICT_5X5_100, DICT_APRILTAG_36h11",
+        )
+
+    units = data.get("units", "mm")
+    if units not in ("mm", "in"):
+        raise _fail(source, "units", f"must be \"mm\" or \"in\", got {units!r}")
+    scale = MM_PER_IN if units == "in" else 1.0
+
+    win = data.get("window")
+    if not isinstance(win, dict):
+        raise _fail(source, "window", "missing or not a table; give x, y, width, height")
+    for key in ("x", "y", "width", "height"):
+        if key not in win:
+            raise _fail(source, f"window.{key}", "missing")
+    extra = sorted(set(win) - {"x", "y", "width", "height", "margin"})
+    if extra:
+        raise _fail(source, f"window.{extra[0]}", "unknown key")
+    wx = _number(win["x"], source, "window.x") * scale
+    wy = _number(win["y"], source, "window.y") * scale
+    ww = _number(win["width"], source, "window.width") * scale
+    wh = _number(win["height"], source, "window.height") * scale
+    if ww <= 0:
+        raise _fail(source, "window.width", f"must be greater than zero, got {win['width']!r}")
+    if wh <= 0:
+        raise _fail(source, "window.height", f"must be greater than zero, got {win['height']!r}")
+    margin = DEFAULT_MARGIN_MM
+    if "margin" in win:
+        margin = _number(win["margin"], source, "window.margin") * scale
+        if margin < 0:
+            raise _fail(source, "window.margin", f"must be zero or more, got {win['margin']!r}")
+    window = Window(wx, wy, ww, wh)
+
+    raw_markers = data.get("marker")
+    if not isinstance(raw_markers, list) or not raw_markers:
+        raise _fail(source, "marker", "at least one [[marker]] with id and corners is needed")
+    size = ARUCO_DICTIONARY_SIZES[dictionary]
+    markers: list[Marker] = []
+    seen: set[int] = set()
+    for index, raw in enumerate(raw_markers):
+        where = f"marker #{index + 1}"
+        if not isinstance(raw, dict):
+            raise _fail(source, where, "must be a table with id and corners")
+        if "id" not in raw:
+            raise _fail(source, f"{where}.id", "missing")
+        mid = raw["id"]
+        if isinstance(mid, bool) or not isinstance(mid, int):
+            raise _fail(source, f"{where}.id", f"must be a whole number, got {mid!r}")
+        where = f"marker {mid}"
+        if not 0 <= mid < size:
+            raise _fail(source, f"{where}.id", f"out of range: {dictionary} has ids 0 to {size - 1}")
+        if mid in seen:
+            raise _fail(source, f"{where}.id", "duplicate id; each marker id may appear once")
+        seen.add(mid)
+        extra = sorted(set(raw) - {"id", "corners"})
+        if extra:
+            raise _fail(source, f"{where}.{extra[0]}", "unknown key")
+        corners = raw.get("corners")
+        if not isinstance(corners, list):
+            raise _fail(source, f"{where}.corners", "missing or not a list of 4 points")
+        if len(corners) != 4:
+            raise _fail(source, f"{where}.corners", f"must be 4 points, got {len(corners)}")
+        pts = tuple(_point(c, source, f"{where}.corners", scale) for c in corners)
+        area = _polygon_area(pts)
+        if abs(area) < 1e-6:
+            raise _fail(source, f"{where}.corners", "the 4 corners enclose no area")
+        if area < 0:
+            raise _fail(
+                source,
+                f"{where}.corners",
+                "corners run anticlockwise on the page; give them as top-left, top-right, "
+                "bottom-right, bottom-left",
+            )
+        markers.append(Marker(mid, pts))  # type: ignore[arg-type]
+
+    exclusions: list[tuple[Point, ...]] = []
+    raw_ex = data.get("exclude", [])
+    if not isinstance(raw_ex, list):
+        raise _fail(source, "exclude", "must be a list of [[exclude]] tables")
+    for index, raw in enumerate(raw_ex):
+        where = f"exclude #{index + 1}"
+        if not isinstance(raw, dict) or "points" not in raw:
+            raise _fail(source, f"{where}.points", "missing; give a polygon of 3 or more points")
+        points = raw["points"]
+        if not isinstance(points, list) or len(points) < 3:
+            raise _fail(source, f"{where}.points", f"must be 3 or more points, got {points!r}")
+        pts = tuple(_point(p, source, f"{where}.points", scale) for p in points)
+        if abs(_polygon_area(pts)) < 1e-9:
+            raise _fail(source, f"{where}.points", "the polygon encloses no area")
+        xs = [p[0] for p in pts]
+        ys = [p[1] for p in pts]
+        if (
+            max(xs) <= wx
+            or min(xs) >= wx + ww
+            or max(ys) <= wy
+            or min(ys) >= wy + wh
+        ):
+            raise _fail(source, f"{where}.points", "the polygon lies wholly outside the window")
+        exclusions.append(pts)
+
+    return Layout(
+        name=name.strip(),
+        dictionary=dictionary,
+        units=units,
+        window=window,
+        markers=tuple(markers),
+        exclusions=tuple(exclusions),
+        margin_mm=margin,
+        source=source,
+    )
+
+
+def read_layout(path: str | Path) -> Layout:
+    """Read and validate a layout TOML file.
+
+    Raises
+    ------
+    LayoutError
+        When the file is missing, unreadable, not TOML, or not a valid layout.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise LayoutError(f"layout {path}: file not found; give the path of a layout .toml") from None
+    except IsADirectoryError:
+        raise LayoutError(f"layout {path}: is a folder, not a layout .toml file") from None
+    except PermissionError:
+        raise LayoutError(f"layout {path}: permission denied; make the file readable") from None
+    except UnicodeDecodeError:
+        raise LayoutError(f"layout {path}: not a text file; a layout is a TOML file") from None
+    except OSError as exc:
+        raise LayoutError(f"layout {path}: cannot be read ({exc.strerror})") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise LayoutError(f"layout {path}: not valid TOML ({exc})") from None
+    return parse_layout(data, source=str(path))
+
+
+# --------------------------------------------------------------------------- the card
+
+
+def card_layout(window_mm: float = 2 * MM_PER_IN, *, name: str | None = None) -> Layout:
+    """The built-in card: a square window with one 12 mm marker off each corner.
+
+    Markers ``DICT_4X4_50`` ids 0 to 3 sit top-left, top-right, bottom-right and
+    bottom-left of the window, ``CARD_GAP_MM`` clear of it.  The card hides the surface
+    beyond its cut-out, so ``margin_mm`` is 0.
+
+    Parameters
+    ----------
+    window_mm : float
+        Side of the square window in mm (default 2 in = 50.8 mm).
+    """
+    if not window_mm > 0:
+        raise LayoutError(f"layout built-in card: window must be greater than zero, got {window_mm!r}")
+    w = float(window_mm)
+    g, s = CARD_GAP_MM, CARD_MARKER_MM
+    lo, hi = -g - s, w + g  # top-left corner of the markers before/after the window
+
+    def square(x: float, y: float) -> tuple[Point, Point, Point, Point]:
+        return ((x, y), (x + s, y), (x + s, y + s), (x, y + s))
+
+    markers = (
+        Marker(0, square(lo, lo)),
+        Marker(1, square(hi, lo)),
+        Marker(2, square(hi, hi)),
+        Marker(3, square(lo, hi)),
+    )
+    if name is None:
+        inches = w / MM_PER_IN
+        name = f"card-{inches:g}in" if abs(inches - round(inches, 3)) < 1e-9 else f"card-{w:g}mm"
+    return Layout(
+        name=name,
+        dictionary="DICT_4X4_50",
+        units="mm",
+        window=Window(0.0, 0.0, w, w),
+        markers=markers,
+        exclusions=(),
+        margin_mm=0.0,
+        source="built-in",
+    )
+
+
+def layout_to_toml(layout: Layout) -> str:
+    """Write ``layout`` as TOML text in its own units (round-trips through read_layout)."""
+    k = MM_PER_IN if layout.units == "in" else 1.0
+
+    def f(v: float) -> str:
+        return repr(round(v / k, 6))
+
+    def pt(p: Point) -> str:
+        return f"[{f(p[0])}, {f(p[1])}]"
+
+    w = layout.window
+    lines = [
+        f"name = {_toml_str(layout.name)}",
+        f"dictionary = {_toml_str(layout.dictionary)}",
+        f"units = {_toml_str(layout.units)}",
+        "",
+        "[window]",
+        f"x = {f(w.x_mm)}",
+        f"y = {f(w.y_mm)}",
+        f"width = {f(w.width_mm)}",
+        f"height = {f(w.height_mm)}",
+        f"margin = {f(layout.margin_mm)}",
+    ]
+    for m in layout.markers:
+        lines += ["", "[[marker]]", f"id = {m.id}", "corners = [" + ", ".join(pt(c) for c in m.corners_mm) + "]"]
+    for poly in layout.exclusions:
+        lines += ["", "[[exclude]]", "points = [" + ", ".join(pt(p) for p in poly) + "]"]
+    return "\n".join(lines) + "\n"
+
+
+def _toml_str(text: str) -> str:
+    escaped = text.replace("\\", "\\\\").replace('"', '\\"')
+    return f'"{escaped}"'
