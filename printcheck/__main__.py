@@ -1,0 +1,5 @@
+"""``python -m printcheck``: the same as the ``printcheck`` command."""
+
+from printcheck.cli import main
+
+main()

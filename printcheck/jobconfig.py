@@ -1,0 +1,112 @@
+"""Per-job settings: a ``printcheck.toml`` beside the photos.
+
+A job file sets, once for a job, what would otherwise be typed on every command::
+
+    surface = "bed-front-way"
+    layout = "card-2in.toml"      # relative to this file's folder
+    spec = "slideway-precision"   # a built-in spec name or a spec file
+    unit = "in"
+    cell = 1.0
+
+Precedence, highest first: the command-line option; the job file (``--config FILE``,
+else ``printcheck.toml`` in the photos' folder); printcheck's default.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass, fields
+from pathlib import Path
+from typing import Any
+
+from printcheck.errors import OptionError
+
+__all__ = ["JOB_FILE", "JobSettings", "read_job_settings", "find_job_file"]
+
+JOB_FILE = "printcheck.toml"
+
+
+@dataclass(frozen=True)
+class JobSettings:
+    """Settings from a job file; ``None`` means "not set here"."""
+
+    surface: str | None = None
+    layout: str | None = None  # absolute path, resolved against the job file's folder
+    px_per_mm: float | None = None
+    spec: str | None = None  # a built-in name, or an absolute path to a spec file
+    target: float | None = None
+    unit: str | None = None
+    cell: float | None = None
+    compound: str | None = None
+    compound_on: str | None = None
+    min_spot: float | None = None
+    source: str | None = None
+
+
+_TYPES: dict[str, tuple[type, ...]] = {
+    "surface": (str,),
+    "layout": (str,),
+    "px_per_mm": (int, float),
+    "spec": (str,),
+    "target": (int, float),
+    "unit": (str,),
+    "cell": (int, float),
+    "compound": (str,),
+    "compound_on": (str,),
+    "min_spot": (int, float),
+}
+_CHOICES = {
+    "unit": ("in", "mm"),
+    "compound": ("blue", "red", "auto"),
+    "compound_on": ("reference", "work"),
+}
+
+
+def find_job_file(folder: str | Path) -> Path | None:
+    """``folder/printcheck.toml`` when it exists."""
+    candidate = Path(folder) / JOB_FILE
+    return candidate if candidate.is_file() else None
+
+
+def read_job_settings(path: str | Path) -> JobSettings:
+    """Read and validate a job file.
+
+    Raises
+    ------
+    OptionError
+        One line naming the file, the key and the problem.
+    """
+    path = Path(path)
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise OptionError(f"job settings {path}: file not found") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise OptionError(f"job settings {path}: cannot be read ({exc})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise OptionError(f"job settings {path}: not valid TOML ({exc})") from None
+    values: dict[str, Any] = {}
+    for key, value in data.items():
+        if key not in _TYPES:
+            raise OptionError(
+                f"job settings {path}: {key}: unknown key; expected one of {sorted(_TYPES)}"
+            )
+        if isinstance(value, bool) or not isinstance(value, _TYPES[key]):
+            kind = "text" if _TYPES[key] == (str,) else "a number"
+            raise OptionError(f"job settings {path}: {key}: must be {kind}, got {value!r}")
+        if key in _CHOICES and value not in _CHOICES[key]:
+            raise OptionError(
+                f"job settings {path}: {key}: must be one of {', '.join(_CHOICES[key])}, got {value!r}"
+            )
+        if _TYPES[key] == (int, float):
+            value = float(value)
+            if value <= 0:
+                raise OptionError(f"job settings {path}: {key}: must be greater than zero, got {value!r}")
+        values[key] = value
+    base = path.parent
+    if "layout" in values:
+        values["layout"] = str((base / values["layout"]).resolve())
+    if "spec" in values and values["spec"].endswith(".toml"):
+        values["spec"] = str((base / values["spec"]).resolve())
+    names = {f.name for f in fields(JobSettings)}
+    return JobSettings(**{k: v for k, v in values.items() if k in names}, source=str(path))

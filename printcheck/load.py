@@ -1,0 +1,227 @@
+"""Load: decode a photo the right way up, read when it was taken, refuse what cannot be used.
+
+The only module that reads image files.  Photos are opened read-only and never modified.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from dataclasses import dataclass
+from datetime import datetime
+from pathlib import Path
+
+import numpy as np
+
+from printcheck.errors import PhotoError
+
+__all__ = ["MAX_PIXELS", "PHOTO_SUFFIXES", "Photo", "load_photo", "photo_taken", "is_photo_name"]
+
+MAX_PIXELS = 150_000_000  # 150 MP: well above any phone; refuses decompression bombs
+PHOTO_SUFFIXES = (".jpg", ".jpeg", ".png", ".tif", ".tiff", ".heic", ".heif", ".webp", ".bmp")
+
+_EXIF_IFD = 0x8769
+_DATETIME_ORIGINAL = 36867
+_DATETIME = 306
+
+
+@dataclass(frozen=True, eq=False)
+class Photo:
+    """A decoded photo.
+
+    Attributes
+    ----------
+    image : (M, N, 3) uint8 ndarray, BGR
+        Pixels, turned the right way up by the EXIF orientation.
+    path : str
+    name : str
+        File name without the folder.
+    sha256 : str
+        Hash of the file's bytes.
+    taken : datetime or None
+        EXIF DateTimeOriginal (else EXIF DateTime); None when the photo has neither.
+    file_time : datetime
+        The file's modification time (the fallback for ordering).
+    """
+
+    image: np.ndarray
+    path: str
+    name: str
+    sha256: str
+    taken: datetime | None
+    file_time: datetime
+
+
+def is_photo_name(path: str | Path) -> bool:
+    """True when ``path`` has a photo suffix printcheck reads (case-insensitive)."""
+    return Path(path).suffix.lower() in PHOTO_SUFFIXES
+
+
+def _register_heif() -> None:
+    try:
+        import pillow_heif
+
+        pillow_heif.register_heif_opener()
+    except ImportError:  # pragma: no cover - optional at run time
+        pass
+
+
+def _read_bytes(path: Path) -> bytes:
+    try:
+        with open(path, "rb") as fh:
+            return fh.read()
+    except FileNotFoundError:
+        raise PhotoError(f"photo {path}: file not found") from None
+    except IsADirectoryError:
+        raise PhotoError(f"photo {path}: is a folder, not a photo") from None
+    except PermissionError:
+        raise PhotoError(f"photo {path}: permission denied; make the file readable") from None
+    except OSError as exc:
+        raise PhotoError(f"photo {path}: cannot be read ({exc.strerror})") from None
+
+
+def _parse_exif_time(text: object) -> datetime | None:
+    if isinstance(text, bytes):
+        text = text.decode("ascii", "replace")
+    if not isinstance(text, str):
+        return None
+    text = text.strip().rstrip("\x00")
+    for fmt in ("%Y:%m:%d %H:%M:%S", "%Y-%m-%d %H:%M:%S", "%Y:%m:%d %H:%M:%S.%f"):
+        try:
+            return datetime.strptime(text, fmt)
+        except ValueError:
+            continue
+    return None
+
+
+def _exif_taken(im: object) -> datetime | None:
+    try:
+        exif = im.getexif()  # type: ignore[attr-defined]
+    except Exception:  # malformed EXIF is not fatal: the photo may still be measured
+        return None
+    try:
+        sub = exif.get_ifd(_EXIF_IFD)
+    except Exception:
+        sub = {}
+    return _parse_exif_time(sub.get(_DATETIME_ORIGINAL)) or _parse_exif_time(exif.get(_DATETIME))
+
+
+def _truncated(data: bytes) -> bool:
+    if data[:3] == b"\xff\xd8\xff":  # JPEG ends with the EOI marker (ITU T.81 B.2.1)
+        return b"\xff\xd9" not in data[-65536:]
+    if data[:8] == b"\x89PNG\r\n\x1a\n":  # PNG ends with an IEND chunk (ISO/IEC 15948 11.2.5)
+        return b"IEND" not in data[-64:]
+    return False
+
+
+def _open_header(path: Path, data: bytes):  # type: ignore[no-untyped-def]
+    import io
+
+    from PIL import Image, UnidentifiedImageError
+
+    _register_heif()
+    try:
+        im = Image.open(io.BytesIO(data))
+    except UnidentifiedImageError:
+        raise PhotoError(f"photo {path}: not an image printcheck can read (JPEG, PNG, TIFF, HEIC)") from None
+    except Image.DecompressionBombError:
+        raise PhotoError(f"photo {path}: claims too many pixels; refused") from None
+    except Exception as exc:
+        raise PhotoError(f"photo {path}: not a readable image ({exc})") from None
+    return im
+
+
+def _to_bgr8(array: np.ndarray) -> np.ndarray:
+    import cv2
+
+    a = array
+    if a.dtype != np.uint8:
+        if a.dtype == np.uint16:
+            a = (a >> 8).astype(np.uint8)
+        elif np.issubdtype(a.dtype, np.floating):
+            a = np.clip(a * (255.0 if float(np.nanmax(a)) <= 1.0 else 1.0), 0, 255).astype(np.uint8)
+        else:
+            a = np.clip(a, 0, 255).astype(np.uint8)
+    if a.ndim == 2:
+        return cv2.cvtColor(a, cv2.COLOR_GRAY2BGR)
+    if a.shape[2] == 4:
+        return cv2.cvtColor(a, cv2.COLOR_RGBA2BGR)
+    return cv2.cvtColor(a, cv2.COLOR_RGB2BGR)
+
+
+def _decode_pillow(path: Path, im) -> np.ndarray:  # type: ignore[no-untyped-def]
+    from PIL import ImageOps
+
+    try:
+        im = ImageOps.exif_transpose(im)
+        if im.mode in ("I;16", "I;16B", "I;16L", "I"):
+            arr = np.asarray(im, dtype=np.uint32)
+            scale = 257.0 if arr.max(initial=0) > 255 else 1.0
+            arr = np.clip(arr / scale, 0, 255).astype(np.uint8)
+            return _to_bgr8(arr)
+        if im.mode not in ("RGB", "L", "RGBA"):
+            im = im.convert("RGBA" if "A" in im.mode else "RGB")
+        return _to_bgr8(np.asarray(im))
+    except OSError as exc:
+        raise PhotoError(f"photo {path}: could not be decoded ({exc})") from None
+
+
+def load_photo(path: str | Path, *, max_pixels: int = MAX_PIXELS) -> Photo:
+    """Read and decode the photo at ``path``.
+
+    The size is checked from the file header before any pixel is decoded, so a file that
+    claims an absurd size is refused without allocating it.
+
+    Raises
+    ------
+    PhotoError
+        One line naming the file and the problem: missing, unreadable, a folder, empty,
+        not an image, truncated, or larger than ``max_pixels``.
+    """
+    path = Path(path)
+    data = _read_bytes(path)
+    if not data:
+        raise PhotoError(f"photo {path}: file is empty")
+    im = _open_header(path, data)
+    width, height = im.size
+    if width * height > max_pixels:
+        raise PhotoError(
+            f"photo {path}: {width} x {height} pixels is more than the {max_pixels // 1_000_000} MP "
+            "printcheck accepts; refused"
+        )
+    if width < 16 or height < 16:
+        raise PhotoError(f"photo {path}: {width} x {height} pixels is too small to measure")
+    if _truncated(data):
+        raise PhotoError(f"photo {path}: file is truncated (incomplete copy or download?)")
+    taken = _exif_taken(im)
+    image = None
+    if im.format in ("JPEG", "PNG", "TIFF", "BMP", "WEBP") and im.mode in ("RGB", "L", "RGBA", "P"):
+        import cv2
+
+        buf = np.frombuffer(data, dtype=np.uint8)
+        image = cv2.imdecode(buf, cv2.IMREAD_COLOR)  # applies the EXIF orientation
+        if image is not None and image.shape[:2] not in ((height, width), (width, height)):
+            image = None
+    if image is None:
+        image = _decode_pillow(path, im)
+    stat = os.stat(path)
+    return Photo(
+        image=image,
+        path=str(path),
+        name=path.name,
+        sha256=hashlib.sha256(data).hexdigest(),
+        taken=taken,
+        file_time=datetime.fromtimestamp(stat.st_mtime).replace(microsecond=0),
+    )
+
+
+def photo_taken(path: str | Path) -> datetime | None:
+    """EXIF time of the photo at ``path`` from its header alone, or None (cheap; for ordering)."""
+    from PIL import Image
+
+    _register_heif()
+    try:
+        with Image.open(path) as im:  # lazy: reads the header, not the pixels
+            return _exif_taken(im)
+    except Exception:  # any unreadable file simply has no EXIF time; load_photo says why
+        return None

@@ -1,0 +1,153 @@
+"""The pipeline: one photo through locate, segment, measure and judge.
+
+This module only chains the stages; each stage is pure and lives in its own module.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import datetime
+from pathlib import Path
+
+import numpy as np
+
+from printcheck.layout import Layout, Window, card_layout
+from printcheck.result import Result
+from printcheck.spec import Spec
+from printcheck.units import default_cell, to_mm
+
+__all__ = ["InspectOptions", "inspect_image", "inspect_photo"]
+
+
+@dataclass(frozen=True)
+class InspectOptions:
+    """Everything that decides how a photo is inspected.
+
+    Attributes
+    ----------
+    layout : Layout or None
+        Where the markers are; the built-in 2 in card when neither this nor
+        ``px_per_mm`` is given.
+    px_per_mm : float or None
+        Explicit scale for square-on photos (no markers).
+    scale_window : Window or None
+        With ``px_per_mm``: the window in mm from the image's top-left (default: all).
+    unit : {"in", "mm"}
+    cell : float or None
+        Side of the counting cell in ``unit`` (default 1 in or 25 mm).
+    compound, compound_on : see :class:`printcheck.segment.SegmentConfig`
+    spec : Spec or None
+    surface : str or None
+    min_spot_mm2 : float
+    allow_partial : bool
+        Measure the visible part of a window that runs out of the photo.
+    """
+
+    layout: Layout | None = None
+    px_per_mm: float | None = None
+    scale_window: Window | None = None
+    unit: str = "in"
+    cell: float | None = None
+    compound: str = "blue"
+    compound_on: str = "reference"
+    spec: Spec | None = None
+    surface: str | None = None
+    min_spot_mm2: float = 0.1
+    allow_partial: bool = False
+
+    @property
+    def cell_in_unit(self) -> float:
+        return self.cell if self.cell is not None else default_cell(self.unit)
+
+    @property
+    def cell_mm(self) -> float:
+        return to_mm(self.cell_in_unit, self.unit)
+
+
+def inspect_image(
+    image: np.ndarray,
+    *,
+    options: InspectOptions,
+    photo: str = "",
+    path: str | None = None,
+    sha256: str | None = None,
+    taken: datetime | None = None,
+) -> Result:
+    """Inspect one decoded photo ``image`` (M, N, 3) uint8 BGR.
+
+    Raises
+    ------
+    LocateError, OptionError
+        When the photo cannot be measured with these options.
+    """
+    from printcheck.judge import judge
+    from printcheck.locate import LocateConfig, locate, rectify_scale
+    from printcheck.measure import MeasureConfig, measure
+    from printcheck.segment import SegmentConfig, mask_at, segment
+
+    loc_config = LocateConfig(allow_partial=options.allow_partial)
+    if options.px_per_mm is not None:
+        rect = rectify_scale(
+            image, px_per_mm=options.px_per_mm, window=options.scale_window, config=loc_config
+        )
+    else:
+        layout = options.layout if options.layout is not None else card_layout()
+        rect = locate(image, layout=layout, config=loc_config)
+    seg = segment(
+        rect.image,
+        visible=rect.visible,
+        config=SegmentConfig(
+            compound=options.compound,  # type: ignore[arg-type]
+            compound_on=options.compound_on,  # type: ignore[arg-type]
+            px_per_mm=rect.frame.px_per_mm,
+        ),
+    )
+    alternates = (
+        mask_at(seg, seg.threshold - seg.spread),
+        mask_at(seg, seg.threshold + seg.spread),
+    )
+    spec = options.spec
+    meas = measure(
+        seg.mask,
+        frame=rect.frame,
+        analysed=rect.analysed,
+        config=MeasureConfig(
+            cell_mm=options.cell_mm,
+            min_spot_mm2=options.min_spot_mm2,
+            max_bare_mm=None if spec is None else spec.max_bare_mm,
+        ),
+        alternates=alternates,
+    )
+    verdict = None if spec is None else judge(meas, spec, unit=options.unit)
+    warnings = tuple(rect.warnings) + tuple(seg.warnings)
+    if meas.confidence is not None and meas.confidence.doubtful:
+        warnings += (f"doubtful photo: {meas.confidence.reason}; consider retaking it",)
+    return Result(
+        photo=photo,
+        path=path,
+        sha256=sha256,
+        surface=options.surface,
+        taken=taken,
+        unit=options.unit,
+        cell=options.cell_in_unit,
+        rectified=rect,
+        segmentation=seg,
+        measurement=meas,
+        verdict=verdict,
+        warnings=warnings,
+    )
+
+
+def inspect_photo(path: str | Path, *, options: InspectOptions) -> Result:
+    """Load the photo at ``path`` and inspect it (see :func:`inspect_image`)."""
+    from printcheck.load import load_photo
+
+    photo = load_photo(path)
+    return inspect_image(
+        photo.image,
+        options=options,
+        photo=photo.name,
+        path=photo.path,
+        sha256=photo.sha256,
+        taken=photo.taken if photo.taken is not None else photo.file_time,
+    )
