@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import os
-
 import pytest
 
 
@@ -11,4 +9,4 @@ import pytest
 def _isolated_history(tmp_path_factory: pytest.TempPathFactory, monkeypatch: pytest.MonkeyPatch) -> None:
     """No test ever writes to the user's real history database."""
     monkeypatch.setenv("PRINTCHECK_DB", str(tmp_path_factory.mktemp("db") / "history.sqlite"))
-    os.environ.pop("PRINTCHECK_DEBUG", None)
+    monkeypatch.delenv("PRINTCHECK_DEBUG", raising=False)

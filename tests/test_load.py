@@ -1,0 +1,147 @@
+"""load: decoding, orientation, EXIF time, and every kind of bad photo file."""
+
+from __future__ import annotations
+
+import os
+import struct
+import zlib
+from datetime import datetime
+from pathlib import Path
+
+import cv2
+import numpy as np
+import pytest
+from PIL import Image
+
+from printcheck.errors import PhotoError
+from printcheck.load import load_photo, photo_taken
+
+
+def _pattern(h: int = 60, w: int = 80) -> np.ndarray:
+    """RGB test image: a red block at the top-left, blue elsewhere."""
+    rgb = np.zeros((h, w, 3), np.uint8)
+    rgb[..., 2] = 200
+    rgb[: h // 3, : w // 4] = (255, 0, 0)
+    return rgb
+
+
+def test_jpeg_decodes_to_bgr_with_exif_time(tmp_path: Path) -> None:
+    im = Image.fromarray(_pattern())
+    exif = Image.Exif()
+    exif.get_ifd(0x8769)[36867] = "2026:11:30 10:22:31"  # EXIF 2.32 tag DateTimeOriginal
+    path = tmp_path / "IMG_0001.jpg"
+    im.save(path, quality=95, exif=exif)
+    photo = load_photo(path)
+    assert photo.image.shape == (60, 80, 3) and photo.image.dtype == np.uint8
+    # BGR order: the red block has a high third channel (OpenCV's convention)
+    assert photo.image[5, 5, 2] > 200 and photo.image[5, 5, 0] < 60
+    assert photo.taken == datetime(2026, 11, 30, 10, 22, 31)
+    assert photo_taken(path) == photo.taken
+
+
+def test_exif_orientation_is_applied(tmp_path: Path) -> None:
+    # EXIF Orientation 6 = "rotate 90 CW to display" (EXIF 2.32, tag 0x0112)
+    im = Image.fromarray(_pattern())
+    exif = Image.Exif()
+    exif[0x0112] = 6
+    path = tmp_path / "rotated.jpg"
+    im.save(path, quality=95, exif=exif)
+    photo = load_photo(path)
+    expected = np.rot90(_pattern(), k=-1)  # what a viewer shows: the block at top-right
+    assert photo.image.shape[:2] == expected.shape[:2]
+    red = photo.image[..., 2].astype(int) - photo.image[..., 0].astype(int) > 100
+    assert red[:10, -10:].all() and not red[-10:, :10].any()
+
+
+@pytest.mark.parametrize("mode", ["L", "I;16", "RGBA", "CMYK", "P"])
+def test_other_pixel_formats_become_bgr8(tmp_path: Path, mode: str) -> None:
+    rgb = Image.fromarray(_pattern())
+    if mode == "I;16":
+        arr = (np.asarray(rgb.convert("L"), dtype=np.uint16) * 257).astype(np.uint16)
+        im = Image.fromarray(arr)
+        path = tmp_path / "deep.png"
+        im.save(path)
+    elif mode == "CMYK":
+        path = tmp_path / "cmyk.jpg"
+        rgb.convert("CMYK").save(path, quality=95)
+    elif mode == "RGBA":
+        path = tmp_path / "alpha.png"
+        rgb.convert("RGBA").save(path)
+    elif mode == "P":
+        path = tmp_path / "palette.png"
+        rgb.convert("P").save(path)
+    else:
+        path = tmp_path / "grey.png"
+        rgb.convert("L").save(path)
+    photo = load_photo(path)
+    assert photo.image.dtype == np.uint8 and photo.image.shape == (60, 80, 3)
+    grey = cv2.cvtColor(photo.image, cv2.COLOR_BGR2GRAY)
+    ref = np.asarray(rgb.convert("L"))
+    assert np.abs(grey.astype(int) - ref.astype(int)).mean() < 12  # same picture, same scale
+
+
+def _bomb_png(path: Path, width: int, height: int) -> None:
+    """A PNG whose header claims width x height (ISO/IEC 15948 IHDR) with almost no data."""
+
+    def chunk(kind: bytes, data: bytes) -> bytes:
+        return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data))
+
+    ihdr = struct.pack(">IIBBBBB", width, height, 8, 2, 0, 0, 0)
+    body = b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", ihdr) + chunk(b"IDAT", zlib.compress(b"\0" * 64))
+    path.write_bytes(body + chunk(b"IEND", b""))
+
+
+@pytest.mark.parametrize(
+    ("name", "content", "message"),
+    [
+        ("empty.jpg", b"", "file is empty"),
+        ("notes.jpg", b"this is not a photo\n" * 20, "not an image"),
+    ],
+)
+def test_bad_files_are_refused_in_one_line(tmp_path: Path, name: str, content: bytes, message: str) -> None:
+    path = tmp_path / name
+    path.write_bytes(content)
+    with pytest.raises(PhotoError, match=message) as info:
+        load_photo(path)
+    assert "\n" not in str(info.value) and str(path) in str(info.value)
+
+
+def test_truncated_jpeg_is_refused(tmp_path: Path) -> None:
+    ok, buf = cv2.imencode(".jpg", np.random.default_rng(1).integers(0, 255, (200, 200, 3), np.uint8))
+    assert ok
+    path = tmp_path / "half.jpg"
+    path.write_bytes(buf.tobytes()[: len(buf) // 2])
+    with pytest.raises(PhotoError, match="truncated"):
+        load_photo(path)
+
+
+def test_decompression_bomb_is_refused_before_decoding(tmp_path: Path) -> None:
+    path = tmp_path / "bomb.png"
+    _bomb_png(path, 100_000, 100_000)
+    with pytest.raises(PhotoError, match="pixels|too many"):
+        load_photo(path)
+
+
+def test_missing_folder_and_unreadable(tmp_path: Path) -> None:
+    with pytest.raises(PhotoError, match="not found"):
+        load_photo(tmp_path / "nope.jpg")
+    folder = tmp_path / "looks-like.jpg"
+    folder.mkdir()
+    with pytest.raises(PhotoError, match="folder"):
+        load_photo(folder)
+    if os.geteuid() != 0:  # root reads any file, so the permission case only exists for users
+        locked = tmp_path / "locked.jpg"
+        Image.fromarray(_pattern()).save(locked)
+        locked.chmod(0)
+        with pytest.raises(PhotoError, match="permission"):
+            load_photo(locked)
+
+
+@pytest.mark.parametrize("name", ["with space.jpg", "ünïcödé-φωτο.jpg", "a;b&c$(x)`y`'q\".jpg"])
+def test_awkward_file_names(tmp_path: Path, name: str) -> None:
+    path = tmp_path / name
+    Image.fromarray(_pattern()).save(path, format="JPEG")
+    before = path.read_bytes()
+    photo = load_photo(path)
+    assert photo.name == name and photo.image.shape == (60, 80, 3)
+    assert path.read_bytes() == before  # photos are never modified
