@@ -4,15 +4,35 @@ Counting follows DESIGN.md "Contract: grid and counting": a spot belongs to the 
 and the cell that hold its centroid; bearing is on the analysed area (window less
 exclusions); density = spot_count * cell_mm**2 / area_mm2.  All lengths here are mm.
 
-(Interface fixed here; the implementation is being built.)
+Conventions chosen here (where the contract is silent):
+
+- Spots are 8-connected groups of contact pixels (pixels touching at a corner are one
+  mark), the same as ``scipy.ndimage.label(mask, structure=np.ones((3, 3)))``.
+- Specks below ``min_spot_mm2`` are not spots and do not count as contact either: the
+  bearing is the share of analysed pixels covered by spots.
+- A spot's centroid is the mean of its pixel centres; it lies in the window (and in a
+  cell) when the pixel holding it is an analysed pixel (pixel centres decide which
+  pixels belong to the window and to each cell, as in
+  :meth:`printcheck.frame.Frame.window_slices`).
+- Touching spots are split where a narrow neck joins two round bodies: the
+  distance transform of the spot has two peaks ``r1 <= r2`` joined by a saddle ``d``
+  with ``d < neck_ratio * r1`` (and ``r1 - d`` at least a pixel).  One irregular spot,
+  whose lobes join through wide necks, stays one spot.
+- The largest bare patch is the largest circle that lies inside the analysed area (the
+  window less exclusions) and touches no spot; its diameter comes from the Euclidean
+  distance transform of the bare analysed pixels.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
+from dataclasses import dataclass, field
 
+import cv2
 import numpy as np
+from scipy import ndimage
 
+from printcheck.errors import OptionError
 from printcheck.frame import Frame
 
 __all__ = [
@@ -24,7 +44,10 @@ __all__ = [
     "Guidance",
     "Measurement",
     "measure",
+    "label_spots",
 ]
+
+_EIGHT = np.ones((3, 3), dtype=bool)
 
 
 @dataclass(frozen=True)
@@ -41,12 +64,31 @@ class MeasureConfig:
         Separate spots that merely touch (a narrow neck) into their own spots.
     max_bare_mm : float or None
         Bare patches larger than this are flagged in the guidance (from the spec).
+    neck_ratio : float
+        Two bodies of one mark are split when the neck between them is narrower than
+        this share of the smaller body's inscribed radius (0 < neck_ratio < 1).
+    doubtful_change : float
+        The result is flagged doubtful when the count at a nudged threshold differs
+        from the count by more than this share (or the bearing by more than
+        ``doubtful_bearing`` percentage points).
+    doubtful_bearing : float
+        See ``doubtful_change``; percentage points.
+    oversize_factor : float
+        Spots larger than this many times the median spot area are high areas.
+    heavy_bearing_factor : float
+        Regions whose local bearing exceeds this many times the window's bearing (and
+        by at least 15 percentage points) are heavy-bearing high areas.
     """
 
     cell_mm: float = 25.4
     min_spot_mm2: float = 0.1
     split_touching: bool = True
     max_bare_mm: float | None = None
+    neck_ratio: float = 0.6
+    doubtful_change: float = 0.15
+    doubtful_bearing: float = 5.0
+    oversize_factor: float = 4.0
+    heavy_bearing_factor: float = 1.5
 
 
 @dataclass(frozen=True, eq=False)
@@ -72,6 +114,9 @@ class Spots:
     in_window: np.ndarray
     row: np.ndarray
     col: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.area_mm2.shape[0])
 
 
 @dataclass(frozen=True)
@@ -147,7 +192,10 @@ class Measurement:
     confidence : Confidence or None
     guidance : Guidance
     size_stats : dict of str to float
-        Spot sizes in the window: median/p90 area_mm2 and diameter_mm.
+        Spot sizes in the window: median/p90 area_mm2 and diameter_mm (0 when there
+        are no spots), and ``mean_area_mm2``.
+    alternates : tuple of (int, float)
+        (spot_count, bearing_percent) measured on each alternate mask, in order.
     """
 
     spots: Spots
@@ -164,6 +212,208 @@ class Measurement:
     confidence: Confidence | None
     guidance: Guidance
     size_stats: dict[str, float]
+    alternates: tuple[tuple[int, float], ...] = field(default=())
+
+
+# --------------------------------------------------------------------------- spots
+
+
+def label_spots(
+    mask: np.ndarray,
+    *,
+    px_per_mm: float,
+    min_spot_mm2: float = 0.1,
+    split_touching: bool = True,
+    neck_ratio: float = 0.6,
+) -> tuple[np.ndarray, int]:
+    """Label the spots of a contact mask.
+
+    Parameters
+    ----------
+    mask : (M, N) bool ndarray
+        Contact pixels.
+    px_per_mm : float
+        Resolution, for the minimum spot area.
+    min_spot_mm2 : float
+        Components smaller than this (in mm²) are dropped.
+    split_touching : bool
+        Split marks joined by a narrow neck (see the module docstring).
+    neck_ratio : float
+        Neck width, as a share of the smaller body's inscribed radius, below which two
+        bodies are split.
+
+    Returns
+    -------
+    labels : (M, N) int32 ndarray
+        0 for background, 1..K for the spots, numbered in raster order of each spot's
+        first pixel (as ``scipy.ndimage.label`` numbers components).
+    count : int
+        K.
+    """
+    mask = np.asarray(mask, dtype=bool)
+    if mask.ndim != 2:
+        raise OptionError(f"contact mask must be 2-D (M, N), got shape {mask.shape}")
+    n, comp = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    n -= 1
+    if n == 0:
+        return np.zeros(mask.shape, np.int32), 0
+    areas = np.bincount(comp.ravel(), minlength=n + 1)
+    min_px = min_spot_mm2 * px_per_mm**2
+    keep = areas >= min_px - 1e-9
+    keep[0] = False
+    if split_touching and keep.any():
+        comp = _split(comp, keep, px_per_mm=px_per_mm, min_px=min_px, neck_ratio=neck_ratio)
+    else:
+        lut = np.where(keep, np.arange(n + 1), 0).astype(np.int32)
+        comp = lut[comp]
+    return _renumber(comp)
+
+
+def _renumber(labels: np.ndarray) -> tuple[np.ndarray, int]:
+    """Renumber labels 1..K in raster order of each label's first pixel."""
+    flat = labels.ravel()
+    nz = np.flatnonzero(flat)
+    if nz.size == 0:
+        return np.zeros(labels.shape, np.int32), 0
+    vals = flat[nz]
+    first = np.full(int(vals.max()) + 1, np.iinfo(np.int64).max, np.int64)
+    np.minimum.at(first, vals, nz)
+    values = np.flatnonzero(first != np.iinfo(np.int64).max)
+    order = np.argsort(first[values], kind="stable")
+    lut = np.zeros(first.size, np.int32)
+    lut[values[order]] = np.arange(1, values.size + 1, dtype=np.int32)
+    return lut[labels], int(values.size)
+
+
+def _split(
+    comp: np.ndarray, keep: np.ndarray, *, px_per_mm: float, min_px: float, neck_ratio: float
+) -> np.ndarray:
+    """Split kept components at narrow necks; return a label image (any numbering)."""
+    from skimage.segmentation import watershed
+
+    kept = keep[comp]
+    padded = np.pad(kept, 1).view(np.uint8)
+    edt = cv2.distanceTransform(padded, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)[1:-1, 1:-1]
+    # regional-maximum candidates (plateau pixels included; merging below sorts them out)
+    peaks = (edt >= cv2.dilate(edt, np.ones((3, 3), np.uint8))) & kept
+    pn, plab = cv2.connectedComponents(peaks.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    pn -= 1
+    # components holding more than one peak candidate are the only ones worth splitting
+    first_peak_comp = np.zeros(pn + 1, np.int64)
+    first_peak_comp[plab[plab > 0]] = comp[plab > 0]
+    peaks_in_comp = np.bincount(first_peak_comp[1:], minlength=keep.size)
+    multi = (peaks_in_comp >= 2) & keep
+    out = np.where(keep[comp], comp, 0).astype(np.int32)
+    if not multi.any():
+        return out
+    region = multi[comp]
+    markers = np.where(region, plab, 0)
+    ws = watershed(-edt, markers=markers, mask=region, connectivity=2)
+    nws = int(plab.max()) + 1
+    # each watershed region's peak is its marker's value (a marker is a plateau)
+    peak = np.zeros(nws, np.float64)
+    mk = markers > 0
+    peak[markers[mk]] = edt[mk]
+    area = np.bincount(ws.ravel(), minlength=nws).astype(np.float64)
+    # saddles between touching watershed regions: max over neighbour pairs of min(edt)
+    keys_l: list[np.ndarray] = []
+    vals_l: list[np.ndarray] = []
+    for a_sl, b_sl in (
+        ((slice(None), slice(None, -1)), (slice(None), slice(1, None))),
+        ((slice(None, -1), slice(None)), (slice(1, None), slice(None))),
+        ((slice(None, -1), slice(None, -1)), (slice(1, None), slice(1, None))),
+        ((slice(None, -1), slice(1, None)), (slice(1, None), slice(None, -1))),
+    ):
+        a, b = ws[a_sl], ws[b_sl]
+        sel = (a != b) & (a > 0) & (b > 0)
+        if not sel.any():
+            continue
+        la, lb = a[sel].astype(np.int64), b[sel].astype(np.int64)
+        lo, hi = np.minimum(la, lb), np.maximum(la, lb)
+        keys_l.append(lo * nws + hi)
+        vals_l.append(np.minimum(edt[a_sl][sel], edt[b_sl][sel]))
+    if not keys_l:
+        return out
+    keys = np.concatenate(keys_l)
+    vals = np.concatenate(vals_l)
+    order = np.argsort(keys, kind="stable")
+    keys, vals = keys[order], vals[order]
+    starts = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])
+    ukeys = keys[starts]
+    saddle = np.maximum.reduceat(vals, starts)
+    # merge in order of decreasing saddle (a persistence merge with a relative criterion)
+    parent = np.arange(nws)
+    top = peak.copy()
+    size = area.copy()
+
+    def find(i: int) -> int:
+        root = i
+        while parent[root] != root:
+            root = parent[root]
+        while parent[i] != root:
+            parent[i], i = root, parent[i]
+        return root
+
+    min_radius = 0.5 * math.sqrt(min_px / math.pi)
+    for k in np.argsort(-saddle, kind="stable"):
+        ra, rb = find(int(ukeys[k] // nws)), find(int(ukeys[k] % nws))
+        if ra == rb:
+            continue
+        s = float(saddle[k])
+        low = min(top[ra], top[rb])
+        split = (
+            s < neck_ratio * low
+            and low - s >= 1.0
+            and low >= min_radius
+            and min(size[ra], size[rb]) >= min_px
+        )
+        if not split:
+            parent[rb] = ra
+            top[ra] = max(top[ra], top[rb])
+            size[ra] += size[rb]
+    roots = np.array([find(i) for i in range(nws)], dtype=np.int64)
+    base = int(comp.max()) + 1
+    ws_final = np.where(ws > 0, base + roots[ws], 0)
+    return np.where(region, ws_final, out).astype(np.int32)
+
+
+def _spot_table(labels: np.ndarray, count: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pixel area and mean pixel (row, col) of each label 1..count."""
+    flat = labels.ravel()
+    sel = flat > 0
+    idx = flat[sel]
+    pos = np.flatnonzero(sel)
+    cols_n = labels.shape[1]
+    area = np.bincount(idx, minlength=count + 1)[1:].astype(np.float64)
+    rsum = np.bincount(idx, weights=(pos // cols_n).astype(np.float64), minlength=count + 1)[1:]
+    csum = np.bincount(idx, weights=(pos % cols_n).astype(np.float64), minlength=count + 1)[1:]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return area, rsum / area, csum / area
+
+
+# --------------------------------------------------------------------------- geometry
+
+
+def _axis_cells(n_px: int, origin: float, s: float, start: float, length: float, cell: float):
+    """Per-pixel cell index along one axis (-1 outside the window), and cell count."""
+    centres = origin + (np.arange(n_px) + 0.5) / s
+    t = (centres - start) / cell
+    n_cells = max(1, int(math.ceil(length / cell - 1e-9)))
+    idx = np.floor(t + 1e-9).astype(np.int64)
+    inside = (centres >= start - 1e-9 / s) & (centres < start + length - 1e-9 / s)
+    idx[~inside] = -1
+    idx[idx >= n_cells] = n_cells - 1
+    return idx, n_cells
+
+
+def _count_centres(origin: float, s: float, lo: float, hi: float) -> int:
+    """Number of pixel centres (unbounded grid) in [lo, hi) along one axis."""
+    a = math.ceil((lo - origin) * s - 0.5 - 1e-9)
+    b = math.ceil((hi - origin) * s - 0.5 - 1e-9)
+    return max(0, b - a)
+
+
+# --------------------------------------------------------------------------- measure
 
 
 def measure(
@@ -176,7 +426,357 @@ def measure(
 ) -> Measurement:
     """Measure the contact ``mask`` (M, N) bool on rectified ``frame``.
 
-    ``analysed`` (M, N) bool is the window less exclusions; ``alternates`` are masks
-    at nudged thresholds from which the confidence range is taken.
+    Parameters
+    ----------
+    mask : (M, N) bool ndarray
+        Contact pixels (from the segment stage).
+    frame : Frame
+        Pixel geometry; ``frame.shape`` must equal ``mask.shape``.
+    analysed : (M, N) bool ndarray
+        The window less exclusions (and less what the photo does not show).
+    config : MeasureConfig
+    alternates : tuple of (M, N) bool ndarray
+        Masks at nudged thresholds from which the confidence range is taken; with
+        none, ``confidence`` is None.
+
+    Returns
+    -------
+    Measurement
     """
-    raise NotImplementedError
+    mask = np.asarray(mask, dtype=bool)
+    analysed = np.asarray(analysed, dtype=bool)
+    if mask.ndim != 2 or mask.shape != analysed.shape:
+        raise OptionError(
+            f"contact mask {mask.shape} and analysed mask {analysed.shape} must be the same "
+            "2-D shape; pass masks of the rectified image"
+        )
+    if tuple(frame.shape) != mask.shape:
+        raise OptionError(
+            f"frame shape {tuple(frame.shape)} does not match the mask {mask.shape}; "
+            "pass the frame of the rectified image that was segmented"
+        )
+    if not config.cell_mm > 0:
+        raise OptionError(f"cell_mm must be greater than zero, got {config.cell_mm!r}")
+    if not config.min_spot_mm2 >= 0:
+        raise OptionError(f"min_spot_mm2 must be zero or more, got {config.min_spot_mm2!r}")
+    if not 0 < config.neck_ratio < 1:
+        raise OptionError(f"neck_ratio must be between 0 and 1, got {config.neck_ratio!r}")
+    for i, alt in enumerate(alternates):
+        if np.shape(alt) != mask.shape:
+            raise OptionError(
+                f"alternate mask {i} has shape {np.shape(alt)}, expected {mask.shape}"
+            )
+
+    s = float(frame.px_per_mm)
+    px_area = 1.0 / (s * s)
+    win = frame.window
+    c_mm = float(config.cell_mm)
+    rows_px, cols_px = mask.shape
+
+    labels, count = label_spots(
+        mask,
+        px_per_mm=s,
+        min_spot_mm2=config.min_spot_mm2,
+        split_touching=config.split_touching,
+        neck_ratio=config.neck_ratio,
+    )
+    contact = labels > 0
+
+    # --- cells: per-pixel cell index by pixel centre
+    row_idx, n_rows = _axis_cells(rows_px, frame.origin_mm[1], s, win.y_mm, win.height_mm, c_mm)
+    col_idx, n_cols = _axis_cells(cols_px, frame.origin_mm[0], s, win.x_mm, win.width_mm, c_mm)
+    cell_of = np.where(
+        (row_idx[:, None] >= 0) & (col_idx[None, :] >= 0),
+        row_idx[:, None] * n_cols + col_idx[None, :],
+        -1,
+    )
+    n_cells = n_rows * n_cols
+    in_an = analysed & (cell_of >= 0)
+    cell_area_px = np.bincount(cell_of[in_an], minlength=n_cells)
+    cell_contact_px = np.bincount(cell_of[in_an & contact], minlength=n_cells)
+
+    # --- spots
+    area_px, rc, cc = _spot_table(labels, count)
+    x_mm, y_mm = frame.to_mm(rc, cc)
+    # the pixel holding the centroid (pixel (r, c) covers [r, r+1) in centre-0.5 units)
+    pr = np.floor(rc + 0.5).astype(np.int64)
+    pc = np.floor(cc + 0.5).astype(np.int64)
+    inside = (pr >= 0) & (pr < rows_px) & (pc >= 0) & (pc < cols_px)
+    prc, pcc = np.clip(pr, 0, rows_px - 1), np.clip(pc, 0, cols_px - 1)
+    spot_cell = np.where(inside, cell_of[prc, pcc], -1)
+    in_window = inside & analysed[prc, pcc] & (spot_cell >= 0)
+    spot_cell = np.where(in_window, spot_cell, -1)
+    spot_row = np.where(in_window, spot_cell // n_cols, -1).astype(np.int64)
+    spot_col = np.where(in_window, spot_cell % n_cols, -1).astype(np.int64)
+    area_mm2 = area_px * px_area
+    spots = Spots(
+        area_mm2=area_mm2,
+        diameter_mm=np.sqrt(4.0 * area_mm2 / math.pi),
+        x_mm=np.asarray(x_mm, dtype=np.float64),
+        y_mm=np.asarray(y_mm, dtype=np.float64),
+        in_window=in_window,
+        row=spot_row,
+        col=spot_col,
+    )
+    cell_count = np.bincount(spot_cell[in_window], minlength=n_cells)
+
+    analysed_px = int(in_an.sum())
+    window_area = analysed_px * px_area
+    spot_count = int(in_window.sum())
+    density = spot_count * c_mm**2 / window_area if window_area > 0 else 0.0
+    bearing = 100.0 * int(cell_contact_px.sum()) / analysed_px if analysed_px else 0.0
+
+    cells: list[Cell] = []
+    for r in range(n_rows):
+        for c in range(n_cols):
+            k = r * n_cols + c
+            x0 = win.x_mm + c * c_mm
+            y0 = win.y_mm + r * c_mm
+            x1 = min(x0 + c_mm, win.x_mm + win.width_mm)
+            y1 = min(y0 + c_mm, win.y_mm + win.height_mm)
+            a_mm2 = float(cell_area_px[k]) * px_area
+            full = (
+                _count_centres(frame.origin_mm[0], s, x0, x1)
+                * _count_centres(frame.origin_mm[1], s, y0, y1)
+            )
+            complete = (
+                x0 + c_mm <= win.x_mm + win.width_mm + 1e-6
+                and y0 + c_mm <= win.y_mm + win.height_mm + 1e-6
+                and int(cell_area_px[k]) == full
+                and full > 0
+            )
+            n_here = int(cell_count[k])
+            cells.append(
+                Cell(
+                    row=r,
+                    col=c,
+                    x_mm=float(x0),
+                    y_mm=float(y0),
+                    width_mm=float(x1 - x0),
+                    height_mm=float(y1 - y0),
+                    area_mm2=a_mm2,
+                    complete=bool(complete),
+                    spot_count=n_here,
+                    density=n_here * c_mm**2 / a_mm2 if a_mm2 > 0 else 0.0,
+                    bearing_percent=(
+                        100.0 * float(cell_contact_px[k]) / float(cell_area_px[k])
+                        if cell_area_px[k]
+                        else 0.0
+                    ),
+                )
+            )
+
+    # --- bare patches
+    free = in_an & ~contact
+    largest, bare_edt = _largest_bare(free, frame)
+
+    # --- size statistics of the counted spots
+    a_in = area_mm2[in_window]
+    d_in = spots.diameter_mm[in_window]
+    if a_in.size:
+        size_stats = {
+            "median_area_mm2": float(np.median(a_in)),
+            "p90_area_mm2": float(np.percentile(a_in, 90)),
+            "mean_area_mm2": float(np.mean(a_in)),
+            "median_diameter_mm": float(np.median(d_in)),
+            "p90_diameter_mm": float(np.percentile(d_in, 90)),
+        }
+    else:
+        size_stats = dict.fromkeys(
+            ("median_area_mm2", "p90_area_mm2", "mean_area_mm2", "median_diameter_mm",
+             "p90_diameter_mm"),
+            0.0,
+        )
+
+    # --- confidence from the alternate masks
+    alt_results: list[tuple[int, float]] = []
+    for alt in alternates:
+        alt_labels, alt_n = label_spots(
+            np.asarray(alt, dtype=bool),
+            px_per_mm=s,
+            min_spot_mm2=config.min_spot_mm2,
+            split_touching=config.split_touching,
+            neck_ratio=config.neck_ratio,
+        )
+        _, arc, acc = _spot_table(alt_labels, alt_n)
+        apr = np.floor(arc + 0.5).astype(np.int64)
+        apc = np.floor(acc + 0.5).astype(np.int64)
+        ok = (apr >= 0) & (apr < rows_px) & (apc >= 0) & (apc < cols_px)
+        ok &= in_an[np.clip(apr, 0, rows_px - 1), np.clip(apc, 0, cols_px - 1)]
+        alt_bearing = (
+            100.0 * int(np.count_nonzero((alt_labels > 0) & in_an)) / analysed_px
+            if analysed_px
+            else 0.0
+        )
+        alt_results.append((int(ok.sum()), alt_bearing))
+    confidence = _confidence(spot_count, bearing, alt_results, config) if alternates else None
+
+    guidance = _guidance(
+        spots=spots,
+        contact=contact,
+        in_an=in_an,
+        frame=frame,
+        bare_edt=bare_edt,
+        bearing=bearing,
+        config=config,
+    )
+
+    return Measurement(
+        spots=spots,
+        labels=labels,
+        area_mm2=float(window_area),
+        spot_count=spot_count,
+        density=float(density),
+        bearing_percent=float(bearing),
+        largest_bare=largest,
+        cells=tuple(cells),
+        rows=n_rows,
+        cols=n_cols,
+        cell_mm=c_mm,
+        confidence=confidence,
+        guidance=guidance,
+        size_stats=size_stats,
+        alternates=tuple(alt_results),
+    )
+
+
+def _largest_bare(free: np.ndarray, frame: Frame) -> tuple[BarePatch, np.ndarray]:
+    """Largest circle inside ``free`` (bare analysed pixels); also the radius map in px.
+
+    The distance transform gives the distance from each free pixel centre to the
+    nearest blocked pixel centre; the blocked pixel's square edge is half a pixel
+    nearer, so the circle's radius is that distance less 0.5 px.
+    """
+    if not free.any():
+        x, y = frame.to_mm(np.array(0.0), np.array(0.0))
+        return BarePatch(0.0, float(x), float(y)), np.zeros(free.shape, np.float32)
+    padded = np.pad(free, 1).view(np.uint8)
+    edt = cv2.distanceTransform(padded, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)[1:-1, 1:-1]
+    radius = np.maximum(edt - 0.5, 0.0)
+    k = int(np.argmax(radius))
+    r, c = divmod(k, free.shape[1])
+    x, y = frame.to_mm(np.array(float(r)), np.array(float(c)))
+    return BarePatch(2.0 * float(radius.flat[k]) / frame.px_per_mm, float(x), float(y)), radius
+
+
+def _confidence(
+    count: int, bearing: float, alts: list[tuple[int, float]], config: MeasureConfig
+) -> Confidence:
+    counts = [count] + [a for a, _ in alts]
+    bears = [bearing] + [b for _, b in alts]
+    lo, hi = min(counts), max(counts)
+    blo, bhi = min(bears), max(bears)
+    change = max(abs(c - count) for c in counts) / max(count, 1)
+    bchange = max(abs(b - bearing) for b in bears)
+    reasons = []
+    if change > config.doubtful_change and max(abs(c - count) for c in counts) > 1:
+        reasons.append(
+            f"spot count moves {lo}-{hi} (±{100 * change:.0f}%) when the compound "
+            "threshold is nudged"
+        )
+    if bchange > config.doubtful_bearing:
+        reasons.append(
+            f"bearing moves {blo:.1f}-{bhi:.1f}% when the compound threshold is nudged"
+        )
+    reason = "; ".join(reasons)
+    if reason:
+        reason += ": the photo may be blurred, glary or badly lit; retake it"
+    return Confidence(
+        count_low=int(lo),
+        count_high=int(hi),
+        bearing_low=float(blo),
+        bearing_high=float(bhi),
+        doubtful=bool(reasons),
+        reason=reason,
+    )
+
+
+def _guidance(
+    *,
+    spots: Spots,
+    contact: np.ndarray,
+    in_an: np.ndarray,
+    frame: Frame,
+    bare_edt: np.ndarray,
+    bearing: float,
+    config: MeasureConfig,
+) -> Guidance:
+    s = frame.px_per_mm
+    high: list[tuple[float, float, float, str]] = []
+    inw = spots.in_window
+    if inw.sum() >= 5:
+        med = float(np.median(spots.area_mm2[inw]))
+        big = np.flatnonzero(inw & (spots.area_mm2 > config.oversize_factor * med))
+        big = big[np.argsort(-spots.area_mm2[big], kind="stable")][:50]
+        for i in big:
+            a = float(spots.area_mm2[i])
+            high.append(
+                (
+                    float(spots.x_mm[i]),
+                    float(spots.y_mm[i]),
+                    float(spots.diameter_mm[i]),
+                    f"large spot {a:.1f} mm² ({a / med:.0f}x the median): break it up",
+                )
+            )
+    # heavy-bearing regions: local bearing over a box of half a cell
+    if in_an.any() and bearing > 0:
+        k = max(3, int(round(0.5 * config.cell_mm * s)) | 1)
+        an_f = in_an.astype(np.float32)
+        num = cv2.boxFilter((contact & in_an).astype(np.float32), -1, (k, k), normalize=False,
+                            borderType=cv2.BORDER_CONSTANT)
+        den = cv2.boxFilter(an_f, -1, (k, k), normalize=False, borderType=cv2.BORDER_CONSTANT)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            local = np.where(den > 0.5 * k * k, 100.0 * num / np.maximum(den, 1.0), 0.0)
+        limit = max(config.heavy_bearing_factor * bearing, bearing + 15.0)
+        heavy = (local > limit) & in_an
+        if heavy.any():
+            n, lab, stats, cents = cv2.connectedComponentsWithStats(
+                heavy.view(np.uint8), connectivity=8
+            )
+            order = np.argsort(-stats[1:, cv2.CC_STAT_AREA])[:20] + 1
+            for j in order:
+                area_px = float(stats[j, cv2.CC_STAT_AREA])
+                if area_px < 0.25 * k * k:
+                    continue
+                cx, cy = frame.to_mm(np.array(cents[j][1]), np.array(cents[j][0]))
+                peak = float(local[lab == j].max())
+                high.append(
+                    (
+                        float(cx),
+                        float(cy),
+                        2.0 * math.sqrt(area_px / math.pi) / s,
+                        f"heavy bearing {peak:.0f}% against {bearing:.0f}% overall: "
+                        "scrape this area down",
+                    )
+                )
+    bare: list[BarePatch] = []
+    if config.max_bare_mm is not None and bare_edt.size:
+        limit_px = 0.5 * config.max_bare_mm * s
+        bare = _bare_patches(bare_edt, limit_px, frame)
+    return Guidance(high=tuple(high), bare=tuple(bare))
+
+
+def _bare_patches(radius: np.ndarray, limit_px: float, frame: Frame) -> list[BarePatch]:
+    """Disjoint circles of radius above ``limit_px``, largest first (at most 20)."""
+    cand = (radius > limit_px) & (radius >= cv2.dilate(radius, np.ones((3, 3), np.uint8)))
+    rr, cc = np.nonzero(cand)
+    if rr.size == 0:
+        return []
+    rad = radius[rr, cc]
+    order = np.argsort(-rad, kind="stable")
+    rr, cc, rad = rr[order], cc[order], rad[order]
+    taken: list[int] = []
+    alive = np.ones(rr.size, bool)
+    for i in range(rr.size):
+        if not alive[i]:
+            continue
+        taken.append(i)
+        if len(taken) >= 20:
+            break
+        d = np.hypot(rr - rr[i], cc - cc[i])
+        alive &= d >= rad[i] + rad
+    out = []
+    for i in taken:
+        x, y = frame.to_mm(np.array(float(rr[i])), np.array(float(cc[i])))
+        out.append(BarePatch(2.0 * float(rad[i]) / frame.px_per_mm, float(x), float(y)))
+    return out

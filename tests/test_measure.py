@@ -1,0 +1,343 @@
+"""Tests of printcheck.measure on exact masks.
+
+Reference libraries: scipy.ndimage.label / center_of_mass / sum_labels and
+skimage.measure.regionprops for the spots; plane geometry for the bare patch.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+from scipy import ndimage
+from skimage.measure import regionprops
+
+from printcheck.errors import OptionError
+from printcheck.frame import Frame
+from printcheck.layout import Window
+from printcheck.measure import MeasureConfig, label_spots, measure
+
+EIGHT = np.ones((3, 3), bool)
+
+
+def _frame(shape, s=10.0, origin=(0.0, 0.0), window=None):
+    if window is None:
+        window = Window(origin[0], origin[1], shape[1] / s, shape[0] / s)
+    return Frame(px_per_mm=s, origin_mm=origin, shape=shape, window=window)
+
+
+def _disc(shape, cy, cx, r):
+    yy, xx = np.mgrid[: shape[0], : shape[1]]
+    return (yy - cy) ** 2 + (xx - cx) ** 2 <= r * r
+
+
+def _window_mask(frame):
+    m = np.zeros(frame.shape, bool)
+    m[frame.window_slices()] = True
+    return m
+
+
+# ---------------------------------------------------------------- exact tiny cases
+
+
+def test_tiny_hand_built_counts_and_centroids():
+    # Two 2x2 squares and one single pixel at 1 px/mm, window = whole 6x8 image.
+    mask = np.zeros((6, 8), bool)
+    mask[0:2, 0:2] = True  # centroid pixel (0.5, 0.5) -> (x, y) = (1.0, 1.0) mm
+    mask[3:5, 5:7] = True  # centroid pixel (3.5, 5.5) -> (6.0, 4.0) mm
+    mask[5, 0] = True  # 1 mm² speck (kept at min 0.5 mm²)
+    frame = _frame(mask.shape, s=1.0)
+    m = measure(mask, frame=frame, analysed=_window_mask(frame),
+                config=MeasureConfig(cell_mm=4.0, min_spot_mm2=0.5))
+    assert m.spot_count == 3
+    assert m.area_mm2 == 48.0
+    np.testing.assert_allclose(m.spots.area_mm2, [4.0, 4.0, 1.0])
+    np.testing.assert_allclose(m.spots.x_mm, [1.0, 6.0, 0.5])
+    np.testing.assert_allclose(m.spots.y_mm, [1.0, 4.0, 5.5])
+    assert m.bearing_percent == pytest.approx(100 * 9 / 48)
+    # cells of 4 mm: 2 rows (4 + 2 mm) x 2 cols; row 1 is cut by the window edge
+    assert (m.rows, m.cols) == (2, 2)
+    by = {(c.row, c.col): c for c in m.cells}
+    assert by[0, 0].spot_count == 1 and by[0, 0].complete
+    assert by[1, 1].spot_count == 1 and not by[1, 1].complete
+    assert by[1, 0].spot_count == 1 and by[1, 0].area_mm2 == 8.0
+    # density normalised by the real area: 1 spot * 16 / 8
+    assert by[1, 0].density == pytest.approx(2.0)
+    assert m.density == pytest.approx(3 * 16 / 48)
+    assert sum(c.spot_count for c in m.cells) == m.spot_count
+
+
+def test_min_spot_area_drops_specks_and_their_bearing():
+    mask = np.zeros((20, 20), bool)
+    mask[2:4, 2:4] = True  # 4 px = 0.04 mm² at 10 px/mm: a speck at 0.1 mm²
+    mask[10:14, 10:14] = True  # 16 px = 0.16 mm²
+    frame = _frame(mask.shape)
+    m = measure(mask, frame=frame, analysed=_window_mask(frame))
+    assert m.spot_count == 1
+    assert m.spots.area_mm2[0] == pytest.approx(0.16)
+    assert m.bearing_percent == pytest.approx(100 * 16 / 400)
+    assert int((m.labels > 0).sum()) == 16
+
+
+def test_empty_and_full_masks():
+    frame = _frame((30, 40))
+    an = _window_mask(frame)
+    empty = measure(np.zeros((30, 40), bool), frame=frame, analysed=an)
+    assert empty.spot_count == 0 and empty.bearing_percent == 0.0
+    # no spot: the largest bare circle is the inscribed circle of the 3 x 4 mm window
+    assert empty.largest_bare.diameter_mm == pytest.approx(3.0, abs=0.11)
+    assert empty.size_stats["median_area_mm2"] == 0.0
+    full = measure(np.ones((30, 40), bool), frame=frame, analysed=an)
+    assert full.spot_count == 1 and full.bearing_percent == 100.0
+    assert full.largest_bare.diameter_mm == 0.0
+
+
+# ---------------------------------------------------------------- reference libraries
+
+
+@settings(max_examples=60, deadline=None)
+@given(arrays(bool, st.tuples(st.integers(1, 40), st.integers(1, 40))))
+def test_labelling_matches_scipy_and_skimage(mask):
+    """Without splitting and speck removal, spots are scipy's 8-connected components."""
+    labels, n = label_spots(mask, px_per_mm=1.0, min_spot_mm2=0.0, split_touching=False)
+    ref, n_ref = ndimage.label(mask, structure=EIGHT)
+    assert n == n_ref
+    # scipy numbers components in raster order of their first pixel, as we do
+    np.testing.assert_array_equal(labels, ref)
+    frame = _frame(mask.shape, s=1.0)
+    m = measure(mask, frame=frame, analysed=np.ones(mask.shape, bool),
+                config=MeasureConfig(min_spot_mm2=0.0, split_touching=False, cell_mm=7.0))
+    assert m.spot_count == n_ref
+    if n_ref:
+        com = np.array(ndimage.center_of_mass(mask, ref, range(1, n_ref + 1)))
+        # pixel (r, c) centre is at (c + 0.5, r + 0.5) mm at 1 px/mm, origin 0
+        np.testing.assert_allclose(m.spots.y_mm, com[:, 0] + 0.5, atol=1e-9)
+        np.testing.assert_allclose(m.spots.x_mm, com[:, 1] + 0.5, atol=1e-9)
+        props = regionprops(ref)
+        np.testing.assert_allclose(m.spots.area_mm2, [p.area for p in props])
+        np.testing.assert_allclose(
+            m.spots.diameter_mm, [p.equivalent_diameter_area for p in props], rtol=1e-9
+        )
+        assert m.bearing_percent == pytest.approx(100 * mask.mean())
+        assert sum(c.spot_count for c in m.cells) == n_ref
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    arrays(bool, st.tuples(st.integers(5, 40), st.integers(5, 40))),
+    st.floats(0.5, 6.0),
+)
+def test_speck_removal_matches_scipy_sizes(mask, min_area):
+    labels, n = label_spots(mask, px_per_mm=1.0, min_spot_mm2=min_area, split_touching=False)
+    ref, n_ref = ndimage.label(mask, structure=EIGHT)
+    sizes = ndimage.sum_labels(mask, ref, range(1, n_ref + 1)) if n_ref else np.array([])
+    assert n == int(np.sum(sizes >= min_area))
+    assert int((labels > 0).sum()) == int(sizes[sizes >= min_area].sum())
+
+
+def test_counting_by_centroid_matches_scipy_on_random_discs():
+    rng = np.random.default_rng(7)
+    shape = (300, 300)
+    mask = np.zeros(shape, bool)
+    for _ in range(60):
+        mask |= _disc(shape, *rng.uniform(-5, 305, 2), rng.uniform(2, 8))
+    # window inset by 5 mm (50 px) in a frame with visible margin around it
+    s = 10.0
+    frame = _frame(shape, s=s, origin=(-5.0, -5.0), window=Window(0.0, 0.0, 20.0, 20.0))
+    an = _window_mask(frame)
+    m = measure(mask, frame=frame, analysed=an,
+                config=MeasureConfig(cell_mm=10.0, min_spot_mm2=0.0, split_touching=False))
+    ref, n_ref = ndimage.label(mask, structure=EIGHT)
+    com = np.array(ndimage.center_of_mass(mask, ref, range(1, n_ref + 1)))
+    x = -5.0 + (com[:, 1] + 0.5) / s
+    y = -5.0 + (com[:, 0] + 0.5) / s
+    inside = (x >= 0) & (x < 20) & (y >= 0) & (y < 20)
+    assert m.spot_count == int(inside.sum())
+    # spots are measured whole past the window edge
+    assert len(m.spots) == n_ref
+    ref_cells = np.bincount((np.floor(y[inside] / 10) * 2 + np.floor(x[inside] / 10)).astype(int),
+                            minlength=4)
+    got = [c.spot_count for c in m.cells]
+    np.testing.assert_array_equal(got, ref_cells)
+    assert all(c.complete for c in m.cells)
+    assert m.bearing_percent == pytest.approx(100 * mask[an].mean())
+
+
+# ---------------------------------------------------------------- splitting
+
+
+def test_touching_discs_split_and_single_shapes_do_not():
+    shape = (120, 200)
+    s = 10.0
+    frame = _frame(shape, s=s)
+    an = _window_mask(frame)
+    cfg = MeasureConfig(cell_mm=50.0)
+    # two discs r = 20 px whose centres are 37 px apart: a neck ~15 px wide (0.38 r)
+    two = _disc(shape, 60, 60, 20) | _disc(shape, 60, 97, 20)
+    assert ndimage.label(two)[1] == 1
+    assert measure(two, frame=frame, analysed=an, config=cfg).spot_count == 2
+    # an ellipse, a blob of heavily overlapping discs and a wide-necked peanut stay one spot
+    yy, xx = np.mgrid[: shape[0], : shape[1]]
+    ellipse = ((yy - 60) / 15.0) ** 2 + ((xx - 100) / 60.0) ** 2 <= 1
+    blob = _disc(shape, 60, 90, 20) | _disc(shape, 70, 110, 16) | _disc(shape, 45, 105, 14)
+    peanut = _disc(shape, 60, 70, 20) | _disc(shape, 60, 95, 18)
+    for shape_mask in (ellipse, blob, peanut):
+        assert measure(shape_mask, frame=frame, analysed=an, config=cfg).spot_count == 1
+    # and splitting can be switched off
+    off = MeasureConfig(cell_mm=50.0, split_touching=False)
+    assert measure(two, frame=frame, analysed=an, config=off).spot_count == 1
+
+
+def test_split_pieces_keep_every_pixel():
+    shape = (100, 300)
+    chain = np.zeros(shape, bool)
+    for k in range(5):
+        chain |= _disc(shape, 50, 30 + 32 * k, 18)  # necks sqrt(18² - 16²) = 0.46 r
+    assert ndimage.label(chain)[1] == 1
+    labels, n = label_spots(chain, px_per_mm=10.0)
+    assert n == 5
+    np.testing.assert_array_equal(labels > 0, chain)
+    areas = np.bincount(labels.ravel())[1:]
+    assert areas.min() > 0.6 * math.pi * 18**2
+
+
+# ---------------------------------------------------------------- bare patch
+
+
+@pytest.mark.parametrize("spot_r_px", [0, 10, 30])
+def test_largest_bare_one_spot_in_square_window(spot_r_px):
+    """One spot of diameter a at the centre of a square window of side L.
+
+    Plane geometry: the largest circle sits in a corner, touching two sides and the
+    spot, so sqrt(2) (L/2 - r) = r + a/2, i.e. r = (sqrt(2) L/2 - a/2) / (1 + sqrt(2)).
+    """
+    s = 10.0
+    n = 400  # L = 40 mm
+    frame = _frame((n, n), s=s)
+    mask = _disc((n, n), 199.5, 199.5, spot_r_px) if spot_r_px else np.zeros((n, n), bool)
+    if not spot_r_px:
+        mask[199:201, 199:201] = True  # a 0.2 mm square spot, a ~ 0.2 mm
+    a = 2 * math.sqrt(mask.sum() / math.pi) / s
+    L = n / s
+    r = (math.sqrt(2) * L / 2 - a / 2) / (1 + math.sqrt(2))
+    m = measure(mask, frame=frame, analysed=_window_mask(frame),
+                config=MeasureConfig(min_spot_mm2=0.01))
+    assert m.spot_count == 1
+    assert m.largest_bare.diameter_mm == pytest.approx(2 * r, abs=2.5 / s)
+    # the circle is in a corner
+    cx, cy = m.largest_bare.x_mm, m.largest_bare.y_mm
+    assert min(cx, L - cx) == pytest.approx(r, abs=1.5 / s)
+    assert min(cy, L - cy) == pytest.approx(r, abs=1.5 / s)
+
+
+def test_bare_circle_stays_out_of_exclusions():
+    s = 10.0
+    frame = _frame((100, 300), s=s)
+    an = _window_mask(frame)
+    mask = np.zeros((100, 300), bool)
+    full = measure(mask, frame=frame, analysed=an)
+    assert full.largest_bare.diameter_mm == pytest.approx(10.0, abs=0.11)
+    an2 = an.copy()
+    an2[40:60, :] = False  # a groove across the window: two 4 mm strips remain
+    grooved = measure(mask, frame=frame, analysed=an2)
+    assert grooved.largest_bare.diameter_mm == pytest.approx(4.0, abs=0.11)
+    assert not any(c.complete for c in grooved.cells)
+
+
+# ---------------------------------------------------------------- cells and window
+
+
+def test_exclusion_makes_cell_incomplete_and_normalises_density():
+    s = 4.0
+    frame = _frame((200, 200), s=s)  # 50 x 50 mm window, 25 mm cells -> 2 x 2
+    an = _window_mask(frame)
+    an[0:20, 0:20] = False  # a 5 x 5 mm hole in cell (0, 0)
+    mask = np.zeros((200, 200), bool)
+    for cy, cx in [(40, 40), (60, 60), (150, 150)]:
+        mask |= _disc((200, 200), cy, cx, 3)
+    mask |= _disc((200, 200), 8, 8, 3)  # centroid in the excluded hole: not counted
+    m = measure(mask, frame=frame, analysed=an, config=MeasureConfig(cell_mm=25.0))
+    assert m.spot_count == 3
+    assert len(m.spots) == 4 and m.spots.row.tolist().count(-1) == 1
+    by = {(c.row, c.col): c for c in m.cells}
+    assert not by[0, 0].complete and by[1, 1].complete and by[0, 1].complete
+    assert by[0, 0].area_mm2 == pytest.approx(625 - 25)
+    assert by[0, 0].density == pytest.approx(2 * 625 / 600)
+    assert m.area_mm2 == pytest.approx(2500 - 25)
+    # the excluded spot's pixels are not bearing
+    bearing_px = int((m.labels > 0)[an].sum())
+    assert m.bearing_percent == pytest.approx(100 * bearing_px / an.sum())
+
+
+def test_window_not_a_multiple_of_cell_and_offset_origin():
+    s = 5.0
+    # window 30 x 20 mm at (10, 5) mm, image origin (5, 0) and 40 x 30 mm of image
+    window = Window(10.0, 5.0, 30.0, 20.0)
+    frame = Frame(px_per_mm=s, origin_mm=(5.0, 0.0), shape=(150, 200), window=window)
+    an = _window_mask(frame)
+    assert an.sum() == 150 * 100
+    m = measure(np.zeros((150, 200), bool), frame=frame, analysed=an,
+                config=MeasureConfig(cell_mm=25.4))
+    assert (m.rows, m.cols) == (1, 2)
+    c0, c1 = m.cells
+    assert not c0.complete and not c1.complete  # 20 mm high: no cell is whole
+    assert c0.width_mm == pytest.approx(25.4) and c1.width_mm == pytest.approx(4.6)
+    assert c0.area_mm2 + c1.area_mm2 == pytest.approx(600.0)
+    m2 = measure(np.zeros((150, 200), bool), frame=frame, analysed=an,
+                 config=MeasureConfig(cell_mm=10.0))
+    assert (m2.rows, m2.cols) == (2, 3) and all(c.complete for c in m2.cells)
+
+
+# ---------------------------------------------------------------- confidence, guidance
+
+
+def test_confidence_range_from_alternates():
+    frame = _frame((100, 100))
+    an = _window_mask(frame)
+    base = _disc((100, 100), 30, 30, 5) | _disc((100, 100), 70, 70, 5)
+    more = base | _disc((100, 100), 30, 70, 5) | _disc((100, 100), 70, 30, 5)
+    fewer = _disc((100, 100), 30, 30, 4)
+    m = measure(base, frame=frame, analysed=an, alternates=(fewer, more))
+    c = m.confidence
+    assert (c.count_low, c.count_high) == (1, 4)
+    assert c.bearing_low < m.bearing_percent < c.bearing_high
+    assert c.doubtful and "nudged" in c.reason
+    steady = measure(base, frame=frame, analysed=an, alternates=(base, base))
+    assert not steady.confidence.doubtful
+    assert measure(base, frame=frame, analysed=an).confidence is None
+
+
+def test_guidance_flags_oversized_spots_and_large_bare_patches():
+    s = 10.0
+    shape = (400, 400)
+    frame = _frame(shape, s=s)
+    mask = np.zeros(shape, bool)
+    for cy in range(20, 200, 30):
+        for cx in range(20, 400, 30):
+            mask |= _disc(shape, cy, cx, 4)
+    mask |= _disc(shape, 100, 300, 25)  # one big mark, 39x the others' area
+    m = measure(mask, frame=frame, analysed=_window_mask(frame),
+                config=MeasureConfig(max_bare_mm=10.0))
+    big = [h for h in m.guidance.high if "large spot" in h[3]]
+    assert len(big) == 1
+    assert big[0][0] == pytest.approx(30.05, abs=0.1) and big[0][1] == pytest.approx(10.05, abs=0.1)
+    # the lower half (y > 20 mm) is bare: a 19 mm circle fits there (> 10 mm allowed)
+    assert m.guidance.bare and m.guidance.bare[0].diameter_mm > 15.0
+    assert all(b.y_mm > 19.0 for b in m.guidance.bare)
+    heavy = [h for h in m.guidance.high if "heavy bearing" in h[3]]
+    assert all(h[1] < 22.0 for h in heavy)
+
+
+def test_shape_errors():
+    frame = _frame((10, 10))
+    with pytest.raises(OptionError, match="same"):
+        measure(np.zeros((10, 10), bool), frame=frame, analysed=np.ones((9, 10), bool))
+    with pytest.raises(OptionError, match="frame shape"):
+        measure(np.zeros((9, 10), bool), frame=frame, analysed=np.ones((9, 10), bool))
+    with pytest.raises(OptionError, match="cell_mm"):
+        measure(np.zeros((10, 10), bool), frame=frame, analysed=np.ones((10, 10), bool),
+                config=MeasureConfig(cell_mm=0.0))
