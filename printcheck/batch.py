@@ -1,0 +1,295 @@
+"""Batch: every photo of a folder, in the order taken, on all cores, into one report.
+
+One bad photo is reported and skipped; the rest go on.  Each photo's pass is recorded in
+the history in one transaction as soon as it is measured, so an interrupted batch leaves
+only whole passes, and re-running it records nothing twice.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable, Iterator
+from concurrent.futures import Future, ProcessPoolExecutor
+from dataclasses import dataclass
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+from printcheck.errors import PrintcheckError, ReportError
+from printcheck.pipeline import InspectOptions
+
+__all__ = ["BatchItem", "list_photos", "run_batch"]
+
+EXIT_MEETS, EXIT_FAILS, EXIT_UNUSABLE = 0, 1, 2
+
+
+@dataclass(frozen=True)
+class BatchItem:
+    """One photo of a batch, with the time it sorts by."""
+
+    path: Path
+    taken: datetime | None
+    file_time: datetime
+
+    @property
+    def sort_key(self) -> tuple[datetime, datetime, str]:
+        return (self.taken or self.file_time, self.file_time, self.path.name)
+
+
+def list_photos(folder: Path) -> tuple[list[BatchItem], list[str]]:
+    """The photos in ``folder`` in the order taken, and one-line notes on what was skipped.
+
+    Order: EXIF DateTimeOriginal, then the file time, then the name.  Folders named like
+    photos and hidden files are skipped with a note.
+    """
+    from printcheck.load import is_photo_name, photo_taken
+
+    items: list[BatchItem] = []
+    notes: list[str] = []
+    try:
+        entries = sorted(folder.iterdir(), key=lambda p: p.name)
+    except OSError as exc:
+        raise ReportError(f"batch {folder}: cannot list the folder ({exc.strerror})") from None
+    for path in entries:
+        if path.name.startswith(".") or not is_photo_name(path):
+            continue
+        if path.is_dir():
+            notes.append(f"photo {path}: is a folder, not a photo; skipped")
+            continue
+        try:
+            mtime = datetime.fromtimestamp(path.stat().st_mtime).replace(microsecond=0)
+        except OSError as exc:
+            notes.append(f"photo {path}: cannot be read ({exc.strerror}); skipped")
+            continue
+        items.append(BatchItem(path, photo_taken(path), mtime))
+    items.sort(key=lambda item: item.sort_key)
+    return items, notes
+
+
+def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -> dict[str, Any]:
+    """Inspect one photo and write its JSON and overlay (runs in a worker process)."""
+    if single_thread:
+        import cv2
+
+        cv2.setNumThreads(1)
+    from printcheck.pipeline import inspect_photo
+    from printcheck.report.files import encode_image, output_name, write_bytes, write_json
+    from printcheck.report.overlay import draw_overlay
+    from printcheck.result import result_to_dict
+
+    try:
+        result = inspect_photo(path, options=options)
+        data = result_to_dict(result)
+        overlay = draw_overlay(result)
+        write_json(out, output_name(result.photo, ".json"), data)
+        write_bytes(out, output_name(result.photo, ".overlay.png"), encode_image(overlay, ".png"))
+        preview = encode_image(_shrink(overlay, 1400), ".jpg", jpeg_quality=85)
+    except PrintcheckError as exc:
+        return {"error": str(exc), "path": str(path)}
+    except Exception as exc:  # a bug or out of memory on one photo must not stop the batch
+        return {"error": f"photo {path}: internal error: {type(exc).__name__}: {exc}", "path": str(path)}
+    return {"data": data, "preview": preview, "path": str(path)}
+
+
+def _shrink(image: Any, longest: int) -> Any:
+    import cv2
+
+    h, w = image.shape[:2]
+    scale = longest / max(h, w)
+    if scale >= 1:
+        return image
+    return cv2.resize(image, (round(w * scale), round(h * scale)), interpolation=cv2.INTER_AREA)
+
+
+def run_batch(
+    folder: Path,
+    *,
+    options: InspectOptions,
+    out: Path,
+    db: Path,
+    jobs: int | None = None,
+    json_lines: bool = False,
+    echo: Callable[[str], None] = print,
+    warn: Callable[[str], None] = print,
+    show_progress: bool | None = None,
+) -> int:
+    """Process ``folder``; return the exit status (0 meets, 1 does not, 2 nothing usable).
+
+    Writes ``<stem>.json`` and ``<stem>.overlay.png`` per photo, ``results.csv`` and
+    ``report.html`` to ``out``, and records every pass in the history at ``db``.
+    """
+    import json
+
+    from printcheck.history import open_history
+    from printcheck.report.files import CSV_NAME, write_csv
+
+    items, notes = list_photos(folder)
+    for note in notes:
+        warn(note)
+    if not items:
+        raise ReportError(f"batch {folder}: no photos found (JPEG, PNG, TIFF, HEIC)")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ReportError(f"output folder {out}: cannot be created ({exc.strerror})") from None
+    surface = options.surface or folder.resolve().name
+    workers = max(1, min(jobs or os.cpu_count() or 1, len(items)))
+    spec_name = None if options.spec is None else options.spec.name
+
+    outcomes: dict[int, dict[str, Any]] = {}
+    if show_progress is None:
+        show_progress = _stderr_is_terminal()
+    with open_history(db) as history, _Runner(items, options, out, workers) as finished:
+        with _Progress(len(items), enabled=show_progress) as bar:
+            for index, outcome in finished:
+                outcomes[index] = outcome
+                if "error" in outcome:
+                    warn(f"{outcome['error']}; skipped")
+                else:
+                    history.record(outcome["data"], surface=surface, spec_name=spec_name)
+                    if json_lines:
+                        echo(json.dumps(outcome["data"], ensure_ascii=False))
+                bar.advance(items[index].path.name)
+        passes = history.passes(surface)
+
+    done = [outcomes[i] for i in sorted(outcomes) if "data" in outcomes[i]]
+    if not done:
+        warn(f"batch {folder}: none of the {len(items)} photos could be measured")
+        return EXIT_UNUSABLE
+    results = [o["data"] for o in done]
+    write_csv(out, CSV_NAME, results)
+    progress = _progress(surface, passes, options)
+    _write_report(out, surface=surface, options=options, done=done, progress=progress)
+    if not json_lines:
+        _echo_summary(echo, folder, out, results, progress, failed=len(items) - len(done))
+    last = results[-1].get("spec")
+    return EXIT_FAILS if isinstance(last, dict) and last.get("meets") is False else EXIT_MEETS
+
+
+class _Runner:
+    """Runs ``_work`` over the photos; iterate it for (index, outcome) as photos finish.
+
+    With more than one worker the process pool is started and every photo submitted on
+    entry, before any other thread (the progress bar) exists in this process.
+    """
+
+    def __init__(self, items: list[BatchItem], options: InspectOptions, out: Path, workers: int) -> None:
+        self._items = items
+        self._options = options
+        self._out = out
+        self._workers = workers
+        self._pool: ProcessPoolExecutor | None = None
+        self._futures: dict[Future[dict[str, Any]], int] = {}
+
+    def __enter__(self) -> _Runner:
+        if self._workers > 1:
+            import multiprocessing as mp
+
+            methods = mp.get_all_start_methods()
+            context = mp.get_context("fork" if "fork" in methods else "spawn")
+            self._pool = ProcessPoolExecutor(max_workers=self._workers, mp_context=context)
+            self._futures = {
+                self._pool.submit(_work, item.path, self._options, self._out, True): index
+                for index, item in enumerate(self._items)
+            }
+        return self
+
+    def __iter__(self) -> Iterator[tuple[int, dict[str, Any]]]:
+        if self._pool is None:
+            for index, item in enumerate(self._items):
+                yield index, _work(item.path, self._options, self._out, False)
+            return
+        from concurrent.futures import as_completed
+
+        for future in as_completed(self._futures):
+            yield self._futures[future], future.result()
+
+    def __exit__(self, *exc: object) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _progress(surface: str, passes: list[dict[str, Any]], options: InspectOptions) -> dict[str, Any]:
+    from printcheck.progress import build_progress
+
+    return build_progress(passes, surface=surface, spec=options.spec)
+
+
+def _write_report(
+    out: Path,
+    *,
+    surface: str,
+    options: InspectOptions,
+    done: list[dict[str, Any]],
+    progress: dict[str, Any],
+) -> Path:
+    from printcheck.report.html import write_report
+
+    return write_report(
+        out / "report.html",
+        surface=surface,
+        spec=options.spec,
+        passes=[(o["data"], o["preview"]) for o in done],
+        progress=progress,
+    )
+
+
+def _echo_summary(
+    echo: Callable[[str], None],
+    folder: Path,
+    out: Path,
+    results: list[dict[str, Any]],
+    progress: dict[str, Any],
+    *,
+    failed: int,
+) -> None:
+    from printcheck.progress import progress_text
+
+    echo(progress_text(progress))
+    extra = f", {failed} skipped" if failed else ""
+    echo(f"{len(results)} photos measured{extra}; report: {out / 'report.html'}")
+
+
+def _stderr_is_terminal() -> bool:
+    import sys
+
+    try:
+        return sys.stderr.isatty()
+    except (AttributeError, ValueError):
+        return False
+
+
+class _Progress:
+    """A rich progress bar on stderr, or nothing when stderr is not a terminal."""
+
+    def __init__(self, total: int, *, enabled: bool) -> None:
+        self._total = total
+        self._enabled = enabled
+        self._bar: Any = None
+        self._task: Any = None
+
+    def __enter__(self) -> _Progress:
+        if self._enabled:
+            from rich.console import Console
+            from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+            self._bar = Progress(
+                TextColumn("measuring"),
+                BarColumn(),
+                MofNCompleteColumn(),
+                TimeRemainingColumn(),
+                TextColumn("{task.description}"),
+                console=Console(stderr=True),
+                transient=True,
+            )
+            self._bar.__enter__()
+            self._task = self._bar.add_task("", total=self._total)
+        return self
+
+    def advance(self, name: str) -> None:
+        if self._bar is not None:
+            self._bar.update(self._task, advance=1, description=name)
+
+    def __exit__(self, *exc: object) -> None:
+        if self._bar is not None:
+            self._bar.__exit__(None, None, None)
