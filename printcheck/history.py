@@ -1,0 +1,507 @@
+"""History: the SQLite store of surfaces, their passes and each pass's result.
+
+This is the only module that touches SQLite.  A *pass* is one photo's result recorded
+for one surface; a photo is identified by the SHA-256 of its bytes, so recording the same
+photo for the same surface twice stores it once (re-running a batch records nothing twice).
+
+Data safety
+-----------
+- The database runs in WAL mode with ``synchronous=FULL``: a committed pass survives a crash
+  of the program (and of the machine), and readers never block the writer.
+- Each pass is written in ONE transaction (``BEGIN IMMEDIATE`` ... ``COMMIT``), so a
+  SIGKILL or Ctrl-C at any moment leaves only whole passes.
+- Two runs may write at once: SQLite's busy timeout waits for the other writer, and a retry
+  loop on "database is locked" bounds the total wait (``max_wait_s``).
+- The schema carries its version in ``PRAGMA user_version``; schema changes are the named
+  migrations in :data:`MIGRATIONS`, run in order, each in its own transaction.  A database
+  written by a newer printcheck is refused rather than guessed at.
+
+Every failure is a :class:`printcheck.errors.HistoryError` with a one-line message naming
+the file and what to do.
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+import os
+import sqlite3
+import time
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any, TypeVar
+
+from printcheck.errors import HistoryError
+
+__all__ = [
+    "ENV_VAR",
+    "MIGRATIONS",
+    "SCHEMA_VERSION",
+    "Migration",
+    "History",
+    "default_db_path",
+    "open_history",
+]
+
+ENV_VAR = "PRINTCHECK_DB"
+
+T = TypeVar("T")
+
+
+@dataclass(frozen=True)
+class Migration:
+    """One named schema change: the SQL statements that take version ``n - 1`` to ``n``."""
+
+    name: str
+    statements: tuple[str, ...]
+
+
+MIGRATIONS: tuple[Migration, ...] = (
+    Migration(
+        "create surfaces and passes",
+        (
+            """CREATE TABLE surfaces (
+                id INTEGER PRIMARY KEY,
+                name TEXT NOT NULL UNIQUE,
+                created TEXT NOT NULL
+            )""",
+            """CREATE TABLE passes (
+                id INTEGER PRIMARY KEY,
+                surface_id INTEGER NOT NULL REFERENCES surfaces(id),
+                sha256 TEXT NOT NULL,
+                photo TEXT NOT NULL,
+                taken TEXT,
+                spec TEXT,
+                density REAL,
+                bearing_percent REAL,
+                spot_count INTEGER,
+                meets INTEGER,
+                recorded TEXT NOT NULL,
+                result_json TEXT NOT NULL,
+                UNIQUE (surface_id, sha256)
+            )""",
+            "CREATE INDEX passes_by_time ON passes (surface_id, taken, photo)",
+            "CREATE INDEX passes_by_photo ON passes (photo)",
+            "CREATE INDEX passes_by_spec ON passes (spec)",
+            """CREATE TABLE migrations (
+                version INTEGER PRIMARY KEY,
+                name TEXT NOT NULL,
+                applied TEXT NOT NULL
+            )""",
+        ),
+    ),
+)
+
+SCHEMA_VERSION = len(MIGRATIONS)
+
+_RETRY_SLEEP_S = 0.05
+
+
+def default_db_path(env: Mapping[str, str] = os.environ) -> Path:
+    """The history database to use when no ``--db`` is given.
+
+    Parameters
+    ----------
+    env : mapping
+        The environment; ``PRINTCHECK_DB`` in it, when set and not empty, wins.
+
+    Returns
+    -------
+    Path
+        ``$PRINTCHECK_DB``, else ``history.sqlite`` in the user's data folder
+        (``platformdirs.user_data_path("printcheck")``).
+    """
+    value = env.get(ENV_VAR, "").strip()
+    if value:
+        return Path(value).expanduser()
+    import platformdirs
+
+    return Path(platformdirs.user_data_path("printcheck")) / "history.sqlite"
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+
+
+def _is_locked(exc: BaseException) -> bool:
+    text = str(exc).lower()
+    return isinstance(exc, sqlite3.OperationalError) and ("locked" in text or "busy" in text)
+
+
+def _explain(path: Path, exc: BaseException) -> HistoryError:
+    """Turn a sqlite3/OS error into a one-line HistoryError naming the file and the fix."""
+    text = str(exc).lower()
+    code = getattr(exc, "sqlite_errorcode", None)
+    err = getattr(exc, "errno", None)
+    if "not a database" in text or code == getattr(sqlite3, "SQLITE_NOTADB", 26):
+        msg = "is not a printcheck history (not an SQLite database); give another --db path"
+    elif "full" in text or err in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG) or code == 13:
+        msg = "the disk is full; free some space or give a --db path on another disk"
+    elif (
+        "readonly" in text
+        or "read-only" in text
+        or "unable to open" in text
+        or err in (errno.EROFS, errno.EACCES, errno.EPERM)
+    ):
+        msg = (
+            "cannot be written there (read-only or no permission); give a writable "
+            f"--db path or set {ENV_VAR}"
+        )
+    elif _is_locked(exc):
+        msg = "another printcheck run kept the history locked too long; try again when it ends"
+    elif "malformed" in text or "corrupt" in text:
+        msg = "the database is damaged; restore a backup or give a new --db path"
+    elif "disk i/o" in text:
+        msg = "a disk error occurred while writing; check the disk or give another --db path"
+    else:
+        msg = f"{exc}".strip() or type(exc).__name__
+    return HistoryError(f"history {path}: {msg}")
+
+
+def _as_int_bool(value: Any) -> int | None:
+    return None if value is None else int(bool(value))
+
+
+def _number(value: Any) -> float | None:
+    if value is None or isinstance(value, bool):
+        return None
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return None
+
+
+class History:
+    """An open history database.  Use :func:`open_history` to get one.
+
+    Methods return plain data (lists of dicts, strings, numbers); none of them expose
+    SQLite objects.
+    """
+
+    def __init__(self, connection: sqlite3.Connection, path: Path, *, max_wait_s: float) -> None:
+        self._con = connection
+        self.path = path
+        self.max_wait_s = max_wait_s
+
+    # ------------------------------------------------------------------ plumbing
+
+    def _retry(self, work: Callable[[sqlite3.Connection], T]) -> T:
+        """Run ``work`` in one IMMEDIATE transaction, retrying while the database is locked."""
+        deadline = time.monotonic() + self.max_wait_s
+        while True:
+            try:
+                return _transaction(self._con, work)
+            except sqlite3.Error as exc:
+                if _is_locked(exc) and time.monotonic() < deadline:
+                    time.sleep(_RETRY_SLEEP_S)
+                    continue
+                raise _explain(self.path, exc) from None
+            except OSError as exc:
+                raise _explain(self.path, exc) from None
+
+    def _read(self, sql: str, params: tuple[Any, ...] = ()) -> list[sqlite3.Row]:
+        deadline = time.monotonic() + self.max_wait_s
+        while True:
+            try:
+                return list(self._con.execute(sql, params).fetchall())
+            except sqlite3.Error as exc:
+                if _is_locked(exc) and time.monotonic() < deadline:
+                    time.sleep(_RETRY_SLEEP_S)
+                    continue
+                raise _explain(self.path, exc) from None
+
+    def close(self) -> None:
+        """Close the database (idempotent)."""
+        self._con.close()
+
+    def __enter__(self) -> History:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # ------------------------------------------------------------------ writing
+
+    def record(
+        self,
+        result: Mapping[str, Any],
+        *,
+        surface: str,
+        spec_name: str | None = None,
+    ) -> bool:
+        """Record one photo's result as a pass of ``surface``.
+
+        Parameters
+        ----------
+        result : dict
+            The result JSON object (``printcheck.result.result_to_dict``); it must carry
+            ``photo`` and ``sha256``.  It is stored whole, as JSON text, plus indexed
+            columns (photo, sha256, taken, density, bearing_percent, spot_count, meets, spec).
+        surface : str
+            The surface's name (created on first use).
+        spec_name : str or None
+            The spec judged against; defaults to ``result["spec"]["name"]`` when present.
+
+        Returns
+        -------
+        bool
+            True if the pass was recorded; False if that photo (same SHA-256) is already
+            recorded for this surface.
+
+        Raises
+        ------
+        HistoryError
+            A missing surface name or sha256, or the database could not be written.
+        """
+        if not isinstance(surface, str) or not surface.strip():
+            raise HistoryError(
+                f"history {self.path}: surface name must be a non-empty text, got {surface!r}; "
+                "give --surface NAME"
+            )
+        surface = surface.strip()
+        sha = result.get("sha256")
+        photo = result.get("photo")
+        if not isinstance(sha, str) or not sha:
+            raise HistoryError(
+                f"history {self.path}: result for photo {photo!r} has no sha256; "
+                "only results of photo files can be recorded"
+            )
+        if not isinstance(photo, str) or not photo:
+            raise HistoryError(f"history {self.path}: result has no photo name; got {photo!r}")
+        spec_block = result.get("spec")
+        if spec_name is None and isinstance(spec_block, Mapping):
+            spec_name = spec_block.get("name")
+        meets = spec_block.get("meets") if isinstance(spec_block, Mapping) else None
+        try:
+            text = json.dumps(result, ensure_ascii=False, allow_nan=False, sort_keys=False)
+        except (TypeError, ValueError) as exc:
+            raise HistoryError(
+                f"history {self.path}: result for photo {photo!r} is not plain JSON data ({exc}); "
+                "pass the output of result_to_dict"
+            ) from None
+        taken = result.get("taken")
+        row = (
+            sha,
+            photo,
+            None if taken is None else str(taken),
+            spec_name,
+            _number(result.get("density")),
+            _number(result.get("bearing_percent")),
+            None if result.get("spot_count") is None else int(result["spot_count"]),
+            _as_int_bool(meets),
+            _now(),
+            text,
+        )
+
+        def work(con: sqlite3.Connection) -> bool:
+            con.execute(
+                "INSERT OR IGNORE INTO surfaces (name, created) VALUES (?, ?)", (surface, _now())
+            )
+            (surface_id,) = con.execute(
+                "SELECT id FROM surfaces WHERE name = ?", (surface,)
+            ).fetchone()
+            cur = con.execute(
+                """INSERT OR IGNORE INTO passes
+                   (surface_id, sha256, photo, taken, spec, density, bearing_percent,
+                    spot_count, meets, recorded, result_json)
+                   VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)""",
+                (surface_id, *row),
+            )
+            return cur.rowcount == 1
+
+        return self._retry(work)
+
+    # ------------------------------------------------------------------ reading
+
+    def surfaces(self) -> list[str]:
+        """Names of every surface with at least one pass, sorted."""
+        rows = self._read(
+            """SELECT s.name FROM surfaces s
+               WHERE EXISTS (SELECT 1 FROM passes p WHERE p.surface_id = s.id)
+               ORDER BY s.name"""
+        )
+        return [r[0] for r in rows]
+
+    def passes(self, surface: str) -> list[dict[str, Any]]:
+        """Every pass of ``surface`` in the order the photos were taken.
+
+        Ordered by ``taken`` (passes without a time last), then by photo name, then by
+        the order they were recorded.
+
+        Returns
+        -------
+        list of dict
+            Each with ``pass`` (1-based number in this order), ``photo``, ``sha256``,
+            ``taken``, ``spec``, ``density``, ``bearing_percent``, ``spot_count``,
+            ``meets`` (bool or None), ``recorded`` (UTC ISO time) and ``result`` (the
+            whole stored result dict).  Empty for an unknown surface.
+        """
+        rows = self._read(
+            """SELECT p.photo, p.sha256, p.taken, p.spec, p.density, p.bearing_percent,
+                      p.spot_count, p.meets, p.recorded, p.result_json
+               FROM passes p JOIN surfaces s ON s.id = p.surface_id
+               WHERE s.name = ?
+               ORDER BY p.taken IS NULL, p.taken, p.photo, p.id""",
+            (surface.strip(),),
+        )
+        out = []
+        for n, r in enumerate(rows, start=1):
+            try:
+                result = json.loads(r["result_json"])
+            except ValueError:
+                raise HistoryError(
+                    f"history {self.path}: pass {r['photo']!r} of {surface!r} holds damaged "
+                    "JSON; restore a backup or give a new --db path"
+                ) from None
+            out.append(
+                {
+                    "pass": n,
+                    "photo": r["photo"],
+                    "sha256": r["sha256"],
+                    "taken": r["taken"],
+                    "spec": r["spec"],
+                    "density": r["density"],
+                    "bearing_percent": r["bearing_percent"],
+                    "spot_count": r["spot_count"],
+                    "meets": None if r["meets"] is None else bool(r["meets"]),
+                    "recorded": r["recorded"],
+                    "result": result,
+                }
+            )
+        return out
+
+    def schema_version(self) -> int:
+        """The schema version of the open database (``PRAGMA user_version``)."""
+        return int(self._read("PRAGMA user_version")[0][0])
+
+
+def _transaction(con: sqlite3.Connection, work: Callable[[sqlite3.Connection], T]) -> T:
+    """Run ``work`` between BEGIN IMMEDIATE and COMMIT; roll back on any failure."""
+    con.execute("BEGIN IMMEDIATE")
+    try:
+        value = work(con)
+        con.execute("COMMIT")
+    except BaseException:
+        if con.in_transaction:
+            try:
+                con.execute("ROLLBACK")
+            except sqlite3.Error:
+                pass
+        raise
+    return value
+
+
+def _migrate(con: sqlite3.Connection, path: Path, migrations: tuple[Migration, ...]) -> None:
+    """Bring the schema up to ``len(migrations)``, one transaction per migration."""
+    known = len(migrations)
+    for target in range(1, known + 1):
+
+        def step(c: sqlite3.Connection, target: int = target) -> None:
+            # re-read inside the write lock: another process may have migrated meanwhile
+            version = int(c.execute("PRAGMA user_version").fetchone()[0])
+            if version >= target:
+                return
+            if version == 0:
+                tables = c.execute(
+                    "SELECT count(*) FROM sqlite_master WHERE name NOT LIKE 'sqlite_%'"
+                ).fetchone()[0]
+                if tables:
+                    raise HistoryError(
+                        f"history {path}: is an SQLite database of another program (no "
+                        "printcheck schema); give another --db path"
+                    )
+            if version != target - 1:
+                raise HistoryError(
+                    f"history {path}: schema version {version} skipped a step; "
+                    "give a new --db path"
+                )
+            for sql in migrations[target - 1].statements:
+                c.execute(sql)
+            c.execute(
+                "INSERT INTO migrations (version, name, applied) VALUES (?, ?, ?)",
+                (target, migrations[target - 1].name, _now()),
+            )
+            c.execute(f"PRAGMA user_version = {target:d}")
+
+        version = int(con.execute("PRAGMA user_version").fetchone()[0])
+        if version > known:
+            raise HistoryError(
+                f"history {path}: schema version {version} is newer than this printcheck "
+                f"knows ({known}); upgrade printcheck or give another --db path"
+            )
+        if version < target:
+            _transaction(con, step)
+
+
+def open_history(
+    path: str | os.PathLike[str] | None = None,
+    *,
+    timeout_s: float = 10.0,
+    max_wait_s: float = 60.0,
+    migrations: tuple[Migration, ...] = MIGRATIONS,
+) -> History:
+    """Open (creating if needed) the history database at ``path``.
+
+    Parameters
+    ----------
+    path : path or None
+        The database file; ``None`` uses :func:`default_db_path`.  Missing parent
+        folders are created.
+    timeout_s : float
+        SQLite's busy timeout for one statement, in seconds.
+    max_wait_s : float
+        Upper bound on the total time one write keeps retrying while another run
+        holds the database locked.
+    migrations : tuple of Migration
+        The schema's migrations (tests pass longer tuples to exercise upgrades).
+
+    Returns
+    -------
+    History
+        Usable as a context manager (``with open_history(p) as h: ...``).
+
+    Raises
+    ------
+    HistoryError
+        The location is read-only or full, the file is not a database, or its schema is
+        newer than this program knows.
+    """
+    db = Path(path).expanduser() if path is not None else default_db_path()
+    if db.is_dir():
+        raise HistoryError(f"history {db}: is a folder; give the path of a .sqlite file")
+    try:
+        db.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise _explain(db, exc) from None
+    con: sqlite3.Connection | None = None
+    deadline = time.monotonic() + max_wait_s
+    while True:
+        try:
+            con = sqlite3.connect(
+                str(db), timeout=timeout_s, isolation_level=None, check_same_thread=True
+            )
+            con.row_factory = sqlite3.Row
+            con.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000):d}")
+            mode = con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            if str(mode).lower() != "wal":
+                raise sqlite3.OperationalError(f"cannot switch to WAL mode (got {mode})")
+            con.execute("PRAGMA synchronous = FULL")
+            con.execute("PRAGMA foreign_keys = ON")
+            _migrate(con, db, migrations)
+            break
+        except HistoryError:
+            if con is not None:
+                con.close()
+            raise
+        except (sqlite3.Error, OSError) as exc:
+            if con is not None:
+                con.close()
+                con = None
+            if _is_locked(exc) and time.monotonic() < deadline:
+                time.sleep(_RETRY_SLEEP_S)
+                continue
+            raise _explain(db, exc) from None
+    return History(con, db, max_wait_s=max_wait_s)
+

@@ -1,0 +1,305 @@
+"""Progress: a surface's passes so far, their trend, and a projection to spec.
+
+Pure functions on plain data: the pass dicts of :meth:`printcheck.history.History.passes`
+(or bare result dicts) in, the progress JSON contract of DESIGN.md
+(``printcheck-progress/1``) out.
+
+Figures of our own
+------------------
+uniformity
+    How evenly the points are spread over the window, in percent:
+    ``100 * (1 - CV)`` clipped to 0..100, where CV is the coefficient of variation
+    (population standard deviation over mean) of the densities of the *complete* cells.
+    100 means every complete cell holds the same density; ``None`` with fewer than two
+    complete cells or no points at all.
+cells_meeting_percent
+    Share of complete cells whose density reaches the spec's cell target
+    (``min_cell_density``, else ``min_density``), in percent; ``None`` without a target
+    or without complete cells.
+
+Projection
+----------
+Density is fitted against pass number by least squares on the last ``fit_passes`` passes
+(default 5).  With the fitted rate ``a`` (points per pass), its standard error ``se`` and
+the fitted density at the latest pass ``y_n``, the passes still needed are
+``ceil((target - y_n) / a)`` (at least 1), with ``low`` and ``high`` from the rates
+``a + se`` and ``a - se`` (``high`` is ``None`` when ``a - se <= 0``: the trend may not
+reach the target at all).  The projection is ``None`` with fewer than three passes, without
+a density target, or when the fitted rate is not positive; ``passes_to_spec`` (and
+``low``, ``high``) is 0 when the latest pass already reaches the target, however few passes
+there are.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+from printcheck.spec import Spec
+from printcheck.units import to_mm
+
+__all__ = [
+    "PROGRESS_FORMAT",
+    "LineFit",
+    "build_progress",
+    "fit_line",
+    "project",
+    "uniformity",
+    "cells_meeting_percent",
+    "density_target",
+]
+
+PROGRESS_FORMAT = "printcheck-progress/1"
+MIN_PASSES = 3
+
+
+@dataclass(frozen=True)
+class LineFit:
+    """A least-squares line ``y = slope * x + intercept`` and the slope's standard error."""
+
+    slope: float
+    intercept: float
+    slope_stderr: float
+
+
+def fit_line(x: Sequence[float], y: Sequence[float]) -> LineFit:
+    """Ordinary least-squares line ``y = slope * x + intercept`` and the slope's std. error.
+
+    Parameters
+    ----------
+    x, y : sequences of float, same length n >= 2, x not all equal
+
+    Returns
+    -------
+    LineFit
+        ``slope_stderr`` is ``sqrt(SSR / (n - 2) / Sxx)`` (0 for n == 2).
+    """
+    n = len(x)
+    if n != len(y) or n < 2:
+        raise ValueError(f"fit_line needs two or more (x, y) pairs of equal length, got {n}, {len(y)}")
+    mx = sum(x) / n
+    my = sum(y) / n
+    sxx = sum((xi - mx) ** 2 for xi in x)
+    if sxx == 0:
+        raise ValueError("fit_line needs at least two different x values")
+    sxy = sum((xi - mx) * (yi - my) for xi, yi in zip(x, y, strict=True))
+    slope = sxy / sxx
+    intercept = my - slope * mx
+    if n > 2:
+        ssr = sum((yi - (slope * xi + intercept)) ** 2 for xi, yi in zip(x, y, strict=True))
+        se = math.sqrt(ssr / (n - 2) / sxx)
+    else:
+        se = 0.0
+    return LineFit(slope, intercept, se)
+
+
+def _cell_mm(result: Mapping[str, Any]) -> float | None:
+    unit = result.get("unit")
+    cell = result.get("cell")
+    if unit not in ("in", "mm") or not isinstance(cell, int | float) or cell <= 0:
+        return None
+    return to_mm(float(cell), str(unit))
+
+
+def density_target(spec: Spec | None, *, cell_mm: float, per_cell: bool = False) -> float | None:
+    """The spec's density target in points per ``cell_mm`` square.
+
+    ``per_cell`` asks for the cell target (``min_cell_density``, falling back to
+    ``min_density``); otherwise the window target (``min_density``, falling back to
+    ``min_cell_density``).  The spec states densities per ``basis_mm`` square; a count per
+    area scales with the area, so the target is multiplied by ``(cell_mm / basis_mm)**2``.
+    """
+    if spec is None:
+        return None
+    first, second = (
+        (spec.min_cell_density, spec.min_density)
+        if per_cell
+        else (spec.min_density, spec.min_cell_density)
+    )
+    value = first if first is not None else second
+    if value is None:
+        return None
+    return float(value) * (cell_mm / spec.basis_mm) ** 2
+
+
+def uniformity(result: Mapping[str, Any]) -> float | None:
+    """``100 * (1 - CV)`` of the complete cells' densities, clipped to 0..100 (see module)."""
+    dens = [
+        float(c["density"])
+        for c in result.get("cells") or ()
+        if c.get("complete") and c.get("density") is not None
+    ]
+    if len(dens) < 2:
+        return None
+    mean = sum(dens) / len(dens)
+    if mean <= 0:
+        return None
+    sd = math.sqrt(sum((d - mean) ** 2 for d in dens) / len(dens))
+    return round(min(100.0, max(0.0, 100.0 * (1.0 - sd / mean))), 2)
+
+
+def cells_meeting_percent(result: Mapping[str, Any], target: float | None) -> float | None:
+    """Percent of complete cells with density >= ``target`` (None without either)."""
+    if target is None:
+        return None
+    dens = [
+        float(c["density"])
+        for c in result.get("cells") or ()
+        if c.get("complete") and c.get("density") is not None
+    ]
+    if not dens:
+        return None
+    return round(100.0 * sum(d >= target - 1e-9 for d in dens) / len(dens), 2)
+
+
+def _fit_block(
+    densities: Sequence[float], target: float, fit_passes: int
+) -> tuple[tuple[LineFit | None, list[float]], dict[str, Any]]:
+    """The line through the last ``fit_passes`` (>= 3) passes, and its figures for output."""
+    k = max(MIN_PASSES, int(fit_passes))
+    ys = [float(d) for d in densities][-k:]
+    xs = [float(len(densities) - len(ys) + i + 1) for i in range(len(ys))]
+    fit = fit_line(xs, ys) if len(ys) >= MIN_PASSES else None
+    return (fit, xs), {
+        "rate": None if fit is None else round(fit.slope, 4),
+        "rate_stderr": None if fit is None else round(fit.slope_stderr, 4),
+        "fit_passes": len(ys),
+        "target": round(float(target), 4),
+    }
+
+
+def project(
+    densities: Sequence[float],
+    target: float | None,
+    *,
+    fit_passes: int = 5,
+) -> dict[str, Any] | None:
+    """Passes still needed for the density to reach ``target`` (see the module docstring).
+
+    Parameters
+    ----------
+    densities : sequence of float
+        Density of each pass, in pass order.
+    target : float or None
+        Density target in the same terms.
+    fit_passes : int
+        The line is fitted to the last this many passes (at least 3).
+
+    Returns
+    -------
+    dict or None
+        ``{"passes_to_spec", "low", "high", "rate", "rate_stderr", "fit_passes", "target"}``
+        or None when there is nothing to project.
+    """
+    if target is None or not densities:
+        return None
+    if float(densities[-1]) >= target:
+        done: dict[str, Any] = {"passes_to_spec": 0, "low": 0, "high": 0}
+        return {**done, **_fit_block(densities, target, fit_passes)[1]}
+    if len(densities) < MIN_PASSES:
+        return None
+    (fit, xs), base = _fit_block(densities, target, fit_passes)
+    assert fit is not None
+    if fit.slope <= 0:
+        return None
+    # distance still to go, from the fitted line at the latest pass
+    gap = max(target - (fit.slope * xs[-1] + fit.intercept), 0.0)
+
+    def needed(rate: float) -> int:
+        return max(1, math.ceil(gap / rate - 1e-9))
+
+    mid = needed(fit.slope)
+    low = needed(fit.slope + fit.slope_stderr)
+    hi_rate = fit.slope - fit.slope_stderr
+    high = needed(hi_rate) if hi_rate > 0 else None
+    return {"passes_to_spec": mid, "low": low, "high": high, **base}
+
+
+def build_progress(
+    passes: Sequence[Mapping[str, Any]],
+    *,
+    surface: str,
+    spec: Spec | None = None,
+    fit_passes: int = 5,
+) -> dict[str, Any]:
+    """The progress JSON object of ``surface`` (contract ``printcheck-progress/1``).
+
+    Parameters
+    ----------
+    passes : sequence of dict
+        In pass order: the dicts of ``History.passes`` (with a ``result`` key) or bare
+        result dicts (``result_to_dict`` output).
+    surface : str
+    spec : Spec or None
+        The surface's spec; gives the density target of the projection.  Without it the
+        spec name is taken from the latest pass and ``projection`` is None.
+    fit_passes : int
+        Passes the trend line is fitted to (the most recent ones).
+
+    Returns
+    -------
+    dict
+        ``format``, ``surface``, ``spec``, ``unit``, ``cell``, ``targets``, ``passes``
+        (each ``pass``, ``photo``, ``taken``, ``density``, ``bearing_percent``, ``meets``,
+        ``spot_count``, ``uniformity``, ``cells_meeting_percent``) and ``projection``.
+        Densities are in points per the latest pass's cell (passes counted on another
+        cell are converted: density scales with the cell's area).
+    """
+    results = [p["result"] if "result" in p else p for p in passes]
+    last = results[-1] if results else {}
+    basis_mm = _cell_mm(last)
+    rows = []
+    for n, res in enumerate(results, start=1):
+        d = res.get("density")
+        cell_mm = _cell_mm(res)
+        factor = 1.0
+        if basis_mm is not None and cell_mm is not None:
+            factor = (basis_mm / cell_mm) ** 2
+        cell_target = density_target(spec, cell_mm=cell_mm, per_cell=True) if cell_mm else None
+        spec_block = res.get("spec") if isinstance(res.get("spec"), Mapping) else None
+        rows.append(
+            {
+                "pass": n,
+                "photo": res.get("photo"),
+                "taken": res.get("taken"),
+                "density": None if d is None else round(float(d) * factor, 2),
+                "bearing_percent": res.get("bearing_percent"),
+                "meets": None if spec_block is None else spec_block.get("meets"),
+                "spot_count": res.get("spot_count"),
+                "uniformity": uniformity(res),
+                "cells_meeting_percent": cells_meeting_percent(res, cell_target),
+            }
+        )
+    spec_name = spec.name if spec is not None else None
+    if spec_name is None:
+        for p, res in zip(reversed(passes), reversed(results), strict=True):
+            name = p.get("spec") if "result" in p else None
+            block = res.get("spec")
+            name = name or (block.get("name") if isinstance(block, Mapping) else None)
+            if name:
+                spec_name = name
+                break
+    target = density_target(spec, cell_mm=basis_mm) if basis_mm else None
+    densities = [r["density"] for r in rows]
+    projection = None
+    if all(d is not None for d in densities):
+        projection = project(densities, target, fit_passes=fit_passes)
+    cell_target = density_target(spec, cell_mm=basis_mm, per_cell=True) if basis_mm else None
+    targets = {
+        "density": None if target is None else round(target, 4),
+        "cell_density": None if cell_target is None else round(cell_target, 4),
+        "bearing_min": None if spec is None else spec.bearing_min,
+        "bearing_max": None if spec is None else spec.bearing_max,
+    }
+    return {
+        "format": PROGRESS_FORMAT,
+        "surface": surface,
+        "spec": spec_name,
+        "unit": last.get("unit"),
+        "cell": last.get("cell"),
+        "targets": targets,
+        "passes": rows,
+        "projection": projection,
+    }

@@ -1,0 +1,269 @@
+"""Writers: result JSON, the results CSV and overlay images, each written atomically.
+
+Every file is written to a temporary file in the same folder, flushed to disk (fsync) and
+renamed over its final name (``os.replace``), so a reader never sees half a file and a
+crash leaves either the old file or the new one.  Names are plain file names inside the
+given output folder: a name that would land anywhere else is refused, and names derived
+from photos (:func:`output_name`) never contain a folder separator.
+"""
+
+from __future__ import annotations
+
+import csv
+import errno
+import io
+import json
+import os
+import tempfile
+from collections.abc import Iterable, Mapping
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from printcheck.errors import ReportError
+
+__all__ = [
+    "CSV_COLUMNS",
+    "CSV_NAME",
+    "output_name",
+    "result_row",
+    "write_bytes",
+    "write_text",
+    "write_json",
+    "write_csv",
+    "write_image",
+    "encode_image",
+]
+
+CSV_NAME = "results.csv"
+
+CSV_COLUMNS: tuple[str, ...] = (
+    "photo",
+    "surface",
+    "taken",
+    "unit",
+    "cell",
+    "density",
+    "bearing_percent",
+    "spot_count",
+    "largest_bare",
+    "spec",
+    "meets",
+    "spot_count_low",
+    "spot_count_high",
+    "bearing_percent_low",
+    "bearing_percent_high",
+    "doubtful",
+    "warnings",
+)
+
+_FORBIDDEN = set('/\\\x00:*?"<>|')
+
+
+def output_name(photo: str, suffix: str) -> str:
+    """The output file name for ``photo``: its stem plus ``suffix`` (e.g. ``".json"``).
+
+    Characters that could leave the folder or upset another system (``/ \\ : * ? " < > |``
+    and control characters) become ``_``; a stem of only dots becomes ``_``.
+
+    Examples
+    --------
+    >>> output_name("IMG_0042.jpg", ".json")
+    'IMG_0042.json'
+    >>> output_name("../../etc/passwd", ".json")
+    '.._.._etc_passwd.json'
+    """
+    base = str(photo)
+    head, dot, ext = base.rpartition(".")
+    stem = head if dot and head.strip(".") and not set(ext) & {"/", "\\"} else base
+    clean = "".join("_" if (ch in _FORBIDDEN or ord(ch) < 32) else ch for ch in stem).strip()
+    if not clean.strip("."):
+        clean = "_"
+    return clean + suffix
+
+
+def _target(folder: str | os.PathLike[str], name: str) -> Path:
+    """``folder / name``, refusing a name that is not a plain file name inside ``folder``."""
+    if (
+        not name
+        or name in (".", "..")
+        or "/" in name
+        or "\\" in name
+        or "\x00" in name
+        or os.path.isabs(name)
+    ):
+        raise ReportError(
+            f"output name {name!r} is not a plain file name; give a name without folders"
+        )
+    root = Path(folder)
+    path = root / name
+    if path.resolve().parent != root.resolve():
+        raise ReportError(f"output {path} would land outside the output folder {root}")
+    return path
+
+
+def _explain(path: Path, exc: OSError) -> ReportError:
+    code = exc.errno
+    if code in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+        why = "the disk is full; free some space or give another --out folder"
+    elif code in (errno.EROFS, errno.EACCES, errno.EPERM):
+        why = "the folder is read-only or not writable; give a writable --out folder"
+    elif code == errno.ENOENT:
+        why = "the folder does not exist; create it or give another --out folder"
+    elif code == errno.ENOTDIR:
+        why = "a file stands where the output folder should be; give another --out folder"
+    else:
+        why = f"{exc.strerror or exc}; give another --out folder"
+    return ReportError(f"cannot write {path}: {why}")
+
+
+def write_bytes(folder: str | os.PathLike[str], name: str, data: bytes) -> Path:
+    """Write ``data`` to ``folder/name`` atomically and return the path.
+
+    Parameters
+    ----------
+    folder : path
+        The output folder (created if missing).
+    name : str
+        A plain file name (no folder parts).
+
+    Raises
+    ------
+    ReportError
+        The name would leave the folder, or the folder is read-only or full.
+    """
+    path = _target(folder, name)
+    tmp: str | None = None
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{name}.", suffix=".tmp", dir=path.parent)
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+        tmp = None
+        _fsync_dir(path.parent)
+    except OSError as exc:
+        raise _explain(path, exc) from None
+    finally:
+        if tmp is not None:
+            try:
+                os.unlink(tmp)
+            except OSError:
+                pass
+    return path
+
+
+def _fsync_dir(folder: Path) -> None:
+    """Make the rename durable (a no-op where folders cannot be opened, e.g. Windows)."""
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def write_text(folder: str | os.PathLike[str], name: str, text: str) -> Path:
+    """Write ``text`` (UTF-8) to ``folder/name`` atomically."""
+    return write_bytes(folder, name, text.encode("utf-8"))
+
+
+def write_json(folder: str | os.PathLike[str], name: str, data: Mapping[str, Any]) -> Path:
+    """Write a result dict (or any plain-data dict) as JSON, indent 2, atomically.
+
+    ``name`` is the file name, e.g. ``output_name(result["photo"], ".json")``.
+    """
+    try:
+        text = json.dumps(data, indent=2, ensure_ascii=False, allow_nan=False)
+    except (TypeError, ValueError) as exc:
+        raise ReportError(
+            f"cannot write {name}: the data is not plain JSON ({exc}); pass result_to_dict output"
+        ) from None
+    return write_text(folder, name, text + "\n")
+
+
+def result_row(result: Mapping[str, Any]) -> dict[str, Any]:
+    """One CSV row (the :data:`CSV_COLUMNS`) from a result dict.
+
+    Booleans become ``true``/``false``, missing values the empty string, warnings are
+    joined with ``"; "``.
+    """
+    spec = result.get("spec") if isinstance(result.get("spec"), Mapping) else None
+    conf = result.get("confidence") if isinstance(result.get("confidence"), Mapping) else {}
+
+    def b(v: Any) -> str:
+        return "" if v is None else ("true" if v else "false")
+
+    def v(x: Any) -> Any:
+        return "" if x is None else x
+
+    return {
+        "photo": v(result.get("photo")),
+        "surface": v(result.get("surface")),
+        "taken": v(result.get("taken")),
+        "unit": v(result.get("unit")),
+        "cell": v(result.get("cell")),
+        "density": v(result.get("density")),
+        "bearing_percent": v(result.get("bearing_percent")),
+        "spot_count": v(result.get("spot_count")),
+        "largest_bare": v(result.get("largest_bare")),
+        "spec": "" if spec is None else v(spec.get("name")),
+        "meets": "" if spec is None else b(spec.get("meets")),
+        "spot_count_low": v(conf.get("spot_count_low")),
+        "spot_count_high": v(conf.get("spot_count_high")),
+        "bearing_percent_low": v(conf.get("bearing_percent_low")),
+        "bearing_percent_high": v(conf.get("bearing_percent_high")),
+        "doubtful": b(conf.get("doubtful")),
+        "warnings": "; ".join(str(w) for w in result.get("warnings") or ()),
+    }
+
+
+def write_csv(
+    folder: str | os.PathLike[str],
+    results: Iterable[Mapping[str, Any]],
+    *,
+    name: str = CSV_NAME,
+) -> Path:
+    """Write ``results.csv``: a header of :data:`CSV_COLUMNS`, one row per result dict."""
+    buf = io.StringIO(newline="")
+    writer = csv.DictWriter(buf, fieldnames=list(CSV_COLUMNS), lineterminator="\r\n")
+    writer.writeheader()
+    for res in results:
+        writer.writerow(result_row(res))
+    return write_text(folder, name, buf.getvalue())
+
+
+def encode_image(image: np.ndarray, suffix: str = ".png", *, jpeg_quality: int = 90) -> bytes:
+    """Encode a (M, N, 3) uint8 BGR image as PNG or JPEG bytes (``suffix`` picks which)."""
+    import cv2
+
+    suffix = suffix.lower()
+    if suffix == ".png":
+        params = [cv2.IMWRITE_PNG_COMPRESSION, 6]
+    elif suffix in (".jpg", ".jpeg"):
+        params = [cv2.IMWRITE_JPEG_QUALITY, int(jpeg_quality)]
+    else:
+        raise ReportError(f"image format {suffix!r} is not supported; use .png or .jpg")
+    img = np.asarray(image)
+    if img.dtype != np.uint8 or img.ndim not in (2, 3):
+        raise ReportError(
+            f"image must be a (M, N, 3) uint8 array, got {img.dtype} of shape {img.shape}"
+        )
+    ok, buf = cv2.imencode(suffix, img, params)
+    if not ok:
+        raise ReportError(f"could not encode the image as {suffix}")
+    return buf.tobytes()
+
+
+def write_image(folder: str | os.PathLike[str], name: str, image: np.ndarray) -> Path:
+    """Write a (M, N, 3) uint8 BGR image as PNG or JPEG (by ``name``'s suffix), atomically."""
+    suffix = os.path.splitext(name)[1] or ".png"
+    return write_bytes(folder, name, encode_image(image, suffix))

@@ -1,0 +1,448 @@
+"""The HTML report of one surface: ONE self-contained file that opens offline.
+
+Every image (overlays, the trend plot) is embedded as a base64 ``data:`` URI, the CSS is
+inline, there is no script and no external resource.  Every string that comes from outside
+(file names, surface, layout and spec names, check reasons, warnings) is escaped with
+:func:`html.escape`; links point only at files next to the report (relative names, never
+a folder part).
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import os
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+from urllib.parse import quote
+
+from printcheck import __version__
+from printcheck.report.files import CSV_NAME, output_name, write_text
+from printcheck.spec import Spec
+
+__all__ = ["render_report", "write_report"]
+
+_CSS = """
+:root { --ink:#1d232a; --muted:#5f6b76; --line:#d9dee3; --ok:#1e7e46; --bad:#b3261e;
+        --okbg:#e3f4ea; --badbg:#fbe6e4; --warnbg:#fff5da; }
+* { box-sizing: border-box; }
+body { font: 15px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, Helvetica, Arial, sans-serif;
+       color: var(--ink); margin: 0; background: #f4f6f8; }
+main { max-width: 1040px; margin: 0 auto; padding: 24px 20px 48px; }
+header.surface { background: #fff; border: 1px solid var(--line); border-radius: 10px;
+       padding: 18px 22px; margin-bottom: 22px; }
+h1 { font-size: 26px; margin: 0 0 4px; }
+h2 { font-size: 19px; margin: 0 0 10px; }
+h3 { font-size: 15px; margin: 14px 0 6px; color: var(--muted); text-transform: uppercase;
+     letter-spacing: .04em; }
+.sub { color: var(--muted); margin: 0 0 12px; }
+.badge { display: inline-block; font-weight: 700; padding: 3px 12px; border-radius: 999px;
+         font-size: 14px; vertical-align: middle; }
+.badge.ok { background: var(--okbg); color: var(--ok); }
+.badge.bad { background: var(--badbg); color: var(--bad); }
+.badge.none { background: #eceff1; color: var(--muted); }
+.figures { display: flex; flex-wrap: wrap; gap: 10px; margin: 10px 0; }
+.fig { background: #fff; border: 1px solid var(--line); border-radius: 8px; padding: 8px 14px;
+       min-width: 130px; }
+.fig .v { font-size: 22px; font-weight: 700; }
+.fig .k { font-size: 12px; color: var(--muted); }
+.fig .r { font-size: 12px; color: var(--muted); }
+section.pass { background: #fff; border: 1px solid var(--line); border-radius: 10px;
+       padding: 18px 22px; margin: 0 0 22px; }
+img { max-width: 100%; height: auto; display: block; }
+img.overlay { border-radius: 6px; border: 1px solid var(--line); }
+img.trend { margin-top: 8px; }
+.cols { display: flex; flex-wrap: wrap; gap: 22px; align-items: flex-start; }
+.cols > div { flex: 1 1 300px; }
+table { border-collapse: collapse; }
+table.checks { width: 100%; font-size: 14px; }
+table.checks th, table.checks td { text-align: left; padding: 5px 8px;
+       border-bottom: 1px solid var(--line); vertical-align: top; }
+table.checks td.ok { color: var(--ok); font-weight: 700; }
+table.checks td.bad { color: var(--bad); font-weight: 700; }
+table.heat td { width: 64px; height: 54px; text-align: center; border: 2px solid #fff;
+       font-weight: 700; font-size: 15px; color: #1d232a; }
+table.heat td.part { font-weight: 400; font-style: italic; opacity: .75; }
+table.heat td small { display: block; font-weight: 400; font-size: 11px; }
+table.heat caption { caption-side: top; text-align: left; font-size: 13px; color: var(--muted);
+       padding-bottom: 4px; }
+ul.warn { background: var(--warnbg); border-radius: 6px; padding: 8px 8px 8px 28px; margin: 8px 0; }
+.key { font-size: 12px; color: var(--muted); }
+footer { color: var(--muted); font-size: 12px; text-align: center; margin-top: 30px; }
+a { color: #1f5fa8; }
+@media print {
+  body { background: #fff; font-size: 12px; }
+  main { max-width: none; padding: 0; }
+  header.surface, section.pass { border: none; padding: 0; }
+  section.pass { break-before: page; }
+  .fig, table.heat, img { break-inside: avoid; }
+  * { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+  a { color: inherit; text-decoration: none; }
+}
+"""
+
+
+def _e(value: Any) -> str:
+    """Escape any outside text for HTML (element content and quoted attributes)."""
+    return html.escape("" if value is None else str(value), quote=True)
+
+
+def _data_uri(data: bytes) -> str:
+    if data[:8] == b"\x89PNG\r\n\x1a\n":
+        mime = "image/png"
+    elif data[:3] == b"\xff\xd8\xff":
+        mime = "image/jpeg"
+    else:
+        mime = "application/octet-stream"
+    return f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
+
+
+def _num(value: Any, digits: int = 1) -> str:
+    if value is None:
+        return "–"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int):
+        return str(value)
+    return f"{float(value):.{digits}f}"
+
+
+def _badge(meets: bool | None) -> str:
+    if meets is None:
+        return '<span class="badge none">no spec</span>'
+    if meets:
+        return '<span class="badge ok">meets spec</span>'
+    return '<span class="badge bad">does not meet spec</span>'
+
+
+def _mix(a: tuple[int, int, int], b: tuple[int, int, int], t: float) -> str:
+    t = min(1.0, max(0.0, t))
+    r, g, bl = (int(round(x + (y - x) * t)) for x, y in zip(a, b, strict=True))
+    return f"#{r:02x}{g:02x}{bl:02x}"
+
+
+_PALE_RED = (246, 196, 190)
+_PALE_AMBER = (252, 226, 164)
+_PALE_GREEN = (181, 228, 195)
+_PALE_BLUE = (196, 218, 244)
+_PALE_ORANGE = (250, 205, 160)
+_WHITE = (248, 249, 250)
+
+
+def _density_colour(value: float, target: float | None, top: float) -> str:
+    if target is None or target <= 0:
+        return _mix(_WHITE, _PALE_BLUE, value / top if top > 0 else 0.0)
+    ratio = value / target
+    if ratio >= 1.0:
+        return _mix(_PALE_GREEN, _PALE_GREEN, 0.0)
+    if ratio >= 0.75:
+        return _mix(_PALE_AMBER, _PALE_GREEN, (ratio - 0.75) / 0.25 * 0.4)
+    return _mix(_PALE_RED, _PALE_AMBER, ratio / 0.75)
+
+
+def _bearing_colour(value: float, lo: float | None, hi: float | None) -> str:
+    if lo is None and hi is None:
+        return _mix(_WHITE, _PALE_BLUE, value / 100.0)
+    if lo is not None and value < lo:
+        return _mix(_PALE_BLUE, _PALE_AMBER, value / lo if lo > 0 else 1.0)
+    if hi is not None and value > hi:
+        return _mix(_PALE_ORANGE, _PALE_RED, (value - hi) / max(100.0 - hi, 1.0))
+    return _mix(_PALE_GREEN, _PALE_GREEN, 0.0)
+
+
+def _cell_target(result: Mapping[str, Any], spec: Spec | None) -> float | None:
+    from printcheck.progress import density_target
+    from printcheck.units import to_mm
+
+    unit, cell = result.get("unit"), result.get("cell")
+    if spec is None or unit not in ("in", "mm") or not cell:
+        return None
+    return density_target(spec, cell_mm=to_mm(float(cell), str(unit)), per_cell=True)
+
+
+def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
+    cells = list(result.get("cells") or ())
+    if not cells:
+        return '<p class="key">No cells.</p>'
+    rows = max(int(c["row"]) for c in cells) + 1
+    cols = max(int(c["col"]) for c in cells) + 1
+    grid: dict[tuple[int, int], Mapping[str, Any]] = {(int(c["row"]), int(c["col"])): c for c in cells}
+    target = _cell_target(result, spec)
+    top = max((float(c.get("density") or 0.0) for c in cells), default=0.0)
+    lo = None if spec is None else spec.bearing_min
+    hi = None if spec is None else spec.bearing_max
+    unit_text = f"points per {_num(result.get('cell'), 2).rstrip('0').rstrip('.')} {_e(result.get('unit'))} square"
+
+    def table(key: str, caption: str) -> str:
+        out = [f'<table class="heat"><caption>{caption}</caption>']
+        for r in range(rows):
+            out.append("<tr>")
+            for c in range(cols):
+                cell = grid.get((r, c))
+                if cell is None:
+                    out.append("<td></td>")
+                    continue
+                v = float(cell.get(key) or 0.0)
+                if key == "density":
+                    bg = _density_colour(v, target, top)
+                    text = _num(v, 1)
+                    small = f"{_num(cell.get('spot_count'))} pts"
+                else:
+                    bg = _bearing_colour(v, lo, hi)
+                    text = f"{v:.0f}%"
+                    small = ""
+                cls = "" if cell.get("complete") else ' class="part"'
+                title = "" if cell.get("complete") else ' title="incomplete cell"'
+                sm = f"<small>{small}</small>" if small else ""
+                out.append(f'<td{cls}{title} style="background:{bg}">{text}{sm}</td>')
+            out.append("</tr>")
+        out.append("</table>")
+        return "".join(out)
+
+    dcap = f"Density, {unit_text}" + ("" if target is None else f" (target {target:g})")
+    if lo is not None or hi is not None:
+        bcap = f"Bearing (target {_num(lo, 0) if lo is not None else '0'}–{_num(hi, 0) if hi is not None else '100'} %)"
+    else:
+        bcap = "Bearing"
+    return (
+        '<div class="cols"><div>'
+        + table("density", dcap)
+        + "</div><div>"
+        + table("bearing_percent", bcap)
+        + '</div></div><p class="key">Italic: incomplete cell (cut by the window edge or an '
+        "exclusion). Green: meets the target; amber: close; red: well short.</p>"
+    )
+
+
+def _projection_text(progress: Mapping[str, Any], spec: Spec | None) -> str:
+    proj = progress.get("projection")
+    passes = progress.get("passes") or ()
+    target = (progress.get("targets") or {}).get("density")
+    if spec is None or target is None:
+        return "No density target to project against."
+    if proj is None:
+        if len(passes) < 3:
+            return f"Too few passes to project yet ({len(passes)} of 3 needed)."
+        return "The density trend is not approaching the target; no projection."
+    n = proj["passes_to_spec"]
+    if n == 0:
+        return f"The latest pass reaches the density target of {target:g}."
+    lo, hi = proj.get("low"), proj.get("high")
+    rng = f"{lo}–{hi}" if hi is not None else f"{lo} or more"
+    word = "pass" if n == 1 else "passes"
+    return (
+        f"About <b>{n} more {word}</b> to reach {target:g} points (likely range {rng}), "
+        f"at {proj.get('rate', 0):.1f} points per pass."
+    )
+
+
+def _figure(value: str, key: str, rng: str = "") -> str:
+    r = f'<div class="r">{rng}</div>' if rng else ""
+    return f'<div class="fig"><div class="v">{value}</div><div class="k">{key}</div>{r}</div>'
+
+
+def _pass_section(
+    number: int,
+    result: Mapping[str, Any],
+    overlay: bytes | None,
+    spec: Spec | None,
+    folder: Path | None,
+) -> str:
+    spec_block = result.get("spec") if isinstance(result.get("spec"), Mapping) else None
+    meets = None if spec_block is None else spec_block.get("meets")
+    unit = _e(result.get("unit") or "")
+    cell = result.get("cell")
+    cell_txt = "" if cell is None else f"{float(cell):g}"
+    conf = result.get("confidence") if isinstance(result.get("confidence"), Mapping) else None
+    taken = result.get("taken")
+    parts = [f'<section class="pass" id="pass-{number}">']
+    parts.append(
+        f"<h2>Pass {number} · {_e(result.get('photo'))} {_badge(meets)}</h2>"
+        f'<p class="sub">{"taken " + _e(str(taken).replace("T", " ")) if taken else "time unknown"}'
+    )
+    cal = result.get("calibration") if isinstance(result.get("calibration"), Mapping) else {}
+    if cal:
+        how = "layout " + _e(cal.get("layout")) if cal.get("method") == "layout" else "given scale"
+        res = cal.get("residual_mm")
+        parts.append(
+            f" · scale from {how}, {_num(cal.get('px_per_mm'), 1)} px/mm"
+            + ("" if res is None else f", fit residual {_num(res, 3)} mm")
+        )
+    if folder is not None and result.get("photo"):
+        name = output_name(str(result["photo"]), ".json")
+        if (folder / name).is_file():
+            parts.append(f' · <a href="{_e(quote(name))}">result JSON</a>')
+    parts.append("</p>")
+
+    cnt_rng = den_rng = bear_rng = ""
+    if conf:
+        cnt_rng = f"range {_num(conf.get('spot_count_low'))}–{_num(conf.get('spot_count_high'))}"
+        bear_rng = (
+            f"range {_num(conf.get('bearing_percent_low'))}–{_num(conf.get('bearing_percent_high'))} %"
+        )
+    parts.append('<div class="figures">')
+    parts.append(_figure(_num(result.get("density")), f"points per {cell_txt} {unit} square", den_rng))
+    parts.append(_figure(_num(result.get("bearing_percent")) + " %", "bearing", bear_rng))
+    parts.append(_figure(_num(result.get("spot_count")), "spots in the window", cnt_rng))
+    parts.append(_figure(_num(result.get("largest_bare"), 2) + f" {unit}", "largest bare patch"))
+    parts.append("</div>")
+    if conf and conf.get("doubtful"):
+        parts.append(
+            f'<ul class="warn"><li>The count is uncertain: {_e(conf.get("reason") or "the segmentation threshold matters")}</li></ul>'
+        )
+
+    if spec_block and spec_block.get("checks"):
+        parts.append(f"<h3>Checks against {_e(spec_block.get('name'))}</h3>")
+        parts.append(
+            '<table class="checks"><tr><th>check</th><th>target</th><th>value</th>'
+            "<th></th><th>reason</th></tr>"
+        )
+        for ch in spec_block["checks"]:
+            ok = bool(ch.get("ok"))
+            parts.append(
+                f"<tr><td>{_e(ch.get('name'))}</td><td>{_e(ch.get('target'))}</td>"
+                f"<td>{_num(ch.get('value'), 2)}</td>"
+                f'<td class="{"ok" if ok else "bad"}">{"✓ ok" if ok else "✗ short"}</td>'
+                f"<td>{_e(ch.get('reason'))}</td></tr>"
+            )
+        parts.append("</table>")
+
+    warnings = list(result.get("warnings") or ())
+    if warnings:
+        parts.append('<h3>Warnings</h3><ul class="warn">')
+        parts.extend(f"<li>{_e(w)}</li>" for w in warnings)
+        parts.append("</ul>")
+
+    if overlay:
+        parts.append("<h3>Print</h3>")
+        parts.append(
+            f'<img class="overlay" src="{_data_uri(overlay)}" '
+            f'alt="overlay of {_e(result.get("photo"))}">'
+        )
+    parts.append("<h3>Cells</h3>")
+    parts.append(_heat_tables(result, spec))
+    parts.append("</section>")
+    return "".join(parts)
+
+
+def _spec_text(spec: Spec | None) -> str:
+    if spec is None:
+        return "No spec: figures only."
+    bits = []
+    basis = "in²" if abs(spec.basis_mm - 25.4) < 1e-9 else f"{spec.basis_mm:g} mm square"
+    if spec.min_density is not None:
+        bits.append(f"at least {spec.min_density:g} points per {basis}")
+    if spec.min_cell_density is not None:
+        share = "every" if spec.cell_share >= 1 else f"{spec.cell_share * 100:.0f} % of"
+        bits.append(f"{share} complete cell at least {spec.min_cell_density:g}")
+    if spec.bearing_min is not None or spec.bearing_max is not None:
+        lo = "0" if spec.bearing_min is None else f"{spec.bearing_min:g}"
+        hi = "100" if spec.bearing_max is None else f"{spec.bearing_max:g}"
+        bits.append(f"bearing {lo}–{hi} %")
+    if spec.max_bare_mm is not None:
+        bits.append(f"no bare patch over {spec.max_bare_mm:g} mm")
+    title = spec.title or spec.name
+    return f"<b>{_e(title)}</b> ({_e(spec.name)}): " + _e("; ".join(bits) or "no targets")
+
+
+def render_report(
+    *,
+    surface: str,
+    spec: Spec | None,
+    passes: Sequence[tuple[Mapping[str, Any], bytes | None]],
+    progress: Mapping[str, Any] | None = None,
+    folder: str | os.PathLike[str] | None = None,
+) -> str:
+    """The report's HTML text (see :func:`write_report`); ``folder`` is where it will live."""
+    from printcheck.report.plots import trend_png
+
+    folder_path = None if folder is None else Path(folder)
+    results = [r for r, _ in passes]
+    latest = results[-1] if results else None
+    latest_spec = latest.get("spec") if latest and isinstance(latest.get("spec"), Mapping) else None
+    meets = None if latest_spec is None else latest_spec.get("meets")
+    head = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{_e(surface)} · print report</title>",
+        f"<style>{_CSS}</style></head><body><main>",
+        '<header class="surface">',
+        f"<h1>{_e(surface)} {_badge(meets) if latest is not None else ''}</h1>",
+        f'<p class="sub">{len(results)} pass{"es" if len(results) != 1 else ""} in this report'
+        + (
+            f" · latest: {_e(latest.get('photo'))}"
+            if latest is not None
+            else ""
+        )
+        + "</p>",
+        f"<p>Spec: {_spec_text(spec)}</p>",
+    ]
+    if latest is not None:
+        head.append('<div class="figures">')
+        head.append(
+            _figure(
+                _num(latest.get("density")),
+                f"points per {float(latest.get('cell') or 1):g} {_e(latest.get('unit'))} square, latest",
+            )
+        )
+        head.append(_figure(_num(latest.get("bearing_percent")) + " %", "bearing, latest"))
+        head.append("</div>")
+    if progress is not None:
+        head.append(f"<p>{_projection_text(progress, spec)}</p>")
+        if progress.get("passes"):
+            png = trend_png(progress)
+            head.append(
+                f'<img class="trend" src="{_data_uri(png)}" '
+                f'alt="density and bearing across the passes of {_e(surface)}">'
+            )
+    if folder_path is not None and (folder_path / CSV_NAME).is_file():
+        head.append(f'<p class="key">All figures: <a href="{quote(CSV_NAME)}">{CSV_NAME}</a></p>')
+    head.append("</header>")
+
+    body = []
+    numbers = list(range(1, len(passes) + 1))
+    if progress is not None and len(progress.get("passes") or ()) == len(passes):
+        numbers = [int(p["pass"]) for p in progress["passes"]]
+    for n, (res, overlay) in reversed(list(zip(numbers, passes, strict=True))):
+        body.append(_pass_section(n, res, overlay, spec, folder_path))
+    foot = f"<footer>printcheck {_e(__version__)}</footer></main></body></html>\n"
+    return "\n".join(head) + "\n" + "\n".join(body) + "\n" + foot
+
+
+def write_report(
+    path: str | os.PathLike[str],
+    *,
+    surface: str,
+    spec: Spec | None,
+    passes: Sequence[tuple[Mapping[str, Any], bytes | None]],
+    progress: Mapping[str, Any] | None = None,
+) -> Path:
+    """Write the surface's self-contained HTML report atomically.
+
+    Parameters
+    ----------
+    path : path
+        The report file, e.g. ``out/report.html``; its folder is the output folder.
+    surface : str
+    spec : Spec or None
+    passes : sequence of (result dict, overlay image bytes or None)
+        In pass order (oldest first); shown newest first.  The overlay is PNG or JPEG
+        bytes (``printcheck.report.files.encode_image(draw_overlay(result))``).
+    progress : dict or None
+        :func:`printcheck.progress.build_progress` output, for the header and trend plot.
+
+    Returns
+    -------
+    Path
+        The written file.
+
+    Raises
+    ------
+    ReportError
+        The folder is read-only or full.
+    """
+    p = Path(path)
+    text = render_report(surface=surface, spec=spec, passes=passes, progress=progress, folder=p.parent)
+    return write_text(p.parent, p.name, text)

@@ -1,0 +1,342 @@
+"""Overlay: the rectified print with its spots, grid, figures and guidance drawn on it.
+
+What is drawn (all with OpenCV, so it stays fast):
+
+- the rectified window (plus whatever margin the photo shows), the part outside the
+  analysed area dimmed;
+- the outline of every spot: yellow when it counts (centroid in the window), grey when it
+  lies past the window edge;
+- the grid of counting cells, each with its density (large) and bearing (small) written in
+  its top-left corner on a dark halo; figures of incomplete cells in grey;
+- the guidance: high areas to break up as orange hatched circles, bare patches larger than
+  the spec allows as cyan dashed circles;
+- a legend band below the image.
+
+The image is scaled so its longer side lies between ``min_side`` and ``max_side`` pixels,
+and fonts and line widths scale with it, so the figures stay legible.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from printcheck.result import Result
+
+__all__ = ["OverlayStyle", "COLOURS", "draw_overlay", "spot_boundaries"]
+
+# BGR colours
+COLOURS: dict[str, tuple[int, int, int]] = {
+    "spot": (0, 255, 255),  # yellow: a counted spot's outline
+    "spot_outside": (170, 170, 170),  # grey: a spot past the window edge
+    "grid": (255, 255, 255),
+    "halo": (20, 20, 20),
+    "text": (255, 255, 255),
+    "text_partial": (185, 185, 185),
+    "high": (0, 140, 255),  # orange
+    "bare": (255, 255, 0),  # cyan
+    "legend_bg": (38, 38, 38),
+}
+
+
+@dataclass(frozen=True)
+class OverlayStyle:
+    """Sizes of the overlay.
+
+    Attributes
+    ----------
+    min_side, max_side : int
+        The longer side of the drawn image is scaled into this range (pixels).
+    dim : float
+        Brightness kept outside the analysed area (0 black .. 1 unchanged).
+    """
+
+    min_side: int = 720
+    max_side: int = 1800
+    dim: float = 0.45
+
+
+def spot_boundaries(labels: np.ndarray) -> np.ndarray:
+    """Inner boundary of each labelled spot: pixels of a spot with a 4-neighbour not in it.
+
+    Parameters
+    ----------
+    labels : (M, N) int ndarray
+        0 background, k > 0 the spots.
+
+    Returns
+    -------
+    (M, N) bool ndarray
+        True on the spots' edge pixels (also where two spots touch).  The image border
+        counts as outside.
+    """
+    lab = np.asarray(labels)
+    padded = np.pad(lab, 1, mode="constant", constant_values=0)
+    centre = padded[1:-1, 1:-1]
+    edge = (
+        (padded[:-2, 1:-1] != centre)
+        | (padded[2:, 1:-1] != centre)
+        | (padded[1:-1, :-2] != centre)
+        | (padded[1:-1, 2:] != centre)
+    )
+    return edge & (centre > 0)
+
+
+def _crop_box(result: Result) -> tuple[int, int, int, int]:
+    """(r0, r1, c0, c1) of the window plus the visible margin, inside the image."""
+    rect = result.rectified
+    rows, cols = rect.image.shape[:2]
+    rs, cs = rect.frame.window_slices()
+    r0, r1, c0, c1 = rs.start, rs.stop, cs.start, cs.stop
+    vis = np.asarray(rect.visible)
+    if vis.shape == (rows, cols) and vis.any():
+        rr = np.flatnonzero(vis.any(axis=1))
+        cc = np.flatnonzero(vis.any(axis=0))
+        r0, r1 = min(r0, int(rr[0])), max(r1, int(rr[-1]) + 1)
+        c0, c1 = min(c0, int(cc[0])), max(c1, int(cc[-1]) + 1)
+    r0, c0 = max(r0, 0), max(c0, 0)
+    r1, c1 = min(r1, rows), min(c1, cols)
+    if r1 <= r0 or c1 <= c0:
+        return 0, rows, 0, cols
+    return r0, r1, c0, c1
+
+
+def _resample(array: np.ndarray, box: tuple[int, int, int, int], shape: tuple[int, int]) -> np.ndarray:
+    """Nearest-neighbour resample of ``array[box]`` to ``shape`` (exact for labels)."""
+    r0, r1, c0, c1 = box
+    h, w = shape
+    ri = r0 + np.minimum(((np.arange(h) + 0.5) * (r1 - r0) / h).astype(np.intp), r1 - r0 - 1)
+    ci = c0 + np.minimum(((np.arange(w) + 0.5) * (c1 - c0) / w).astype(np.intp), c1 - c0 - 1)
+    return array[np.ix_(ri, ci)]
+
+
+def _fmt_density(value: float) -> str:
+    return f"{value:.0f}" if abs(value) >= 10 else f"{value:.1f}"
+
+
+def _put_text(
+    img: np.ndarray,
+    text: str,
+    org: tuple[int, int],
+    scale: float,
+    colour: tuple[int, int, int],
+    thickness: int,
+) -> None:
+    import cv2
+
+    halo = thickness + max(2, int(round(scale * 2.5)))
+    cv2.putText(img, text, org, cv2.FONT_HERSHEY_SIMPLEX, scale, COLOURS["halo"], halo, cv2.LINE_AA)
+    cv2.putText(img, text, org, cv2.FONT_HERSHEY_SIMPLEX, scale, colour, thickness, cv2.LINE_AA)
+
+
+def _dashed_circle(
+    img: np.ndarray, centre: tuple[int, int], radius: int, colour: tuple[int, int, int], thickness: int
+) -> None:
+    import cv2
+
+    # dashes about 3 line widths long, at least 12 around
+    n = max(12, int(2 * math.pi * radius / max(6 * thickness, 8)))
+    step = 360.0 / n
+    for i in range(n):
+        a0 = i * step
+        cv2.ellipse(
+            img, centre, (radius, radius), 0.0, a0, a0 + step * 0.55, colour, thickness, cv2.LINE_AA
+        )
+
+
+def _hatched_circle(
+    img: np.ndarray, centre: tuple[int, int], radius: int, colour: tuple[int, int, int], thickness: int
+) -> None:
+    import cv2
+
+    h, w = img.shape[:2]
+    cx, cy = centre
+    x0, x1 = max(cx - radius, 0), min(cx + radius + 1, w)
+    y0, y1 = max(cy - radius, 0), min(cy + radius + 1, h)
+    if x1 > x0 and y1 > y0:
+        patch = img[y0:y1, x0:x1]
+        layer = patch.copy()
+        gap = max(4 * thickness, 6)
+        size = (y1 - y0) + (x1 - x0)
+        for k in range(-size, size, gap):
+            cv2.line(layer, (k, 0), (k + size, size), colour, max(1, thickness // 2), cv2.LINE_AA)
+        disc = np.zeros(patch.shape[:2], np.uint8)
+        cv2.circle(disc, (cx - x0, cy - y0), radius, 255, -1)
+        inside = disc > 0
+        patch[inside] = (0.55 * patch[inside] + 0.45 * layer[inside]).astype(np.uint8)
+    cv2.circle(img, centre, radius, COLOURS["halo"], thickness + 2, cv2.LINE_AA)
+    cv2.circle(img, centre, radius, colour, thickness, cv2.LINE_AA)
+
+
+def _legend(width: int, scale: float, thickness: int, unit_text: str) -> np.ndarray:
+    """A dark band, ``width`` wide, with the key to the overlay's marks."""
+    import cv2
+
+    font = cv2.FONT_HERSHEY_SIMPLEX
+    (_, th), base = cv2.getTextSize("Ag", font, scale, thickness)
+    line_h = th + base + int(th * 0.9)
+    pad = max(6, th // 2)
+    sw = max(3 * th, 18)  # swatch width
+    entries = [
+        ("spot", "spot (counted)"),
+        ("spot_outside", "spot past the window"),
+        ("high", "high area: break up"),
+        ("bare", "bare patch over the limit"),
+        ("text", unit_text),
+    ]
+    # flow the entries into lines
+    placed: list[tuple[int, int, str, str]] = []
+    x, row = pad, 0
+    for key, label in entries:
+        (tw, _), _ = cv2.getTextSize(label, font, scale, thickness)
+        item_w = (0 if key == "text" else sw + pad) + tw + 3 * pad
+        if x + item_w > width and x > pad:
+            x, row = pad, row + 1
+        placed.append((x, row, key, label))
+        x += item_w
+    band = np.empty((pad * 2 + line_h * (row + 1), width, 3), np.uint8)
+    band[:] = COLOURS["legend_bg"]
+    for x, r, key, label in placed:
+        y_mid = pad + r * line_h + line_h // 2
+        tx = x
+        if key != "text":
+            c = (x + sw // 2, y_mid)
+            rad = max(th // 2 + 1, 4)
+            if key in ("spot", "spot_outside"):
+                cv2.rectangle(band, (x, y_mid - rad), (x + sw, y_mid + rad), COLOURS[key], thickness)
+            elif key == "high":
+                _hatched_circle(band, c, rad, COLOURS[key], thickness)
+            else:
+                _dashed_circle(band, c, rad, COLOURS[key], thickness)
+            tx = x + sw + pad
+        cv2.putText(band, label, (tx, y_mid + th // 2), font, scale, COLOURS["text"], thickness, cv2.LINE_AA)
+    return band
+
+
+def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.ndarray:
+    """Draw the overlay of one photo's result.
+
+    Parameters
+    ----------
+    result : Result
+        Uses ``rectified`` (image (M, N, 3) uint8 BGR, frame, visible, analysed),
+        ``measurement`` (labels (M, N), spots, cells, guidance), ``unit`` and ``cell``.
+    style : OverlayStyle
+
+    Returns
+    -------
+    (H, W, 3) uint8 ndarray, BGR
+        A new image: the window (plus visible margin) scaled by ``s`` so its longer side is
+        within ``style.min_side .. style.max_side``, with a legend band appended below.
+        The inputs are never modified.
+    """
+    import cv2
+
+    rect = result.rectified
+    m = result.measurement
+    frame = rect.frame
+    box = _crop_box(result)
+    r0, r1, c0, c1 = box
+    h0, w0 = r1 - r0, c1 - c0
+    long_side = max(h0, w0)
+    s = 1.0
+    if long_side < style.min_side:
+        s = style.min_side / long_side
+    elif long_side > style.max_side:
+        s = style.max_side / long_side
+    h, w = max(1, int(round(h0 * s))), max(1, int(round(w0 * s)))
+    sy, sx = h / h0, w / w0  # exact per-axis factors after rounding
+
+    crop = np.asarray(rect.image)[r0:r1, c0:c1]
+    if crop.ndim == 2:
+        crop = np.repeat(crop[:, :, None], 3, axis=2)
+    if (h, w) == (h0, w0):
+        img = np.array(crop, dtype=np.uint8, copy=True)
+    else:
+        interp = cv2.INTER_AREA if s < 1 else cv2.INTER_LINEAR
+        img = cv2.resize(np.ascontiguousarray(crop), (w, h), interpolation=interp)
+
+    analysed = np.asarray(rect.analysed)
+    if analysed.shape == rect.image.shape[:2]:
+        outside = ~_resample(analysed, box, (h, w))
+        if outside.any():
+            img[outside] = (img[outside] * style.dim).astype(np.uint8)
+
+    thick = max(1, int(round(min(h, w) / 600)))
+
+    # spot outlines
+    labels = np.asarray(m.labels)
+    if labels.shape == rect.image.shape[:2] and labels.any():
+        lab = _resample(labels, box, (h, w))
+        edge = spot_boundaries(lab)
+        if thick > 1:  # thicken inwards, so each edge pixel keeps its own spot's label
+            k = np.ones((thick, thick), np.uint8)
+            edge = (cv2.dilate(edge.astype(np.uint8), k) > 0) & (lab > 0)
+        n = int(labels.max())
+        counted = np.zeros(n + 1, bool)
+        inw = np.asarray(m.spots.in_window, dtype=bool)
+        counted[1 : 1 + min(n, inw.size)] = inw[:n]
+        is_counted = counted[np.clip(lab, 0, n)]
+        img[edge & is_counted] = COLOURS["spot"]
+        img[edge & ~is_counted] = COLOURS["spot_outside"]
+
+    ox, oy = frame.origin_mm
+    ppm = frame.px_per_mm
+
+    def px(x_mm: float, y_mm: float) -> tuple[int, int]:
+        return (
+            int(round(((x_mm - ox) * ppm - c0) * sx)),
+            int(round(((y_mm - oy) * ppm - r0) * sy)),
+        )
+
+    def length(mm: float) -> int:
+        return max(2, int(round(mm * ppm * (sx + sy) / 2)))
+
+    # guidance first, so the grid and figures stay on top
+    for x_mm, y_mm, size_mm, _why in m.guidance.high:
+        _hatched_circle(img, px(x_mm, y_mm), max(length(size_mm / 2), 3 * thick), COLOURS["high"], thick + 1)
+    for bare in m.guidance.bare:
+        _dashed_circle(img, px(bare.x_mm, bare.y_mm), length(bare.diameter_mm / 2), COLOURS["bare"], thick + 1)
+
+    # grid
+    for c in m.cells:
+        p0 = px(c.x_mm, c.y_mm)
+        p1 = px(c.x_mm + c.width_mm, c.y_mm + c.height_mm)
+        cv2.rectangle(img, p0, p1, COLOURS["halo"], thick + 2, cv2.LINE_AA)
+    for c in m.cells:
+        p0 = px(c.x_mm, c.y_mm)
+        p1 = px(c.x_mm + c.width_mm, c.y_mm + c.height_mm)
+        cv2.rectangle(img, p0, p1, COLOURS["grid"], thick, cv2.LINE_AA)
+
+    # figures
+    font = cv2.FONT_HERSHEY_SIMPLEX
+    cell_px = min(length(m.cell_mm), max(h, w))
+    big = max(0.45, cell_px / 9 / 22.0)  # Hershey simplex: ~22 px cap height at scale 1
+    for c in m.cells:
+        x, y = px(c.x_mm, c.y_mm)
+        cw = px(c.x_mm + c.width_mm, c.y_mm)[0] - x
+        ch = px(c.x_mm, c.y_mm + c.height_mm)[1] - y
+        f = big if min(cw, ch) >= cell_px * 0.5 else big * 0.6
+        tb = max(1, int(round(f * 1.8)))
+        (_, th1), _ = cv2.getTextSize("0", font, f, tb)
+        colour = COLOURS["text"] if c.complete else COLOURS["text_partial"]
+        margin = max(4, int(th1 * 0.4))
+        _put_text(img, _fmt_density(c.density), (x + margin, y + margin + th1), f, colour, tb)
+        fs = f * 0.62
+        ts = max(1, int(round(fs * 1.8)))
+        (_, th2), _ = cv2.getTextSize("0", font, fs, ts)
+        _put_text(
+            img,
+            f"{c.bearing_percent:.0f}%",
+            (x + margin, y + 2 * margin + th1 + th2),
+            fs,
+            colour,
+            ts,
+        )
+
+    unit_text = f"large: points per {result.cell:g} {result.unit} square; small: bearing %"
+    lscale = max(0.4, min(w / 1500.0, 1.2))
+    band = _legend(w, lscale, max(1, int(round(lscale * 1.6))), unit_text)
+    return np.concatenate([img, band], axis=0)
