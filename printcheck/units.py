@@ -7,6 +7,7 @@ in millimetres; the chosen unit only matters at the edges (options in, results o
 
 from __future__ import annotations
 
+import math
 import re
 from typing import Literal
 
@@ -17,7 +18,9 @@ __all__ = ["MM_PER_IN", "Unit", "to_mm", "from_mm", "parse_length", "default_cel
 MM_PER_IN = 25.4
 Unit = Literal["in", "mm"]
 
-_LENGTH = re.compile(r"^\s*([0-9]*\.?[0-9]+)\s*(mm|in|inch|inches|\")?\s*$")
+_LENGTH = re.compile(
+    r"^\s*([0-9]+\.?[0-9]*|\.[0-9]+)\s*(mm|in|inch|inches|\")?\s*$", re.IGNORECASE
+)
 
 
 def to_mm(value: float, unit: str) -> float:
@@ -49,8 +52,10 @@ def parse_length(text: str, *, default_unit: str = "mm", what: str = "length") -
             f"{what} must be a positive length such as 2in or 50mm, got {text!r}"
         )
     value = float(match.group(1))
-    unit = match.group(2) or default_unit
+    unit = (match.group(2) or default_unit).lower()
     unit = "in" if unit in ("in", "inch", "inches", '"') else unit
+    if not math.isfinite(value):
+        raise OptionError(f"{what} is too large, got {text!r}")
     if value <= 0:
         raise OptionError(f"{what} must be greater than zero, got {text!r}")
     return to_mm(value, unit)
