@@ -1,16 +1,42 @@
 """Judge: a spec's targets against a measurement, one check per target.
 
-(Interface fixed here; the implementation is being built.)
+Checks, in order, for each target the spec sets:
+
+``density``
+    The window's average density against ``min_density``.
+``cell_density``
+    The share of complete cells reaching ``min_cell_density`` against ``cell_share``.
+    Cells cut by the window edge or an exclusion (incomplete) are not judged: their
+    density rests on too small an area.  When the window holds no complete cell at all
+    (a window smaller than one cell, or every cell cut), the window itself stands in for
+    the one cell: its average density is held to the per-cell minimum, and the reason
+    says so.
+``bearing``
+    The bearing percent against ``bearing_min`` and/or ``bearing_max`` (too little
+    contact and too much are both faults).
+``bare_patch``
+    The largest bare patch's diameter against ``max_bare_mm``.
+
+Densities (``value`` and ``target``) are in points per the measurement's own cell
+(``measurement.cell_mm`` square); the spec's figures are converted from its basis
+square by area (1 in² = 645.16 mm² exactly).  Lengths are in ``unit``.  Cells are named
+in reasons by row and column counted from 1 at the window's top-left, the way a fitter
+counts them ("row 1 cols 3-4"); the result JSON keeps its 0-based ``row``/``col``.
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 from printcheck.measure import Measurement
-from printcheck.spec import Spec
+from printcheck.spec import Spec, _num, convert_density, density_words
+from printcheck.units import from_mm
 
-__all__ = ["Check", "Verdict", "judge"]
+__all__ = ["Check", "Verdict", "judge", "describe_cells"]
+
+# Float noise allowance when comparing a measured figure to a converted target.
+_REL_TOL = 1e-9
 
 
 @dataclass(frozen=True)
@@ -38,6 +64,235 @@ class Verdict:
     checks: tuple[Check, ...]
 
 
+def _at_least(value: float, target: float) -> bool:
+    return value >= target - _REL_TOL * max(abs(target), 1.0)
+
+
+def _at_most(value: float, target: float) -> bool:
+    return value <= target + _REL_TOL * max(abs(target), 1.0)
+
+
+def _pair(value: float, target: float, ok: bool, digits: int = 1) -> tuple[str, str]:
+    """Format value and target so that a failing value never reads equal to its target."""
+    for d in range(digits, digits + 4):
+        v, t = _num(value, d), _num(target, d)
+        if v != t or ok:
+            return v, t
+    return v, t
+
+
+def _runs(cols: list[int]) -> str:
+    """Sorted 1-based columns as ``"3-4, 7"``."""
+    parts: list[str] = []
+    start = prev = cols[0]
+    for c in cols[1:] + [None]:  # type: ignore[list-item]
+        if c is not None and c == prev + 1:
+            prev = c
+            continue
+        parts.append(f"{start}" if start == prev else f"{start}-{prev}")
+        if c is not None:
+            start = prev = c
+    return ", ".join(parts)
+
+
+def describe_cells(cells: list[tuple[int, int]], *, limit: int = 6) -> str:
+    """Name cells compactly: ``[(0, 2), (0, 3), (1, 0)]`` -> ``"row 1 cols 3-4; row 2 col 1"``.
+
+    ``cells`` are 0-based (row, col) pairs; the text counts from 1 at the window's
+    top-left.  At most ``limit`` rows are named, then ``"and N more cells"``.
+    """
+    by_row: dict[int, list[int]] = {}
+    for row, col in sorted(set(cells)):
+        by_row.setdefault(row, []).append(col + 1)
+    parts: list[str] = []
+    shown = 0
+    for row, cols in by_row.items():
+        if len(parts) == limit:
+            break
+        word = "col" if len(cols) == 1 else "cols"
+        parts.append(f"row {row + 1} {word} {_runs(cols)}")
+        shown += len(cols)
+    text = "; ".join(parts)
+    rest = len(set(cells)) - shown
+    if rest:
+        text += f"; and {rest} more {'cell' if rest == 1 else 'cells'}"
+    return text
+
+
+def _density_check(m: Measurement, spec: Spec, unit: str) -> Check:
+    assert spec.min_density is not None
+    target = convert_density(spec.min_density, from_cell_mm=spec.basis_mm, to_cell_mm=m.cell_mm)
+    per = density_words(m.cell_mm, unit)
+    value = float(m.density)
+    if not math.isfinite(value) or not m.area_mm2 > 0:
+        return Check(
+            "density",
+            f">= {_num(target, 1)}",
+            None,
+            False,
+            "no analysed area in the window, so no density; check the window and exclusions",
+        )
+    ok = _at_least(value, target)
+    v, t = _pair(value, target, ok)
+    if ok:
+        reason = f"{v} {per} over the window; at least {t} needed"
+    else:
+        reason = f"{v} {per} over the window, below the {t} needed"
+    return Check("density", f">= {_num(target, 1)}", value, ok, reason)
+
+
+def _cell_check(m: Measurement, spec: Spec, unit: str) -> Check:
+    assert spec.min_cell_density is not None
+    target = convert_density(
+        spec.min_cell_density, from_cell_mm=spec.basis_mm, to_cell_mm=m.cell_mm
+    )
+    per = density_words(m.cell_mm, unit)
+    share = spec.cell_share
+    t = _num(target, 1)
+    target_text = f">= {t}" if share >= 1.0 else f">= {t} in {_num(100 * share, 1)}% of cells"
+    complete = [c for c in m.cells if c.complete and c.area_mm2 > 0]
+    partial = len(m.cells) - len(complete)
+
+    if not complete:
+        value = float(m.density)
+        if not math.isfinite(value) or not m.area_mm2 > 0:
+            return Check(
+                "cell_density",
+                target_text,
+                None,
+                False,
+                "no analysed area in the window, so no cell can be judged",
+            )
+        ok = _at_least(value, target)
+        v, t2 = _pair(value, target, ok)
+        verdict = "reaches" if ok else "is below"
+        reason = (
+            f"no complete cell in the window, so the window stands in for one: "
+            f"{v} {per} {verdict} {t2}"
+        )
+        return Check("cell_density", target_text, value, ok, reason)
+
+    densities = sorted((float(c.density) for c in complete), reverse=True)
+    failing = [(c.row, c.col) for c in complete if not _at_least(float(c.density), target)]
+    n = len(complete)
+    n_ok = n - len(failing)
+    # The density the required share of cells reaches: the k-th highest, k = ceil(share * n).
+    need = max(1, math.ceil(share * n - 1e-9))
+    value = densities[need - 1]
+    ok = n_ok >= need
+    cells_word = "cell" if n == 1 else "cells"
+    if failing:
+        where = describe_cells(failing)
+        reason = f"{len(failing)} of {n} {cells_word} below {t} {per}: {where}"
+        if share < 1.0:
+            reason += f"; {n_ok} reach it, {need} must ({_num(100 * share, 1)}%)"
+    else:
+        lowest = densities[-1]
+        reason = f"all {n} {cells_word} reach {t} {per} (lowest {_num(lowest, 1)})"
+    if partial:
+        reason += f"; {partial} part {'cell' if partial == 1 else 'cells'} at the edge not judged"
+    return Check("cell_density", target_text, value, ok, reason)
+
+
+def _bearing_check(m: Measurement, spec: Spec) -> Check:
+    lo, hi = spec.bearing_min, spec.bearing_max
+    if lo is not None and hi is not None:
+        target_text = f"{_num(lo, 1)}-{_num(hi, 1)}%"
+    elif lo is not None:
+        target_text = f">= {_num(lo, 1)}%"
+    else:
+        target_text = f"<= {_num(hi, 1)}%"  # type: ignore[arg-type]
+    value = float(m.bearing_percent)
+    if not math.isfinite(value):
+        return Check("bearing", target_text, None, False, "no analysed area, so no bearing")
+    if lo is not None and not _at_least(value, lo):
+        v, t = _pair(value, lo, False)
+        return Check(
+            "bearing",
+            target_text,
+            value,
+            False,
+            f"bearing {v}% is below {t}%: too little contact",
+        )
+    if hi is not None and not _at_most(value, hi):
+        v, t = _pair(value, hi, False)
+        return Check(
+            "bearing",
+            target_text,
+            value,
+            False,
+            f"bearing {v}% is above {t}%: too much contact leaves no oil pockets "
+            "and the parts wring; break up the large spots",
+        )
+    if lo is not None and hi is not None:
+        reason = f"bearing {_num(value, 1)}% is within {_num(lo, 1)}-{_num(hi, 1)}%"
+    elif lo is not None:
+        reason = f"bearing {_num(value, 1)}% is at least {_num(lo, 1)}%"
+    else:
+        reason = f"bearing {_num(value, 1)}% is at most {_num(hi, 1)}%"  # type: ignore[arg-type]
+    return Check("bearing", target_text, value, True, reason)
+
+
+def _bare_check(m: Measurement, spec: Spec, unit: str) -> Check:
+    assert spec.max_bare_mm is not None
+    limit = from_mm(spec.max_bare_mm, unit)
+    digits = 3 if unit == "in" else 1
+    target_text = f"<= {_num(limit, digits)}"
+    bare = m.largest_bare
+    d_mm = float(bare.diameter_mm)
+    if not math.isfinite(d_mm):
+        return Check("bare_patch", target_text, None, False, "the bare patch could not be measured")
+    value = from_mm(d_mm, unit)
+    ok = _at_most(value, limit)
+    v, t = _pair(value, limit, ok, digits)
+    where = (
+        f"centre x {_num(from_mm(bare.x_mm, unit), digits)}, "
+        f"y {_num(from_mm(bare.y_mm, unit), digits)} {unit}"
+    )
+    if ok:
+        reason = f"largest bare patch {v} {unit} across ({where}); at most {t} {unit} allowed"
+    else:
+        reason = (
+            f"largest bare patch {v} {unit} across ({where}), over the {t} {unit} "
+            "allowed: a low area, bring the rest down to it"
+        )
+    return Check("bare_patch", target_text, value, ok, reason)
+
+
 def judge(measurement: Measurement, spec: Spec, *, unit: str = "in") -> Verdict:
-    """Check ``measurement`` against ``spec``, reporting values in ``unit``."""
-    raise NotImplementedError
+    """Check ``measurement`` against ``spec``, reporting values in ``unit``.
+
+    Parameters
+    ----------
+    measurement : Measurement
+        Densities in it are points per ``measurement.cell_mm`` square.
+    spec : Spec
+    unit : {"in", "mm"}
+        Unit of lengths (the bare patch) in checks and reasons.
+
+    Returns
+    -------
+    Verdict
+        One :class:`Check` per target the spec sets (see the module docstring);
+        ``meets`` is true when every check is ok (and for a spec with no targets).
+
+    Raises
+    ------
+    OptionError
+        When ``unit`` is not "in" or "mm".
+    """
+    from_mm(1.0, unit)  # validates the unit (OptionError)
+    checks: list[Check] = []
+    if spec.min_density is not None:
+        checks.append(_density_check(measurement, spec, unit))
+    if spec.min_cell_density is not None:
+        checks.append(_cell_check(measurement, spec, unit))
+    if spec.bearing_min is not None or spec.bearing_max is not None:
+        checks.append(_bearing_check(measurement, spec))
+    if spec.max_bare_mm is not None:
+        checks.append(_bare_check(measurement, spec, unit))
+    return Verdict(
+        name=spec.name,
+        meets=all(c.ok for c in checks),
+        checks=tuple(checks),
+    )

@@ -188,7 +188,9 @@ _BEARING_MAX_SOURCE = (
     "ISO 8512-1:1990 clause 9; the 60% figure is ours)"
 )
 _EVEN_SOURCE = "our reading of 'evenly spread': the count must hold wherever the frame is put down"
-_BARE_SOURCE = "printcheck's own rule, not a standard: 3 x the even-grid spacing at the target density"
+_BARE_SOURCE = (
+    "printcheck's own rule, not a standard: 3 x the even-grid spacing at the target density"
+)
 _PLATE_STD = "ISO 8512-1:1990 clause 9 (clause not re-checked here)"
 _MACHINE_STD = (
     "from memory, not verified: a national machine-tool assembly standard "
@@ -488,7 +490,7 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
 
     raw_sources = data.get("sources", {})
     if not isinstance(raw_sources, dict):
-        raise _fail(source, "sources", f"must be a table of target = \"text\", got {raw_sources!r}")
+        raise _fail(source, "sources", f'must be a table of target = "text", got {raw_sources!r}')
     sources: list[tuple[str, str]] = []
     for key in raw_sources:
         where = f"sources.{key}"
@@ -532,7 +534,10 @@ def read_spec(path: str | Path) -> Spec:
     try:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise SpecError(f"spec {path}: file not found; give a spec .toml file or a built-in name (printcheck specs)") from None
+        raise SpecError(
+            f"spec {path}: file not found; give a spec .toml file or a built-in name "
+            "(printcheck specs)"
+        ) from None
     except IsADirectoryError:
         raise SpecError(f"spec {path}: is a folder, not a spec .toml file") from None
     except PermissionError:
@@ -588,12 +593,16 @@ def target_spec(density: float, *, basis_mm: float) -> Spec:
     SpecError
         When ``density`` or ``basis_mm`` is not a finite number greater than zero.
     """
-    if isinstance(density, bool) or not isinstance(density, int | float) or not (
-        math.isfinite(density) and density > 0
+    if (
+        isinstance(density, bool)
+        or not isinstance(density, int | float)
+        or not (math.isfinite(density) and density > 0)
     ):
         raise SpecError(f"--target: must be a number of points greater than zero, got {density!r}")
     if not (isinstance(basis_mm, int | float) and math.isfinite(basis_mm) and basis_mm > 0):
-        raise SpecError(f"--target: the counting square must be greater than zero, got {basis_mm!r}")
+        raise SpecError(
+            f"--target: the counting square must be greater than zero, got {basis_mm!r}"
+        )
     if math.isclose(basis_mm, MM_PER_IN, rel_tol=1e-9):
         per, units = "ppi", "in"
     else:

@@ -355,7 +355,9 @@ anything = st.recursive(
     | st.floats()
     | st.text(max_size=8)
     | st.sampled_from(["mm", "in", "cm", ""]),
-    lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=6), inner, max_size=3),
+    lambda inner: (
+        st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=6), inner, max_size=3)
+    ),
     max_leaves=6,
 )
 keys = st.sampled_from(
