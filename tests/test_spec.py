@@ -438,3 +438,16 @@ def test_valid_specs_round_trip(data):
         assert spec.max_bare_mm == pytest.approx(data["max_bare"] * scale)
     if "basis" in data:
         assert spec.basis_mm == pytest.approx(data["basis"] * scale)
+
+
+def test_the_documented_example_parses():
+    # docs/specs.md shows the format by example: it must be a valid spec
+    from pathlib import Path
+
+    text = (Path(__file__).parents[1] / "docs" / "specs.md").read_text(encoding="utf-8")
+    block = text.split("```toml\n", 1)[1].split("```", 1)[0]
+    spec = parse_spec(tomllib.loads(block), source="docs/specs.md")
+    assert spec.name == "bed-front-way"
+    assert (spec.min_density, spec.min_cell_density, spec.cell_share) == (16, 14, 0.9)
+    assert (spec.bearing_min, spec.bearing_max, spec.max_bare_mm) == (20, 60, 19)
+    assert spec.source_of("bearing_max") == "common practice"
