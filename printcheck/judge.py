@@ -119,6 +119,14 @@ def describe_cells(cells: list[tuple[int, int]], *, limit: int = 6) -> str:
     return text
 
 
+def _as_stated(figure: float, spec: Spec, m: Measurement) -> str:
+    """``" (20 per 25 mm square)"`` when the spec's square differs from the cell, else ``""``."""
+    if math.isclose(spec.basis_mm, m.cell_mm, rel_tol=1e-9):
+        return ""
+    words = density_words(spec.basis_mm, spec.units).removeprefix("points ")
+    return f" ({_num(figure, 3)} {words})"
+
+
 def _density_check(m: Measurement, spec: Spec, unit: str) -> Check:
     assert spec.min_density is not None
     target = convert_density(spec.min_density, from_cell_mm=spec.basis_mm, to_cell_mm=m.cell_mm)
@@ -134,10 +142,11 @@ def _density_check(m: Measurement, spec: Spec, unit: str) -> Check:
         )
     ok = _at_least(value, target)
     v, t = _pair(value, target, ok)
+    stated = _as_stated(spec.min_density, spec, m)
     if ok:
-        reason = f"{v} {per} over the window; at least {t} needed"
+        reason = f"{v} {per} over the window; at least {t} needed{stated}"
     else:
-        reason = f"{v} {per} over the window, below the {t} needed"
+        reason = f"{v} {per} over the window, below the {t} needed{stated}"
     return Check("density", f">= {_num(target, 1)}", value, ok, reason)
 
 
@@ -146,6 +155,7 @@ def _cell_check(m: Measurement, spec: Spec, unit: str) -> Check:
     target = convert_density(
         spec.min_cell_density, from_cell_mm=spec.basis_mm, to_cell_mm=m.cell_mm
     )
+    stated = _as_stated(spec.min_cell_density, spec, m)
     per = density_words(m.cell_mm, unit)
     share = spec.cell_share
     t = _num(target, 1)
@@ -168,7 +178,7 @@ def _cell_check(m: Measurement, spec: Spec, unit: str) -> Check:
         verdict = "reaches" if ok else "is below"
         reason = (
             f"no complete cell in the window, so the window stands in for one: "
-            f"{v} {per} {verdict} {t2}"
+            f"{v} {per} {verdict} {t2}{stated}"
         )
         return Check("cell_density", target_text, value, ok, reason)
 
@@ -183,12 +193,12 @@ def _cell_check(m: Measurement, spec: Spec, unit: str) -> Check:
     cells_word = "cell" if n == 1 else "cells"
     if failing:
         where = describe_cells(failing)
-        reason = f"{len(failing)} of {n} {cells_word} below {t} {per}: {where}"
+        reason = f"{len(failing)} of {n} {cells_word} below {t} {per}{stated}: {where}"
         if share < 1.0:
             reason += f"; {n_ok} reach it, {need} must ({_num(100 * share, 1)}%)"
     else:
         lowest = densities[-1]
-        reason = f"all {n} {cells_word} reach {t} {per} (lowest {_num(lowest, 1)})"
+        reason = f"all {n} {cells_word} reach {t} {per}{stated} (lowest {_num(lowest, 1)})"
     if partial:
         reason += f"; {partial} part {'cell' if partial == 1 else 'cells'} at the edge not judged"
     return Check("cell_density", target_text, value, ok, reason)

@@ -134,7 +134,9 @@ def test_ppi_spec_judged_on_25_mm_cells():
     assert ok.meets and not low.meets
     check = by_name(low)["density"]
     assert check.target == ">= 19.4"
-    assert check.reason == ("19.37 points per 25 mm square over the window, below the 19.38 needed")
+    assert check.reason == (
+        "19.37 points per 25 mm square over the window, below the 19.38 needed (20 per square inch)"
+    )
     assert 19.37 < target < 19.38
 
 
@@ -147,7 +149,7 @@ def test_per_25_mm_spec_judged_on_inch_cells():
     checks = by_name(v)
     assert checks["density"].target == f">= {target:.1f}"  # ">= 16.5"
     assert checks["cell_density"].reason.startswith(
-        "1 of 4 cells below 16.5 points per square inch: row 2 col 1"
+        "1 of 4 cells below 16.5 points per square inch (16 per 25 mm square): row 2 col 1"
     )
     assert not v.meets
 
