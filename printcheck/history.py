@@ -22,6 +22,7 @@ the file and what to do.
 
 from __future__ import annotations
 
+import dataclasses
 import errno
 import json
 import os
@@ -92,6 +93,10 @@ MIGRATIONS: tuple[Migration, ...] = (
             )""",
         ),
     ),
+    Migration(
+        "keep each pass's spec targets",
+        ("ALTER TABLE passes ADD COLUMN spec_json TEXT",),
+    ),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)
@@ -154,7 +159,10 @@ def _explain(path: Path, exc: BaseException) -> HistoryError:
     elif "malformed" in text or "corrupt" in text:
         msg = "the database is damaged; restore a backup or give a new --db path"
     elif "disk i/o" in text:
-        msg = "a disk error occurred while writing; check the disk or give another --db path"
+        msg = (
+            "writing to the disk failed (disk full, a file size limit, or a disk fault); "
+            "free some space or give another --db path"
+        )
     else:
         msg = f"{exc}".strip() or type(exc).__name__
     return HistoryError(f"history {path}: {msg}")
@@ -180,10 +188,20 @@ class History:
     SQLite objects.
     """
 
-    def __init__(self, connection: sqlite3.Connection, path: Path, *, max_wait_s: float) -> None:
+    def __init__(
+        self,
+        connection: sqlite3.Connection,
+        path: Path,
+        *,
+        max_wait_s: float,
+        version: int,
+        readonly: bool = False,
+    ) -> None:
         self._con = connection
         self.path = path
         self.max_wait_s = max_wait_s
+        self.readonly = readonly
+        self._version = version
 
     # ------------------------------------------------------------------ plumbing
 
@@ -230,6 +248,7 @@ class History:
         *,
         surface: str,
         spec_name: str | None = None,
+        spec: Any = None,
     ) -> bool:
         """Record one photo's result as a pass of ``surface``.
 
@@ -242,7 +261,11 @@ class History:
         surface : str
             The surface's name (created on first use).
         spec_name : str or None
-            The spec judged against; defaults to ``result["spec"]["name"]`` when present.
+            The spec judged against; defaults to ``spec.name``, else
+            ``result["spec"]["name"]`` when present.
+        spec : printcheck.spec.Spec or None
+            The spec itself: its targets are kept with the pass, so the progress of a
+            surface judged against a spec file or ``--target`` can be projected later.
 
         Returns
         -------
@@ -255,6 +278,8 @@ class History:
         HistoryError
             A missing surface name or sha256, or the database could not be written.
         """
+        if self.readonly:
+            raise HistoryError(f"history {self.path}: opened read-only; cannot record a pass")
         if not isinstance(surface, str) or not surface.strip():
             raise HistoryError(
                 f"history {self.path}: surface name must be a non-empty text, got {surface!r}; "
@@ -271,6 +296,14 @@ class History:
         if not isinstance(photo, str) or not photo:
             raise HistoryError(f"history {self.path}: result has no photo name; got {photo!r}")
         spec_block = result.get("spec")
+        spec_json = None
+        if spec is not None:
+            if spec_name is None:
+                spec_name = getattr(spec, "name", None)
+            try:
+                spec_json = json.dumps(dataclasses.asdict(spec), ensure_ascii=False, allow_nan=False)
+            except (TypeError, ValueError):
+                spec_json = None
         if spec_name is None and isinstance(spec_block, Mapping):
             spec_name = spec_block.get("name")
         meets = spec_block.get("meets") if isinstance(spec_block, Mapping) else None
@@ -293,6 +326,7 @@ class History:
             _as_int_bool(meets),
             _now(),
             text,
+            spec_json,
         )
 
         def work(con: sqlite3.Connection) -> bool:
@@ -302,12 +336,15 @@ class History:
             (surface_id,) = con.execute(
                 "SELECT id FROM surfaces WHERE name = ?", (surface,)
             ).fetchone()
+            values = (surface_id, *row) if self._version >= 2 else (surface_id, *row[:-1])
+            columns = (
+                "surface_id, sha256, photo, taken, spec, density, bearing_percent, "
+                "spot_count, meets, recorded, result_json"
+                + (", spec_json" if self._version >= 2 else "")
+            )
+            marks = ", ".join("?" * len(values))
             cur = con.execute(
-                """INSERT OR IGNORE INTO passes
-                   (surface_id, sha256, photo, taken, spec, density, bearing_percent,
-                    spot_count, meets, recorded, result_json)
-                   VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)""",
-                (surface_id, *row),
+                f"INSERT OR IGNORE INTO passes ({columns}) VALUES ({marks})", values
             )
             return cur.rowcount == 1
 
@@ -317,6 +354,8 @@ class History:
 
     def surfaces(self) -> list[str]:
         """Names of every surface with at least one pass, sorted."""
+        if self._version < 1:
+            return []
         rows = self._read(
             """SELECT s.name FROM surfaces s
                WHERE EXISTS (SELECT 1 FROM passes p WHERE p.surface_id = s.id)
@@ -335,12 +374,17 @@ class History:
         list of dict
             Each with ``pass`` (1-based number in this order), ``photo``, ``sha256``,
             ``taken``, ``spec``, ``density``, ``bearing_percent``, ``spot_count``,
-            ``meets`` (bool or None), ``recorded`` (UTC ISO time) and ``result`` (the
+            ``meets`` (bool or None), ``recorded`` (UTC ISO time), ``spec_targets``
+            (the fields of the Spec recorded with the pass, or None) and ``result`` (the
             whole stored result dict).  Empty for an unknown surface.
         """
+        if self._version < 1:
+            return []
+        spec_col = "p.spec_json" if self._version >= 2 else "NULL"
         rows = self._read(
-            """SELECT p.photo, p.sha256, p.taken, p.spec, p.density, p.bearing_percent,
-                      p.spot_count, p.meets, p.recorded, p.result_json
+            f"""SELECT p.photo, p.sha256, p.taken, p.spec, p.density, p.bearing_percent,
+                      p.spot_count, p.meets, p.recorded, p.result_json,
+                      {spec_col} AS spec_json
                FROM passes p JOIN surfaces s ON s.id = p.surface_id
                WHERE s.name = ?
                ORDER BY p.taken IS NULL, p.taken, p.photo, p.id""",
@@ -350,6 +394,7 @@ class History:
         for n, r in enumerate(rows, start=1):
             try:
                 result = json.loads(r["result_json"])
+                targets = None if r["spec_json"] is None else json.loads(r["spec_json"])
             except ValueError:
                 raise HistoryError(
                     f"history {self.path}: pass {r['photo']!r} of {surface!r} holds damaged "
@@ -367,6 +412,7 @@ class History:
                     "spot_count": r["spot_count"],
                     "meets": None if r["meets"] is None else bool(r["meets"]),
                     "recorded": r["recorded"],
+                    "spec_targets": targets,
                     "result": result,
                 }
             )
@@ -438,6 +484,7 @@ def _migrate(con: sqlite3.Connection, path: Path, migrations: tuple[Migration, .
 def open_history(
     path: str | os.PathLike[str] | None = None,
     *,
+    readonly: bool = False,
     timeout_s: float = 10.0,
     max_wait_s: float = 60.0,
     migrations: tuple[Migration, ...] = MIGRATIONS,
@@ -448,7 +495,10 @@ def open_history(
     ----------
     path : path or None
         The database file; ``None`` uses :func:`default_db_path`.  Missing parent
-        folders are created.
+        folders are created (not with ``readonly``).
+    readonly : bool
+        Open an existing history for reading only: nothing is created or migrated, and
+        :meth:`History.record` is refused.  A history of an older schema is read as it is.
     timeout_s : float
         SQLite's busy timeout for one statement, in seconds.
     max_wait_s : float
@@ -471,6 +521,8 @@ def open_history(
     db = Path(path).expanduser() if path is not None else default_db_path()
     if db.is_dir():
         raise HistoryError(f"history {db}: is a folder; give the path of a .sqlite file")
+    if readonly:
+        return _open_readonly(db, timeout_s=timeout_s, max_wait_s=max_wait_s, known=len(migrations))
     try:
         db.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -490,6 +542,7 @@ def open_history(
             con.execute("PRAGMA synchronous = FULL")
             con.execute("PRAGMA foreign_keys = ON")
             _migrate(con, db, migrations)
+            version = int(con.execute("PRAGMA user_version").fetchone()[0])
             break
         except HistoryError:
             if con is not None:
@@ -503,5 +556,37 @@ def open_history(
                 time.sleep(_RETRY_SLEEP_S)
                 continue
             raise _explain(db, exc) from None
-    return History(con, db, max_wait_s=max_wait_s)
+    return History(con, db, max_wait_s=max_wait_s, version=version)
+
+
+def _open_readonly(db: Path, *, timeout_s: float, max_wait_s: float, known: int) -> History:
+    if not db.is_file():
+        raise HistoryError(f"history {db}: no such file; run 'printcheck batch' first or give --db")
+    from urllib.parse import quote
+
+    uri = "file:" + quote(str(db.resolve())) + "?mode=ro"
+    con: sqlite3.Connection | None = None
+    deadline = time.monotonic() + max_wait_s
+    while True:
+        try:
+            con = sqlite3.connect(uri, uri=True, timeout=timeout_s, isolation_level=None)
+            con.row_factory = sqlite3.Row
+            con.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000):d}")
+            version = int(con.execute("PRAGMA user_version").fetchone()[0])
+            break
+        except sqlite3.Error as exc:
+            if con is not None:
+                con.close()
+                con = None
+            if _is_locked(exc) and time.monotonic() < deadline:
+                time.sleep(_RETRY_SLEEP_S)
+                continue
+            raise _explain(db, exc) from None
+    if version > known:
+        con.close()
+        raise HistoryError(
+            f"history {db}: schema version {version} is newer than this printcheck "
+            f"knows ({known}); upgrade printcheck or give another --db path"
+        )
+    return History(con, db, max_wait_s=max_wait_s, version=version, readonly=True)
 

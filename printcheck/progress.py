@@ -32,6 +32,7 @@ there are.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -44,6 +45,8 @@ __all__ = [
     "PROGRESS_FORMAT",
     "LineFit",
     "build_progress",
+    "progress_text",
+    "surface_spec",
     "fit_line",
     "project",
     "uniformity",
@@ -217,10 +220,48 @@ def project(
     return {"passes_to_spec": mid, "low": low, "high": high, **base}
 
 
+def _spec_from_fields(fields: Mapping[str, Any]) -> Spec | None:
+    """Rebuild a Spec from the fields the history kept (None if they do not fit)."""
+    names = {f.name for f in dataclasses.fields(Spec)}
+    kwargs = {k: v for k, v in fields.items() if k in names}
+    if "sources" in kwargs:
+        kwargs["sources"] = tuple(tuple(pair) for pair in kwargs["sources"] or ())
+    try:
+        return Spec(**kwargs)
+    except TypeError:
+        return None
+
+
+def surface_spec(passes: Sequence[Mapping[str, Any]]) -> Spec | None:
+    """The spec of a surface's latest pass that names one.
+
+    The spec's targets kept in the history (``spec_targets``) win; otherwise a built-in
+    spec of the recorded name; otherwise None.
+    """
+    from printcheck.spec import builtin_specs
+
+    for p in reversed(passes):
+        fields = p.get("spec_targets")
+        if isinstance(fields, Mapping):
+            spec = _spec_from_fields(fields)
+            if spec is not None:
+                return spec
+        res = p["result"] if isinstance(p.get("result"), Mapping) else p
+        block = res.get("spec")
+        name = p.get("spec") if isinstance(p.get("spec"), str) else None
+        name = name or (block.get("name") if isinstance(block, Mapping) else None)
+        if name:
+            for spec in builtin_specs():
+                if spec.name == name:
+                    return spec
+            return None
+    return None
+
+
 def build_progress(
     passes: Sequence[Mapping[str, Any]],
+    surface: str | None = None,
     *,
-    surface: str,
     spec: Spec | None = None,
     fit_passes: int = 5,
 ) -> dict[str, Any]:
@@ -232,9 +273,11 @@ def build_progress(
         In pass order: the dicts of ``History.passes`` (with a ``result`` key) or bare
         result dicts (``result_to_dict`` output).
     surface : str
+        The surface's name.  (``build_progress(surface, passes)`` is accepted too.)
     spec : Spec or None
-        The surface's spec; gives the density target of the projection.  Without it the
-        spec name is taken from the latest pass and ``projection`` is None.
+        The surface's spec; gives the density target of the projection.  None takes it
+        from the passes (:func:`surface_spec`: the targets the history kept, else a
+        built-in spec of the recorded name); without any, ``projection`` is None.
     fit_passes : int
         Passes the trend line is fitted to (the most recent ones).
 
@@ -247,6 +290,13 @@ def build_progress(
         Densities are in points per the latest pass's cell (passes counted on another
         cell are converted: density scales with the cell's area).
     """
+    if isinstance(passes, str):  # build_progress(surface, passes)
+        passes, surface = surface, passes  # type: ignore[assignment]
+    if surface is None:
+        raise TypeError("build_progress needs the surface name")
+    passes = list(passes or ())
+    if spec is None:
+        spec = surface_spec(passes)
     results = [p["result"] if "result" in p else p for p in passes]
     last = results[-1] if results else {}
     basis_mm = _cell_mm(last)
@@ -303,3 +353,51 @@ def build_progress(
         "passes": rows,
         "projection": projection,
     }
+
+
+def progress_text(progress: Mapping[str, Any]) -> str:
+    """A few lines for people: the latest pass against the spec, the trend, the projection."""
+    passes = list(progress.get("passes") or ())
+    surface = progress.get("surface") or "surface"
+    unit = progress.get("unit") or "in"
+    cell = progress.get("cell") or 1.0
+    per = f"points per {float(cell):g} {unit} square"
+    if not passes:
+        return f"{surface}: no passes recorded"
+    last = passes[-1]
+    spec = progress.get("spec")
+    verdict = {True: "meets", False: "does not meet", None: "not judged against"}[last.get("meets")]
+    lines = [
+        f"{surface}: {len(passes)} pass{'es' if len(passes) != 1 else ''}; "
+        f"latest {last.get('photo')} {verdict} {spec or 'a spec'}".rstrip()
+    ]
+    for p in passes:
+        d = p.get("density")
+        b = p.get("bearing_percent")
+        u = p.get("uniformity")
+        mark = {True: "ok", False: "short", None: ""}[p.get("meets")]
+        lines.append(
+            f"  pass {p['pass']:>2}  {'-' if d is None else f'{d:6.1f}'} {per}, "
+            f"bearing {'-' if b is None else f'{b:4.1f}'} %, "
+            f"uniformity {'-' if u is None else f'{u:3.0f}'} %  {mark}".rstrip()
+        )
+    target = (progress.get("targets") or {}).get("density")
+    proj = progress.get("projection")
+    if target is None:
+        lines.append("projection: no density target to project against")
+    elif proj is None:
+        if len(passes) < MIN_PASSES:
+            lines.append(f"projection: too few passes yet ({len(passes)} of {MIN_PASSES} needed)")
+        else:
+            lines.append(f"projection: the density is not approaching the target of {target:g}")
+    elif proj["passes_to_spec"] == 0:
+        lines.append(f"projection: the latest pass reaches the density target of {target:g}")
+    else:
+        hi = proj.get("high")
+        rng = f"{proj['low']} to {hi}" if hi is not None else f"{proj['low']} or more"
+        lines.append(
+            f"projection: about {proj['passes_to_spec']} more pass"
+            f"{'es' if proj['passes_to_spec'] != 1 else ''} to {target:g} {per} "
+            f"(likely {rng}; {proj['rate']:+.1f} per pass)"
+        )
+    return "\n".join(lines)

@@ -34,6 +34,7 @@ __all__ = [
     "write_csv",
     "write_image",
     "encode_image",
+    "write_photo_outputs",
 ]
 
 CSV_NAME = "results.csv"
@@ -228,11 +229,11 @@ def result_row(result: Mapping[str, Any]) -> dict[str, Any]:
 
 def write_csv(
     folder: str | os.PathLike[str],
+    name: str,
     results: Iterable[Mapping[str, Any]],
-    *,
-    name: str = CSV_NAME,
 ) -> Path:
-    """Write ``results.csv``: a header of :data:`CSV_COLUMNS`, one row per result dict."""
+    """Write a CSV (``name`` is usually :data:`CSV_NAME`): a header of :data:`CSV_COLUMNS`,
+    then one row per result dict (:func:`result_row`), atomically."""
     buf = io.StringIO(newline="")
     writer = csv.DictWriter(buf, fieldnames=list(CSV_COLUMNS), lineterminator="\r\n")
     writer.writeheader()
@@ -267,3 +268,28 @@ def write_image(folder: str | os.PathLike[str], name: str, image: np.ndarray) ->
     """Write a (M, N, 3) uint8 BGR image as PNG or JPEG (by ``name``'s suffix), atomically."""
     suffix = os.path.splitext(name)[1] or ".png"
     return write_bytes(folder, name, encode_image(image, suffix))
+
+
+def write_photo_outputs(result: Any, data: Mapping[str, Any], folder: str | os.PathLike[str]) -> list[Path]:
+    """Write one photo's ``<stem>.json`` and ``<stem>.overlay.png`` into ``folder``.
+
+    Parameters
+    ----------
+    result : printcheck.result.Result
+        For the overlay (:func:`printcheck.report.overlay.draw_overlay`).
+    data : dict
+        ``result_to_dict(result)``, written as the JSON.
+    folder : path
+        The output folder (created if missing).
+
+    Returns
+    -------
+    list of Path
+        The JSON file, then the overlay image.
+    """
+    from printcheck.report.overlay import draw_overlay
+
+    photo = str(data.get("photo") or getattr(result, "photo", "photo"))
+    json_path = write_json(folder, output_name(photo, ".json"), data)
+    png_path = write_bytes(folder, output_name(photo, ".overlay.png"), encode_image(draw_overlay(result)))
+    return [json_path, png_path]
