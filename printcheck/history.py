@@ -30,7 +30,7 @@ import sqlite3
 import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, TypeVar
 
@@ -127,7 +127,7 @@ def default_db_path(env: Mapping[str, str] = os.environ) -> Path:
 
 
 def _now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+    return datetime.now(UTC).isoformat(timespec="seconds")
 
 
 def _is_locked(exc: BaseException) -> bool:
@@ -301,7 +301,9 @@ class History:
             if spec_name is None:
                 spec_name = getattr(spec, "name", None)
             try:
-                spec_json = json.dumps(dataclasses.asdict(spec), ensure_ascii=False, allow_nan=False)
+                spec_json = json.dumps(
+                    dataclasses.asdict(spec), ensure_ascii=False, allow_nan=False
+                )
             except (TypeError, ValueError):
                 spec_json = None
         if spec_name is None and isinstance(spec_block, Mapping):
@@ -343,9 +345,7 @@ class History:
                 + (", spec_json" if self._version >= 2 else "")
             )
             marks = ", ".join("?" * len(values))
-            cur = con.execute(
-                f"INSERT OR IGNORE INTO passes ({columns}) VALUES ({marks})", values
-            )
+            cur = con.execute(f"INSERT OR IGNORE INTO passes ({columns}) VALUES ({marks})", values)
             return cur.rowcount == 1
 
         return self._retry(work)
@@ -460,8 +460,7 @@ def _migrate(con: sqlite3.Connection, path: Path, migrations: tuple[Migration, .
                     )
             if version != target - 1:
                 raise HistoryError(
-                    f"history {path}: schema version {version} skipped a step; "
-                    "give a new --db path"
+                    f"history {path}: schema version {version} skipped a step; give a new --db path"
                 )
             for sql in migrations[target - 1].statements:
                 c.execute(sql)
@@ -589,4 +588,3 @@ def _open_readonly(db: Path, *, timeout_s: float, max_wait_s: float, known: int)
             f"knows ({known}); upgrade printcheck or give another --db path"
         )
     return History(con, db, max_wait_s=max_wait_s, version=version, readonly=True)
-

@@ -81,7 +81,9 @@ def fit_line(x: Sequence[float], y: Sequence[float]) -> LineFit:
     """
     n = len(x)
     if n != len(y) or n < 2:
-        raise ValueError(f"fit_line needs two or more (x, y) pairs of equal length, got {n}, {len(y)}")
+        raise ValueError(
+            f"fit_line needs two or more (x, y) pairs of equal length, got {n}, {len(y)}"
+        )
     mx = sum(x) / n
     my = sum(y) / n
     sxx = sum((xi - mx) ** 2 for xi in x)
@@ -333,9 +335,10 @@ def build_progress(
                 break
     target = density_target(spec, cell_mm=basis_mm) if basis_mm else None
     densities = [r["density"] for r in rows]
+    known = [float(d) for d in densities if d is not None]
     projection = None
-    if all(d is not None for d in densities):
-        projection = project(densities, target, fit_passes=fit_passes)
+    if len(known) == len(densities):
+        projection = project(known, target, fit_passes=fit_passes)
     cell_target = density_target(spec, cell_mm=basis_mm, per_cell=True) if basis_mm else None
     targets = {
         "density": None if target is None else round(target, 4),

@@ -55,7 +55,13 @@ def make_result(
     labels = np.zeros((n, n), np.int32)
     for k, (x, y, r) in enumerate(discs_mm, start=1):
         row, col = frame.to_px(np.array(x), np.array(y))
-        cv2.circle(labels, (int(round(float(col))), int(round(float(row)))), int(round(r * px_per_mm)), k, -1)
+        cv2.circle(
+            labels,
+            (int(round(float(col))), int(round(float(row)))),
+            int(round(r * px_per_mm)),
+            k,
+            -1,
+        )
     image[labels > 0] = (160, 60, 20)  # compound blue (BGR)
     rs, cs = frame.window_slices()
     analysed = np.zeros((n, n), bool)
@@ -68,7 +74,9 @@ def make_result(
     ys = np.zeros(k_spots)
     for p in props:
         area[p.label - 1] = p.area / px_per_mm**2
-        xs[p.label - 1], ys[p.label - 1] = frame.to_mm(np.array(p.centroid[0]), np.array(p.centroid[1]))
+        xs[p.label - 1], ys[p.label - 1] = frame.to_mm(
+            np.array(p.centroid[0]), np.array(p.centroid[1])
+        )
     in_window = (xs >= 0) & (xs < window_mm) & (ys >= 0) & (ys < window_mm)
     ncell = int(np.ceil(window_mm / cell_mm - 1e-9))
     col = np.where(in_window, np.floor(xs / cell_mm), -1).astype(int)
@@ -89,8 +97,19 @@ def make_result(
             a = wmm * hmm
             cnt = int(np.sum((row == r) & (col == c)))
             cells.append(
-                Cell(r, c, x0, y0, wmm, hmm, a, bool(wmm == cell_mm and hmm == cell_mm), cnt,
-                     cnt * cell_mm**2 / a, 100.0 * sub.mean() if sub.size else 0.0)
+                Cell(
+                    r,
+                    c,
+                    x0,
+                    y0,
+                    wmm,
+                    hmm,
+                    a,
+                    bool(wmm == cell_mm and hmm == cell_mm),
+                    cnt,
+                    cnt * cell_mm**2 / a,
+                    100.0 * sub.mean() if sub.size else 0.0,
+                )
             )
     total = int(in_window.sum())
     win_area = window_mm**2
@@ -116,7 +135,9 @@ def make_result(
     return Result(
         photo=photo,
         path=None,
-        sha256=sha256 if sha256 is not None else hashlib.sha256(f"{photo}/{seed}".encode()).hexdigest(),
+        sha256=sha256
+        if sha256 is not None
+        else hashlib.sha256(f"{photo}/{seed}".encode()).hexdigest(),
         surface=surface,
         taken=taken,
         unit=unit,

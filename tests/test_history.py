@@ -38,7 +38,9 @@ FORK = mp.get_context("fork")
 _DEFAULT = "default"
 
 
-def _result(i: int, *, taken: str | None = _DEFAULT, photo: str | None = None, pad: int = 0) -> dict:
+def _result(
+    i: int, *, taken: str | None = _DEFAULT, photo: str | None = None, pad: int = 0
+) -> dict:
     """A small plain result dict, shaped like result_to_dict output."""
     return {
         "format": "printcheck-result/1",
@@ -149,7 +151,9 @@ def test_old_schema_is_migrated_in_order_and_keeps_its_passes(tmp_path: Path) ->
         h.record(_result(1), surface="bed")
     with open_history(db, readonly=True) as h:  # an old schema reads as it is
         assert h.passes("bed")[0]["spec_targets"] is None
-    extra = MIGRATIONS + (Migration("test: add a note column", ("ALTER TABLE passes ADD COLUMN note TEXT",)),)
+    extra = MIGRATIONS + (
+        Migration("test: add a note column", ("ALTER TABLE passes ADD COLUMN note TEXT",)),
+    )
     with open_history(db, migrations=extra) as h:
         assert h.schema_version() == len(extra)
         (p,) = h.passes("bed")

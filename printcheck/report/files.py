@@ -198,7 +198,8 @@ def result_row(result: Mapping[str, Any]) -> dict[str, Any]:
     joined with ``"; "``.
     """
     spec = result.get("spec") if isinstance(result.get("spec"), Mapping) else None
-    conf = result.get("confidence") if isinstance(result.get("confidence"), Mapping) else {}
+    raw_conf = result.get("confidence")
+    conf: Mapping[str, Any] = raw_conf if isinstance(raw_conf, Mapping) else {}
 
     def b(v: Any) -> str:
         return "" if v is None else ("true" if v else "false")
@@ -270,7 +271,9 @@ def write_image(folder: str | os.PathLike[str], name: str, image: np.ndarray) ->
     return write_bytes(folder, name, encode_image(image, suffix))
 
 
-def write_photo_outputs(result: Any, data: Mapping[str, Any], folder: str | os.PathLike[str]) -> list[Path]:
+def write_photo_outputs(
+    result: Any, data: Mapping[str, Any], folder: str | os.PathLike[str]
+) -> list[Path]:
     """Write one photo's ``<stem>.json`` and ``<stem>.overlay.png`` into ``folder``.
 
     Parameters
@@ -291,5 +294,7 @@ def write_photo_outputs(result: Any, data: Mapping[str, Any], folder: str | os.P
 
     photo = str(data.get("photo") or getattr(result, "photo", "photo"))
     json_path = write_json(folder, output_name(photo, ".json"), data)
-    png_path = write_bytes(folder, output_name(photo, ".overlay.png"), encode_image(draw_overlay(result)))
+    png_path = write_bytes(
+        folder, output_name(photo, ".overlay.png"), encode_image(draw_overlay(result))
+    )
     return [json_path, png_path]

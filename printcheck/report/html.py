@@ -167,12 +167,15 @@ def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
         return '<p class="key">No cells.</p>'
     rows = max(int(c["row"]) for c in cells) + 1
     cols = max(int(c["col"]) for c in cells) + 1
-    grid: dict[tuple[int, int], Mapping[str, Any]] = {(int(c["row"]), int(c["col"])): c for c in cells}
+    grid: dict[tuple[int, int], Mapping[str, Any]] = {
+        (int(c["row"]), int(c["col"])): c for c in cells
+    }
     target = _cell_target(result, spec)
     top = max((float(c.get("density") or 0.0) for c in cells), default=0.0)
     lo = None if spec is None else spec.bearing_min
     hi = None if spec is None else spec.bearing_max
-    unit_text = f"points per {_num(result.get('cell'), 2).rstrip('0').rstrip('.')} {_e(result.get('unit'))} square"
+    cell_side = _num(result.get("cell"), 2).rstrip("0").rstrip(".")
+    unit_text = f"points per {cell_side} {_e(result.get('unit'))} square"
 
     def table(key: str, caption: str) -> str:
         out = [f'<table class="heat"><caption>{caption}</caption>']
@@ -202,7 +205,9 @@ def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
 
     dcap = f"Density, {unit_text}" + ("" if target is None else f" (target {target:g})")
     if lo is not None or hi is not None:
-        bcap = f"Bearing (target {_num(lo, 0) if lo is not None else '0'}–{_num(hi, 0) if hi is not None else '100'} %)"
+        lo_txt = "0" if lo is None else _num(lo, 0)
+        hi_txt = "100" if hi is None else _num(hi, 0)
+        bcap = f"Bearing (target {lo_txt}–{hi_txt} %)"
     else:
         bcap = "Bearing"
     return (
@@ -278,18 +283,20 @@ def _pass_section(
     cnt_rng = den_rng = bear_rng = ""
     if conf:
         cnt_rng = f"range {_num(conf.get('spot_count_low'))}–{_num(conf.get('spot_count_high'))}"
-        bear_rng = (
-            f"range {_num(conf.get('bearing_percent_low'))}–{_num(conf.get('bearing_percent_high'))} %"
-        )
+        b_lo, b_hi = conf.get("bearing_percent_low"), conf.get("bearing_percent_high")
+        bear_rng = f"range {_num(b_lo)}–{_num(b_hi)} %"
     parts.append('<div class="figures">')
-    parts.append(_figure(_num(result.get("density")), f"points per {cell_txt} {unit} square", den_rng))
+    parts.append(
+        _figure(_num(result.get("density")), f"points per {cell_txt} {unit} square", den_rng)
+    )
     parts.append(_figure(_num(result.get("bearing_percent")) + " %", "bearing", bear_rng))
     parts.append(_figure(_num(result.get("spot_count")), "spots in the window", cnt_rng))
     parts.append(_figure(_num(result.get("largest_bare"), 2) + f" {unit}", "largest bare patch"))
     parts.append("</div>")
     if conf and conf.get("doubtful"):
         parts.append(
-            f'<ul class="warn"><li>The count is uncertain: {_e(conf.get("reason") or "the segmentation threshold matters")}</li></ul>'
+            '<ul class="warn"><li>The count is uncertain: '
+            f"{_e(conf.get('reason') or 'the segmentation threshold matters')}</li></ul>"
         )
 
     if spec_block and spec_block.get("checks"):
@@ -371,11 +378,7 @@ def render_report(
         '<header class="surface">',
         f"<h1>{_e(surface)} {_badge(meets) if latest is not None else ''}</h1>",
         f'<p class="sub">{len(results)} pass{"es" if len(results) != 1 else ""} in this report'
-        + (
-            f" · latest: {_e(latest.get('photo'))}"
-            if latest is not None
-            else ""
-        )
+        + (f" · latest: {_e(latest.get('photo'))}" if latest is not None else "")
         + "</p>",
         f"<p>Spec: {_spec_text(spec)}</p>",
     ]
@@ -384,7 +387,8 @@ def render_report(
         head.append(
             _figure(
                 _num(latest.get("density")),
-                f"points per {float(latest.get('cell') or 1):g} {_e(latest.get('unit'))} square, latest",
+                f"points per {float(latest.get('cell') or 1):g} {_e(latest.get('unit'))} "
+                "square, latest",
             )
         )
         head.append(_figure(_num(latest.get("bearing_percent")) + " %", "bearing, latest"))
@@ -444,5 +448,7 @@ def write_report(
         The folder is read-only or full.
     """
     p = Path(path)
-    text = render_report(surface=surface, spec=spec, passes=passes, progress=progress, folder=p.parent)
+    text = render_report(
+        surface=surface, spec=spec, passes=passes, progress=progress, folder=p.parent
+    )
     return write_text(p.parent, p.name, text)

@@ -103,7 +103,9 @@ def _crop_box(result: Result) -> tuple[int, int, int, int]:
     return r0, r1, c0, c1
 
 
-def _resample(array: np.ndarray, box: tuple[int, int, int, int], shape: tuple[int, int]) -> np.ndarray:
+def _resample(
+    array: np.ndarray, box: tuple[int, int, int, int], shape: tuple[int, int]
+) -> np.ndarray:
     """Nearest-neighbour resample of ``array[box]`` to ``shape`` (exact for labels)."""
     r0, r1, c0, c1 = box
     h, w = shape
@@ -132,7 +134,11 @@ def _put_text(
 
 
 def _dashed_circle(
-    img: np.ndarray, centre: tuple[int, int], radius: int, colour: tuple[int, int, int], thickness: int
+    img: np.ndarray,
+    centre: tuple[int, int],
+    radius: int,
+    colour: tuple[int, int, int],
+    thickness: int,
 ) -> None:
     import cv2
 
@@ -147,7 +153,11 @@ def _dashed_circle(
 
 
 def _hatched_circle(
-    img: np.ndarray, centre: tuple[int, int], radius: int, colour: tuple[int, int, int], thickness: int
+    img: np.ndarray,
+    centre: tuple[int, int],
+    radius: int,
+    colour: tuple[int, int, int],
+    thickness: int,
 ) -> None:
     import cv2
 
@@ -205,13 +215,17 @@ def _legend(width: int, scale: float, thickness: int, unit_text: str) -> np.ndar
             c = (x + sw // 2, y_mid)
             rad = max(th // 2 + 1, 4)
             if key in ("spot", "spot_outside"):
-                cv2.rectangle(band, (x, y_mid - rad), (x + sw, y_mid + rad), COLOURS[key], thickness)
+                cv2.rectangle(
+                    band, (x, y_mid - rad), (x + sw, y_mid + rad), COLOURS[key], thickness
+                )
             elif key == "high":
                 _hatched_circle(band, c, rad, COLOURS[key], thickness)
             else:
                 _dashed_circle(band, c, rad, COLOURS[key], thickness)
             tx = x + sw + pad
-        cv2.putText(band, label, (tx, y_mid + th // 2), font, scale, COLOURS["text"], thickness, cv2.LINE_AA)
+        cv2.putText(
+            band, label, (tx, y_mid + th // 2), font, scale, COLOURS["text"], thickness, cv2.LINE_AA
+        )
     return band
 
 
@@ -253,10 +267,10 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
     if crop.ndim == 2:
         crop = np.repeat(crop[:, :, None], 3, axis=2)
     if (h, w) == (h0, w0):
-        img = np.array(crop, dtype=np.uint8, copy=True)
+        img: np.ndarray = np.array(crop, dtype=np.uint8, copy=True)
     else:
         interp = cv2.INTER_AREA if s < 1 else cv2.INTER_LINEAR
-        img = cv2.resize(np.ascontiguousarray(crop), (w, h), interpolation=interp)
+        img = cv2.resize(np.ascontiguousarray(crop, dtype=np.uint8), (w, h), interpolation=interp)
 
     analysed = np.asarray(rect.analysed)
     if analysed.shape == rect.image.shape[:2]:
@@ -296,9 +310,13 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
 
     # guidance first, so the grid and figures stay on top
     for x_mm, y_mm, size_mm, _why in m.guidance.high:
-        _hatched_circle(img, px(x_mm, y_mm), max(length(size_mm / 2), 3 * thick), COLOURS["high"], thick + 1)
+        _hatched_circle(
+            img, px(x_mm, y_mm), max(length(size_mm / 2), 3 * thick), COLOURS["high"], thick + 1
+        )
     for bare in m.guidance.bare:
-        _dashed_circle(img, px(bare.x_mm, bare.y_mm), length(bare.diameter_mm / 2), COLOURS["bare"], thick + 1)
+        _dashed_circle(
+            img, px(bare.x_mm, bare.y_mm), length(bare.diameter_mm / 2), COLOURS["bare"], thick + 1
+        )
 
     # grid
     for c in m.cells:

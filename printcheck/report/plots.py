@@ -61,7 +61,16 @@ def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
             if ok:
                 ax.plot(x, y, "o", ms=7, color=_GREEN, zorder=3)
             else:
-                ax.plot(x, y, "o", ms=7, mfc="white", mec=_RED if ok is False else _GREY, mew=1.8, zorder=3)
+                ax.plot(
+                    x,
+                    y,
+                    "o",
+                    ms=7,
+                    mfc="white",
+                    mec=_RED if ok is False else _GREY,
+                    mew=1.8,
+                    zorder=3,
+                )
 
     dots(ax_d, "density")
     target = targets.get("density")
@@ -75,11 +84,24 @@ def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
         low = last_x + projection["low"]
         high = projection.get("high")
         if high is not None:
-            ax_d.plot([low, last_x + high], [target, target], "-", color=_BLUE, lw=5, alpha=0.3,
-                      solid_capstyle="butt")
+            ax_d.plot(
+                [low, last_x + high],
+                [target, target],
+                "-",
+                color=_BLUE,
+                lw=5,
+                alpha=0.3,
+                solid_capstyle="butt",
+            )
         else:
-            ax_d.annotate("(open-ended)", (low, target), textcoords="offset points", xytext=(4, 4),
-                          fontsize=8, color=_BLUE)
+            ax_d.annotate(
+                "(open-ended)",
+                (low, target),
+                textcoords="offset points",
+                xytext=(4, 4),
+                fontsize=8,
+                color=_BLUE,
+            )
         ax_d.plot(mid, target, "D", ms=6, color=_BLUE)
     ax_d.set_ylabel(f"points per {cell:g} {unit} sq.")
     ax_d.set_title("Density", loc="left", fontsize=10)

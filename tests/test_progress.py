@@ -1,0 +1,231 @@
+"""Tests of printcheck.progress: the trend fit, the projection and the uniformity figure.
+
+The least-squares line is checked against scipy.stats.linregress and numpy.polyfit
+(reference libraries); projections against sums worked by hand in the comments.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from printcheck.progress import (
+    PROGRESS_FORMAT,
+    build_progress,
+    cells_meeting_percent,
+    density_target,
+    fit_line,
+    progress_text,
+    project,
+    uniformity,
+)
+from printcheck.spec import Spec, builtin_specs
+
+PPI20 = Spec("ppi20", "test: 20 points per square inch", 25.4, min_density=20.0)
+
+
+def _res(
+    i: int,
+    density: float,
+    *,
+    unit: str = "in",
+    cell: float = 1.0,
+    meets: bool | None = None,
+    cells: list[dict] | None = None,
+) -> dict:
+    return {
+        "format": "printcheck-result/1",
+        "photo": f"IMG_{i:04d}.jpg",
+        "taken": f"2026-11-{10 + i:02d}T10:00:00",
+        "unit": unit,
+        "cell": cell,
+        "density": density,
+        "bearing_percent": 10.0 + 5 * i,
+        "spot_count": int(round(density * 4)),
+        "cells": cells or [],
+        "spec": None if meets is None else {"name": "ppi20", "meets": meets, "checks": []},
+    }
+
+
+# ------------------------------------------------------------------ the fit
+
+
+def test_fit_line_matches_scipy_linregress() -> None:
+    rng = np.random.default_rng(7)
+    x = np.arange(1, 9, dtype=float)
+    y = 3.0 + 2.2 * x + rng.normal(0, 0.8, x.size)
+    fit = fit_line(list(x), list(y))
+    ref = stats.linregress(x, y)  # reference: scipy
+    assert fit.slope == pytest.approx(ref.slope, rel=1e-12)
+    assert fit.intercept == pytest.approx(ref.intercept, rel=1e-12)
+    assert fit.slope_stderr == pytest.approx(ref.stderr, rel=1e-10)
+    slope, intercept = np.polyfit(x, y, 1)  # reference: numpy
+    assert (fit.slope, fit.intercept) == pytest.approx((slope, intercept), rel=1e-10)
+
+
+def test_fit_line_refuses_degenerate_input() -> None:
+    with pytest.raises(ValueError, match="two or more"):
+        fit_line([1.0], [2.0])
+    with pytest.raises(ValueError, match="different x"):
+        fit_line([1.0, 1.0, 1.0], [1.0, 2.0, 3.0])
+
+
+# ------------------------------------------------------------------ the projection
+
+
+def test_exact_linear_sequence() -> None:
+    # 5, 9, 13: 4 points a pass; 20 is 7 above 13 -> 1.75 passes -> 2 more, no spread
+    p = project([5.0, 9.0, 13.0], 20.0)
+    assert p is not None
+    assert (p["passes_to_spec"], p["low"], p["high"]) == (2, 2, 2)
+    assert p["rate"] == pytest.approx(4.0) and p["rate_stderr"] == pytest.approx(0.0, abs=1e-12)
+    # exactly reaching at a whole pass: 5, 9, 13 -> 21 in 2 passes, not 3
+    assert project([5.0, 9.0, 13.0], 21.0)["passes_to_spec"] == 2
+
+
+def test_noisy_sequence_against_linregress_by_hand() -> None:
+    d = [6.0, 8.5, 13.0, 14.0, 18.5]
+    target = 26.0
+    ref = stats.linregress(np.arange(1, 6), d)
+    y5 = ref.intercept + ref.slope * 5  # fitted density at pass 5
+    gap = target - y5
+    expect = (
+        math.ceil(gap / ref.slope),
+        math.ceil(gap / (ref.slope + ref.stderr)),
+        math.ceil(gap / (ref.slope - ref.stderr)),
+    )
+    p = project(d, target)
+    assert (p["passes_to_spec"], p["low"], p["high"]) == expect
+    assert p["low"] <= p["passes_to_spec"] <= p["high"]
+    # by hand: Sxy = 30.5, Sxx = 10 -> slope 3.05, intercept 12 - 9.15 = 2.85,
+    # y5 = 18.1, gap 7.9 -> 7.9 / 3.05 = 2.59 -> 3 more passes
+    assert p["rate"] == pytest.approx(3.05) and p["passes_to_spec"] == 3
+
+
+def test_fit_uses_only_the_last_passes() -> None:
+    d = [1.0, 1.0, 1.0, 1.0, 5.0, 9.0, 13.0, 17.0, 21.0]
+    p = project(d, 30.0, fit_passes=5)
+    slope = np.polyfit(np.arange(5, 10), d[-5:], 1)[0]  # reference: numpy on the last 5
+    assert p["rate"] == pytest.approx(slope) == pytest.approx(4.0)
+    assert p["fit_passes"] == 5 and p["passes_to_spec"] == 3  # 9 to go at 4 a pass
+
+
+def test_projection_null_cases_and_zero_when_there() -> None:
+    assert project([5.0, 9.0], 20.0) is None  # too few passes
+    assert project([5.0, 9.0, 13.0], None) is None  # no target
+    assert project([13.0, 9.0, 5.0], 20.0) is None  # moving away
+    assert project([9.0, 9.0, 9.0], 20.0) is None  # flat
+    done = project([25.0], 20.0)  # already there, even on one pass
+    assert (done["passes_to_spec"], done["low"], done["high"]) == (0, 0, 0)
+    assert project([5.0, 12.0, 21.0], 20.0)["passes_to_spec"] == 0
+
+
+def test_high_is_open_when_the_rate_could_be_zero() -> None:
+    # slope 1.0 with a standard error above 1: the upper bound is open
+    d = [5.0, 9.0, 4.0, 8.0]
+    ref = stats.linregress(np.arange(1, 5), d)
+    assert ref.slope - ref.stderr <= 0 < ref.slope
+    p = project(d, 20.0)
+    assert p["high"] is None and p["passes_to_spec"] >= p["low"] >= 1
+
+
+# ------------------------------------------------------------------ figures
+
+
+def test_density_target_converts_between_squares() -> None:
+    # a count per area scales with the area: 20 per in² (645.16 mm², 1 in = 25.4 mm
+    # exactly) is 20 * 625 / 645.16 = 19.375... per 25 mm square
+    assert density_target(PPI20, cell_mm=25.0) == pytest.approx(20 * 625 / 645.16)
+    assert density_target(PPI20, cell_mm=25.4) == pytest.approx(20.0)
+    both = Spec("x", "x", 25.4, min_density=10.0, min_cell_density=8.0)
+    assert density_target(both, cell_mm=25.4, per_cell=True) == 8.0
+    assert density_target(both, cell_mm=25.4) == 10.0
+    assert density_target(None, cell_mm=25.4) is None
+
+
+def test_uniformity_is_one_minus_cv_of_complete_cells() -> None:
+    cells = [
+        {"complete": True, "density": 10.0},
+        {"complete": True, "density": 20.0},
+        {"complete": True, "density": 30.0},
+        {"complete": True, "density": 40.0},
+        {"complete": False, "density": 99.0},  # incomplete: left out
+    ]
+    d = np.array([10.0, 20.0, 30.0, 40.0])
+    cv = d.std() / d.mean()  # reference: numpy, population std
+    assert uniformity({"cells": cells}) == pytest.approx(100 * (1 - cv), abs=0.005)
+    even = [{"complete": True, "density": 7.0}] * 4
+    assert uniformity({"cells": even}) == 100.0
+    assert uniformity({"cells": cells[:1]}) is None
+    assert uniformity({"cells": [{"complete": True, "density": 0.0}] * 3}) is None
+    wild = [{"complete": True, "density": v} for v in (0.0, 0.0, 0.0, 40.0)]  # CV = 1.73
+    assert uniformity({"cells": wild}) == 0.0
+    assert cells_meeting_percent({"cells": cells}, 20.0) == 75.0
+    assert cells_meeting_percent({"cells": cells}, None) is None
+
+
+# ------------------------------------------------------------------ the contract
+
+
+def test_build_progress_contract() -> None:
+    passes = [_res(i + 1, d, meets=d >= 20) for i, d in enumerate([5.0, 9.0, 13.0])]
+    out = build_progress(passes, surface="bed-front-way", spec=PPI20)
+    assert out["format"] == PROGRESS_FORMAT == "printcheck-progress/1"
+    assert out["surface"] == "bed-front-way" and out["spec"] == "ppi20"
+    assert [p["pass"] for p in out["passes"]] == [1, 2, 3]
+    for key in ("pass", "photo", "taken", "density", "bearing_percent", "meets", "uniformity"):
+        assert key in out["passes"][0]
+    assert out["passes"][0]["meets"] is False and out["passes"][1]["photo"] == "IMG_0002.jpg"
+    proj = out["projection"]
+    assert (proj["passes_to_spec"], proj["low"], proj["high"]) == (2, 2, 2)
+    # the other calling form gives the same object
+    assert build_progress("bed-front-way", passes, spec=PPI20) == out
+    # too few passes
+    assert build_progress(passes[:2], surface="s", spec=PPI20)["projection"] is None
+
+
+def test_build_progress_converts_passes_counted_on_another_cell() -> None:
+    # pass 1 counted per 25 mm square, pass 2-3 per inch: pass 1 is shown per inch
+    passes = [_res(1, 10.0, unit="mm", cell=25.0), _res(2, 12.0), _res(3, 14.0)]
+    out = build_progress(passes, surface="s", spec=PPI20)
+    assert out["passes"][0]["density"] == pytest.approx(10.0 * 645.16 / 625, abs=0.005)
+    assert out["unit"] == "in" and out["targets"]["density"] == pytest.approx(20.0)
+
+
+def test_build_progress_takes_the_spec_from_the_history_rows() -> None:
+    rows = [
+        {
+            "pass": i + 1,
+            "spec": "ppi20",
+            "spec_targets": {
+                "name": "ppi20",
+                "title": "t",
+                "basis_mm": 25.4,
+                "min_density": 20.0,
+                "sources": [["min_density", "test"]],
+            },
+            "result": _res(i + 1, d),
+        }
+        for i, d in enumerate([5.0, 9.0, 13.0])
+    ]
+    out = build_progress(rows, surface="s")
+    assert out["spec"] == "ppi20" and out["projection"]["passes_to_spec"] == 2
+    # a built-in spec named in the history, without kept targets
+    builtin = builtin_specs()[0]
+    rows2 = [{"pass": 1, "spec": builtin.name, "result": _res(1, 5.0)}]
+    out2 = build_progress(rows2, surface="s")
+    assert out2["spec"] == builtin.name
+    expected = density_target(builtin, cell_mm=25.4)
+    assert out2["targets"]["density"] == (None if expected is None else round(expected, 4))
+
+
+def test_progress_text_says_the_projection() -> None:
+    passes = [_res(i + 1, d, meets=False) for i, d in enumerate([5.0, 9.0, 13.0])]
+    text = progress_text(build_progress(passes, surface="bed", spec=PPI20))
+    assert "bed: 3 passes" in text and "about 2 more passes to 20" in text
+    assert " 13.0 " in text
+    short = progress_text(build_progress(passes[:1], surface="bed", spec=PPI20))
+    assert "too few passes" in short
