@@ -358,6 +358,12 @@ def build_progress(
     }
 
 
+def _short(value: float) -> str:
+    """A number for people: at most one decimal, no trailing zeros (10.3226 -> 10.3)."""
+    text = f"{float(value):.1f}"
+    return text[:-2] if text.endswith(".0") else text
+
+
 def progress_text(progress: Mapping[str, Any]) -> str:
     """A few lines for people: the latest pass against the spec, the trend, the projection."""
     passes = list(progress.get("passes") or ())
@@ -392,15 +398,17 @@ def progress_text(progress: Mapping[str, Any]) -> str:
         if len(passes) < MIN_PASSES:
             lines.append(f"projection: too few passes yet ({len(passes)} of {MIN_PASSES} needed)")
         else:
-            lines.append(f"projection: the density is not approaching the target of {target:g}")
+            lines.append(
+                f"projection: the density is not approaching the target of {_short(target)}"
+            )
     elif proj["passes_to_spec"] == 0:
-        lines.append(f"projection: the latest pass reaches the density target of {target:g}")
+        lines.append(f"projection: the latest pass reaches the density target of {_short(target)}")
     else:
         hi = proj.get("high")
         rng = f"{proj['low']} to {hi}" if hi is not None else f"{proj['low']} or more"
         lines.append(
             f"projection: about {proj['passes_to_spec']} more pass"
-            f"{'es' if proj['passes_to_spec'] != 1 else ''} to {target:g} {per} "
+            f"{'es' if proj['passes_to_spec'] != 1 else ''} to {_short(target)} {per} "
             f"(likely {rng}; {proj['rate']:+.1f} per pass)"
         )
     return "\n".join(lines)

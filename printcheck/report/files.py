@@ -249,7 +249,7 @@ def encode_image(image: np.ndarray, suffix: str = ".png", *, jpeg_quality: int =
 
     suffix = suffix.lower()
     if suffix == ".png":
-        params = [cv2.IMWRITE_PNG_COMPRESSION, 6]
+        params = [cv2.IMWRITE_PNG_COMPRESSION, 3]  # half the time of 6 for ~9 % more bytes
     elif suffix in (".jpg", ".jpeg"):
         params = [cv2.IMWRITE_JPEG_QUALITY, int(jpeg_quality)]
     else:

@@ -88,6 +88,12 @@ def _e(value: Any) -> str:
     return html.escape("" if value is None else str(value), quote=True)
 
 
+def _short(value: float) -> str:
+    """At most one decimal, no trailing zero (10.3226 -> "10.3")."""
+    text = f"{float(value):.1f}"
+    return text[:-2] if text.endswith(".0") else text
+
+
 def _data_uri(data: bytes) -> str:
     if data[:8] == b"\x89PNG\r\n\x1a\n":
         mime = "image/png"
@@ -203,7 +209,7 @@ def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
         out.append("</table>")
         return "".join(out)
 
-    dcap = f"Density, {unit_text}" + ("" if target is None else f" (target {target:g})")
+    dcap = f"Density, {unit_text}" + ("" if target is None else f" (target {_short(target)})")
     if lo is not None or hi is not None:
         lo_txt = "0" if lo is None else _num(lo, 0)
         hi_txt = "100" if hi is None else _num(hi, 0)
@@ -232,12 +238,12 @@ def _projection_text(progress: Mapping[str, Any], spec: Spec | None) -> str:
         return "The density trend is not approaching the target; no projection."
     n = proj["passes_to_spec"]
     if n == 0:
-        return f"The latest pass reaches the density target of {target:g}."
+        return f"The latest pass reaches the density target of {_short(target)}."
     lo, hi = proj.get("low"), proj.get("high")
     rng = f"{lo}–{hi}" if hi is not None else f"{lo} or more"
     word = "pass" if n == 1 else "passes"
     return (
-        f"About <b>{n} more {word}</b> to reach {target:g} points (likely range {rng}), "
+        f"About <b>{n} more {word}</b> to reach {_short(target)} points (likely range {rng}), "
         f"at {proj.get('rate', 0):.1f} points per pass."
     )
 
@@ -275,9 +281,10 @@ def _pass_section(
             + ("" if res is None else f", fit residual {_num(res, 3)} mm")
         )
     if folder is not None and result.get("photo"):
-        name = output_name(str(result["photo"]), ".json")
-        if (folder / name).is_file():
-            parts.append(f' · <a href="{_e(quote(name))}">result JSON</a>')
+        for suffix, label in ((".json", "result JSON"), (".overlay.png", "full-size overlay")):
+            name = output_name(str(result["photo"]), suffix)
+            if (folder / name).is_file():
+                parts.append(f' · <a href="{_e(quote(name))}">{label}</a>')
     parts.append("</p>")
 
     cnt_rng = den_rng = bear_rng = ""

@@ -75,7 +75,9 @@ def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
     dots(ax_d, "density")
     target = targets.get("density")
     if target is not None:
-        ax_d.axhline(target, color=_RED, ls="--", lw=1.2, label=f"target {target:g}")
+        ax_d.axhline(
+            target, color=_RED, ls="--", lw=1.2, label=f"target {target:.1f}".removesuffix(".0")
+        )
     if projection and target is not None and xs and projection.get("passes_to_spec"):
         last_x = xs[-1]
         last_y = passes[-1]["density"]
