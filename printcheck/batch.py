@@ -146,7 +146,7 @@ def run_batch(
                 if "error" in outcome:
                     warn(f"{outcome['error']}; skipped")
                 else:
-                    history.record(outcome["data"], surface=surface, spec_name=spec_name)
+                    history.record(outcome["data"], surface=surface, spec_name=spec_name, spec=options.spec)
                     if json_lines:
                         echo(json.dumps(outcome["data"], ensure_ascii=False))
                 bar.advance(items[index].path.name)

@@ -339,7 +339,7 @@ def progress(
         if not passes:
             known = ", ".join(history.surfaces()) or "none"
             raise OptionError(f"progress: no passes recorded for surface {surface!r} (recorded: {known})")
-    data = build_progress(surface, passes)
+    data = build_progress(passes, surface=surface)
     if json_out:
         typer.echo(json.dumps(data, ensure_ascii=False, indent=2))
     else:
