@@ -35,6 +35,7 @@ __all__ = [
     "layout_to_toml",
     "CARD_MARKER_MM",
     "CARD_GAP_MM",
+    "MAX_COORDINATE_MM",
 ]
 
 # Number of markers in each of OpenCV's predefined ArUco dictionaries
@@ -65,6 +66,7 @@ ARUCO_DICTIONARY_SIZES: dict[str, int] = {
 }
 
 DEFAULT_MARGIN_MM = 5.0
+MAX_COORDINATE_MM = 1e6  # 1 km: any coordinate beyond is a typo, and keeps areas finite
 CARD_MARKER_MM = 12.0  # side of each printed card marker
 CARD_GAP_MM = 4.0  # clear paper between the window edge and the markers
 
@@ -140,20 +142,34 @@ def _fail(source: str, key: str, problem: str) -> LayoutError:
     return LayoutError(f"layout {source}: {key}: {problem}")
 
 
-def _number(value: Any, source: str, key: str) -> float:
+def _shown(key: str) -> str:
+    """A key as it can be shown in a one-line message (quoted when it has odd characters)."""
+    return key if key.isprintable() and key else repr(key)
+
+
+def _number(value: Any, source: str, key: str, scale: float = 1.0) -> float:
+    """``value`` times ``scale`` (mm per file unit), refusing what is not a sane length."""
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise _fail(source, key, f"must be a number, got {value!r}")
-    if not math.isfinite(float(value)):
+    try:
+        number = float(value) * scale
+    except OverflowError:  # a TOML integer too large for a float
+        number = math.inf
+    if not math.isfinite(number):
         raise _fail(source, key, f"must be a finite number, got {value!r}")
-    return float(value)
+    if abs(number) > MAX_COORDINATE_MM:
+        raise _fail(
+            source, key, f"must be within {MAX_COORDINATE_MM:g} mm of the origin, got {value!r}"
+        )
+    return number
 
 
 def _point(value: Any, source: str, key: str, scale: float) -> Point:
     if not isinstance(value, list | tuple) or len(value) != 2:
         raise _fail(source, key, f"must be a point [x, y], got {value!r}")
     return (
-        _number(value[0], source, key) * scale,
-        _number(value[1], source, key) * scale,
+        _number(value[0], source, key, scale),
+        _number(value[1], source, key, scale),
     )
 
 
@@ -185,11 +201,13 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
     known = {"name", "dictionary", "units", "window", "marker", "exclude"}
     unknown = sorted(set(data) - known)
     if unknown:
-        raise _fail(source, unknown[0], f"unknown key; expected one of {sorted(known)}")
+        raise _fail(source, _shown(unknown[0]), f"unknown key; expected one of {sorted(known)}")
 
     name = data.get("name", Path(source).stem if source != "<memory>" else "layout")
     if not isinstance(name, str) or not name.strip():
         raise _fail(source, "name", f"must be a non-empty string, got {name!r}")
+    if any(ord(ch) < 32 or ord(ch) == 127 for ch in name):
+        raise _fail(source, "name", f"must be one line without control characters, got {name!r}")
 
     if "dictionary" not in data:
         raise _fail(source, "dictionary", "missing; name an OpenCV ArUco dictionary such as DICT_4X4_50")
@@ -215,18 +233,18 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
             raise _fail(source, f"window.{key}", "missing")
     extra = sorted(set(win) - {"x", "y", "width", "height", "margin"})
     if extra:
-        raise _fail(source, f"window.{extra[0]}", "unknown key")
-    wx = _number(win["x"], source, "window.x") * scale
-    wy = _number(win["y"], source, "window.y") * scale
-    ww = _number(win["width"], source, "window.width") * scale
-    wh = _number(win["height"], source, "window.height") * scale
+        raise _fail(source, f"window.{_shown(extra[0])}", "unknown key")
+    wx = _number(win["x"], source, "window.x", scale)
+    wy = _number(win["y"], source, "window.y", scale)
+    ww = _number(win["width"], source, "window.width", scale)
+    wh = _number(win["height"], source, "window.height", scale)
     if ww <= 0:
         raise _fail(source, "window.width", f"must be greater than zero, got {win['width']!r}")
     if wh <= 0:
         raise _fail(source, "window.height", f"must be greater than zero, got {win['height']!r}")
     margin = DEFAULT_MARGIN_MM
     if "margin" in win:
-        margin = _number(win["margin"], source, "window.margin") * scale
+        margin = _number(win["margin"], source, "window.margin", scale)
         if margin < 0:
             raise _fail(source, "window.margin", f"must be zero or more, got {win['margin']!r}")
     window = Window(wx, wy, ww, wh)
@@ -254,7 +272,7 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
         seen.add(mid)
         extra = sorted(set(raw) - {"id", "corners"})
         if extra:
-            raise _fail(source, f"{where}.{extra[0]}", "unknown key")
+            raise _fail(source, f"{where}.{_shown(extra[0])}", "unknown key")
         corners = raw.get("corners")
         if not isinstance(corners, list):
             raise _fail(source, f"{where}.corners", "missing or not a list of 4 points")
@@ -414,5 +432,12 @@ def layout_to_toml(layout: Layout) -> str:
 
 
 def _toml_str(text: str) -> str:
-    escaped = text.replace("\\", "\\\\").replace('"', '\\"')
-    return f'"{escaped}"'
+    out = []
+    for ch in text:
+        if ch in ('"', "\\"):
+            out.append("\\" + ch)
+        elif ord(ch) < 32 or ord(ch) == 127:  # TOML 1.0 basic strings forbid control characters
+            out.append(f"\\u{ord(ch):04x}")
+        else:
+            out.append(ch)
+    return '"' + "".join(out) + '"'
