@@ -332,7 +332,9 @@ def _appearance(
     direction = np.where(scraped, np.cos(2 * (np.nan_to_num(lay) - light)), 0.0)
     shade = 1.0 + 0.10 * field.facet + 0.10 * direction
     # The scoops' slopes read faintly as shading.
-    gy, gx = np.gradient(ndimage.gaussian_filter(h, 0.08 * s), 1.0 / s)
+    hs = _blur(h.astype(np.float32), 0.08 * s)
+    gx = cv2.Sobel(hs, cv2.CV_32F, 1, 0, ksize=1) * (s / 2.0)
+    gy = cv2.Sobel(hs, cv2.CV_32F, 0, 1, ksize=1) * (s / 2.0)
     shade += 0.02 * np.clip(gx * math.cos(light) + gy * math.sin(light), -3, 3)
     metal = (shade[..., None] * _METAL_BGR).astype(np.float32)
 
@@ -340,13 +342,12 @@ def _appearance(
     strength = max(lighting.compound_strength, 0.0)
     contact = gap <= film_um
     q = np.clip(1.0 - gap / film_um, 0.0, 1.0)  # 1 at the top of a spot, 0 at its rim
-    smooth = ndimage.gaussian_filter(rng.standard_normal(h.shape), 2.0 * s)
-    smooth = smooth / max(float(smooth.std()), 1e-9)
+    smooth = _smooth_noise(rng, h.shape, 2.0 * s)
     if compound_on == "reference":
         # Spots carry compound, thickest where the surface stood highest (dark centres,
         # pale rims); a faint haze of compound smeared over the bare metal around them.
         thick = np.where(contact, 0.35 + 0.65 * q**0.7, 0.0)
-        near = ndimage.gaussian_filter(contact.astype(np.float32), 0.8 * s)
+        near = _blur(contact.astype(np.float32), 0.8 * s)
         haze = lighting.haze * (0.02 + 0.015 * smooth + 0.12 * near)
         thick = strength * (thick + np.clip(haze, 0.0, None))
         brighten = np.ones_like(q)
@@ -354,8 +355,9 @@ def _appearance(
         # The work is coated; where the reference rubbed, the film is worn through to
         # burnished, brighter metal, thinning toward the rim of each spot.
         coat = 0.85 + 0.12 * smooth
-        thick = strength * np.clip(np.where(contact, coat * (1.0 - q) ** 1.5 * 0.8, coat), 0.0, None)
-        brighten = np.where(contact, 1.0 + 0.15 * q, 1.0)
+        worn = np.clip(1.0 - q / 0.25, 0.0, 1.0) ** 1.5
+        thick = strength * np.clip(np.where(contact, coat * 0.6 * worn, coat), 0.0, None)
+        brighten = np.where(contact, 1.0 + 0.15 * np.clip(q / 0.25, 0.0, 1.0), 1.0)
     thick = thick.astype(np.float32)
     trans = np.exp(-2.0 * thick[..., None] * absorb[None, None, :])  # down and back up
     cover = 1.0 - np.exp(-1.2 * thick[..., None])
@@ -370,6 +372,24 @@ def _appearance(
             groove_col = groove_col * np.exp(-1.0 * strength * absorb)[None, None, :]
         colour = np.where(ex[..., None], groove_col, colour)
     return colour.astype(np.float32)
+
+
+def _blur(a: np.ndarray, sigma_px: float) -> np.ndarray:
+    """Gaussian blur of a float32 image (reflecting edges)."""
+    if sigma_px <= 0.3:
+        return a
+    return cv2.GaussianBlur(a, (0, 0), sigma_px, borderType=cv2.BORDER_REFLECT)
+
+
+def _smooth_noise(rng: np.random.Generator, shape: tuple[int, int], sigma_px: float) -> np.ndarray:
+    """Unit-variance Gaussian noise smoothed at ``sigma_px`` (made coarse, then enlarged)."""
+    rows, cols = shape
+    k = max(int(sigma_px // 4), 1)
+    small = rng.standard_normal((rows // k + 2, cols // k + 2)).astype(np.float32)
+    small = _blur(small, sigma_px / k)
+    big = cv2.resize(small, ((cols // k + 2) * k, (rows // k + 2) * k), interpolation=cv2.INTER_LINEAR)
+    big = big[:rows, :cols]
+    return big / max(float(big.std()), 1e-9)
 
 
 # --------------------------------------------------------------------------- card
@@ -525,7 +545,8 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
     p0 = _project(hom, c)
     p1 = _project(hom, c + [[1.0, 0.0]])
     p2 = _project(hom, c + [[0.0, 1.0]])
-    photo_px_per_mm = math.sqrt(abs(np.cross(p1[0] - p0[0], p2[0] - p0[0])))
+    d1, d2 = p1[0] - p0[0], p2[0] - p0[0]
+    photo_px_per_mm = math.sqrt(abs(d1[0] * d2[1] - d1[1] * d2[0]))
     ratio = s / max(photo_px_per_mm, 1e-6)
     if ratio > 1.3:
         colour = cv2.GaussianBlur(colour, (0, 0), 0.45 * ratio)

@@ -138,6 +138,11 @@ def _polygons_mask(
     return inside
 
 
+def _run(index: np.ndarray, value: int) -> tuple[int, int]:
+    """Start and stop of the run of ``value`` in the non-decreasing ``index``."""
+    return int(np.searchsorted(index, value, "left")), int(np.searchsorted(index, value, "right"))
+
+
 def truth_stats(
     mask: np.ndarray,
     *,
@@ -188,19 +193,27 @@ def truth_stats(
     labels, count = ndimage.label(contact, structure=_EIGHT)
     if count:
         index = np.arange(1, count + 1)
-        npx = ndimage.sum_labels(np.ones_like(labels), labels, index)
-        centres = np.array(ndimage.center_of_mass(np.ones_like(labels), labels, index), dtype=float)
+        rr, cc = np.nonzero(labels)
+        flat = labels[rr, cc]
+        npx = np.bincount(flat, minlength=count + 1)[1:].astype(float)
+        row_sum = np.bincount(flat, weights=rr, minlength=count + 1)[1:]
+        col_sum = np.bincount(flat, weights=cc, minlength=count + 1)[1:]
         area = npx / s**2
         keep = area >= min_spot_mm2 - 1e-12
         area = area[keep]
-        cx, cy = frame.to_mm(centres[keep, 0], centres[keep, 1])
+        cx, cy = frame.to_mm(row_sum[keep] / npx[keep], col_sum[keep] / npx[keep])
         kept_labels = index[keep]
     else:
         area = np.zeros(0)
         cx = cy = np.zeros(0)
         kept_labels = np.zeros(0, dtype=int)
     # Clean the mask of specks: the truth mask holds only spots.
-    clean = np.isin(labels, kept_labels) if count else np.zeros_like(contact)
+    if count:
+        lut = np.zeros(count + 1, dtype=bool)
+        lut[kept_labels] = True
+        clean = lut[labels]
+    else:
+        clean = np.zeros_like(contact)
 
     w = frame.window
     in_window = (cx >= w.x_mm) & (cx < w.x_mm + w.width_mm) & (cy >= w.y_mm) & (cy < w.y_mm + w.height_mm)
@@ -224,21 +237,19 @@ def truth_stats(
     spot_col = np.floor((cx - w.x_mm) / cell_mm + 1e-9).astype(int)
     spot_row = np.floor((cy - w.y_mm) / cell_mm + 1e-9).astype(int)
     cells: list[TruthCell] = []
-    full_cell_px = None
     for r in range(nrows):
+        rsel = slice(*_run(pix_row, r))
         for c in range(ncols):
+            csel = slice(*_run(pix_col, c))
             x0 = w.x_mm + c * cell_mm
             y0 = w.y_mm + r * cell_mm
             cw = min(cell_mm, w.x_mm + w.width_mm - x0)
             ch = min(cell_mm, w.y_mm + w.height_mm - y0)
-            sel = (pix_row[:, None] == r) & (pix_col[None, :] == c) & analysed
+            sel = analysed[rsel, csel]
             cell_px = int(sel.sum())
             cell_area = cell_px / s**2
             n = int((in_window & (spot_row == r) & (spot_col == c)).sum())
-            grid_px = int(((pix_row[:, None] == r) & (pix_col[None, :] == c)).sum())
-            complete = abs(cw - cell_mm) < 1e-9 and abs(ch - cell_mm) < 1e-9 and cell_px == grid_px
-            if full_cell_px is None and complete:
-                full_cell_px = cell_px
+            complete = abs(cw - cell_mm) < 1e-9 and abs(ch - cell_mm) < 1e-9 and cell_px == sel.size
             cells.append(
                 TruthCell(
                     row=r,
@@ -248,10 +259,10 @@ def truth_stats(
                     width_mm=cw,
                     height_mm=ch,
                     area_mm2=cell_area,
-                    complete=bool(complete),
+                    complete=bool(complete and sel.size > 0),
                     spot_count=n,
                     density=n * cell_mm**2 / cell_area if cell_area > 0 else 0.0,
-                    bearing_percent=100.0 * float((clean & sel).sum()) / cell_px if cell_px else 0.0,
+                    bearing_percent=100.0 * float((clean[rsel, csel] & sel).sum()) / cell_px if cell_px else 0.0,
                 )
             )
     return Truth(
