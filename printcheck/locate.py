@@ -467,7 +467,7 @@ def _robust_fit(
             score = (len({kept[i][0] for i in agree}), -sum(miss[i] for i in agree))
             if score > best:
                 best, best_set = score, agree
-        if len(best_set) >= 1 and len(best_set) < len(kept):
+        if best[0] >= 2 and len(best_set) < len(kept):  # two or more markers agree
             h = fit_homography(
                 np.concatenate([kept[i][1] for i in best_set]),
                 np.concatenate([kept[i][2] for i in best_set]),
