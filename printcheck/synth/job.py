@@ -258,8 +258,8 @@ def write_job(
         else:
             cam = Camera(
                 tilt_deg=float(rng.uniform(5, 25)),
-                rotation_deg=float(rng.uniform(-20, 20)),
-                window_fraction=float(rng.uniform(0.35, 0.5)),
+                rotation_deg=float(rng.uniform(-15, 15)),
+                window_fraction=float(rng.uniform(0.24, 0.3)),
                 tilt_axis_deg=float(rng.uniform(0, 360)),
                 offset=(float(rng.uniform(-0.05, 0.05)), float(rng.uniform(-0.05, 0.05))),
             )

@@ -50,11 +50,11 @@ CARD_BORDER_MM = 6.0
 # per unit thickness, and the paste's own body colour (BGR, 0-1).
 _COMPOUND = {
     # Prussian blue: absorbs red and green strongly, a dark saturated blue.
-    "blue": (np.array([0.45, 1.7, 2.8]), np.array([0.30, 0.09, 0.03])),
+    "blue": (np.array([0.22, 0.95, 1.5]), np.array([0.30, 0.08, 0.03])),
     # Red lead / red marking paste: a red-orange.
-    "red": (np.array([2.4, 1.5, 0.25]), np.array([0.10, 0.22, 0.80])),
+    "red": (np.array([1.4, 0.9, 0.12]), np.array([0.08, 0.20, 0.78])),
 }
-_METAL_BGR = np.array([0.60, 0.59, 0.57])  # bare steel, slightly cool grey
+_METAL_BGR = np.array([0.53, 0.535, 0.54])  # bare steel, a neutral grey
 _PAPER_BGR = np.array([0.93, 0.94, 0.95])
 _INK_BGR = np.array([0.07, 0.07, 0.08])
 
@@ -330,7 +330,7 @@ def _appearance(
     lay = field.lay_rad
     scraped = np.isfinite(lay)
     direction = np.where(scraped, np.cos(2 * (np.nan_to_num(lay) - light)), 0.0)
-    shade = 1.0 + 0.10 * field.facet + 0.10 * direction
+    shade = 1.0 + 0.08 * field.facet + 0.07 * direction
     # The scoops' slopes read faintly as shading.
     hs = _blur(h.astype(np.float32), 0.08 * s)
     gx = cv2.Sobel(hs, cv2.CV_32F, 1, 0, ksize=1) * (s / 2.0)
@@ -346,7 +346,7 @@ def _appearance(
     if compound_on == "reference":
         # Spots carry compound, thickest where the surface stood highest (dark centres,
         # pale rims); a faint haze of compound smeared over the bare metal around them.
-        thick = np.where(contact, 0.35 + 0.65 * q**0.7, 0.0)
+        thick = np.where(contact, 0.25 + 1.25 * q**0.8, 0.0)
         near = _blur(contact.astype(np.float32), 0.8 * s)
         haze = lighting.haze * (0.02 + 0.015 * smooth + 0.12 * near)
         thick = strength * (thick + np.clip(haze, 0.0, None))
