@@ -14,10 +14,11 @@ Conventions chosen here (where the contract is silent):
   cell) when the pixel holding it is an analysed pixel (pixel centres decide which
   pixels belong to the window and to each cell, as in
   :meth:`printcheck.frame.Frame.window_slices`).
-- Touching spots are split where a narrow neck joins two round bodies: the
+- Touching spots are split where a hairline neck joins two round bodies: the
   distance transform of the spot has two peaks ``r1 <= r2`` joined by a saddle ``d``
-  with ``d < neck_ratio * r1`` (and ``r1 - d`` at least a pixel).  One irregular spot,
-  whose lobes join through wide necks, stays one spot.
+  with ``d < neck_ratio * r1`` and ``d <= neck_mm`` (at least one pixel).  Such bridges
+  are what blur and JPEG draw between spots that are apart on the metal; one irregular
+  spot, whose lobes join through wider necks, stays one spot.
 - The largest bare patch is the largest circle that lies inside the analysed area (the
   window less exclusions) and touches no spot; its diameter comes from the Euclidean
   distance transform of the bare analysed pixels.
@@ -66,6 +67,11 @@ class MeasureConfig:
     neck_ratio : float
         Two bodies of one mark are split when the neck between them is narrower than
         this share of the smaller body's inscribed radius (0 < neck_ratio < 1).
+    neck_mm : float
+        ... and the neck's half-width is at most this (mm, and at least one pixel): only
+        hairline bridges are split, such as blur and JPEG draw between spots that are
+        apart on the metal.  A spot is one connected mark (DESIGN.md); a real neck of
+        metal in contact, however narrow-looking, is kept whole.
     doubtful_change : float
         The result is flagged doubtful when the count at a nudged threshold differs
         from the count by more than this share (or the bearing by more than
@@ -83,7 +89,8 @@ class MeasureConfig:
     min_spot_mm2: float = 0.1
     split_touching: bool = True
     max_bare_mm: float | None = None
-    neck_ratio: float = 0.6
+    neck_ratio: float = 0.3
+    neck_mm: float = 0.05
     doubtful_change: float = 0.15
     doubtful_bearing: float = 5.0
     oversize_factor: float = 4.0
@@ -223,7 +230,8 @@ def label_spots(
     px_per_mm: float,
     min_spot_mm2: float = 0.1,
     split_touching: bool = True,
-    neck_ratio: float = 0.6,
+    neck_ratio: float = 0.3,
+    neck_mm: float = 0.05,
 ) -> tuple[np.ndarray, int]:
     """Label the spots of a contact mask.
 
@@ -240,6 +248,8 @@ def label_spots(
     neck_ratio : float
         Neck width, as a share of the smaller body's inscribed radius, below which two
         bodies are split.
+    neck_mm : float
+        Largest neck half-width (mm, at least one pixel) that is split.
 
     Returns
     -------
@@ -261,7 +271,10 @@ def label_spots(
     keep = areas >= min_px - 1e-9
     keep[0] = False
     if split_touching and keep.any():
-        comp = _split(comp, keep, px_per_mm=px_per_mm, min_px=min_px, neck_ratio=neck_ratio)
+        comp = _split(
+            comp, keep, px_per_mm=px_per_mm, min_px=min_px, neck_ratio=neck_ratio,
+            neck_mm=neck_mm,
+        )
     else:
         lut = np.where(keep, np.arange(n + 1), 0).astype(np.int32)
         comp = lut[comp]
@@ -285,7 +298,14 @@ def _renumber(labels: np.ndarray) -> tuple[np.ndarray, int]:
 
 
 def _split(
-    comp: np.ndarray, keep: np.ndarray, *, px_per_mm: float, min_px: float, neck_ratio: float
+    comp: np.ndarray,
+    keep: np.ndarray,
+    *,
+    px_per_mm: float,
+    min_px: float,
+    neck_ratio: float,
+    neck_mm: float,
+    body_mm: float = 0.6,
 ) -> np.ndarray:
     """Split kept components at narrow necks; return a label image (any numbering)."""
     from skimage.segmentation import watershed
@@ -355,7 +375,8 @@ def _split(
             parent[i], i = root, parent[i]
         return root
 
-    min_radius = 0.5 * math.sqrt(min_px / math.pi)
+    min_radius = max(0.5 * math.sqrt(min_px / math.pi), body_mm * px_per_mm)
+    neck_px = max(1.0, neck_mm * px_per_mm)
     for k in np.argsort(-saddle, kind="stable"):
         ra, rb = find(int(ukeys[k] // nws)), find(int(ukeys[k] % nws))
         if ra == rb:
@@ -363,7 +384,8 @@ def _split(
         s = float(saddle[k])
         low = min(top[ra], top[rb])
         split = (
-            s < neck_ratio * low
+            s <= neck_px
+            and s < neck_ratio * low
             and low - s >= 1.0
             and low >= min_radius
             and min(size[ra], size[rb]) >= min_px
@@ -598,6 +620,7 @@ def measure(
             min_spot_mm2=config.min_spot_mm2,
             split_touching=config.split_touching,
             neck_ratio=config.neck_ratio,
+            neck_mm=config.neck_mm,
         )
         _, arc, acc = _spot_table(alt_labels, alt_n)
         apr = np.floor(arc + 0.5).astype(np.int64)

@@ -82,9 +82,9 @@ class SegmentConfig:
     compound_on: CompoundOn = "reference"
     px_per_mm: float = 10.0
     background_mm: float = 10.0
-    level: float = 0.35
+    level: float = 0.4
     noise_floor: float = 5.0
-    hysteresis: float = 0.4
+    hysteresis: float = 0.2
     smooth_mm: float = 0.04
 
 
@@ -114,6 +114,8 @@ class Segmentation:
         Hysteresis: pixels down to ``t - low_gap`` join spots found at ``t``.
     blocked : (M, N) bool ndarray or None
         Pixels that are never contact (glare) unless enclosed by a spot.
+    floor : (M, N) float32 ndarray or None
+        Local noise floor: nothing at or below it is contact, whatever the threshold.
     bare_level, compound_level, bare_sigma : float
         The score statistics the threshold was chosen from.
     glare_fraction : float
@@ -134,6 +136,7 @@ class Segmentation:
     compound_level: float = 0.0
     bare_sigma: float = 0.0
     glare_fraction: float = 0.0
+    floor: np.ndarray | None = field(default=None)
 
 
 # --------------------------------------------------------------------------- evidence
@@ -154,61 +157,169 @@ def compound_evidence(image: np.ndarray, compound: str) -> np.ndarray:
         red (natural log, ``e`` = 4 in 8-bit units).  Grey is 0; the compound is
         positive.
     """
-    img = image.astype(np.float32) + _EPS
-    logs = cv2.log(img)
-    lb, lg, lr = cv2.split(logs)
+    if compound not in ("blue", "red"):
+        raise OptionError(f"compound must be 'blue' or 'red', got {compound!r}")
+    return _log_ratio(image.astype(np.float32), compound)
+
+
+def _log_ratio(img: np.ndarray, compound: str) -> np.ndarray:
+    img = img + _EPS
     if compound == "blue":
-        return lb - lr
-    if compound == "red":
-        gb = cv2.log(0.5 * (img[..., 0] + img[..., 1]))
-        return lr - gb
-    raise OptionError(f"compound must be 'blue' or 'red', got {compound!r}")
+        return cv2.log(img[..., 0]) - cv2.log(img[..., 2])
+    return cv2.log(img[..., 2]) - cv2.log(0.5 * (img[..., 0] + img[..., 1]))
+
+
+def _tile_grid(
+    values: np.ndarray, valid: np.ndarray, tile_px: int, quantile: float
+) -> np.ndarray | None:
+    """(ty, tx) grid of the ``quantile`` of ``values`` over ``valid`` in square tiles.
+
+    Tiles with too few valid pixels take their nearest filled neighbour; None when no
+    tile has enough.
+    """
+    rows, cols = values.shape
+    ty, tx = max(1, math.ceil(rows / tile_px)), max(1, math.ceil(cols / tile_px))
+    ph, pw = ty * tile_px - rows, tx * tile_px - cols
+    v = np.pad(np.where(valid, values, np.nan), ((0, ph), (0, pw)), constant_values=np.nan)
+    blocks = v.reshape(ty, tile_px, tx, tile_px).transpose(0, 2, 1, 3).reshape(ty, tx, -1)
+    counts = np.sum(~np.isnan(blocks), axis=2)
+    enough = counts >= 0.1 * tile_px * tile_px
+    if not enough.any():
+        return None
+    grid = np.full((ty, tx), np.nan, np.float32)
+    grid[enough] = np.nanquantile(blocks[enough], quantile, axis=1)
+    if not enough.all():
+        from scipy import ndimage
+
+        _, (ii, jj) = ndimage.distance_transform_edt(~enough, return_indices=True)
+        grid = grid[ii, jj]
+    return grid
+
+
+def _upsample(grid: np.ndarray, tile_px: int, shape: tuple[int, int]) -> np.ndarray:
+    """Bilinear map of a tile grid to full resolution (tile centres at tile centres)."""
+    ty, tx = grid.shape
+    big = cv2.resize(grid.astype(np.float32), (tx * tile_px, ty * tile_px),
+                     interpolation=cv2.INTER_LINEAR)
+    return np.ascontiguousarray(big[: shape[0], : shape[1]], dtype=np.float32)
 
 
 def _background(
     score: np.ndarray, valid: np.ndarray, tile_px: int, quantile: float
 ) -> np.ndarray:
     """Smooth map of the ``quantile`` of ``score`` over ``valid`` in square tiles."""
-    rows, cols = score.shape
-    ty, tx = max(1, math.ceil(rows / tile_px)), max(1, math.ceil(cols / tile_px))
-    ph, pw = ty * tile_px - rows, tx * tile_px - cols
-    s = np.pad(np.where(valid, score, np.nan), ((0, ph), (0, pw)), constant_values=np.nan)
-    blocks = s.reshape(ty, tile_px, tx, tile_px).transpose(0, 2, 1, 3).reshape(ty, tx, -1)
-    counts = np.sum(~np.isnan(blocks), axis=2)
-    enough = counts >= 0.1 * tile_px * tile_px
-    grid = np.full((ty, tx), np.nan, np.float32)
-    if enough.any():
-        grid[enough] = np.nanquantile(blocks[enough], quantile, axis=1)
-    else:
+    grid = _tile_grid(score, valid, tile_px, quantile)
+    if grid is None:
         v = score[valid]
-        return np.full(score.shape, float(np.quantile(v, quantile)) if v.size else 0.0,
-                       np.float32)
-    if not enough.all():
-        from scipy import ndimage
-
-        _, (ii, jj) = ndimage.distance_transform_edt(~enough, return_indices=True)
-        grid = grid[ii, jj]
-    if min(ty, tx) >= 3:
-        grid = cv2.medianBlur(grid.astype(np.float32), 3)
-    big = cv2.resize(grid, (tx * tile_px, ty * tile_px), interpolation=cv2.INTER_LINEAR)
-    return np.ascontiguousarray(big[:rows, :cols], dtype=np.float32)
+        level = float(np.quantile(v, quantile)) if v.size else 0.0
+        return np.full(score.shape, level, np.float32)
+    if min(grid.shape) >= 3:
+        grid = cv2.medianBlur(grid, 3)
+    return _upsample(grid, tile_px, score.shape)
 
 
-def _glare(image: np.ndarray, valid: np.ndarray, tile_px: int) -> np.ndarray:
-    """Specular glare: clipped, or far brighter than the bare level and nearly grey."""
-    b, g, r = cv2.split(image)
-    vmax = cv2.max(cv2.max(b, g), r).astype(np.float32)
-    vmin = cv2.min(cv2.min(b, g), r).astype(np.float32)
-    sat = (vmax - vmin) / np.maximum(vmax, 1.0)
-    clipped = vmax >= 250.0
-    if not valid.any():
-        return clipped & valid
-    # typical brightness of the photo (a local median, so vignetting and uneven light
-    # do not read as glare); glare is a bright outlier against it
-    local = _background(vmax, valid & ~clipped, tile_px * 3, 0.5)
-    bright = vmax > np.maximum(1.6 * local, local + 60.0)
-    grey = sat < 0.12
-    return (clipped | (bright & grey)) & valid
+def _smooth_model(grid: np.ndarray) -> np.ndarray:
+    """Robust low-order (quadratic) fit to a grid of log brightness: the diffuse light.
+
+    Iteratively refitted to the points within a few robust standard deviations of the
+    fit, so neither a bright bump (glare) nor dark tiles (all compound) pull it.
+    """
+    ty, tx = grid.shape
+    yy, xx = np.mgrid[:ty, :tx]
+    x = (xx.ravel() + 0.5) / tx - 0.5
+    y = (yy.ravel() + 0.5) / ty - 0.5
+    z = grid.ravel().astype(np.float64)
+    degree = 2 if min(ty, tx) >= 5 else (1 if min(ty, tx) >= 2 else 0)
+    terms = [x**i * y**j for i in range(degree + 1) for j in range(degree + 1 - i)]
+    a = np.stack(terms, axis=1)
+    use = np.isfinite(z)
+    if use.sum() > 3 * a.shape[1]:
+        # start from the darker tiles, away from any bright bump
+        use &= z <= np.quantile(z[use], 0.6)
+    fit = np.full(z.shape, np.nanmedian(z) if use.any() else 0.0)
+    for _ in range(10):
+        if use.sum() < a.shape[1] + 2:
+            break
+        coef, *_ = np.linalg.lstsq(a[use], z[use], rcond=None)
+        fit = a @ coef
+        resid = z - fit
+        scale = 1.4826 * float(np.median(np.abs(resid[use]))) + 1e-3
+        new = np.isfinite(z) & (np.abs(resid) < 2.5 * scale)
+        if np.array_equal(new, use):
+            break
+        use = new
+    return fit.reshape(ty, tx).astype(np.float32)
+
+
+_TO_LINEAR = ((np.arange(256) / 255.0) ** 2.2).astype(np.float32)
+
+
+def _glare_field(
+    image: np.ndarray, valid: np.ndarray, px_per_mm: float
+) -> tuple[np.ndarray | None, np.ndarray, float]:
+    """Broad specular glare as an additive white light field.
+
+    The brightest pixels of a small tile are bare metal (or, in a tile of solid coat,
+    coat); across the photo their level follows the smooth diffuse light (vignetting,
+    a gradient: a low-order fit).  Glare adds white light on top as a broad bump: the
+    tile levels stand above the fit over many neighbouring tiles (a median over 5 x 5
+    tiles keeps such bumps and drops single tiles that merely hold brighter metal).
+
+    Returns
+    -------
+    glare : (M, N) float32 ndarray or None
+        Additive glare in linear units (None when there is none worth correcting).
+    diffuse : (M, N) float32 ndarray
+        The smooth diffuse level of the bare metal's brightest channel, linear.
+    share : float
+        Share of ``valid`` where glare adds more than a quarter of the diffuse light.
+    """
+    lin_max = _TO_LINEAR[cv2.max(cv2.max(image[..., 0], image[..., 1]), image[..., 2])]
+    block = max(4, int(round(2.5 * px_per_mm)))
+    # keep the grid at most ~96 tiles a side (the model is smooth)
+    block = max(block, int(math.ceil(max(image.shape[:2]) / 96)))
+    grid = _tile_grid(lin_max, valid, block, 0.9)
+    if grid is None:
+        return None, np.ones(image.shape[:2], np.float32), 0.0
+    loggrid = np.log(np.maximum(grid, 1e-4)).astype(np.float32)
+    fit = _smooth_model(loggrid)
+    resid = loggrid - fit
+    if min(resid.shape) >= 5:
+        resid = cv2.medianBlur(resid, 5)
+    elif min(resid.shape) >= 3:
+        resid = cv2.medianBlur(resid, 3)
+    model = np.exp(fit)
+    diffuse = _upsample(model, block, image.shape[:2])
+    # a glare lobe: a broad connected bump of tiles, strong at its centre
+    bump = resid > 0.12
+    if bump.any():
+        n, lab = cv2.connectedComponents(bump.view(np.uint8), connectivity=8)
+        peak = np.zeros(n, np.float32)
+        np.maximum.at(peak, lab[bump], resid[bump])
+        size = np.bincount(lab[bump], minlength=n)
+        good = (peak > 0.5) & (size >= 12)
+        good[0] = False
+        bump = good[lab]
+    if not bump.any():
+        return None, diffuse, 0.0
+    excess = np.where(bump, model * (np.exp(resid) - 1.0), 0.0).astype(np.float32)
+    g = _upsample(excess, block, image.shape[:2])
+    share = float(np.count_nonzero((g > 0.25 * diffuse) & valid)) / max(
+        int(np.count_nonzero(valid)), 1
+    )
+    return g, diffuse, share
+
+
+def _evidence(image: np.ndarray, compound: str, glare: np.ndarray | None) -> np.ndarray:
+    """Compound evidence, with broad glare subtracted (in linear light) first."""
+    if glare is None:
+        return compound_evidence(image, compound)
+    lin = _TO_LINEAR[image]
+    # additive white light can never exceed the darkest channel of a pixel
+    low = cv2.min(cv2.min(lin[..., 0], lin[..., 1]), lin[..., 2])
+    lin = lin - np.minimum(glare, 0.9 * low)[..., None]
+    gam = cv2.pow(np.maximum(lin, 0.0), 1.0 / 2.2) * 255.0
+    return _log_ratio(gam, compound)
 
 
 def _stats(score: np.ndarray, valid: np.ndarray) -> tuple[float, float, float, float]:
@@ -316,6 +427,8 @@ def mask_at(segmentation: Segmentation, threshold: float) -> np.ndarray:
     """
     seg = segmentation
     allowed = seg.visible if seg.blocked is None else seg.visible & ~seg.blocked
+    if seg.floor is not None:
+        allowed = allowed & (seg.score > seg.floor)
     m = _hysteresis(seg.score, float(threshold), float(threshold) - seg.low_gap, allowed)
     max_hole = 0.05 * seg.px_per_mm**2
     m = _fill_small_holes(m, max_hole, seg.blocked)
@@ -323,6 +436,10 @@ def mask_at(segmentation: Segmentation, threshold: float) -> np.ndarray:
 
 
 # --------------------------------------------------------------------------- segment
+
+
+def _low_gap(config: SegmentConfig, t: float, m0: float) -> float:
+    return config.hysteresis * (t - m0)
 
 
 def segment(
@@ -374,9 +491,15 @@ def segment(
             )
 
     tile = max(8, int(round(config.background_mm * s)))
-    glare = _glare(image, visible, tile)
-    glare_fraction = float(glare.sum()) / max(int(visible.sum()), 1)
-    raw = compound_evidence(image, compound)
+    tile = max(tile, int(math.ceil(max(image.shape[:2]) / 128)))
+    glare_add, diffuse, glare_fraction = _glare_field(image, visible, s)
+    # never contact: clipped highlights, and where glare outshines the surface
+    clipped = cv2.max(cv2.max(image[..., 0], image[..., 1]), image[..., 2]) >= 250
+    glare = clipped
+    if glare_add is not None:
+        glare = glare | (glare_add > 0.3 * diffuse)
+    glare &= visible
+    raw = _evidence(image, compound, glare_add)
     if config.compound_on == "work":
         raw = -raw
     sigma_px = config.smooth_mm * s
@@ -391,6 +514,17 @@ def segment(
     m0, s0, m1, share = _stats(score, usable)
     contrast = (m1 - m0) / s0
     t = max(m0 + config.level * (m1 - m0), m0 + config.noise_floor * s0)
+    # where the bare metal is locally noisier (dim corners, glare, JPEG), the floor rises
+    q = [_tile_grid(score, usable, tile, qq) for qq in (0.05, 0.2)]
+    floor = None
+    if q[0] is not None and q[1] is not None:
+        local_sigma = np.maximum((q[1] - q[0]) / 0.8, 0.0)
+        if min(local_sigma.shape) >= 3:
+            local_sigma = cv2.medianBlur(local_sigma.astype(np.float32), 3)
+        sig_map = _upsample(local_sigma, tile, score.shape)
+        floor = (m0 + config.noise_floor * sig_map).astype(np.float32)
+        if not (floor > t - _low_gap(config, t, m0)).any():
+            floor = None
     low_gap = config.hysteresis * (t - m0)
     spread = max(0.15 * (t - m0), 0.5 * s0)
 
@@ -420,6 +554,7 @@ def segment(
         px_per_mm=s,
         warnings=tuple(warnings),
         low_gap=float(low_gap),
+        floor=floor,
         blocked=glare,
         bare_level=float(m0),
         compound_level=float(m1),

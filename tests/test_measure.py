@@ -51,8 +51,12 @@ def test_tiny_hand_built_counts_and_centroids():
     mask[3:5, 5:7] = True  # centroid pixel (3.5, 5.5) -> (6.0, 4.0) mm
     mask[5, 0] = True  # 1 mm² speck (kept at min 0.5 mm²)
     frame = _frame(mask.shape, s=1.0)
-    m = measure(mask, frame=frame, analysed=_window_mask(frame),
-                config=MeasureConfig(cell_mm=4.0, min_spot_mm2=0.5))
+    m = measure(
+        mask,
+        frame=frame,
+        analysed=_window_mask(frame),
+        config=MeasureConfig(cell_mm=4.0, min_spot_mm2=0.5),
+    )
     assert m.spot_count == 3
     assert m.area_mm2 == 48.0
     np.testing.assert_allclose(m.spots.area_mm2, [4.0, 4.0, 1.0])
@@ -109,8 +113,12 @@ def test_labelling_matches_scipy_and_skimage(mask):
     # scipy numbers components in raster order of their first pixel, as we do
     np.testing.assert_array_equal(labels, ref)
     frame = _frame(mask.shape, s=1.0)
-    m = measure(mask, frame=frame, analysed=np.ones(mask.shape, bool),
-                config=MeasureConfig(min_spot_mm2=0.0, split_touching=False, cell_mm=7.0))
+    m = measure(
+        mask,
+        frame=frame,
+        analysed=np.ones(mask.shape, bool),
+        config=MeasureConfig(min_spot_mm2=0.0, split_touching=False, cell_mm=7.0),
+    )
     assert m.spot_count == n_ref
     if n_ref:
         com = np.array(ndimage.center_of_mass(mask, ref, range(1, n_ref + 1)))
@@ -149,8 +157,12 @@ def test_counting_by_centroid_matches_scipy_on_random_discs():
     s = 10.0
     frame = _frame(shape, s=s, origin=(-5.0, -5.0), window=Window(0.0, 0.0, 20.0, 20.0))
     an = _window_mask(frame)
-    m = measure(mask, frame=frame, analysed=an,
-                config=MeasureConfig(cell_mm=10.0, min_spot_mm2=0.0, split_touching=False))
+    m = measure(
+        mask,
+        frame=frame,
+        analysed=an,
+        config=MeasureConfig(cell_mm=10.0, min_spot_mm2=0.0, split_touching=False),
+    )
     ref, n_ref = ndimage.label(mask, structure=EIGHT)
     com = np.array(ndimage.center_of_mass(mask, ref, range(1, n_ref + 1)))
     x = -5.0 + (com[:, 1] + 0.5) / s
@@ -159,8 +171,9 @@ def test_counting_by_centroid_matches_scipy_on_random_discs():
     assert m.spot_count == int(inside.sum())
     # spots are measured whole past the window edge
     assert len(m.spots) == n_ref
-    ref_cells = np.bincount((np.floor(y[inside] / 10) * 2 + np.floor(x[inside] / 10)).astype(int),
-                            minlength=4)
+    ref_cells = np.bincount(
+        (np.floor(y[inside] / 10) * 2 + np.floor(x[inside] / 10)).astype(int), minlength=4
+    )
     got = [c.spot_count for c in m.cells]
     np.testing.assert_array_equal(got, ref_cells)
     assert all(c.complete for c in m.cells)
@@ -170,22 +183,33 @@ def test_counting_by_centroid_matches_scipy_on_random_discs():
 # ---------------------------------------------------------------- splitting
 
 
-def test_touching_discs_split_and_single_shapes_do_not():
+def test_hairline_bridges_split_and_single_shapes_do_not():
     shape = (120, 200)
     s = 10.0
     frame = _frame(shape, s=s)
     an = _window_mask(frame)
     cfg = MeasureConfig(cell_mm=50.0)
-    # two discs r = 20 px whose centres are 37 px apart: a neck ~15 px wide (0.38 r)
-    two = _disc(shape, 60, 60, 20) | _disc(shape, 60, 97, 20)
-    assert ndimage.label(two)[1] == 1
+    # two discs r = 15 px, 4 px apart, joined by a one-pixel bridge (what blur draws)
+    two = _disc(shape, 60, 60, 15) | _disc(shape, 60, 94, 15)
+    two[60, 70:85] = True
+    assert ndimage.label(two, structure=EIGHT)[1] == 1
     assert measure(two, frame=frame, analysed=an, config=cfg).spot_count == 2
-    # an ellipse, a blob of heavily overlapping discs and a wide-necked peanut stay one spot
+    # a diagonal, corner-to-corner contact is a hairline too
+    diag = np.zeros(shape, bool)
+    diag[20:50, 20:50] = True
+    diag[50:80, 50:80] = True
+    assert ndimage.label(diag, structure=EIGHT)[1] == 1
+    assert measure(diag, frame=frame, analysed=an, config=cfg).spot_count == 2
+    # one connected mark with real necks stays one: an ellipse, a blob of overlapping
+    # discs, a peanut whose neck is half the bodies' width, a narrow-waisted dumbbell
     yy, xx = np.mgrid[: shape[0], : shape[1]]
     ellipse = ((yy - 60) / 15.0) ** 2 + ((xx - 100) / 60.0) ** 2 <= 1
     blob = _disc(shape, 60, 90, 20) | _disc(shape, 70, 110, 16) | _disc(shape, 45, 105, 14)
-    peanut = _disc(shape, 60, 70, 20) | _disc(shape, 60, 95, 18)
-    for shape_mask in (ellipse, blob, peanut):
+    peanut = _disc(shape, 60, 70, 20) | _disc(shape, 60, 100, 18)
+    dumbbell = _disc(shape, 60, 60, 15) | _disc(shape, 60, 110, 15)
+    dumbbell[57:64, 60:110] = True  # a 7 px (0.7 mm) wide waist
+    for shape_mask in (ellipse, blob, peanut, dumbbell):
+        assert ndimage.label(shape_mask, structure=EIGHT)[1] == 1
         assert measure(shape_mask, frame=frame, analysed=an, config=cfg).spot_count == 1
     # and splitting can be switched off
     off = MeasureConfig(cell_mm=50.0, split_touching=False)
@@ -196,13 +220,14 @@ def test_split_pieces_keep_every_pixel():
     shape = (100, 300)
     chain = np.zeros(shape, bool)
     for k in range(5):
-        chain |= _disc(shape, 50, 30 + 32 * k, 18)  # necks sqrt(18² - 16²) = 0.46 r
-    assert ndimage.label(chain)[1] == 1
+        chain |= _disc(shape, 50, 30 + 50 * k, 18)  # 5 discs 14 px apart ...
+    chain[50, :] |= (np.arange(300) > 30) & (np.arange(300) < 230)  # ... on a hairline
+    assert ndimage.label(chain, structure=EIGHT)[1] == 1
     labels, n = label_spots(chain, px_per_mm=10.0)
     assert n == 5
     np.testing.assert_array_equal(labels > 0, chain)
     areas = np.bincount(labels.ravel())[1:]
-    assert areas.min() > 0.6 * math.pi * 18**2
+    assert areas.min() > 0.9 * math.pi * 18**2
 
 
 # ---------------------------------------------------------------- bare patch
@@ -224,8 +249,9 @@ def test_largest_bare_one_spot_in_square_window(spot_r_px):
     a = 2 * math.sqrt(mask.sum() / math.pi) / s
     L = n / s
     r = (math.sqrt(2) * L / 2 - a / 2) / (1 + math.sqrt(2))
-    m = measure(mask, frame=frame, analysed=_window_mask(frame),
-                config=MeasureConfig(min_spot_mm2=0.01))
+    m = measure(
+        mask, frame=frame, analysed=_window_mask(frame), config=MeasureConfig(min_spot_mm2=0.01)
+    )
     assert m.spot_count == 1
     assert m.largest_bare.diameter_mm == pytest.approx(2 * r, abs=2.5 / s)
     # the circle is in a corner
@@ -280,15 +306,17 @@ def test_window_not_a_multiple_of_cell_and_offset_origin():
     frame = Frame(px_per_mm=s, origin_mm=(5.0, 0.0), shape=(150, 200), window=window)
     an = _window_mask(frame)
     assert an.sum() == 150 * 100
-    m = measure(np.zeros((150, 200), bool), frame=frame, analysed=an,
-                config=MeasureConfig(cell_mm=25.4))
+    m = measure(
+        np.zeros((150, 200), bool), frame=frame, analysed=an, config=MeasureConfig(cell_mm=25.4)
+    )
     assert (m.rows, m.cols) == (1, 2)
     c0, c1 = m.cells
     assert not c0.complete and not c1.complete  # 20 mm high: no cell is whole
     assert c0.width_mm == pytest.approx(25.4) and c1.width_mm == pytest.approx(4.6)
     assert c0.area_mm2 + c1.area_mm2 == pytest.approx(600.0)
-    m2 = measure(np.zeros((150, 200), bool), frame=frame, analysed=an,
-                 config=MeasureConfig(cell_mm=10.0))
+    m2 = measure(
+        np.zeros((150, 200), bool), frame=frame, analysed=an, config=MeasureConfig(cell_mm=10.0)
+    )
     assert (m2.rows, m2.cols) == (2, 3) and all(c.complete for c in m2.cells)
 
 
@@ -320,8 +348,9 @@ def test_guidance_flags_oversized_spots_and_large_bare_patches():
         for cx in range(20, 400, 30):
             mask |= _disc(shape, cy, cx, 4)
     mask |= _disc(shape, 100, 300, 25)  # one big mark, 39x the others' area
-    m = measure(mask, frame=frame, analysed=_window_mask(frame),
-                config=MeasureConfig(max_bare_mm=10.0))
+    m = measure(
+        mask, frame=frame, analysed=_window_mask(frame), config=MeasureConfig(max_bare_mm=10.0)
+    )
     big = [h for h in m.guidance.high if "large spot" in h[3]]
     assert len(big) == 1
     assert big[0][0] == pytest.approx(30.05, abs=0.1) and big[0][1] == pytest.approx(10.05, abs=0.1)
@@ -339,5 +368,9 @@ def test_shape_errors():
     with pytest.raises(OptionError, match="frame shape"):
         measure(np.zeros((9, 10), bool), frame=frame, analysed=np.ones((9, 10), bool))
     with pytest.raises(OptionError, match="cell_mm"):
-        measure(np.zeros((10, 10), bool), frame=frame, analysed=np.ones((10, 10), bool),
-                config=MeasureConfig(cell_mm=0.0))
+        measure(
+            np.zeros((10, 10), bool),
+            frame=frame,
+            analysed=np.ones((10, 10), bool),
+            config=MeasureConfig(cell_mm=0.0),
+        )

@@ -1,0 +1,229 @@
+"""Tests of printcheck.segment on small photos rendered here from a known contact mask.
+
+The renderer below is deliberately simple and independent of printcheck.synth: bare
+metal is grey with facet texture and stroke marks; compound is a colour laid over it
+with an opacity that grows from a pale rim to a thick, darker centre; the light is
+uneven; glare is an added white lobe; the result is gamma-encoded, blurred, noisy and
+JPEG-compressed.  Truth is the mask the photo was made from, counted with
+scipy.ndimage.label (8-connected), independently of printcheck.measure.
+"""
+
+from __future__ import annotations
+
+import cv2
+import numpy as np
+import pytest
+from scipy import ndimage
+
+from printcheck.errors import OptionError, PhotoError
+from printcheck.segment import SegmentConfig, compound_evidence, mask_at, segment
+
+S = 8.0  # px per mm of the test photos
+SHAPE = (440, 440)  # 55 x 55 mm
+MIN_PX = 0.1 * S * S  # the 0.1 mm² minimum spot (DESIGN.md)
+
+# Reflectance of the compounds, (B, G, R): a Prussian-blue-like and a red-oxide-like
+# colour (from memory: blue absorbs red light, red oxide absorbs green and blue).
+BLUE = np.array([0.75, 0.35, 0.12])
+RED = np.array([0.15, 0.18, 0.70])
+
+
+def _blobs(seed: int, count: int, spot_mm: float = 1.6) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    mask = np.zeros(SHAPE, bool)
+    noise = ndimage.gaussian_filter(rng.standard_normal(SHAPE), 0.3 * S)
+    noise /= noise.std()
+    for _ in range(count):
+        cy, cx = rng.uniform(0, SHAPE[0]), rng.uniform(0, SHAPE[1])
+        r = rng.uniform(0.5, 1.2) * spot_mm / 2 * S
+        k = int(2 * r) + 3
+        r0, r1 = max(int(cy) - k, 0), min(int(cy) + k, SHAPE[0])
+        c0, c1 = max(int(cx) - k, 0), min(int(cx) + k, SHAPE[1])
+        yy, xx = np.mgrid[r0:r1, c0:c1]
+        mask[r0:r1, c0:c1] |= np.hypot(yy - cy, xx - cx) < r * (1 + 0.25 * noise[r0:r1, c0:c1])
+    return mask
+
+
+def _render(
+    mask: np.ndarray,
+    *,
+    seed: int = 0,
+    colour: np.ndarray = BLUE,
+    on: str = "reference",
+    light: float = 1.0,
+    slope: float = 0.3,
+    vignette: float = 0.3,
+    glare: float = 0.0,
+    haze: float = 0.05,
+    pale: float = 0.0,
+    blur_mm: float = 0.05,
+    noise: float = 3.0,
+    jpeg: int = 85,
+    white: tuple[float, float, float] = (1.0, 1.0, 1.0),
+) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    h, w = mask.shape
+    facet = ndimage.gaussian_filter(rng.standard_normal((h, w)), 0.05 * S)
+    facet /= facet.std()
+    yy, xx = np.mgrid[:h, :w]
+    strokes = np.sin((xx + yy) * 2 * np.pi / (0.8 * S))
+    bare = 0.55 * (1 + 0.08 * facet + 0.05 * strokes)
+    bare = bare[..., None] * np.array([0.97, 1.0, 1.03])  # slightly warm steel
+    if on == "reference":
+        edt = cv2.distanceTransform(np.pad(mask, 1).astype(np.uint8), cv2.DIST_L2, 5)[1:-1, 1:-1]
+        thick = np.clip(edt / (0.25 * S), 0, 1)
+        opacity = np.where(mask, 0.45 - 0.3 * pale + 0.5 * thick, haze)
+        shade = np.where(mask, 1 - 0.5 * thick, 1.0)
+    else:
+        opacity = np.where(mask, haze, 0.8 - 0.3 * pale)
+        shade = np.where(mask, 1.0, 0.8)
+    refl = bare * (1 - opacity[..., None]) + colour * (opacity * shade * 0.9)[..., None]
+    illum = light * (1 + slope * (xx / w - 0.5))
+    illum *= 1 - vignette * ((yy - h / 2) ** 2 + (xx - w / 2) ** 2) / (h * h / 4 + w * w / 4)
+    img = refl * illum[..., None] * np.array(white)
+    if glare:
+        cy, cx = rng.uniform(0.3, 0.7) * h, rng.uniform(0.3, 0.7) * w
+        img = (
+            img
+            + (glare * np.exp(-((yy - cy) ** 2 + (xx - cx) ** 2) / (2 * (0.12 * w) ** 2)))[
+                ..., None
+            ]
+        )
+    img = np.clip(img, 0, 1) ** (1 / 2.2) * 255  # sRGB-like gamma
+    if blur_mm:
+        img = cv2.GaussianBlur(img, (0, 0), blur_mm * S)
+    img = np.clip(img + rng.normal(0, noise, img.shape), 0, 255).astype(np.uint8)
+    if jpeg:
+        ok, buf = cv2.imencode(".jpg", img, [cv2.IMWRITE_JPEG_QUALITY, jpeg])
+        assert ok
+        img = cv2.imdecode(buf, cv2.IMREAD_COLOR)
+    return img
+
+
+def _truth(mask: np.ndarray) -> tuple[int, float]:
+    labels, n = ndimage.label(mask, structure=np.ones((3, 3)))
+    sizes = np.bincount(labels.ravel())[1:]
+    return int((sizes >= MIN_PX).sum()), 100.0 * mask.mean()
+
+
+def _count(mask: np.ndarray) -> int:
+    labels, n = ndimage.label(mask, structure=np.ones((3, 3)))
+    sizes = np.bincount(labels.ravel())[1:]
+    return int((sizes >= MIN_PX).sum())
+
+
+@pytest.fixture(scope="session")
+def spots() -> np.ndarray:
+    return _blobs(seed=11, count=90)
+
+
+@pytest.fixture(scope="session")
+def visible() -> np.ndarray:
+    return np.ones(SHAPE, bool)
+
+
+CASES = {
+    "clean": {},
+    "dim and uneven": {"light": 0.3, "slope": 0.7, "vignette": 0.5},
+    "glare": {"glare": 0.7},
+    "haze": {"haze": 0.2},
+    "pale": {"pale": 1.0},
+    "blur": {"blur_mm": 0.15},
+    "jpeg": {"jpeg": 50, "noise": 6.0},
+    "white balance": {"white": (0.7, 1.0, 1.3)},
+    "red": {"colour": RED},
+    "on work": {"on": "work"},
+    "red on work, dim": {"colour": RED, "on": "work", "light": 0.5},
+}
+
+
+@pytest.mark.parametrize("name", list(CASES))
+def test_segment_recovers_known_mask(name, spots, visible):
+    kw = CASES[name]
+    img = _render(spots, seed=3, **kw)
+    colour = "red" if kw.get("colour") is RED else "blue"
+    cfg = SegmentConfig(compound=colour, compound_on=kw.get("on", "reference"), px_per_mm=S)
+    seg = segment(img, visible=visible, config=cfg)
+    n_true, bearing_true = _truth(spots)
+    n = _count(seg.mask)
+    bearing = 100.0 * seg.mask.mean()
+    # bounds of the issue's accuracy targets for one photo (90th percentile figures)
+    assert abs(n - n_true) <= max(2, 0.08 * n_true), (n, n_true)
+    assert abs(bearing - bearing_true) <= 3.0, (bearing, bearing_true)
+    # pixel agreement: most truth pixels found, and edges within about a pixel (at
+    # 8 px/mm a 1.6 mm spot is 13 px across: a one-pixel ring is a third of its area,
+    # and JPEG's half-resolution colour bleeds about that far)
+    inter = (seg.mask & spots).sum()
+    assert inter / spots.sum() > 0.8
+    assert inter / max(seg.mask.sum(), 1) > 0.62
+    grown = ndimage.binary_dilation(spots, iterations=2)
+    assert (seg.mask & ~grown).sum() / max(seg.mask.sum(), 1) < 0.05
+    assert seg.compound == colour
+
+
+@pytest.mark.parametrize("colour", ["blue", "red"])
+@pytest.mark.parametrize("on", ["reference", "work"])
+def test_auto_picks_the_compound_colour(colour, on, spots, visible):
+    img = _render(spots, seed=5, colour=BLUE if colour == "blue" else RED, on=on)
+    seg = segment(
+        img, visible=visible, config=SegmentConfig(compound="auto", compound_on=on, px_per_mm=S)
+    )
+    assert seg.compound == colour
+
+
+def test_glare_is_not_contact_with_compound_on_work(visible):
+    none = np.zeros(SHAPE, bool)
+    img = _render(none, seed=2, on="work", glare=1.5)
+    seg = segment(img, visible=visible, config=SegmentConfig(compound_on="work", px_per_mm=S))
+    # bright grey glare looks like rubbed-through metal; it must not count as contact
+    assert seg.mask.mean() < 0.02 and _count(seg.mask) <= 3
+    assert any("glare" in w for w in seg.warnings)
+
+
+def test_bare_photo_has_no_contact_and_says_so(visible):
+    img = _render(np.zeros(SHAPE, bool), seed=4, haze=0.0)
+    seg = segment(img, visible=visible, config=SegmentConfig(px_per_mm=S))
+    assert _count(seg.mask) <= 1
+    grey = np.full((100, 120, 3), 128, np.uint8)
+    seg2 = segment(grey, visible=np.ones((100, 120), bool), config=SegmentConfig(px_per_mm=S))
+    assert not seg2.mask.any()
+    assert any("no blue compound" in w for w in seg2.warnings)
+
+
+def test_mask_at_is_consistent_and_monotone(spots, visible):
+    img = _render(spots, seed=6, blur_mm=0.1)
+    vis = visible.copy()
+    vis[:, :50] = False
+    before = img.copy()
+    seg = segment(img, visible=vis, config=SegmentConfig(px_per_mm=S))
+    np.testing.assert_array_equal(img, before)  # input untouched
+    np.testing.assert_array_equal(mask_at(seg, seg.threshold), seg.mask)
+    lo = mask_at(seg, seg.threshold - seg.spread)
+    hi = mask_at(seg, seg.threshold + seg.spread)
+    assert hi.sum() <= seg.mask.sum() <= lo.sum()
+    assert not seg.mask[:, :50].any() and not lo[:, :50].any()
+    assert seg.spread > 0 and seg.score.dtype == np.float32
+
+
+def test_compound_evidence_against_direct_formula():
+    rng = np.random.default_rng(0)
+    img = rng.integers(0, 256, (20, 30, 3), dtype=np.uint8)
+    b, g, r = (img[..., k].astype(float) + 4.0 for k in range(3))
+    np.testing.assert_allclose(compound_evidence(img, "blue"), np.log(b / r), atol=1e-5)
+    np.testing.assert_allclose(compound_evidence(img, "red"), np.log(r / ((g + b) / 2)), atol=1e-5)
+    grey = np.full((4, 4, 3), 90, np.uint8)
+    assert np.all(compound_evidence(grey, "blue") == 0)
+    with pytest.raises(OptionError, match="compound"):
+        compound_evidence(img, "green")
+
+
+def test_errors():
+    vis = np.ones((10, 10), bool)
+    with pytest.raises(PhotoError, match="uint8"):
+        segment(np.zeros((10, 10, 3), np.float32), visible=vis)
+    with pytest.raises(OptionError, match="visible"):
+        segment(np.zeros((10, 12, 3), np.uint8), visible=vis)
+    with pytest.raises(OptionError, match="compound"):
+        segment(
+            np.zeros((10, 10, 3), np.uint8), visible=vis, config=SegmentConfig(compound="green")
+        )  # type: ignore[arg-type]
