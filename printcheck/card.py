@@ -21,6 +21,7 @@ import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 from xml.sax.saxutils import escape
 
 import numpy as np
@@ -28,6 +29,9 @@ import numpy as np
 from printcheck.errors import OptionError, ReportError
 from printcheck.layout import CARD_GAP_MM, CARD_MARKER_MM, Layout, card_layout, layout_to_toml
 from printcheck.units import MM_PER_IN
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 __all__ = ["CardSheet", "card_sheet", "render_card", "write_card", "SCALE_BAR_MM"]
 
@@ -98,7 +102,8 @@ def _check_window(window_mm: float) -> float:
     w = float(window_mm)
     if not (math.isfinite(w) and _MIN_WINDOW_MM <= w <= _MAX_WINDOW_MM):
         raise OptionError(
-            f"card window must be between {_MIN_WINDOW_MM:g} mm and {_MAX_WINDOW_MM:g} mm, got {window_mm!r} mm"
+            f"card window must be between {_MIN_WINDOW_MM:g} mm and {_MAX_WINDOW_MM:g} mm, "
+            f"got {window_mm!r} mm"
         )
     return w
 
@@ -225,7 +230,9 @@ def _card_items(sheet: CardSheet, layout_name: str) -> list[_Item]:
 # --------------------------------------------------------------------------- matplotlib
 
 
-def _figure(sheet: CardSheet, items: list[_Item], size_mm: tuple[float, float], dpi: float):  # noqa: ANN202
+def _figure(
+    sheet: CardSheet, items: list[_Item], size_mm: tuple[float, float], dpi: float
+) -> Figure:
     from matplotlib.figure import Figure
     from matplotlib.patches import PathPatch
     from matplotlib.path import Path as MplPath
@@ -241,7 +248,7 @@ def _figure(sheet: CardSheet, items: list[_Item], size_mm: tuple[float, float], 
     for item in items:
         if isinstance(item, _Fill):
             verts: list[Point] = []
-            codes: list[int] = []
+            codes: list[Any] = []
             for poly in item.polygons:
                 verts += [*poly, poly[0]]
                 codes += [MplPath.MOVETO] + [MplPath.LINETO] * (len(poly) - 1) + [MplPath.CLOSEPOLY]
@@ -252,9 +259,9 @@ def _figure(sheet: CardSheet, items: list[_Item], size_mm: tuple[float, float], 
             ax.add_patch(patch)
         elif isinstance(item, _Stroke):
             pts = list(item.points) + ([item.points[0]] if item.closed else [])
-            codes = [MplPath.MOVETO] + [MplPath.LINETO] * (len(pts) - 1)
+            line_codes = [MplPath.MOVETO] + [MplPath.LINETO] * (len(pts) - 1)
             patch = PathPatch(
-                MplPath(pts, codes),
+                MplPath(pts, line_codes),
                 fill=False,
                 edgecolor="black",
                 linewidth=item.width_mm * pt_per_mm,
@@ -370,14 +377,17 @@ def _svg(sheet: CardSheet, items: list[_Item]) -> str:
                 else ""
             )
             out.append(
-                f'<{tag} points="{pts}" fill="none" stroke="black" stroke-width="{n(item.width_mm)}" '
+                f'<{tag} points="{pts}" fill="none" stroke="black" '
+                f'stroke-width="{n(item.width_mm)}" '
                 f'stroke-linejoin="miter"{dash}/>'
             )
         else:
             weight = ' font-weight="bold"' if item.bold else ""
             out.append(
-                f'<text x="{n(item.x)}" y="{n(item.y)}" font-family="DejaVu Sans, Arial, Helvetica, sans-serif" '
-                f'font-size="{n(item.size_pt * _PT_MM)}" text-anchor="{item.anchor}"{weight}>{escape(item.text)}</text>'
+                f'<text x="{n(item.x)}" y="{n(item.y)}" '
+                'font-family="DejaVu Sans, Arial, Helvetica, sans-serif" '
+                f'font-size="{n(item.size_pt * _PT_MM)}" text-anchor="{item.anchor}"{weight}>'
+                f"{escape(item.text)}</text>"
             )
     out.append("</svg>")
     return "\n".join(out) + "\n"
@@ -386,7 +396,7 @@ def _svg(sheet: CardSheet, items: list[_Item]) -> str:
 # --------------------------------------------------------------------------- writing
 
 
-def _write_atomic(path: Path, write: Callable[[Path], None]) -> None:
+def _write_atomic(path: Path, write: Callable[[Path], object]) -> None:
     """Write through a temporary file in the same folder, then rename over ``path``."""
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=path.suffix, dir=path.parent)
     os.close(fd)

@@ -644,3 +644,14 @@ def test_rectify_scale_errors() -> None:
         config=LocateConfig(allow_partial=True),
     )
     assert part.analysed.sum() / 100.0 == pytest.approx(30.0 * 40.0, rel=0.01)
+
+
+def test_detect_markers_refines_corners_to_hundredths_of_a_pixel(photos: dict[str, _Photo]) -> None:
+    # truth: the corners' projections through the camera that rendered the photo
+    photo = photos["tilt40-roll30-w25"]
+    found = {d.id: d for d in detect_markers(photo.image, dictionary="DICT_4X4_50")}
+    assert set(found) == {0, 1, 2, 3}
+    for marker_id, det in found.items():
+        truth = _apply(photo.h_true, np.array(photo.layout.marker(marker_id).corners_mm))
+        assert det.refined
+        assert np.max(np.hypot(*(det.corners_px - truth).T)) < 0.1  # px
