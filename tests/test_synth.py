@@ -131,7 +131,9 @@ def test_truth_counts_agree_with_skimage_labelling(job):
         area_mm2 = t.analysed.sum() / s**2
         assert area_mm2 == pytest.approx(w.area_mm2, rel=1e-9)
         assert t.density == pytest.approx(count * MM2_PER_IN2 / area_mm2)
-        assert t.bearing_percent == pytest.approx(100.0 * (kept & t.analysed).sum() / t.analysed.sum())
+        assert t.bearing_percent == pytest.approx(
+            100.0 * (kept & t.analysed).sum() / t.analysed.sum()
+        )
         assert np.array_equal(t.mask, kept)
         assert sum(cell.spot_count for cell in t.cells) == t.spot_count
 
@@ -165,7 +167,9 @@ def test_truth_on_hand_built_mask():
     t2 = truth_stats(mask, frame=frame, analysed=analysed, cell_mm=2.0)
     assert t2.spot_count == 4
     # Centroid rule: the spot at (2.92, 3.25) mm leaves the count when the window stops at x = 2.5.
-    frame3 = Frame(px_per_mm=2.0, origin_mm=(0.0, 0.0), shape=(8, 8), window=Window(0.0, 0.0, 2.5, 4.0))
+    frame3 = Frame(
+        px_per_mm=2.0, origin_mm=(0.0, 0.0), shape=(8, 8), window=Window(0.0, 0.0, 2.5, 4.0)
+    )
     analysed3 = np.zeros((8, 8), dtype=bool)
     analysed3[:, :5] = True
     t3 = truth_stats(mask, frame=frame3, analysed=analysed3, cell_mm=2.0, min_spot_mm2=0.3)
@@ -222,7 +226,9 @@ def test_markers_reproject_within_half_a_pixel(job, aruco_detector, tilt, rotati
         field=job.passes[3].field,
         film_um=job.passes[3].film_um,
         image_size=(1200, 900),
-        camera=Camera(tilt_deg=tilt, rotation_deg=rotation, window_fraction=0.3, tilt_axis_deg=axis),
+        camera=Camera(
+            tilt_deg=tilt, rotation_deg=rotation, window_fraction=0.3, tilt_axis_deg=axis
+        ),
         lighting=Lighting(glare=0.25, jpeg_quality=88, noise_sigma=2.0, blur_sigma_px=0.8),
     )
     shot = render_photo(scene, seed=4)
@@ -266,15 +272,28 @@ def test_square_on_photo_shows_the_truth():
 def test_work_coated_red_print_is_bright_on_red(job):
     p = job.passes[4]
     shot = render_photo(
-        Scene(field=p.field, film_um=p.film_um, compound="red", compound_on="work", camera=None, px_per_mm=8.0,
-              lighting=Lighting(jpeg_quality=None)),
+        Scene(
+            field=p.field,
+            film_um=p.film_um,
+            compound="red",
+            compound_on="work",
+            camera=None,
+            px_per_mm=8.0,
+            lighting=Lighting(jpeg_quality=None),
+        ),
         seed=1,
     )
     t = p.truth
     rs, cs = t.frame.window_slices()
     h, w = shot.image.shape[:2]
-    truth = cv2.resize(t.mask[rs, cs].astype(np.uint8) * 255, (w, h), interpolation=cv2.INTER_AREA) > 250
-    coat = cv2.resize((~t.mask[rs, cs]).astype(np.uint8) * 255, (w, h), interpolation=cv2.INTER_AREA) > 250
+    truth = (
+        cv2.resize(t.mask[rs, cs].astype(np.uint8) * 255, (w, h), interpolation=cv2.INTER_AREA)
+        > 250
+    )
+    coat = (
+        cv2.resize((~t.mask[rs, cs]).astype(np.uint8) * 255, (w, h), interpolation=cv2.INTER_AREA)
+        > 250
+    )
     img = shot.image.astype(float)
     redness = img[..., 2] - img[..., 0]
     # Spots are rubbed-through metal (grey, bright), the rest red paste.
@@ -305,8 +324,13 @@ def test_add_exif_time_is_readable_by_pillow():
 def test_write_job_writes_dated_photos_and_layout(job, tmp_path):
     start = datetime(2026, 11, 30, 9, 0, 0)
     photos = write_job(
-        tmp_path, job=job, start=start, interval=timedelta(minutes=40), image_size=(640, 480),
-        shuffle_names=True, surface_name="bed-front-way",
+        tmp_path,
+        job=job,
+        start=start,
+        interval=timedelta(minutes=40),
+        image_size=(640, 480),
+        shuffle_names=True,
+        surface_name="bed-front-way",
     )
     assert len(photos) == 6
     layout = read_layout(tmp_path / "layout.toml")

@@ -8,7 +8,6 @@ The reference then rests lower and bears on more, smaller spots, so the density 
 
 from __future__ import annotations
 
-import io
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
@@ -24,7 +23,16 @@ from printcheck.synth.render import Camera, Lighting, Scene, render_photo, truth
 from printcheck.synth.surface import Form, HeightField, field_for_layout, scrape_pass
 from printcheck.synth.truth import Truth
 
-__all__ = ["JobPass", "Job", "job_schedule", "simulate_job", "JobPhoto", "write_job", "add_exif_time", "surface_at_density"]
+__all__ = [
+    "JobPass",
+    "Job",
+    "job_schedule",
+    "simulate_job",
+    "JobPhoto",
+    "write_job",
+    "add_exif_time",
+    "surface_at_density",
+]
 
 #: Compound film thickness of the simulated prints, µm.
 DEFAULT_FILM_UM = 1.5
@@ -127,7 +135,11 @@ def simulate_job(
             from printcheck.synth.surface import contact_mask
 
             fld = scrape_pass(
-                fld, contact_mask(fld, film_um), seed=seed * 7717 + k, film_um=film_um, **schedule[k]
+                fld,
+                contact_mask(fld, film_um),
+                seed=seed * 7717 + k,
+                film_um=film_um,
+                **schedule[k],
             )
     return Job(layout=layout, passes=tuple(out))
 
@@ -148,7 +160,9 @@ def surface_at_density(
     """
     from printcheck.synth.surface import contact_mask
 
-    fld = field_for_layout(layout, px_per_mm=px_per_mm, seed=seed, form="crown", form_um=6.0, stroke_mm=(14.0, 7.0))
+    fld = field_for_layout(
+        layout, px_per_mm=px_per_mm, seed=seed, form="crown", form_um=6.0, stroke_mm=(14.0, 7.0)
+    )
     best, best_err = fld, math.inf
     schedule = job_schedule(max_passes)
     for k in range(max_passes):
@@ -158,7 +172,9 @@ def surface_at_density(
             best, best_err = fld, err
         if truth.density >= density or k + 1 == max_passes:
             break
-        fld = scrape_pass(fld, contact_mask(fld, film_um), seed=seed * 7717 + k, film_um=film_um, **schedule[k])
+        fld = scrape_pass(
+            fld, contact_mask(fld, film_um), seed=seed * 7717 + k, film_um=film_um, **schedule[k]
+        )
     return best
 
 
@@ -188,6 +204,41 @@ def add_exif_time(jpeg: bytes, taken: datetime) -> bytes:
         raise OptionError("EXIF block too large for one APP1 segment")
     segment = b"\xff\xe1" + (len(payload) + 2).to_bytes(2, "big") + payload
     return jpeg[:2] + segment + jpeg[2:]
+
+
+def _hand_held_camera(
+    rng: np.random.Generator, layout: Layout, image_size: tuple[int, int]
+) -> Camera:
+    """A random hand-held pose that keeps every marker well inside the photo."""
+    from printcheck.synth.render import camera_homography
+
+    width, height = image_size
+    pts = np.array([c for m in layout.markers for c in m.corners_mm], dtype=float)
+    w = layout.window
+    pts = np.vstack([pts, [[w.x_mm, w.y_mm], [w.x_mm + w.width_mm, w.y_mm + w.height_mm]]])
+    margin = 0.04 * width
+    cam = Camera()
+    for attempt in range(60):
+        shrink = 1.0 - 0.01 * attempt
+        cam = Camera(
+            tilt_deg=float(rng.uniform(5, 25)),
+            rotation_deg=float(rng.uniform(-15, 15)),
+            window_fraction=float(rng.uniform(0.25, 0.34) * shrink),
+            tilt_axis_deg=float(rng.uniform(0, 360)),
+            offset=(float(rng.uniform(-0.05, 0.05)), float(rng.uniform(-0.05, 0.05))),
+        )
+        hom = camera_homography(cam, layout, image_size)
+        ph = np.column_stack([pts, np.ones(len(pts))]) @ hom.T
+        xy = ph[:, :2] / ph[:, 2:3]
+        if (
+            np.all(ph[:, 2] > 0)
+            and xy[:, 0].min() > margin
+            and xy[:, 1].min() > margin
+            and xy[:, 0].max() < width - margin
+            and xy[:, 1].max() < height - margin
+        ):
+            return cam
+    return cam
 
 
 @dataclass(frozen=True)
@@ -238,31 +289,33 @@ def write_job(
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise ReportError(f"job folder {folder}: cannot be created ({exc.strerror})") from None
-    layout = card_layout() if layout is None else layout
     if job is None:
+        layout = card_layout() if layout is None else layout
         job = simulate_job(seed=seed, passes=passes, layout=layout)
+    else:
+        layout = job.layout
     rng = np.random.default_rng(seed + 104729)
     names = [f"{surface_name}-pass{k + 1}.jpg" for k in range(len(job.passes))]
     if shuffle_names:
         numbers = rng.choice(np.arange(1000, 9999), size=len(names), replace=False)
         names = [f"IMG_{int(n):04d}.jpg" for n in numbers]
-    base_light = Lighting(jpeg_quality=jpeg_quality) if lighting is None else replace(lighting, jpeg_quality=jpeg_quality)
+    base_light = (
+        Lighting(jpeg_quality=jpeg_quality)
+        if lighting is None
+        else replace(lighting, jpeg_quality=jpeg_quality)
+    )
     photos: list[JobPhoto] = []
     try:
         (folder / "layout.toml").write_text(layout_to_toml(layout), encoding="utf-8")
     except OSError as exc:
-        raise ReportError(f"job folder {folder}: cannot write layout.toml ({exc.strerror})") from None
+        raise ReportError(
+            f"job folder {folder}: cannot write layout.toml ({exc.strerror})"
+        ) from None
     for k, jp in enumerate(job.passes):
         if cameras:
             cam = cameras[k % len(cameras)]
         else:
-            cam = Camera(
-                tilt_deg=float(rng.uniform(5, 25)),
-                rotation_deg=float(rng.uniform(-15, 15)),
-                window_fraction=float(rng.uniform(0.24, 0.3)),
-                tilt_axis_deg=float(rng.uniform(0, 360)),
-                offset=(float(rng.uniform(-0.05, 0.05)), float(rng.uniform(-0.05, 0.05))),
-            )
+            cam = _hand_held_camera(rng, layout, image_size)
         light = replace(
             base_light,
             gradient_deg=float(rng.uniform(0, 360)),

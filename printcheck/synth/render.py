@@ -21,11 +21,12 @@ from typing import Literal
 
 import cv2
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy import ndimage
 
 from printcheck.errors import OptionError
 from printcheck.layout import Layout, card_layout
-from printcheck.synth.surface import HeightField, contact_mask, field_for_layout
+from printcheck.synth.surface import HeightField, contact_mask
 from printcheck.synth.truth import Truth, layout_masks, truth_stats
 
 __all__ = [
@@ -238,7 +239,9 @@ def camera_homography(camera: Camera, layout: Layout, image_size: tuple[int, int
     if not 0 <= camera.tilt_deg < 80:
         raise OptionError(f"camera tilt_deg must be from 0 to 80, got {camera.tilt_deg!r}")
     if not 0 < camera.window_fraction <= 1.5:
-        raise OptionError(f"camera window_fraction must be in (0, 1.5], got {camera.window_fraction!r}")
+        raise OptionError(
+            f"camera window_fraction must be in (0, 1.5], got {camera.window_fraction!r}"
+        )
     w = layout.window
     cx, cy = w.x_mm + w.width_mm / 2, w.y_mm + w.height_mm / 2
     f = camera.focal_fraction * width
@@ -287,7 +290,7 @@ def square_homography(
     return hom, (cols, rows)
 
 
-def _project(hom: np.ndarray, pts: np.ndarray) -> np.ndarray:
+def _project(hom: np.ndarray, pts: ArrayLike) -> np.ndarray:
     pts = np.asarray(pts, dtype=float).reshape(-1, 2)
     ph = np.column_stack([pts, np.ones(len(pts))]) @ hom.T
     return ph[:, :2] / ph[:, 2:3]
@@ -296,7 +299,9 @@ def _project(hom: np.ndarray, pts: np.ndarray) -> np.ndarray:
 # --------------------------------------------------------------------------- surface
 
 
-def truth_for(field: HeightField, layout: Layout, film_um: float, *, cell_mm: float = 25.4) -> Truth:
+def truth_for(
+    field: HeightField, layout: Layout, film_um: float, *, cell_mm: float = 25.4
+) -> Truth:
     """The truth of ``field`` printed with ``film_um`` under ``layout``."""
     frame = field.frame(layout.window)
     visible, analysed = layout_masks(layout, frame)
@@ -366,7 +371,9 @@ def _appearance(
         # An oil groove: a darker machined channel with its own tool marks.
         ex = field.excluded
         dist = ndimage.distance_transform_edt(ex) / s
-        groove = 0.38 + 0.05 * np.sin(2 * np.pi * dist / 0.35) + 0.08 * np.clip(1 - dist / 0.6, 0, 1)
+        groove = (
+            0.38 + 0.05 * np.sin(2 * np.pi * dist / 0.35) + 0.08 * np.clip(1 - dist / 0.6, 0, 1)
+        )
         groove_col = (groove[..., None] * _METAL_BGR * 0.9).astype(np.float32)
         if compound_on == "work":
             groove_col = groove_col * np.exp(-1.0 * strength * absorb)[None, None, :]
@@ -387,7 +394,9 @@ def _smooth_noise(rng: np.random.Generator, shape: tuple[int, int], sigma_px: fl
     k = max(int(sigma_px // 4), 1)
     small = rng.standard_normal((rows // k + 2, cols // k + 2)).astype(np.float32)
     small = _blur(small, sigma_px / k)
-    big = cv2.resize(small, ((cols // k + 2) * k, (rows // k + 2) * k), interpolation=cv2.INTER_LINEAR)
+    big = cv2.resize(
+        small, ((cols // k + 2) * k, (rows // k + 2) * k), interpolation=cv2.INTER_LINEAR
+    )
     big = big[:rows, :cols]
     return big / max(float(big.std()), 1e-9)
 
@@ -408,9 +417,7 @@ def _unit_square_homography(corners_mm: np.ndarray) -> np.ndarray:
     return cv2.getPerspectiveTransform(src, np.asarray(corners_mm, dtype=np.float32)).astype(float)
 
 
-def _fill_supersampled(
-    canvas: np.ndarray, polys_px: list[np.ndarray], *, ss: int = 4
-) -> None:
+def _fill_supersampled(canvas: np.ndarray, polys_px: list[np.ndarray], *, ss: int = 4) -> None:
     """Add the coverage (0-1) of the union of ``polys_px`` (photo x, y) into ``canvas``."""
     allpts = np.concatenate(polys_px)
     x0 = max(int(math.floor(allpts[:, 0].min())) - 2, 0)
@@ -426,7 +433,9 @@ def _fill_supersampled(
         q = (p - np.array([x0, y0]) + 0.5) * ss - 0.5
         pts.append(np.round(q * (1 << shift)).astype(np.int32))
     cv2.fillPoly(big, pts, 255, lineType=cv2.LINE_8, shift=shift)
-    small = cv2.resize(big, (x1 - x0, y1 - y0), interpolation=cv2.INTER_AREA).astype(np.float32) / 255.0
+    small = (
+        cv2.resize(big, (x1 - x0, y1 - y0), interpolation=cv2.INTER_AREA).astype(np.float32) / 255.0
+    )
     region = canvas[y0:y1, x0:x1]
     np.maximum(region, small, out=region)
 
@@ -450,7 +459,12 @@ def _paper_and_ink(
         outer = _project(hom, [[x0, y0], [x1, y0], [x1, y1], [x0, y1]])
         hole = _project(
             hom,
-            [[w.x_mm, w.y_mm], [w.x_mm + w.width_mm, w.y_mm], [w.x_mm + w.width_mm, w.y_mm + w.height_mm], [w.x_mm, w.y_mm + w.height_mm]],
+            [
+                [w.x_mm, w.y_mm],
+                [w.x_mm + w.width_mm, w.y_mm],
+                [w.x_mm + w.width_mm, w.y_mm + w.height_mm],
+                [w.x_mm, w.y_mm + w.height_mm],
+            ],
         )
         _fill_aa(paper, outer, 1.0)
         _fill_aa(paper, hole, 0.0)
@@ -528,7 +542,9 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
     else:
         size = (int(scene.image_size[0]), int(scene.image_size[1]))
         if size[0] < 16 or size[1] < 16:
-            raise OptionError(f"image_size must be at least 16 x 16 pixels, got {scene.image_size!r}")
+            raise OptionError(
+                f"image_size must be at least 16 x 16 pixels, got {scene.image_size!r}"
+            )
         hom = camera_homography(scene.camera, layout, size)
     width, height = size
 
@@ -593,7 +609,9 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
     if light.jpeg_quality is not None:
         q = int(light.jpeg_quality)
         if not 1 <= q <= 100:
-            raise OptionError(f"jpeg_quality must be from 1 to 100 or None, got {light.jpeg_quality!r}")
+            raise OptionError(
+                f"jpeg_quality must be from 1 to 100 or None, got {light.jpeg_quality!r}"
+            )
         jpeg = _encode_jpeg(out, q)
         out = cv2.imdecode(np.frombuffer(jpeg, dtype=np.uint8), cv2.IMREAD_COLOR)
     return Rendered(
@@ -611,5 +629,7 @@ def _encode_jpeg(image_bgr: np.ndarray, quality: int) -> bytes:
     from PIL import Image
 
     buf = io.BytesIO()
-    Image.fromarray(image_bgr[..., ::-1].copy()).save(buf, format="JPEG", quality=quality, subsampling=0 if quality >= 90 else 2)
+    Image.fromarray(image_bgr[..., ::-1].copy()).save(
+        buf, format="JPEG", quality=quality, subsampling=0 if quality >= 90 else 2
+    )
     return buf.getvalue()

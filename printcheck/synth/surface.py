@@ -251,7 +251,10 @@ def _crosshatch(
             vv = v + rng.normal(0, 0.2 * step_v)
             x = cx + uu * ca - vv * sa
             y = cy + uu * sa + vv * ca
-            if x0 - stroke_mm[0] <= x <= x1 + stroke_mm[0] and y0 - stroke_mm[0] <= y <= y1 + stroke_mm[0]:
+            if (
+                x0 - stroke_mm[0] <= x <= x1 + stroke_mm[0]
+                and y0 - stroke_mm[0] <= y <= y1 + stroke_mm[0]
+            ):
                 strokes.append(_random_stroke(rng, x, y, angle, stroke_mm, depth_um))
             u += step_u
         v += step_v
@@ -259,9 +262,7 @@ def _crosshatch(
     return [strokes[i] for i in order]
 
 
-def _form(
-    form: str | None, form_um: float, x: np.ndarray, y: np.ndarray
-) -> np.ndarray:
+def _form(form: str | None, form_um: float, x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """Form error over the grid: 0 at the centre, ``form_um`` deep (or high) at the corners."""
     xc, yc = 0.5 * (x[0] + x[-1]), 0.5 * (y[0] + y[-1])
     a = max(0.5 * (x[-1] - x[0]), 1e-9)
@@ -340,20 +341,38 @@ def make_surface(
     lay = np.full(shape, np.nan, dtype=np.float32)
     facet = (0.15 * rng.standard_normal(shape)).astype(np.float32)
     facet = ndimage.gaussian_filter(facet, 0.05 * px_per_mm)
-    extent = (origin_mm[0], origin_mm[1], origin_mm[0] + shape[1] / px_per_mm, origin_mm[1] + shape[0] / px_per_mm)
+    extent = (
+        origin_mm[0],
+        origin_mm[1],
+        origin_mm[0] + shape[1] / px_per_mm,
+        origin_mm[1] + shape[0] / px_per_mm,
+    )
     base = math.radians(angle_deg)
     for k in range(layers):
         angle = base if k % 2 == 0 else -base
         for stroke in _crosshatch(rng, extent, angle, stroke_mm, depth_um):
             _stamp(height, lay, facet, stroke, px_per_mm, origin_mm)
-    return HeightField(height, float(px_per_mm), (float(origin_mm[0]), float(origin_mm[1])), lay, facet)
+    return HeightField(
+        height, float(px_per_mm), (float(origin_mm[0]), float(origin_mm[1])), lay, facet
+    )
 
 
 def field_for_layout(
-    layout: Layout, *, px_per_mm: float = 20.0, seed: int = 0, pad_mm: float = 8.0, **kwargs: object
+    layout: Layout,
+    *,
+    px_per_mm: float = 20.0,
+    seed: int = 0,
+    pad_mm: float | None = None,
+    **kwargs: object,
 ) -> HeightField:
     """:func:`make_surface` over the extent of ``layout`` (see :func:`layout_extent_mm`),
-    with the layout's exclusions cut as grooves.  ``kwargs`` go to :func:`make_surface`."""
+    with the layout's exclusions cut as grooves.  ``kwargs`` go to :func:`make_surface`.
+
+    ``pad_mm`` defaults to 8 mm for a card (the paper hides the surface around the
+    window) and 15 mm otherwise (the photo shows the surface around the markers).
+    """
+    if pad_mm is None:
+        pad_mm = 8.0 if layout.margin_mm == 0 else 15.0
     origin, (rows, cols) = layout_extent_mm(layout, px_per_mm=px_per_mm, pad_mm=pad_mm)
     field = make_surface(
         size_mm=(cols / px_per_mm, rows / px_per_mm),
@@ -382,9 +401,18 @@ def cut_exclusions(
     s = field.px_per_mm
     for poly in polygons:
         pts = np.array(
-            [[(px - field.origin_mm[0]) * s - 0.5, (py - field.origin_mm[1]) * s - 0.5] for px, py in poly]
+            [
+                [(px - field.origin_mm[0]) * s - 0.5, (py - field.origin_mm[1]) * s - 0.5]
+                for px, py in poly
+            ]
         )
-        cv2.fillPoly(mask, [np.round(pts * (1 << shift)).astype(np.int32)], 1, lineType=cv2.LINE_8, shift=shift)
+        cv2.fillPoly(
+            mask,
+            [np.round(pts * (1 << shift)).astype(np.int32)],
+            1,
+            lineType=cv2.LINE_8,
+            shift=shift,
+        )
     excluded = mask.astype(bool)
     if field.excluded is not None:
         excluded |= field.excluded

@@ -183,7 +183,8 @@ def truth_stats(
     analysed = np.asarray(analysed, dtype=bool)
     if mask.shape != frame.shape or analysed.shape != frame.shape:
         raise OptionError(
-            f"mask {mask.shape} and analysed {analysed.shape} must have the frame's shape {frame.shape}"
+            f"truth_stats: mask {mask.shape} and analysed {analysed.shape} must both have "
+            f"the frame's shape {frame.shape}"
         )
     if cell_mm <= 0:
         raise OptionError(f"cell_mm must be greater than zero, got {cell_mm!r}")
@@ -216,10 +217,15 @@ def truth_stats(
         clean = np.zeros_like(contact)
 
     w = frame.window
-    in_window = (cx >= w.x_mm) & (cx < w.x_mm + w.width_mm) & (cy >= w.y_mm) & (cy < w.y_mm + w.height_mm)
+    in_window = (
+        (cx >= w.x_mm) & (cx < w.x_mm + w.width_mm) & (cy >= w.y_mm) & (cy < w.y_mm + w.height_mm)
+    )
     if exclusions and cx.size:
         in_ex = np.array(
-            [bool(_polygons_mask(exclusions, np.array([a]), np.array([b]))[0, 0]) for a, b in zip(cx, cy, strict=True)]
+            [
+                bool(_polygons_mask(exclusions, np.array([a]), np.array([b]))[0, 0])
+                for a, b in zip(cx, cy, strict=True)
+            ]
         )
         in_window &= ~in_ex
 
@@ -262,7 +268,9 @@ def truth_stats(
                     complete=bool(complete and sel.size > 0),
                     spot_count=n,
                     density=n * cell_mm**2 / cell_area if cell_area > 0 else 0.0,
-                    bearing_percent=100.0 * float((clean[rsel, csel] & sel).sum()) / cell_px if cell_px else 0.0,
+                    bearing_percent=100.0 * float((clean[rsel, csel] & sel).sum()) / cell_px
+                    if cell_px
+                    else 0.0,
                 )
             )
     return Truth(
