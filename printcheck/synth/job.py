@@ -74,12 +74,12 @@ class Job:
 def job_schedule(passes: int) -> list[dict[str, Any]]:
     """Scraping settings after each of ``passes`` prints (kwargs of :func:`scrape_pass`).
 
-    Strokes shorten from 14 mm to 9 mm (width half the length) and alternate +-45
+    Strokes shorten by 1 mm a pass from 14 mm to 5 mm (width half the length) and alternate +-45
     degrees; each cuts 0.75 µm below the contact level.
     """
     out = []
     for k in range(passes):
-        length = max(14.0 - 1.0 * k, 9.0)
+        length = max(14.0 - 1.0 * k, 5.0)
         out.append(
             {
                 "stroke_mm": (length, length / 2),
