@@ -14,6 +14,7 @@ else ``printcheck.toml`` in the photos' folder); printcheck's default.
 
 from __future__ import annotations
 
+import math
 import tomllib
 from dataclasses import dataclass, fields
 from pathlib import Path
@@ -55,6 +56,7 @@ _TYPES: dict[str, tuple[type, ...]] = {
     "compound_on": (str,),
     "min_spot": (int, float),
 }
+_ZERO_OK = {"min_spot"}  # as on the command line: --min-spot 0 keeps every speck
 _CHOICES = {
     "unit": ("in", "mm"),
     "compound": ("blue", "red", "auto"),
@@ -99,9 +101,21 @@ def read_job_settings(path: str | Path) -> JobSettings:
                 f"job settings {path}: {key}: must be one of {', '.join(_CHOICES[key])}, got {value!r}"
             )
         if _TYPES[key] == (int, float):
-            value = float(value)
-            if value <= 0:
+            try:
+                value = float(value)
+            except OverflowError:  # a TOML integer too large for a float
+                value = math.inf
+            if not math.isfinite(value):
+                raise OptionError(f"job settings {path}: {key}: must be a finite number, got {data[key]!r}")
+            if key in _ZERO_OK:
+                if value < 0:
+                    raise OptionError(f"job settings {path}: {key}: must be zero or more, got {value!r}")
+            elif value <= 0:
                 raise OptionError(f"job settings {path}: {key}: must be greater than zero, got {value!r}")
+        elif not value.strip() or any(ord(ch) < 32 or ord(ch) == 127 for ch in value):
+            raise OptionError(
+                f"job settings {path}: {key}: must be one line of text that is not blank, got {value!r}"
+            )
         values[key] = value
     base = path.parent
     if "layout" in values:
