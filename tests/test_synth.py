@@ -13,6 +13,7 @@ import cv2
 import numpy as np
 import pytest
 from PIL import Image
+from scipy import ndimage
 from skimage import measure as skmeasure
 
 from printcheck.errors import OptionError
@@ -78,6 +79,18 @@ def test_contact_fraction_is_areal_material_ratio(small_surface, film_um):
     assert 0.0 < ours < 100.0
 
 
+def test_job_contact_is_areal_material_ratio(job):
+    # The same ISO 25178-2 check on scraped surfaces of the job (first and last print).
+    from surfalize import Surface
+
+    for p in (job.passes[0], job.passes[-1]):
+        h = p.field.height_um
+        step_um = 1000.0 / p.field.px_per_mm
+        centred = h - h.mean()
+        smr = Surface(centred, step_um, step_um).Smr(float(centred.max()) - p.film_um)
+        assert 100.0 * contact_mask(p.field, p.film_um).mean() == pytest.approx(smr, abs=0.05)
+
+
 def test_forms_shape_the_surface():
     # A crown is high in the middle, a hollow low in the middle, a twist a saddle
     # (definitions of the form errors, common practice).
@@ -136,6 +149,9 @@ def test_truth_counts_agree_with_skimage_labelling(job):
         )
         assert np.array_equal(t.mask, kept)
         assert sum(cell.spot_count for cell in t.cells) == t.spot_count
+        # scipy.ndimage.label (8-connected) finds one component per listed spot.
+        _, n = ndimage.label(t.mask, structure=np.ones((3, 3), dtype=bool))
+        assert n == t.spot_area_mm2.size
 
 
 def test_truth_on_hand_built_mask():

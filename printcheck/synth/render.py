@@ -576,34 +576,42 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
 
     # Card or labels, and ink, drawn straight in the photo.
     paper, ink, corners_px = _paper_and_ink(layout, hom, size)
-    paper_col = (_PAPER_BGR + ink[..., None] * (_INK_BGR - _PAPER_BGR)).astype(np.float32)
-    img = img * (1.0 - paper[..., None]) + paper_col * paper[..., None]
+    f32 = np.float32
+    paper_bgr = _PAPER_BGR.astype(f32)
+    ink_delta = (_INK_BGR - _PAPER_BGR).astype(f32)
+    paper3 = paper[..., None]
+    img = img * (f32(1.0) - paper3) + (paper_bgr + ink[..., None] * ink_delta) * paper3
 
-    # Light: gradient, vignetting, glare; then white balance.
-    yy, xx = np.mgrid[0:height, 0:width].astype(np.float32)
-    xn = (xx - (width - 1) / 2) / (width / 2)
-    yn = (yy - (height - 1) / 2) / (width / 2)
+    # Light: gradient, vignetting, glare (per pixel, one channel); then white balance.
+    xs = (np.arange(width, dtype=f32) - f32((width - 1) / 2)) / f32(width / 2)
+    ys = (np.arange(height, dtype=f32) - f32((height - 1) / 2)) / f32(width / 2)
     g = math.radians(light.gradient_deg)
-    illum = light.exposure * (1.0 + 0.5 * light.gradient * (xn * math.cos(g) + yn * math.sin(g)))
-    illum = illum * (1.0 - light.vignetting * np.clip((xn**2 + yn**2) / 1.5625, 0, 1))
-    img = img * illum[..., None]
+    ramp = f32(0.5 * light.gradient * math.cos(g)) * xs[None, :] + f32(
+        0.5 * light.gradient * math.sin(g)
+    ) * ys[:, None]
+    radius2 = xs[None, :] ** 2 + ys[:, None] ** 2
+    vignette = f32(1.0) - f32(light.vignetting) * np.minimum(radius2 / f32(1.5625), f32(1.0))
+    illum = f32(light.exposure) * (f32(1.0) + ramp) * vignette
+    gain = np.asarray(light.white_balance, dtype=f32) * f32(255.0)
     if light.glare > 0:
         gx, gy = light.glare_at[0] * width, light.glare_at[1] * height
         sig = max(light.glare_radius * width, 1.0)
-        blob = light.glare * np.exp(-((xx - gx) ** 2 + (yy - gy) ** 2) / (2 * sig**2))
+        ex = np.exp(-(((np.arange(width, dtype=f32) - f32(gx)) / f32(sig)) ** 2) / f32(2))
+        ey = np.exp(-(((np.arange(height, dtype=f32) - f32(gy)) / f32(sig)) ** 2) / f32(2))
         # Specular glare is strongest on the metal, weaker on matte paper.
-        blob = blob * (1.0 - 0.6 * paper)
-        img = img * (1.0 - 0.5 * blob[..., None]) + 1.05 * blob[..., None]
-    img = img * np.asarray(light.white_balance, dtype=np.float32)[None, None, :]
+        blob = f32(light.glare) * (ey[:, None] * ex[None, :]) * (f32(1.0) - f32(0.6) * paper)
+        img = img * (illum * (f32(1.0) - f32(0.5) * blob))[..., None] + f32(1.05) * blob[..., None]
+    else:
+        img = img * illum[..., None]
+    img *= gain[None, None, :]
 
-    # Optics and sensor.
+    # Optics and sensor (noise grows with the signal, as shot noise does).
     if light.blur_sigma_px > 0:
         img = cv2.GaussianBlur(img, (0, 0), light.blur_sigma_px)
-    img = img * 255.0
     if light.noise_sigma > 0:
-        sigma = light.noise_sigma * np.sqrt(np.clip(img, 1.0, None) / 128.0)
-        img = img + sigma * rng.standard_normal(img.shape).astype(np.float32)
-    out = np.clip(np.round(img), 0, 255).astype(np.uint8)
+        sigma = np.sqrt(np.maximum(img, f32(1.0)) * f32(light.noise_sigma**2 / 128.0))
+        img += sigma * rng.standard_normal(img.shape, dtype=f32)
+    out = np.clip(np.rint(img), 0, 255).astype(np.uint8)
 
     jpeg: bytes | None = None
     if light.jpeg_quality is not None:
