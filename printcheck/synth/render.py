@@ -586,9 +586,10 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
     xs = (np.arange(width, dtype=f32) - f32((width - 1) / 2)) / f32(width / 2)
     ys = (np.arange(height, dtype=f32) - f32((height - 1) / 2)) / f32(width / 2)
     g = math.radians(light.gradient_deg)
-    ramp = f32(0.5 * light.gradient * math.cos(g)) * xs[None, :] + f32(
-        0.5 * light.gradient * math.sin(g)
-    ) * ys[:, None]
+    ramp = (
+        f32(0.5 * light.gradient * math.cos(g)) * xs[None, :]
+        + f32(0.5 * light.gradient * math.sin(g)) * ys[:, None]
+    )
     radius2 = xs[None, :] ** 2 + ys[:, None] ** 2
     vignette = f32(1.0) - f32(light.vignetting) * np.minimum(radius2 / f32(1.5625), f32(1.0))
     illum = f32(light.exposure) * (f32(1.0) + ramp) * vignette
