@@ -5,8 +5,11 @@ The only module that reads image files.  Photos are opened read-only and never m
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import os
+import warnings
+from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -80,6 +83,18 @@ def _read_bytes(path: Path) -> bytes:
         raise PhotoError(f"photo {path}: cannot be read ({exc.strerror})") from None
 
 
+@contextlib.contextmanager
+def _quiet() -> Iterator[None]:
+    """Silence Pillow's own warnings (pixel count, EXIF, palette) while it reads a photo.
+
+    load turns real problems into PhotoErrors under its own limits; a stray warning line
+    must not reach the terminal.
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        yield
+
+
 def _parse_exif_time(text: object) -> datetime | None:
     if isinstance(text, bytes):
         text = text.decode("ascii", "replace")
@@ -121,7 +136,8 @@ def _open_header(path: Path, data: bytes):  # type: ignore[no-untyped-def]
 
     _register_heif()
     try:
-        im = Image.open(io.BytesIO(data))
+        with _quiet():
+            im = Image.open(io.BytesIO(data))
     except UnidentifiedImageError:
         raise PhotoError(f"photo {path}: not an image printcheck can read (JPEG, PNG, TIFF, HEIC)") from None
     except Image.DecompressionBombError:
@@ -153,17 +169,23 @@ def _decode_pillow(path: Path, im) -> np.ndarray:  # type: ignore[no-untyped-def
     from PIL import ImageOps
 
     try:
-        im = ImageOps.exif_transpose(im)
-        if im.mode in ("I;16", "I;16B", "I;16L", "I"):
-            arr = np.asarray(im, dtype=np.uint32)
-            scale = 257.0 if arr.max(initial=0) > 255 else 1.0
-            arr = np.clip(arr / scale, 0, 255).astype(np.uint8)
-            return _to_bgr8(arr)
-        if im.mode not in ("RGB", "L", "RGBA"):
-            im = im.convert("RGBA" if "A" in im.mode else "RGB")
-        return _to_bgr8(np.asarray(im))
+        with _quiet():
+            return _pillow_to_bgr8(ImageOps.exif_transpose(im))
     except OSError as exc:
         raise PhotoError(f"photo {path}: could not be decoded ({exc})") from None
+    except (ValueError, SyntaxError) as exc:  # Pillow's word for a malformed stream
+        raise PhotoError(f"photo {path}: could not be decoded ({exc})") from None
+
+
+def _pillow_to_bgr8(im) -> np.ndarray:  # type: ignore[no-untyped-def]
+    if im.mode in ("I;16", "I;16B", "I;16L", "I"):
+        arr = np.asarray(im, dtype=np.uint32)
+        scale = 257.0 if arr.max(initial=0) > 255 else 1.0
+        arr = np.clip(arr / scale, 0, 255).astype(np.uint8)
+        return _to_bgr8(arr)
+    if im.mode not in ("RGB", "L", "RGBA"):
+        im = im.convert("RGBA" if "A" in im.mode or "transparency" in im.info else "RGB")
+    return _to_bgr8(np.asarray(im))
 
 
 def load_photo(path: str | Path, *, max_pixels: int = MAX_PIXELS) -> Photo:
@@ -193,17 +215,11 @@ def load_photo(path: str | Path, *, max_pixels: int = MAX_PIXELS) -> Photo:
         raise PhotoError(f"photo {path}: {width} x {height} pixels is too small to measure")
     if _truncated(data):
         raise PhotoError(f"photo {path}: file is truncated (incomplete copy or download?)")
-    taken = _exif_taken(im)
-    image = None
-    if im.format in ("JPEG", "PNG", "TIFF", "BMP", "WEBP") and im.mode in ("RGB", "L", "RGBA", "P"):
-        import cv2
-
-        buf = np.frombuffer(data, dtype=np.uint8)
-        image = cv2.imdecode(buf, cv2.IMREAD_COLOR)  # applies the EXIF orientation
-        if image is not None and image.shape[:2] not in ((height, width), (width, height)):
-            image = None
-    if image is None:
-        image = _decode_pillow(path, im)
+    with _quiet():
+        taken = _exif_taken(im)
+    # Pillow decodes every format: OpenCV's decoders print libjpeg/libpng complaints
+    # straight to the terminal and hand back a corrupt photo as if it were whole.
+    image = _decode_pillow(path, im)
     stat = os.stat(path)
     return Photo(
         image=image,
