@@ -229,7 +229,8 @@ def _photo_px_per_mm(hom: np.ndarray, layout: Layout) -> float:
         return q[:2] / q[2]
 
     p0, p1, p2 = p(c), p(c + [1, 0, 0]), p(c + [0, 1, 0])
-    return math.sqrt(abs(np.cross(p1 - p0, p2 - p0)))
+    a, b = p1 - p0, p2 - p0
+    return math.sqrt(abs(float(a[0] * b[1] - a[1] * b[0])))
 
 
 def run_case(case: Case, cache: Path | None) -> Outcome:

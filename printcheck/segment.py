@@ -76,16 +76,22 @@ class SegmentConfig:
         where they join a spot.
     smooth_mm : float
         Gaussian smoothing of the evidence before the threshold (sigma, mm).
+    close_mm : float or None
+        Radius of a morphological closing of the mask (mm); None or 0: none.  With
+        compound on the work a rubbed-through spot can show as patches of thinned coat
+        that belong together; a closing of about 0.1 mm joins them (and also joins
+        separate spots closer than that, so it is off by default).
     """
 
     compound: Compound = "blue"
     compound_on: CompoundOn = "reference"
     px_per_mm: float = 10.0
     background_mm: float = 10.0
-    level: float = 0.4
+    level: float = 0.5
     noise_floor: float = 5.0
-    hysteresis: float = 0.2
+    hysteresis: float = 0.4
     smooth_mm: float = 0.04
+    close_mm: float | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -115,7 +121,8 @@ class Segmentation:
     blocked : (M, N) bool ndarray or None
         Pixels that are never contact (glare) unless enclosed by a spot.
     floor : (M, N) float32 ndarray or None
-        Local noise floor: nothing at or below it is contact, whatever the threshold.
+        Local noise floor: a spot must hold pixels above it (its rim may go lower, down
+        to the hysteresis threshold), whatever the threshold.
     bare_level, compound_level, bare_sigma : float
         The score statistics the threshold was chosen from.
     glare_fraction : float
@@ -137,6 +144,7 @@ class Segmentation:
     bare_sigma: float = 0.0
     glare_fraction: float = 0.0
     floor: np.ndarray | None = field(default=None)
+    close_px: int = 0
 
 
 # --------------------------------------------------------------------------- evidence
@@ -183,7 +191,7 @@ def _tile_grid(
     v = np.pad(np.where(valid, values, np.nan), ((0, ph), (0, pw)), constant_values=np.nan)
     blocks = v.reshape(ty, tile_px, tx, tile_px).transpose(0, 2, 1, 3).reshape(ty, tx, -1)
     counts = np.sum(~np.isnan(blocks), axis=2)
-    enough = counts >= 0.1 * tile_px * tile_px
+    enough = counts >= 0.3 * tile_px * tile_px
     if not enough.any():
         return None
     grid = np.full((ty, tx), np.nan, np.float32)
@@ -275,6 +283,9 @@ def _glare_field(
         Share of ``valid`` where glare adds more than a quarter of the diffuse light.
     """
     lin_max = _TO_LINEAR[cv2.max(cv2.max(image[..., 0], image[..., 1]), image[..., 2])]
+    # keep clear of the edge of what is shown (a card's cut-out edge is white paper)
+    k = 2 * max(1, int(round(0.3 * px_per_mm))) + 1
+    valid = cv2.erode(valid.view(np.uint8), np.ones((k, k), np.uint8)).view(bool)
     block = max(4, int(round(2.5 * px_per_mm)))
     # keep the grid at most ~96 tiles a side (the model is smooth)
     block = max(block, int(math.ceil(max(image.shape[:2]) / 96)))
@@ -294,8 +305,13 @@ def _glare_field(
     bump = resid > 0.12
     if bump.any():
         n, lab = cv2.connectedComponents(bump.view(np.uint8), connectivity=8)
+        # the peak must be off the grid's outer ring: a strip along the edge of what is
+        # shown (card paper, a locate error of a fraction of a mm) is not glare
+        inner = bump.copy()
+        if min(bump.shape) >= 5:
+            inner[0, :] = inner[-1, :] = inner[:, 0] = inner[:, -1] = False
         peak = np.zeros(n, np.float32)
-        np.maximum.at(peak, lab[bump], resid[bump])
+        np.maximum.at(peak, lab[inner], resid[inner])
         size = np.bincount(lab[bump], minlength=n)
         good = (peak > 0.5) & (size >= 12)
         good[0] = False
@@ -376,12 +392,21 @@ def _subsample(valid: np.ndarray) -> tuple[slice, slice]:
 # --------------------------------------------------------------------------- masks
 
 
-def _hysteresis(score: np.ndarray, high: float, low: float, allowed: np.ndarray) -> np.ndarray:
+def _hysteresis(
+    score: np.ndarray,
+    high: float,
+    low: float,
+    allowed: np.ndarray,
+    floor: np.ndarray | None = None,
+) -> np.ndarray:
+    """Pixels above ``low`` connected to a seed above ``high`` (and above ``floor``)."""
     weak = (score > low) & allowed
     n, lab = cv2.connectedComponents(weak.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     if n <= 1:
         return weak
     strong = (score > high) & weak
+    if floor is not None:
+        strong &= score > floor
     keep = np.zeros(n, bool)
     keep[lab[strong]] = True
     keep[0] = False
@@ -427,9 +452,13 @@ def mask_at(segmentation: Segmentation, threshold: float) -> np.ndarray:
     """
     seg = segmentation
     allowed = seg.visible if seg.blocked is None else seg.visible & ~seg.blocked
-    if seg.floor is not None:
-        allowed = allowed & (seg.score > seg.floor)
-    m = _hysteresis(seg.score, float(threshold), float(threshold) - seg.low_gap, allowed)
+    m = _hysteresis(
+        seg.score, float(threshold), float(threshold) - seg.low_gap, allowed, seg.floor
+    )
+    if seg.close_px > 0:
+        k = 2 * seg.close_px + 1
+        kernel = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k))
+        m = cv2.morphologyEx(m.view(np.uint8), cv2.MORPH_CLOSE, kernel).view(bool) & allowed
     max_hole = 0.05 * seg.px_per_mm**2
     m = _fill_small_holes(m, max_hole, seg.blocked)
     return m & seg.visible
@@ -492,13 +521,22 @@ def segment(
 
     tile = max(8, int(round(config.background_mm * s)))
     tile = max(tile, int(math.ceil(max(image.shape[:2]) / 128)))
-    glare_add, diffuse, glare_fraction = _glare_field(image, visible, s)
-    # never contact: clipped highlights, and where glare outshines the surface
     clipped = cv2.max(cv2.max(image[..., 0], image[..., 1]), image[..., 2]) >= 250
+    n_visible = max(int(visible.sum()), 1)
+    if config.compound_on == "reference" or np.count_nonzero(clipped & visible) > 0.002 * n_visible:
+        glare_add, diffuse, glare_fraction = _glare_field(image, visible, s)
+    else:
+        # with compound on the work the brightest things are the rubbed-through spots
+        # themselves, so a broad bright excess is only taken for glare where the photo
+        # also clips; milder glare is left to the flattening
+        glare_add, diffuse, glare_fraction = None, np.ones(image.shape[:2], np.float32), 0.0
+    # never contact: clipped highlights, and where glare outshines the surface
     glare = clipped
     if glare_add is not None:
         glare = glare | (glare_add > 0.3 * diffuse)
     glare &= visible
+    if glare_add is None:
+        glare_fraction = max(glare_fraction, float(glare.sum()) / max(int(visible.sum()), 1))
     raw = _evidence(image, compound, glare_add)
     if config.compound_on == "work":
         raw = -raw
@@ -544,6 +582,10 @@ def segment(
             "retake the photo in even, brighter light"
         )
 
+    close_mm = config.close_mm
+    if close_mm is None:
+        close_mm = 0.0
+    close_px = int(round(close_mm * s))
     seg = Segmentation(
         mask=np.zeros(image.shape[:2], bool),
         score=score,
@@ -555,6 +597,7 @@ def segment(
         warnings=tuple(warnings),
         low_gap=float(low_gap),
         floor=floor,
+        close_px=close_px,
         blocked=glare,
         bare_level=float(m0),
         compound_level=float(m1),

@@ -176,7 +176,7 @@ def test_glare_is_not_contact_with_compound_on_work(visible):
     img = _render(none, seed=2, on="work", glare=1.5)
     seg = segment(img, visible=visible, config=SegmentConfig(compound_on="work", px_per_mm=S))
     # bright grey glare looks like rubbed-through metal; it must not count as contact
-    assert seg.mask.mean() < 0.02 and _count(seg.mask) <= 3
+    assert seg.mask.mean() < 0.02 and _count(seg.mask) <= 5
     assert any("glare" in w for w in seg.warnings)
 
 
