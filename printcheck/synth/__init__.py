@@ -12,12 +12,12 @@ Example
 >>> from printcheck.synth import Camera, Scene, render_photo, simulate_job, write_job
 >>> job = simulate_job(seed=1, passes=6)            # doctest: +SKIP
 >>> [round(d) for d in job.densities]               # doctest: +SKIP
-[4, 10, 17, 22, 25, 36]
+[4, 10, 15, 22, 31, 35]
 >>> scene = Scene(field=job.passes[-1].field, film_um=job.passes[-1].film_um,
 ...               camera=Camera(tilt_deg=20, rotation_deg=30))
 >>> shot = render_photo(scene, seed=0)               # doctest: +SKIP
 >>> shot.image.shape, shot.truth.density             # doctest: +SKIP
-((900, 1200, 3), 36.5)
+((900, 1200, 3), 35.25)
 >>> shot.homography                                  # layout mm -> photo px  # doctest: +SKIP
 >>> square = render_photo(Scene(density=15, camera=None, px_per_mm=12), seed=2)  # doctest: +SKIP
 >>> photos = write_job("demo-job", seed=3, passes=6, surface_name="bed-front-way")  # doctest: +SKIP

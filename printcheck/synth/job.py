@@ -83,7 +83,7 @@ def job_schedule(passes: int) -> list[dict[str, Any]]:
         out.append(
             {
                 "stroke_mm": (length, length / 2),
-                "depth_um": 0.75,
+                "depth_um": 0.9,
                 "angle_deg": -45.0 if k % 2 == 0 else 45.0,
             }
         )
@@ -98,7 +98,7 @@ def simulate_job(
     px_per_mm: float = 20.0,
     film_um: float = DEFAULT_FILM_UM,
     form: Form | None = "crown",
-    form_um: float = 6.0,
+    form_um: float = 2.5,
 ) -> Job:
     """Simulate ``passes`` prints of a scraping job on the surface under ``layout``.
 
@@ -161,7 +161,7 @@ def surface_at_density(
     from printcheck.synth.surface import contact_mask
 
     fld = field_for_layout(
-        layout, px_per_mm=px_per_mm, seed=seed, form="crown", form_um=6.0, stroke_mm=(14.0, 7.0)
+        layout, px_per_mm=px_per_mm, seed=seed, form="crown", form_um=2.5, stroke_mm=(14.0, 7.0)
     )
     best, best_err = fld, math.inf
     schedule = job_schedule(max_passes)

@@ -262,11 +262,20 @@ def _crosshatch(
     return [strokes[i] for i in order]
 
 
-def _form(form: str | None, form_um: float, x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Form error over the grid: 0 at the centre, ``form_um`` deep (or high) at the corners."""
-    xc, yc = 0.5 * (x[0] + x[-1]), 0.5 * (y[0] + y[-1])
-    a = max(0.5 * (x[-1] - x[0]), 1e-9)
-    b = max(0.5 * (y[-1] - y[0]), 1e-9)
+def _form(
+    form: str | None,
+    form_um: float,
+    x: np.ndarray,
+    y: np.ndarray,
+    extent: tuple[float, float, float, float] | None = None,
+) -> np.ndarray:
+    """Form error: 0 at the centre of ``extent`` (x0, y0, x1, y1; default the grid),
+    ``form_um`` deep (or high) at its corners, continuing beyond it."""
+    if extent is None:
+        extent = (float(x[0]), float(y[0]), float(x[-1]), float(y[-1]))
+    xc, yc = 0.5 * (extent[0] + extent[2]), 0.5 * (extent[1] + extent[3])
+    a = max(0.5 * (extent[2] - extent[0]), 1e-9)
+    b = max(0.5 * (extent[3] - extent[1]), 1e-9)
     xn = ((x - xc) / a)[None, :]
     yn = ((y - yc) / b)[:, None]
     if form is None or form_um == 0:
@@ -293,6 +302,7 @@ def make_surface(
     form_um: float = 4.0,
     roughness_um: float = 0.08,
     angle_deg: float = 45.0,
+    form_extent_mm: tuple[float, float, float, float] | None = None,
 ) -> HeightField:
     """A roughed-in scraped surface: form error, fine roughness and a crosshatch of strokes.
 
@@ -319,6 +329,9 @@ def make_surface(
         RMS of the fine machined roughness (correlation about 0.15 mm).
     angle_deg : float
         Crosshatch angle from the layout x axis.
+    form_extent_mm : (x0, y0, x1, y1) or None
+        The rectangle the form error is scaled to (0 at its centre, ``form_um`` at its
+        corners, continuing beyond); default the whole grid.
 
     Returns
     -------
@@ -333,7 +346,7 @@ def make_surface(
     rng = np.random.default_rng(seed)
     shape = (max(int(round(size_mm[1] * px_per_mm)), 1), max(int(round(size_mm[0] * px_per_mm)), 1))
     x, y = _grid_mm(shape, px_per_mm, origin_mm)
-    height = _form(form, form_um, x, y)
+    height = _form(form, form_um, x, y, form_extent_mm)
     if roughness_um > 0:
         noise = ndimage.gaussian_filter(rng.standard_normal(shape), 0.15 * px_per_mm)
         noise /= max(float(noise.std()), 1e-12)
@@ -366,7 +379,8 @@ def field_for_layout(
     **kwargs: object,
 ) -> HeightField:
     """:func:`make_surface` over the extent of ``layout`` (see :func:`layout_extent_mm`),
-    with the layout's exclusions cut as grooves.  ``kwargs`` go to :func:`make_surface`.
+    with the layout's exclusions cut as grooves.  ``kwargs`` go to :func:`make_surface`;
+    the form error is scaled to the window unless ``form_extent_mm`` is given.
 
     ``pad_mm`` defaults to 8 mm for a card (the paper hides the surface around the
     window) and 15 mm otherwise (the photo shows the surface around the markers).
@@ -374,6 +388,8 @@ def field_for_layout(
     if pad_mm is None:
         pad_mm = 8.0 if layout.margin_mm == 0 else 15.0
     origin, (rows, cols) = layout_extent_mm(layout, px_per_mm=px_per_mm, pad_mm=pad_mm)
+    w = layout.window
+    kwargs.setdefault("form_extent_mm", (w.x_mm, w.y_mm, w.x_mm + w.width_mm, w.y_mm + w.height_mm))
     field = make_surface(
         size_mm=(cols / px_per_mm, rows / px_per_mm),
         px_per_mm=px_per_mm,
