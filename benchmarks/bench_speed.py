@@ -1,0 +1,589 @@
+"""Benchmark: speed and memory of inspect against the cost of decoding the photo.
+
+Run by hand; prints figures (it is not a timed test)::
+
+    /work/venv/bin/python benchmarks/bench_speed.py            # the whole set, a few minutes
+    /work/venv/bin/python benchmarks/bench_speed.py --quick    # 12 MP only, fewer photos
+
+What it measures, on photos rendered by :mod:`printcheck.synth` (rendered once and cached
+as JPEG under ``--cache``, default ``/tmp/printcheck-bench``):
+
+1. start-up: ``python -m printcheck --help`` and the ``printcheck`` console script, beside
+   a bare ``python -c pass``, and the slowest imports of ``printcheck.cli`` (-X importtime);
+2. stages, in one warmed process, on a 12 MP and a 24 MP JPEG of the 2 in card: decode
+   (``cv2.imread`` and printcheck's ``load_photo``), locate (marker detection), rectify
+   (fit, warp and masks: locate less detection), segment, the two confidence masks,
+   measure, judge, report (result JSON, overlay PNG, preview JPEG, as batch writes them)
+   and the whole inspect (load to verdict) and inspect plus report; the ratio of the whole
+   to ``cv2.imread`` of the same file;
+3. peak memory (RSS) per photo, each inspected (and reported) in a fresh child process:
+   the child's peak, and that less its RSS after the imports;
+4. a whole-surface layout (a slideway window with markers stuck at its ends) at a fixed
+   resolution, the photo growing with the window (100 x 300, 200 x 600, 300 x 900 mm; the
+   last in a 24 MP photo): time per analysed area shows how cost grows with area;
+5. batch of 20 photos of 12 MP on 1 core and on all cores (``run_batch(jobs=...)``).
+
+Targets (issue 8 and 6): inspect of a 12 MP card photo at most 3x ``cv2.imread``; peak
+RSS under 600 MB (12 MP) and 1 GB (24 MP); cost linear in area, 300 x 900 mm in one 24 MP
+photo within 10 s; ``printcheck --help`` under 0.5 s; batch on 2 cores at least 1.7 times
+the single-core rate.
+
+Timings are the median of ``--repeat`` runs after one warm-up run.  The machine's other
+load shows in the figures: compare figures of one run with each other (the ratios), not
+with another run's.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import shutil
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from datetime import datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+HERE = Path(__file__).resolve()
+
+# --------------------------------------------------------------------------- scenes
+
+
+@dataclass(frozen=True)
+class Shot:
+    """One cached benchmark photo: its file and the layout to inspect it with."""
+
+    key: str
+    path: Path
+    layout: str  # "card" or "way:<width>x<height>"
+    megapixels: float
+
+
+def _way_layout(width_mm: float, height_mm: float):  # noqa: ANN202
+    """A slideway window ``width_mm`` x ``height_mm`` with two 30 mm markers at each end."""
+    from printcheck.layout import Layout, Marker, Window
+
+    m, gap = 30.0, 15.0
+
+    def marker(i: int, x: float, y: float) -> Marker:
+        return Marker(i, ((x, y), (x + m, y), (x + m, y + m), (x, y + m)))
+
+    return Layout(
+        name=f"way-{width_mm:g}x{height_mm:g}",
+        dictionary="DICT_4X4_50",
+        units="mm",
+        window=Window(0.0, 0.0, width_mm, height_mm),
+        markers=(
+            marker(0, -m - gap, 0.0),
+            marker(1, -m - gap, height_mm - m),
+            marker(2, width_mm + gap, 0.0),
+            marker(3, width_mm + gap, height_mm - m),
+        ),
+        margin_mm=5.0,
+    )
+
+
+def _layout_for(name: str):  # noqa: ANN202
+    from printcheck.layout import card_layout
+
+    if name == "card":
+        return card_layout()
+    w, h = name.split(":", 1)[1].split("x")
+    return _way_layout(float(w), float(h))
+
+
+def _render_card(path: Path, size: tuple[int, int], seed: int) -> None:
+    from printcheck.synth.render import Camera, Lighting, Scene, render_photo
+
+    poses = [(15, 10), (25, -30), (8, 60), (20, 135)]
+    tilt, rot = poses[seed % len(poses)]
+    scene = Scene(
+        image_size=size,
+        camera=Camera(tilt_deg=tilt, rotation_deg=rot, offset=(0.03 * (seed % 3 - 1), 0.02)),
+        density=12.0 + 4.0 * (seed % 4),
+        lighting=Lighting(glare=0.15 * (seed % 2)),
+    )
+    shot = render_photo(scene, seed=seed)
+    assert shot.jpeg is not None
+    path.write_bytes(shot.jpeg)
+
+
+def _render_way(path: Path, width_mm: float, height_mm: float, size: tuple[int, int]) -> None:
+    from printcheck.synth.render import Camera, Scene, render_photo
+
+    # window 0.8 of the photo width; surface grid 8 px/mm, finer than the photo resolves
+    scene = Scene(
+        layout=_way_layout(width_mm, height_mm),
+        image_size=size,
+        camera=Camera(tilt_deg=10.0, rotation_deg=3.0, window_fraction=0.8),
+        density=15.0,
+        truth_px_per_mm=8.0,
+    )
+    shot = render_photo(scene, seed=2)
+    assert shot.jpeg is not None
+    path.write_bytes(shot.jpeg)
+
+
+def _cached(
+    cache: Path, key: str, make: Callable[[Path], None], log: Callable[[str], None]
+) -> Path:
+    path = cache / f"{key}.jpg"
+    if not path.exists():
+        log(f"  rendering {key} (cached in {cache}) ...")
+        t = time.perf_counter()
+        tmp = path.with_suffix(".part")
+        make(tmp)
+        tmp.replace(path)
+        log(f"    {time.perf_counter() - t:.1f} s")
+    return path
+
+
+def card_shot(cache: Path, mp: int, seed: int, log: Callable[[str], None]) -> Shot:
+    size = {12: (4000, 3000), 24: (6000, 4000)}[mp]
+    key = f"card-{mp}mp-s{seed}"
+    path = _cached(cache, key, lambda p: _render_card(p, size, seed), log)
+    return Shot(key, path, "card", size[0] * size[1] / 1e6)
+
+
+# photo sizes of the way layouts: same camera distance per mm of window (window 0.8 of the
+# photo width), so the photo resolution (px/mm) is the same and the photo grows with area
+WAYS = {
+    (100, 300): (2000, 1334),
+    (200, 600): (4000, 2667),
+    (300, 900): (6000, 4000),
+}
+
+
+def way_shot(cache: Path, height: int, width: int, log: Callable[[str], None]) -> Shot:
+    size = WAYS[(height, width)]
+    key = f"way-{height}x{width}mm-{size[0]}x{size[1]}"
+    path = _cached(cache, key, lambda p: _render_way(p, width, height, size), log)
+    return Shot(key, path, f"way:{width}x{height}", size[0] * size[1] / 1e6)
+
+
+# --------------------------------------------------------------------------- timing
+
+
+def _median(fn: Callable[[], Any], repeat: int) -> tuple[float, Any]:
+    """Median wall time of ``repeat`` calls of ``fn`` (after the caller's warm-up)."""
+    times = []
+    out = None
+    for _ in range(max(1, repeat)):
+        t = time.perf_counter()
+        out = fn()
+        times.append(time.perf_counter() - t)
+    return statistics.median(times), out
+
+
+def _options(layout_name: str):  # noqa: ANN202
+    from printcheck.pipeline import InspectOptions
+    from printcheck.spec import find_spec
+
+    return InspectOptions(layout=_layout_for(layout_name), spec=find_spec("slideway-precision"))
+
+
+def _report(result: Any, out: Path) -> None:
+    """What batch writes per photo: JSON, overlay PNG, and the HTML report's preview JPEG."""
+    from printcheck.report.files import encode_image, output_name, write_bytes, write_json
+    from printcheck.report.overlay import draw_overlay
+    from printcheck.result import result_to_dict
+
+    data = result_to_dict(result)
+    overlay = draw_overlay(result)
+    write_json(out, output_name(result.photo, ".json"), data)
+    write_bytes(out, output_name(result.photo, ".overlay.png"), encode_image(overlay, ".png"))
+    import cv2
+
+    h, w = overlay.shape[:2]
+    scale = 1400 / max(h, w)
+    small = (
+        overlay
+        if scale >= 1
+        else cv2.resize(overlay, (round(w * scale), round(h * scale)), interpolation=cv2.INTER_AREA)
+    )
+    encode_image(small, ".jpg", jpeg_quality=85)
+
+
+def time_stages(shot: Shot, repeat: int) -> dict[str, Any]:
+    """Time each stage of inspect on ``shot`` as pipeline.inspect_image chains them."""
+    import cv2
+
+    from printcheck.judge import judge
+    from printcheck.load import load_photo
+    from printcheck.locate import LocateConfig, detect_markers, locate
+    from printcheck.measure import MeasureConfig, measure
+    from printcheck.pipeline import inspect_photo
+    from printcheck.segment import SegmentConfig, mask_at, segment
+
+    options = _options(shot.layout)
+    layout = options.layout
+    assert layout is not None and options.spec is not None
+    path = str(shot.path)
+    out = Path(tempfile.mkdtemp(prefix="printcheck-bench-"))
+    try:
+        _report(inspect_photo(path, options=options), out)  # warm-up: imports, first calls
+        t: dict[str, float] = {}
+        t["imread"], _ = _median(lambda: cv2.imread(path, cv2.IMREAD_COLOR), repeat)
+        t["decode"], photo = _median(lambda: load_photo(path), repeat)
+        image = photo.image
+        t["detect"], _ = _median(
+            lambda: detect_markers(image, dictionary=layout.dictionary), repeat
+        )
+        t["locate"], rect = _median(
+            lambda: locate(image, layout=layout, config=LocateConfig()), repeat
+        )
+        seg_config = SegmentConfig(
+            compound=options.compound,  # type: ignore[arg-type]
+            compound_on=options.compound_on,  # type: ignore[arg-type]
+            px_per_mm=rect.frame.px_per_mm,
+        )
+        t["segment"], seg = _median(
+            lambda: segment(rect.image, visible=rect.visible, config=seg_config), repeat
+        )
+        t["confidence masks"], alternates = _median(
+            lambda: (
+                mask_at(seg, seg.threshold - seg.spread),
+                mask_at(seg, seg.threshold + seg.spread),
+            ),
+            repeat,
+        )
+        meas_config = MeasureConfig(
+            cell_mm=options.cell_mm,
+            min_spot_mm2=options.min_spot_mm2,
+            max_bare_mm=options.spec.max_bare_mm,
+        )
+        t["measure"], meas = _median(
+            lambda: measure(
+                seg.mask,
+                frame=rect.frame,
+                analysed=rect.analysed,
+                config=meas_config,
+                alternates=alternates,
+            ),
+            repeat,
+        )
+        spec = options.spec
+        t["judge"], _ = _median(lambda: judge(meas, spec, unit=options.unit), repeat)
+        t["inspect"], result = _median(lambda: inspect_photo(path, options=options), repeat)
+        t["report"], _ = _median(lambda: _report(result, out), repeat)
+        t["inspect + report"], _ = _median(
+            lambda: _report(inspect_photo(path, options=options), out), repeat
+        )
+    finally:
+        shutil.rmtree(out, ignore_errors=True)
+    t["rectify"] = max(t["locate"] - t["detect"], 0.0)
+    frame = result.rectified.frame
+    return {
+        "times": t,
+        "rect_shape": tuple(frame.shape),
+        "px_per_mm": frame.px_per_mm,
+        "area_mm2": layout.window.area_mm2,
+        "spots": result.measurement.spot_count,
+        "warnings": result.warnings,
+    }
+
+
+STAGE_ROWS = [
+    ("imread", "cv2.imread (the floor)"),
+    ("decode", "decode: load_photo"),
+    ("detect", "locate: find markers"),
+    ("rectify", "rectify: fit, warp, masks"),
+    ("segment", "segment"),
+    ("confidence masks", "segment: 2 confidence masks"),
+    ("measure", "measure"),
+    ("judge", "judge"),
+    ("report", "report: JSON, PNG, preview"),
+    ("inspect", "whole inspect (load..judge)"),
+    ("inspect + report", "inspect + report"),
+]
+
+
+def print_stages(named: list[tuple[str, dict[str, Any]]]) -> None:
+    head = f"{'stage':32s}" + "".join(f"{name:>18s}" for name, _ in named)
+    print(head)
+    print("-" * len(head))
+    for key, label in STAGE_ROWS:
+        cells = []
+        for _, r in named:
+            v = r["times"][key]
+            ratio = v / r["times"]["imread"]
+            cells.append(f"{v:8.3f} s {ratio:5.1f}x")
+        print(f"{label:32s}" + "".join(f"{c:>18s}" for c in cells))
+    stage_sum = ("decode", "locate", "segment", "confidence masks", "measure", "judge")
+    print(
+        f"{'(sum of stages load..judge)':32s}"
+        + "".join(f"{sum(r['times'][k] for k in stage_sum):8.3f} s{'':7s}" for _, r in named)
+    )
+    for name, r in named:
+        rows, cols = r["rect_shape"]
+        print(
+            f"  {name}: rectified {cols} x {rows} px at {r['px_per_mm']:.2f} px/mm "
+            f"({rows * cols / 1e6:.1f} MP), {r['spots']} spots; ratio whole/imread "
+            f"{r['times']['inspect'] / r['times']['imread']:.1f} (target <= 3 for 12 MP)"
+        )
+        for w in r["warnings"]:
+            print(f"    warning: {w}")
+
+
+# --------------------------------------------------------------------------- memory
+
+
+def _child_rss(path: str, layout_name: str) -> None:
+    """In a fresh process: import, note RSS, inspect and report one photo, print peaks (MB)."""
+    import skimage.segmentation  # noqa: F401  (imported lazily by measure)
+
+    import printcheck.judge  # noqa: F401
+    import printcheck.load  # noqa: F401
+    import printcheck.locate  # noqa: F401
+    import printcheck.measure  # noqa: F401
+    import printcheck.report.files  # noqa: F401
+    import printcheck.report.overlay  # noqa: F401
+    import printcheck.segment  # noqa: F401
+    from printcheck.pipeline import inspect_photo
+
+    options = _options(layout_name)
+
+    def rss_mb() -> float:
+        return _peak_rss_mb()
+
+    base = rss_mb()
+    result = inspect_photo(path, options=options)
+    after_inspect = rss_mb()
+    out = Path(tempfile.mkdtemp(prefix="printcheck-bench-"))
+    try:
+        _report(result, out)
+    finally:
+        shutil.rmtree(out, ignore_errors=True)
+    print(json.dumps({"base": base, "inspect": after_inspect, "report": rss_mb()}))
+
+
+def _peak_rss_mb() -> float:
+    """This process's peak RSS in MB.
+
+    Linux keeps ``ru_maxrss`` across ``exec`` (a child started by a big parent reports the
+    parent's peak), so the process's own high-water mark ``VmHWM`` is read where it exists.
+    """
+    try:
+        with open("/proc/self/status") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024.0  # kB
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: KiB
+
+
+def peak_rss(shot: Shot) -> dict[str, float]:
+    cmd = [sys.executable, str(HERE), "--child-rss", str(shot.path), shot.layout]
+    out = subprocess.run(cmd, check=True, capture_output=True, text=True, env=_env()).stdout
+    return json.loads(out.strip().splitlines()[-1])
+
+
+def _env() -> dict[str, str]:
+    env = dict(os.environ)
+    root = str(HERE.parent.parent)
+    env["PYTHONPATH"] = root + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+    return env
+
+
+# --------------------------------------------------------------------------- start-up
+
+
+def startup(runs: int) -> None:
+    exe = sys.executable
+    script = Path(exe).parent / "printcheck"
+    cases = [
+        ("python -c pass", [exe, "-c", "pass"]),
+        ("python -m printcheck --help", [exe, "-m", "printcheck", "--help"]),
+    ]
+    if script.exists():
+        cases.append(("printcheck --help", [str(script), "--help"]))
+    print(f"{'command':34s}{'median':>10s}{'min':>10s}   (target --help < 0.5 s)")
+    for name, cmd in cases:
+        times = []
+        for _ in range(runs):
+            t = time.perf_counter()
+            subprocess.run(cmd, check=True, capture_output=True, env=_env())
+            times.append(time.perf_counter() - t)
+        print(f"{name:34s}{statistics.median(times):9.3f}s{min(times):9.3f}s")
+    err = subprocess.run(
+        [exe, "-X", "importtime", "-c", "import printcheck.cli"],
+        check=True,
+        capture_output=True,
+        text=True,
+        env=_env(),
+    ).stderr
+    rows = []
+    for line in err.splitlines():
+        parts = line.split("|")
+        if len(parts) == 3 and parts[1].strip().isdigit():
+            rows.append((int(parts[1]), parts[2].rstrip()))
+    heavy = {"cv2", "numpy", "scipy", "skimage", "matplotlib", "PIL"}
+    loaded = sorted({name.strip().split(".")[0] for _, name in rows} & heavy)
+    print("slowest imports of printcheck.cli (cumulative):")
+    for us, name in sorted(rows, reverse=True)[:6]:
+        print(f"  {us / 1000:7.1f} ms  {name.strip()}")
+    print(f"heavy modules imported by the CLI at start-up: {', '.join(loaded) or 'none'}")
+
+
+# --------------------------------------------------------------------------- batch
+
+
+def batch_folder(cache: Path, n: int, distinct: int, log: Callable[[str], None]) -> Path:
+    """A folder of ``n`` 12 MP photos: ``distinct`` renders, each copy with its own EXIF time."""
+    from printcheck.synth.job import add_exif_time
+
+    folder = cache / f"batch-{n}"
+    if folder.exists() and len(list(folder.glob("*.jpg"))) == n:
+        return folder
+    shutil.rmtree(folder, ignore_errors=True)
+    folder.mkdir(parents=True)
+    shots = [card_shot(cache, 12, seed, log) for seed in range(distinct)]
+    start = datetime(2026, 11, 30, 8, 0, 0)
+    for i in range(n):
+        jpeg = shots[i % distinct].path.read_bytes()
+        stamped = add_exif_time(jpeg, start + timedelta(minutes=10 * i))
+        (folder / f"pass{i + 1:02d}.jpg").write_bytes(stamped)
+    return folder
+
+
+def time_batch(folder: Path, jobs: int) -> float:
+    from printcheck.batch import run_batch
+    from printcheck.pipeline import InspectOptions
+    from printcheck.spec import find_spec
+
+    work = Path(tempfile.mkdtemp(prefix="printcheck-bench-batch-"))
+    try:
+        t = time.perf_counter()
+        run_batch(
+            folder,
+            options=InspectOptions(spec=find_spec("slideway-precision"), surface="bench-way"),
+            out=work / "report",
+            db=work / "history.sqlite",
+            jobs=jobs,
+            echo=lambda _s: None,
+            warn=lambda _s: None,
+            show_progress=False,
+        )
+        return time.perf_counter() - t
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+
+
+# --------------------------------------------------------------------------- main
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="12 MP only, fewer photos, 1 run")
+    parser.add_argument("--repeat", type=int, default=None, help="timed runs per stage (median)")
+    parser.add_argument(
+        "--cache", type=Path, default=Path(tempfile.gettempdir()) / "printcheck-bench"
+    )
+    parser.add_argument("--photos", type=int, default=None, help="photos in the batch (20)")
+    parser.add_argument(
+        "--only",
+        nargs="*",
+        choices=["startup", "stages", "memory", "surface", "batch"],
+        help="run only these parts",
+    )
+    parser.add_argument("--child-rss", nargs=2, metavar=("PHOTO", "LAYOUT"), help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.child_rss:
+        _child_rss(*args.child_rss)
+        return
+    parts = set(args.only or ["startup", "stages", "memory", "surface", "batch"])
+    repeat = args.repeat or (1 if args.quick else 3)
+    n_batch = args.photos or (6 if args.quick else 20)
+    cache: Path = args.cache
+    cache.mkdir(parents=True, exist_ok=True)
+
+    def log(msg: str) -> None:
+        print(msg, flush=True)
+
+    import cv2
+    import numpy as np
+
+    print(
+        f"printcheck speed benchmark: {os.cpu_count()} cores, Python {sys.version.split()[0]}, "
+        f"numpy {np.__version__}, OpenCV {cv2.__version__} ({cv2.getNumThreads()} threads); "
+        f"median of {repeat} after a warm-up"
+    )
+    print(f"load average now: {', '.join(f'{x:.1f}' for x in os.getloadavg())}")
+
+    if "startup" in parts:
+        print("\n== start-up")
+        startup(3 if args.quick else 7)
+
+    cards = [card_shot(cache, 12, 0, log)]
+    if not args.quick:
+        cards.append(card_shot(cache, 24, 0, log))
+
+    if "stages" in parts:
+        print("\n== stages, one warmed process (time, and x cv2.imread of the same file)")
+        named = []
+        for shot in cards:
+            named.append((f"card {shot.megapixels:.0f} MP", time_stages(shot, repeat)))
+        print_stages(named)
+
+    ways = [(100, 300)] if args.quick else list(WAYS)
+    if "memory" in parts:
+        print("\n== peak memory (RSS) per photo, fresh process each (MB)")
+        shots = cards + ([] if args.quick else [way_shot(cache, 300, 900, log)])
+        print(
+            f"{'photo':30s}{'after imports':>15s}{'peak inspect':>14s}{'peak +report':>14s}"
+            f"{'added':>9s}   target"
+        )
+        for shot in shots:
+            r = peak_rss(shot)
+            target = "600" if shot.megapixels < 15 else "1000"
+            print(
+                f"{shot.key:30s}{r['base']:15.0f}{r['inspect']:14.0f}{r['report']:14.0f}"
+                f"{r['report'] - r['base']:9.0f}   < {target} peak"
+            )
+
+    if "surface" in parts:
+        print("\n== whole-surface layout: slideway window, markers at its ends, same px/mm")
+        print(
+            f"{'window (mm)':14s}{'photo':>13s}{'rectified':>16s}{'px/mm':>7s}{'decode':>9s}"
+            f"{'inspect':>9s}{'+report':>9s}{'s per m2':>10s}{'spots':>7s}"
+        )
+        for height, width in ways:
+            shot = way_shot(cache, height, width, log)
+            r = time_stages(shot, repeat)
+            t = r["times"]
+            rows, cols = r["rect_shape"]
+            w, h = WAYS[(height, width)]
+            print(
+                f"{f'{height} x {width}':14s}{f'{w}x{h}':>13s}{f'{cols}x{rows}':>16s}"
+                f"{r['px_per_mm']:7.2f}{t['decode']:8.2f}s{t['inspect']:8.2f}s"
+                f"{t['inspect + report']:8.2f}s{t['inspect'] / (r['area_mm2'] / 1e6):9.1f}s"
+                f"{r['spots']:7d}"
+            )
+            for warn in r["warnings"]:
+                print(f"    warning: {warn}")
+        print("  target: 300 x 900 mm in one 24 MP photo within 10 s; s per m2 not growing")
+
+    if "batch" in parts:
+        print(f"\n== batch of {n_batch} photos of 12 MP (inspect + JSON, overlay, HTML report)")
+        folder = batch_folder(cache, n_batch, 2 if args.quick else 4, log)
+        cores = os.cpu_count() or 1
+        t1 = time_batch(folder, 1)
+        tn = time_batch(folder, cores)
+        print(f"{'cores':8s}{'time':>10s}{'photos/min':>12s}{'speed-up':>10s}")
+        print(f"{1:<8d}{t1:9.1f}s{60 * n_batch / t1:12.1f}{1.0:10.2f}")
+        print(
+            f"{cores:<8d}{tn:9.1f}s{60 * n_batch / tn:12.1f}{t1 / tn:10.2f}"
+            "   (target >= 1.7 on 2 cores)"
+        )
+
+
+if __name__ == "__main__":
+    main()
