@@ -109,6 +109,8 @@ def _resample(
     """Nearest-neighbour resample of ``array[box]`` to ``shape`` (exact for labels)."""
     r0, r1, c0, c1 = box
     h, w = shape
+    if (h, w) == (r1 - r0, c1 - c0):  # unscaled: the crop itself (a view, not a copy)
+        return array[r0:r1, c0:c1]
     ri = r0 + np.minimum(((np.arange(h) + 0.5) * (r1 - r0) / h).astype(np.intp), r1 - r0 - 1)
     ci = c0 + np.minimum(((np.arange(w) + 0.5) * (c1 - c0) / w).astype(np.intp), c1 - c0 - 1)
     return array[np.ix_(ri, ci)]
@@ -292,9 +294,13 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
         counted = np.zeros(n + 1, bool)
         inw = np.asarray(m.spots.in_window, dtype=bool)
         counted[1 : 1 + min(n, inw.size)] = inw[:n]
-        is_counted = counted[np.clip(lab, 0, n)]
-        img[edge & is_counted] = COLOURS["spot"]
-        img[edge & ~is_counted] = COLOURS["spot_outside"]
+        # look up the edge pixels only (a few percent of the image)
+        edge_counted = counted[np.clip(lab[edge], 0, n)]
+        img[edge] = np.where(
+            edge_counted[:, None],
+            np.array(COLOURS["spot"], np.uint8),
+            np.array(COLOURS["spot_outside"], np.uint8),
+        )
 
     ox, oy = frame.origin_mm
     ppm = frame.px_per_mm
