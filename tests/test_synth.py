@@ -54,6 +54,9 @@ def aruco_detector():
     dictionary = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
     params = cv2.aruco.DetectorParameters()
     params.cornerRefinementMethod = cv2.aruco.CORNER_REFINE_SUBPIX
+    # Refine to convergence (the default stops once a step is under 0.1 px).
+    params.cornerRefinementMinAccuracy = 0.001
+    params.cornerRefinementMaxIterations = 200
     return cv2.aruco.ArucoDetector(dictionary, params)
 
 
@@ -259,6 +262,38 @@ def test_markers_reproject_within_half_a_pixel(job, aruco_detector, tilt, rotati
         expected = cv2.perspectiveTransform(layout_pts, hom).reshape(4, 2)
         err = np.linalg.norm(c.reshape(4, 2) - expected, axis=1)
         assert err.max() < 0.5, (int(i), err)
+
+
+def test_marker_edges_are_where_the_homography_puts_them(job):
+    # Independent of any detector: square-on, no blur, no noise, the ink coverage of the
+    # pixel row that holds a marker's top edge equals the exact area fraction
+    # (pixel centres at integer coordinates, OpenCV convention) within 1/16.
+    scene = Scene(
+        field=job.passes[0].field,
+        film_um=job.passes[0].film_um,
+        camera=Camera(window_fraction=0.3),
+        lighting=Lighting(
+            jpeg_quality=None,
+            noise_sigma=0.0,
+            blur_sigma_px=0.0,
+            vignetting=0.0,
+            gradient=0.0,
+            haze=0.0,
+        ),
+    )
+    shot = render_photo(scene, seed=0)
+    g = shot.image[..., 1].astype(float)
+    tl, tr, _, bl = shot.marker_corners_px[0]
+    paper = np.median(g[int(tl[1]) - 6, int(tl[0]) + 5 : int(tr[0]) - 5])
+    ink = np.median(g[int(tl[1]) + 4, int(tl[0]) + 5 : int(tr[0]) - 5])
+    row = int(np.floor(tl[1] + 0.5))
+    expected = row + 0.5 - tl[1]  # share of pixel row `row` below the edge
+    measured = (paper - np.median(g[row, int(tl[0]) + 5 : int(tr[0]) - 5])) / (paper - ink)
+    assert measured == pytest.approx(expected, abs=1 / 16 + 0.02)
+    col = int(np.floor(tl[0] + 0.5))
+    expected = col + 0.5 - tl[0]
+    measured = (paper - np.median(g[int(tl[1]) + 5 : int(bl[1]) - 5, col])) / (paper - ink)
+    assert measured == pytest.approx(expected, abs=1 / 16 + 0.02)
 
 
 def test_square_on_photo_shows_the_truth():

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import io
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Literal
 
@@ -417,27 +418,89 @@ def _unit_square_homography(corners_mm: np.ndarray) -> np.ndarray:
     return cv2.getPerspectiveTransform(src, np.asarray(corners_mm, dtype=np.float32)).astype(float)
 
 
-def _fill_supersampled(canvas: np.ndarray, polys_px: list[np.ndarray], *, ss: int = 4) -> None:
-    """Add the coverage (0-1) of the union of ``polys_px`` (photo x, y) into ``canvas``."""
-    allpts = np.concatenate(polys_px)
-    x0 = max(int(math.floor(allpts[:, 0].min())) - 2, 0)
-    y0 = max(int(math.floor(allpts[:, 1].min())) - 2, 0)
-    x1 = min(int(math.ceil(allpts[:, 0].max())) + 3, canvas.shape[1])
-    y1 = min(int(math.ceil(allpts[:, 1].max())) + 3, canvas.shape[0])
+def _coverage(
+    photo_to_unit: np.ndarray,
+    corners_px: np.ndarray,
+    size: tuple[int, int],
+    inside: Callable[[np.ndarray, np.ndarray], np.ndarray],
+    *,
+    ss: int = 8,
+) -> tuple[tuple[slice, slice], np.ndarray] | None:
+    """Area coverage (0-1) of a shape, sampled exactly through a homography.
+
+    Each photo pixel centre (x, y) in the bounding box of ``corners_px`` is mapped by
+    ``photo_to_unit`` to the shape's own coordinates (u, v) and tested with
+    ``inside(u, v)``; pixels on an edge (a 3 x 3 neighbourhood that disagrees) are
+    resampled at ``ss`` x ``ss`` points.  Point sampling has no rasteriser bias, so
+    edges land where the homography puts them.  Returns (row, col) slices and the
+    coverage there, or None when the shape is outside the photo.
+    """
+    width, height = size
+    pts = corners_px[np.all(np.isfinite(corners_px), axis=1)]
+    if pts.size == 0:
+        return None
+    x0 = max(int(math.floor(pts[:, 0].min())) - 2, 0)
+    y0 = max(int(math.floor(pts[:, 1].min())) - 2, 0)
+    x1 = min(int(math.ceil(pts[:, 0].max())) + 3, width)
+    y1 = min(int(math.ceil(pts[:, 1].max())) + 3, height)
     if x1 <= x0 or y1 <= y0:
+        return None
+
+    def test(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        hh = photo_to_unit
+        wz = hh[2, 0] * x + hh[2, 1] * y + hh[2, 2]
+        u = (hh[0, 0] * x + hh[0, 1] * y + hh[0, 2]) / wz
+        v = (hh[1, 0] * x + hh[1, 1] * y + hh[1, 2]) / wz
+        return inside(u, v) & (wz > 0)
+
+    xs = np.arange(x0, x1, dtype=float)
+    ys = np.arange(y0, y1, dtype=float)
+    centre = test(xs[None, :], ys[:, None])
+    c8 = centre.astype(np.uint8)
+    kernel = np.ones((3, 3), np.uint8)
+    edge = cv2.dilate(c8, kernel) != cv2.erode(c8, kernel)
+    cover = centre.astype(np.float32)
+    er, ec = np.nonzero(edge)
+    if er.size:
+        off = (np.arange(ss) + 0.5) / ss - 0.5
+        ox = np.tile(off, ss)
+        oy = np.repeat(off, ss)
+        hit = test(xs[ec][:, None] + ox[None, :], ys[er][:, None] + oy[None, :])
+        cover[er, ec] = hit.mean(axis=1)
+    return (slice(y0, y1), slice(x0, x1)), cover
+
+
+def _paint(
+    canvas: np.ndarray, piece: tuple[tuple[slice, slice], np.ndarray] | None, value: float
+) -> None:
+    """Blend ``value`` into ``canvas`` by the coverage of ``piece`` (from _coverage)."""
+    if piece is None:
         return
-    big = np.zeros(((y1 - y0) * ss, (x1 - x0) * ss), dtype=np.uint8)
-    shift = 6
-    pts = []
-    for p in polys_px:
-        q = (p - np.array([x0, y0]) + 0.5) * ss - 0.5
-        pts.append(np.round(q * (1 << shift)).astype(np.int32))
-    cv2.fillPoly(big, pts, 255, lineType=cv2.LINE_8, shift=shift)
-    small = (
-        cv2.resize(big, (x1 - x0, y1 - y0), interpolation=cv2.INTER_AREA).astype(np.float32) / 255.0
-    )
-    region = canvas[y0:y1, x0:x1]
-    np.maximum(region, small, out=region)
+    (rs, cs), cover = piece
+    region = canvas[rs, cs]
+    region *= 1.0 - cover
+    region += value * cover
+
+
+def _rect_inside(
+    x0: float, y0: float, x1: float, y1: float
+) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
+    def inside(u: np.ndarray, v: np.ndarray) -> np.ndarray:
+        return (u >= x0) & (u < x1) & (v >= y0) & (v < y1)
+
+    return inside
+
+
+def _bits_inside(bits: np.ndarray) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
+    n = bits.shape[0]
+
+    def inside(u: np.ndarray, v: np.ndarray) -> np.ndarray:
+        ok = (u >= 0) & (u < 1) & (v >= 0) & (v < 1)
+        j = np.clip((np.nan_to_num(u) * n).astype(np.int64), 0, n - 1)
+        i = np.clip((np.nan_to_num(v) * n).astype(np.int64), 0, n - 1)
+        return ok & bits[i, j]
+
+    return inside
 
 
 def _paper_and_ink(
@@ -448,6 +511,7 @@ def _paper_and_ink(
     paper = np.zeros((height, width), dtype=np.float32)
     ink = np.zeros((height, width), dtype=np.float32)
     corners_px: dict[int, np.ndarray] = {}
+    photo_to_mm = np.linalg.inv(hom)
     card = layout.margin_mm == 0
     if card:
         pts = np.array([c for m in layout.markers for c in m.corners_mm])
@@ -456,48 +520,36 @@ def _paper_and_ink(
         y0 = min(pts[:, 1].min(), w.y_mm) - CARD_BORDER_MM
         x1 = max(pts[:, 0].max(), w.x_mm + w.width_mm) + CARD_BORDER_MM
         y1 = max(pts[:, 1].max(), w.y_mm + w.height_mm) + CARD_BORDER_MM
+        wx0, wy0 = w.x_mm, w.y_mm
+        wx1, wy1 = w.x_mm + w.width_mm, w.y_mm + w.height_mm
         outer = _project(hom, [[x0, y0], [x1, y0], [x1, y1], [x0, y1]])
-        hole = _project(
-            hom,
-            [
-                [w.x_mm, w.y_mm],
-                [w.x_mm + w.width_mm, w.y_mm],
-                [w.x_mm + w.width_mm, w.y_mm + w.height_mm],
-                [w.x_mm, w.y_mm + w.height_mm],
-            ],
-        )
-        _fill_aa(paper, outer, 1.0)
-        _fill_aa(paper, hole, 0.0)
+        card_inside = _rect_inside(x0, y0, x1, y1)
+        hole_inside = _rect_inside(wx0, wy0, wx1, wy1)
+
+        def paper_inside(u: np.ndarray, v: np.ndarray) -> np.ndarray:
+            return card_inside(u, v) & ~hole_inside(u, v)
+
+        _paint(paper, _coverage(photo_to_mm, outer, size, paper_inside, ss=4), 1.0)
     for m in layout.markers:
         corners = np.array(m.corners_mm, dtype=float)
         to_mm = _unit_square_homography(corners)
+        photo_to_unit = np.linalg.inv(hom @ to_mm)
         corners_px[m.id] = _project(hom, corners)
-        if not card:
-            # A printed label: the marker plus a one-cell white quiet zone.
-            bits = _aruco_bits(layout.dictionary, m.id)
-            n = bits.shape[0]
-            pad = 1.0 / n + 0.02
-            label = [[-pad, -pad], [1 + pad, -pad], [1 + pad, 1 + pad], [-pad, 1 + pad]]
-            _fill_aa(paper, _project(hom, _project(to_mm, label)), 1.0)
         bits = _aruco_bits(layout.dictionary, m.id)
         n = bits.shape[0]
-        polys = []
-        for i, j in zip(*np.nonzero(bits), strict=True):
-            cell = np.array([[j, i], [j + 1, i], [j + 1, i + 1], [j, i + 1]], dtype=float) / n
-            polys.append(_project(hom, _project(to_mm, cell)))
-        if polys:
-            _fill_supersampled(ink, polys)
+        if not card:
+            # A printed label: the marker plus a one-cell white quiet zone.
+            pad = 1.0 / n + 0.02
+            label = [[-pad, -pad], [1 + pad, -pad], [1 + pad, 1 + pad], [-pad, 1 + pad]]
+            piece = _coverage(
+                photo_to_unit,
+                _project(hom @ to_mm, label),
+                size,
+                _rect_inside(-pad, -pad, 1 + pad, 1 + pad),
+            )
+            _paint(paper, piece, 1.0)
+        _paint(ink, _coverage(photo_to_unit, corners_px[m.id], size, _bits_inside(bits)), 1.0)
     return paper, ink, corners_px
-
-
-def _fill_aa(canvas: np.ndarray, poly_px: np.ndarray, value: float) -> None:
-    """Fill one polygon with anti-aliased edges, blending ``value`` by coverage."""
-    if not np.all(np.isfinite(poly_px)):
-        return
-    cover = np.zeros(canvas.shape, dtype=np.float32)
-    _fill_supersampled(cover, [poly_px], ss=2 if max(canvas.shape) > 2500 else 4)
-    canvas *= 1.0 - cover
-    canvas += value * cover
 
 
 # --------------------------------------------------------------------------- photo
