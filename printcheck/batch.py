@@ -170,7 +170,7 @@ class _Runner:
     """Runs ``_work`` over the photos; iterate it for (index, outcome) as photos finish.
 
     With more than one worker the process pool is started and every photo submitted on
-    entry, before any other thread (the progress bar) exists in this process.
+    entry, before the progress bar starts its thread.
     """
 
     def __init__(self, items: list[BatchItem], options: InspectOptions, out: Path, workers: int) -> None:
@@ -185,8 +185,10 @@ class _Runner:
         if self._workers > 1:
             import multiprocessing as mp
 
+            # Not "fork": a forked child inherits OpenCV's thread pool in an unusable
+            # state and can hang; the fork server starts clean children cheaply.
             methods = mp.get_all_start_methods()
-            context = mp.get_context("fork" if "fork" in methods else "spawn")
+            context = mp.get_context("forkserver" if "forkserver" in methods else "spawn")
             self._pool = ProcessPoolExecutor(max_workers=self._workers, mp_context=context)
             self._futures = {
                 self._pool.submit(_work, item.path, self._options, self._out, True): index
