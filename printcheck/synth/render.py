@@ -352,7 +352,7 @@ def _appearance(
     if compound_on == "reference":
         # Spots carry compound, thickest where the surface stood highest (dark centres,
         # pale rims); a faint haze of compound smeared over the bare metal around them.
-        thick = np.where(contact, 0.25 + 1.25 * q**0.8, 0.0)
+        thick = np.where(contact, 0.4 + 1.1 * q**0.8, 0.0)
         near = _blur(contact.astype(np.float32), 0.8 * s)
         haze = lighting.haze * (0.02 + 0.015 * smooth + 0.12 * near)
         thick = strength * (thick + np.clip(haze, 0.0, None))
