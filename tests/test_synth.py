@@ -78,7 +78,7 @@ def test_contact_fraction_is_areal_material_ratio(small_surface, film_um):
     smr = surf.Smr(c)
     ours = 100.0 * contact_mask(small_surface, film_um).mean()
     # surfalize samples the material ratio curve at 10 000 classes: 0.01 % resolution.
-    assert ours == pytest.approx(smr, abs=0.05)
+    assert ours == pytest.approx(smr, abs=0.01)
     assert 0.0 < ours < 100.0
 
 
@@ -91,7 +91,7 @@ def test_job_contact_is_areal_material_ratio(job):
         step_um = 1000.0 / p.field.px_per_mm
         centred = h - h.mean()
         smr = Surface(centred, step_um, step_um).Smr(float(centred.max()) - p.film_um)
-        assert 100.0 * contact_mask(p.field, p.film_um).mean() == pytest.approx(smr, abs=0.05)
+        assert 100.0 * contact_mask(p.field, p.film_um).mean() == pytest.approx(smr, abs=0.01)
 
 
 def test_forms_shape_the_surface():
