@@ -180,8 +180,10 @@ def _build_options(common: _Common, job: JobSettings) -> InspectOptions:
         min_spot_mm2=min_spot,
         allow_partial=common.partial,
     )
-    if layout is not None and cell is not None:
-        w = layout.window
+    if cell is not None and px_per_mm is None:
+        from printcheck.layout import card_layout
+
+        w = (layout if layout is not None else card_layout()).window
         cell_mm = to_mm(cell, unit)
         if cell_mm > max(w.width_mm, w.height_mm) + 1e-9:
             raise OptionError(

@@ -26,16 +26,16 @@ def small_job(tmp_path_factory: pytest.TempPathFactory):  # type: ignore[no-unty
 
     folder = tmp_path_factory.mktemp("small-job")
     cameras = [
-        Camera(tilt_deg=12.0, rotation_deg=8.0, window_fraction=0.32, tilt_axis_deg=30.0),
-        Camera(tilt_deg=25.0, rotation_deg=-15.0, window_fraction=0.3, tilt_axis_deg=200.0),
-        Camera(tilt_deg=5.0, rotation_deg=95.0, window_fraction=0.34, tilt_axis_deg=120.0),
+        Camera(tilt_deg=12.0, rotation_deg=8.0, window_fraction=0.36, tilt_axis_deg=30.0),
+        Camera(tilt_deg=25.0, rotation_deg=-15.0, window_fraction=0.34, tilt_axis_deg=200.0),
+        Camera(tilt_deg=5.0, rotation_deg=95.0, window_fraction=0.38, tilt_axis_deg=120.0),
     ]
     photos = write_job(
         folder,
         seed=11,
         passes=3,
         surface_name="test-way",
-        image_size=(1100, 825),
+        image_size=(1600, 1200),  # ~11 px/mm at the window: a modest phone photo
         shuffle_names=True,
         cameras=cameras,
     )

@@ -22,7 +22,9 @@ pytestmark = [
     pytest.mark.skipif(CHROMIUM is None, reason="headless Chromium is not installed (apt-get install chromium)"),
 ]
 
-HOSTILE = "<script>alert(1)</script>.jpg"
+# A file name cannot hold "/", so the classic "<script>...</script>" cannot be a name on
+# disk; an image with an onerror handler is the same attack without one.
+HOSTILE = "<img src=x onerror=alert(1)><script>alert(2)<\\script>.jpg"
 
 # Runs before anything else in the page: records any alert() and, once loaded, writes
 # what the page shows into a <pre id="probe"> that --dump-dom prints.
@@ -85,6 +87,7 @@ def test_report_loads_every_image_and_runs_no_script(report, tmp_path) -> None: 
     assert data["images"] >= len(names) and data["broken"] == 0  # every image decodes
     assert data["external"] == 0  # self-contained: images are data: URIs
     assert data["scripts"] == 1 and data["alerted"] is False  # only our probe; the file name ran nothing
+    assert data["images"] == html.count("<img ")  # the hostile name added no element
     for name in names:  # every pass is shown, the hostile name as plain text
         assert name in data["text"]
     assert "<b>way</b>" in data["text"]
