@@ -87,7 +87,10 @@ def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -
     except PrintcheckError as exc:
         return {"error": str(exc), "path": str(path)}
     except Exception as exc:  # a bug or out of memory on one photo must not stop the batch
-        return {"error": f"photo {path}: internal error: {type(exc).__name__}: {exc}", "path": str(path)}
+        return {
+            "error": f"photo {path}: internal error: {type(exc).__name__}: {exc}",
+            "path": str(path),
+        }
     return {"data": data, "preview": preview, "path": str(path)}
 
 
@@ -146,7 +149,9 @@ def run_batch(
                 if "error" in outcome:
                     warn(f"{outcome['error']}; skipped")
                 else:
-                    history.record(outcome["data"], surface=surface, spec_name=spec_name, spec=options.spec)
+                    history.record(
+                        outcome["data"], surface=surface, spec_name=spec_name, spec=options.spec
+                    )
                     if json_lines:
                         echo(json.dumps(outcome["data"], ensure_ascii=False))
                 bar.advance(items[index].path.name)
@@ -173,7 +178,9 @@ class _Runner:
     entry, before the progress bar starts its thread.
     """
 
-    def __init__(self, items: list[BatchItem], options: InspectOptions, out: Path, workers: int) -> None:
+    def __init__(
+        self, items: list[BatchItem], options: InspectOptions, out: Path, workers: int
+    ) -> None:
         self._items = items
         self._options = options
         self._out = out
@@ -211,7 +218,9 @@ class _Runner:
             self._pool.shutdown(wait=True, cancel_futures=True)
 
 
-def _progress(surface: str, passes: list[dict[str, Any]], options: InspectOptions) -> dict[str, Any]:
+def _progress(
+    surface: str, passes: list[dict[str, Any]], options: InspectOptions
+) -> dict[str, Any]:
     from printcheck.progress import build_progress
 
     return build_progress(passes, surface=surface, spec=options.spec)
@@ -273,7 +282,13 @@ class _Progress:
     def __enter__(self) -> _Progress:
         if self._enabled:
             from rich.console import Console
-            from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+            from rich.progress import (
+                BarColumn,
+                MofNCompleteColumn,
+                Progress,
+                TextColumn,
+                TimeRemainingColumn,
+            )
 
             self._bar = Progress(
                 TextColumn("measuring"),

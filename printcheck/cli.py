@@ -16,7 +16,7 @@ import sys
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated, Any, Literal, Optional
+from typing import TYPE_CHECKING, Annotated, Any, Literal
 
 import typer
 
@@ -43,27 +43,33 @@ EXIT_MEETS, EXIT_FAILS, EXIT_UNUSABLE = 0, 1, 2
 # ---------------------------------------------------------------- shared options
 
 LayoutOpt = Annotated[
-    Optional[Path],
-    typer.Option("--layout", help="Layout TOML: where the markers sit (default: the built-in 2 in card)."),
+    Path | None,
+    typer.Option(
+        "--layout", help="Layout TOML: where the markers sit (default: the built-in 2 in card)."
+    ),
 ]
 ScaleOpt = Annotated[
-    Optional[float],
-    typer.Option("--px-per-mm", help="Explicit scale for square-on photos (a rig or a scan); no markers."),
+    float | None,
+    typer.Option(
+        "--px-per-mm", help="Explicit scale for square-on photos (a rig or a scan); no markers."
+    ),
 ]
 UnitOpt = Annotated[
-    Optional[Literal["in", "mm"]],
-    typer.Option("--unit", help="Units of results: in (points per square inch) or mm (per 25 mm square)."),
+    Literal["in", "mm"] | None,
+    typer.Option(
+        "--unit", help="Units of results: in (points per square inch) or mm (per 25 mm square)."
+    ),
 ]
 CellOpt = Annotated[
-    Optional[float],
+    float | None,
     typer.Option("--cell", help="Side of the counting cell in --unit (default 1 in, or 25 mm)."),
 ]
 CompoundOpt = Annotated[
-    Optional[Literal["blue", "red", "auto"]],
+    Literal["blue", "red", "auto"] | None,
     typer.Option("--compound", help="Colour of the marking compound (default blue)."),
 ]
 CompoundOnOpt = Annotated[
-    Optional[Literal["reference", "work"]],
+    Literal["reference", "work"] | None,
     typer.Option(
         "--compound-on",
         help="reference: the spots carry compound (default); work: the work was coated "
@@ -71,34 +77,50 @@ CompoundOnOpt = Annotated[
     ),
 ]
 SpecOpt = Annotated[
-    Optional[str],
-    typer.Option("--spec", help="A built-in spec name (see 'printcheck specs') or a spec TOML file."),
+    str | None,
+    typer.Option(
+        "--spec", help="A built-in spec name (see 'printcheck specs') or a spec TOML file."
+    ),
 ]
 TargetOpt = Annotated[
-    Optional[float],
-    typer.Option("--target", help="Quick density target in points per --unit cell, instead of --spec."),
+    float | None,
+    typer.Option(
+        "--target", help="Quick density target in points per --unit cell, instead of --spec."
+    ),
 ]
-SurfaceOpt = Annotated[Optional[str], typer.Option("--surface", help="Name of the surface, e.g. bed-front-way.")]
-OutOpt = Annotated[Optional[Path], typer.Option("--out", help="Folder for result JSON, overlays and reports.")]
+SurfaceOpt = Annotated[
+    str | None, typer.Option("--surface", help="Name of the surface, e.g. bed-front-way.")
+]
+OutOpt = Annotated[
+    Path | None, typer.Option("--out", help="Folder for result JSON, overlays and reports.")
+]
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print only the result JSON on stdout.")]
 MinSpotOpt = Annotated[
-    Optional[float],
-    typer.Option("--min-spot", help="Smallest spot in mm²; smaller specks are not spots (default 0.1)."),
+    float | None,
+    typer.Option(
+        "--min-spot", help="Smallest spot in mm²; smaller specks are not spots (default 0.1)."
+    ),
 ]
 ConfigOpt = Annotated[
-    Optional[Path],
-    typer.Option("--config", help="Job settings file (default: printcheck.toml beside the photos)."),
+    Path | None,
+    typer.Option(
+        "--config", help="Job settings file (default: printcheck.toml beside the photos)."
+    ),
 ]
 PartialOpt = Annotated[
     bool,
-    typer.Option("--partial", help="Measure what is visible when the window runs out of the photo."),
+    typer.Option(
+        "--partial", help="Measure what is visible when the window runs out of the photo."
+    ),
 ]
 DbOpt = Annotated[
-    Optional[Path],
-    typer.Option("--db", help="History database (default: PRINTCHECK_DB, else the user's data folder)."),
+    Path | None,
+    typer.Option(
+        "--db", help="History database (default: PRINTCHECK_DB, else the user's data folder)."
+    ),
 ]
 JobsOpt = Annotated[
-    Optional[int], typer.Option("--jobs", help="Photos processed at once (default: all cores).")
+    int | None, typer.Option("--jobs", help="Photos processed at once (default: all cores).")
 ]
 
 
@@ -157,7 +179,11 @@ def _build_options(common: _Common, job: JobSettings) -> InspectOptions:
         layout = read_layout(layout_path)
     spec = None
     target = _pick(common.target, job.target, None)
-    spec_name = common.spec if common.spec is not None else (None if common.target is not None else job.spec)
+    spec_name = (
+        common.spec
+        if common.spec is not None
+        else (None if common.target is not None else job.spec)
+    )
     if target is not None and spec_name is None:
         from printcheck.spec import target_spec
 
@@ -186,10 +212,10 @@ def _build_options(common: _Common, job: JobSettings) -> InspectOptions:
         w = (layout if layout is not None else card_layout()).window
         cell_mm = to_mm(cell, unit)
         if cell_mm > max(w.width_mm, w.height_mm) + 1e-9:
+            k = MM_PER_IN if unit == "in" else 1.0
             raise OptionError(
                 f"--cell {cell:g} {unit} is larger than the window "
-                f"({w.width_mm / (MM_PER_IN if unit == 'in' else 1):g} x "
-                f"{w.height_mm / (MM_PER_IN if unit == 'in' else 1):g} {unit}); choose a smaller cell"
+                f"({w.width_mm / k:g} x {w.height_mm / k:g} {unit}); choose a smaller cell"
             )
     return options
 
@@ -231,7 +257,19 @@ def inspect(
     from printcheck.pipeline import inspect_photo
     from printcheck.result import result_to_dict
 
-    common = _Common(layout, px_per_mm, unit, cell, compound, compound_on, spec, target, surface, min_spot, partial)
+    common = _Common(
+        layout,
+        px_per_mm,
+        unit,
+        cell,
+        compound,
+        compound_on,
+        spec,
+        target,
+        surface,
+        min_spot,
+        partial,
+    )
     job = _job_settings(config, photos[0].parent if photos else None)
     options = _build_options(common, job)
     results: list[Result] = []
@@ -263,7 +301,9 @@ def inspect(
 
 @app.command()
 def batch(
-    folder: Annotated[Path, typer.Argument(help="Folder of photos of one surface's passes.", show_default=False)],
+    folder: Annotated[
+        Path, typer.Argument(help="Folder of photos of one surface's passes.", show_default=False)
+    ],
     layout: LayoutOpt = None,
     px_per_mm: ScaleOpt = None,
     unit: UnitOpt = None,
@@ -286,7 +326,19 @@ def batch(
 
     if not folder.is_dir():
         raise OptionError(f"batch {folder}: not a folder; give the folder that holds the photos")
-    common = _Common(layout, px_per_mm, unit, cell, compound, compound_on, spec, target, surface, min_spot, partial)
+    common = _Common(
+        layout,
+        px_per_mm,
+        unit,
+        cell,
+        compound,
+        compound_on,
+        spec,
+        target,
+        surface,
+        min_spot,
+        partial,
+    )
     job = _job_settings(config, folder)
     options = _build_options(common, job)
     if options.surface is None:
@@ -340,7 +392,9 @@ def progress(
         passes = history.passes(surface)
         if not passes:
             known = ", ".join(history.surfaces()) or "none"
-            raise OptionError(f"progress: no passes recorded for surface {surface!r} (recorded: {known})")
+            raise OptionError(
+                f"progress: no passes recorded for surface {surface!r} (recorded: {known})"
+            )
     data = build_progress(passes, surface=surface)
     if json_out:
         typer.echo(json.dumps(data, ensure_ascii=False, indent=2))
@@ -355,10 +409,12 @@ def progress(
 
 @app.command()
 def card(
-    window: Annotated[str, typer.Option("--window", help="Side of the square window: 2in, 50mm, 1in ...")] = "2in",
-    out: Annotated[Path, typer.Option("--out", help="Card file: .pdf, .png or .svg (layout .toml beside it).")] = Path(
-        "printcheck-card.pdf"
-    ),
+    window: Annotated[
+        str, typer.Option("--window", help="Side of the square window: 2in, 50mm, 1in ...")
+    ] = "2in",
+    out: Annotated[
+        Path, typer.Option("--out", help="Card file: .pdf, .png or .svg (layout .toml beside it).")
+    ] = Path("printcheck-card.pdf"),
     dpi: Annotated[int, typer.Option("--dpi", help="Resolution of a PNG card.")] = 600,
 ) -> None:
     """Write a printable marker card and its layout file."""
@@ -367,7 +423,9 @@ def card(
 
     window_mm = parse_length(window, default_unit="in", what="--window")
     if not 10.0 <= window_mm <= 200.0:
-        raise OptionError(f"--window must be between 10 mm and 200 mm to print on one sheet, got {window}")
+        raise OptionError(
+            f"--window must be between 10 mm and 200 mm to print on one sheet, got {window}"
+        )
     if dpi < 150 or dpi > 2400:
         raise OptionError(f"--dpi must be between 150 and 2400, got {dpi}")
     card_path, layout_path = write_card(out, window_mm=window_mm, dpi=dpi)
@@ -386,7 +444,9 @@ def specs() -> None:
 
 @app.command()
 def demo(
-    folder: Annotated[Path, typer.Argument(help="Where to render the demo job.")] = Path("printcheck-demo"),
+    folder: Annotated[Path, typer.Argument(help="Where to render the demo job.")] = Path(
+        "printcheck-demo"
+    ),
     passes: Annotated[int, typer.Option("--passes", help="Spotting passes to render.")] = 6,
     seed: Annotated[int, typer.Option("--seed", help="Random seed of the rendered job.")] = 7,
 ) -> None:

@@ -25,7 +25,9 @@ unit = "in"
 """
 
 
-def write_demo_job(folder: Path, *, passes: int = 6, seed: int = 7) -> list[tuple[str, float, float]]:
+def write_demo_job(
+    folder: Path, *, passes: int = 6, seed: int = 7
+) -> list[tuple[str, float, float]]:
     """Render the demo photos, their layout and a ``printcheck.toml`` into ``folder``.
 
     Returns (file name, true density in points per square inch, true bearing %) per pass.
@@ -75,7 +77,12 @@ def run_demo(
         unit="in",
     )
     status = run_batch(
-        photos, options=options, out=folder / "report", db=folder / "history.sqlite", echo=echo, warn=warn
+        photos,
+        options=options,
+        out=folder / "report",
+        db=folder / "history.sqlite",
+        echo=echo,
+        warn=warn,
     )
     echo("the simulator's truth, for comparison:")
     for name, density, bearing in truth:

@@ -370,7 +370,9 @@ def progress_text(progress: Mapping[str, Any]) -> str:
     surface = progress.get("surface") or "surface"
     unit = progress.get("unit") or "in"
     cell = progress.get("cell") or 1.0
-    per = f"points per {float(cell):g} {unit} square"
+    from printcheck.units import density_label
+
+    per = density_label(unit, float(cell))
     if not passes:
         return f"{surface}: no passes recorded"
     last = passes[-1]

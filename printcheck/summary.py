@@ -4,14 +4,9 @@ from __future__ import annotations
 
 from typing import Any
 
-__all__ = ["density_label", "summary_text"]
+from printcheck.units import density_label
 
-
-def density_label(unit: str, cell: float) -> str:
-    """Words for the density unit: "points per square inch", "points per 25 mm square"."""
-    if unit == "in":
-        return "points per square inch" if abs(cell - 1.0) < 1e-9 else f"points per {cell:g} in square"
-    return f"points per {cell:g} mm square"
+__all__ = ["summary_text"]
 
 
 def summary_text(data: dict[str, Any]) -> str:

@@ -13,14 +13,12 @@ from typing import Literal
 
 from printcheck.errors import OptionError
 
-__all__ = ["MM_PER_IN", "Unit", "to_mm", "from_mm", "parse_length", "default_cell"]
+__all__ = ["MM_PER_IN", "Unit", "to_mm", "from_mm", "parse_length", "default_cell", "density_label"]
 
 MM_PER_IN = 25.4
 Unit = Literal["in", "mm"]
 
-_LENGTH = re.compile(
-    r"^\s*([0-9]+\.?[0-9]*|\.[0-9]+)\s*(mm|in|inch|inches|\")?\s*$", re.IGNORECASE
-)
+_LENGTH = re.compile(r"^\s*([0-9]+\.?[0-9]*|\.[0-9]+)\s*(mm|in|inch|inches|\")?\s*$", re.IGNORECASE)
 
 
 def to_mm(value: float, unit: str) -> float:
@@ -48,9 +46,7 @@ def parse_length(text: str, *, default_unit: str = "mm", what: str = "length") -
     """
     match = _LENGTH.match(str(text))
     if not match:
-        raise OptionError(
-            f"{what} must be a positive length such as 2in or 50mm, got {text!r}"
-        )
+        raise OptionError(f"{what} must be a positive length such as 2in or 50mm, got {text!r}")
     value = float(match.group(1))
     unit = (match.group(2) or default_unit).lower()
     unit = "in" if unit in ("in", "inch", "inches", '"') else unit
@@ -64,3 +60,16 @@ def parse_length(text: str, *, default_unit: str = "mm", what: str = "length") -
 def default_cell(unit: str) -> float:
     """The customary counting square in ``unit``: 1 in, or 25 mm (common practice)."""
     return 1.0 if unit == "in" else 25.0
+
+
+def density_label(unit: str, cell: float) -> str:
+    """Words for a density in ``unit`` with a ``cell`` side.
+
+    "points per square inch" (1 in cell), "points per 25 mm square", "points per 2 in square".
+    """
+    cell = float(cell)
+    if unit == "in":
+        return (
+            "points per square inch" if abs(cell - 1.0) < 1e-9 else f"points per {cell:g} in square"
+        )
+    return f"points per {cell:g} mm square"

@@ -20,6 +20,7 @@ from urllib.parse import quote
 from printcheck import __version__
 from printcheck.report.files import CSV_NAME, output_name, write_text
 from printcheck.spec import Spec
+from printcheck.units import density_label
 
 __all__ = ["render_report", "write_report"]
 
@@ -180,8 +181,7 @@ def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
     top = max((float(c.get("density") or 0.0) for c in cells), default=0.0)
     lo = None if spec is None else spec.bearing_min
     hi = None if spec is None else spec.bearing_max
-    cell_side = _num(result.get("cell"), 2).rstrip("0").rstrip(".")
-    unit_text = f"points per {cell_side} {_e(result.get('unit'))} square"
+    unit_text = _e(density_label(str(result.get("unit") or "in"), float(result.get("cell") or 1.0)))
 
     def table(key: str, caption: str) -> str:
         out = [f'<table class="heat"><caption>{caption}</caption>']
@@ -263,8 +263,7 @@ def _pass_section(
     spec_block = result.get("spec") if isinstance(result.get("spec"), Mapping) else None
     meets = None if spec_block is None else spec_block.get("meets")
     unit = _e(result.get("unit") or "")
-    cell = result.get("cell")
-    cell_txt = "" if cell is None else f"{float(cell):g}"
+    result.get("cell")
     conf = result.get("confidence") if isinstance(result.get("confidence"), Mapping) else None
     taken = result.get("taken")
     parts = [f'<section class="pass" id="pass-{number}">']
@@ -294,7 +293,11 @@ def _pass_section(
         bear_rng = f"range {_num(b_lo)}–{_num(b_hi)} %"
     parts.append('<div class="figures">')
     parts.append(
-        _figure(_num(result.get("density")), f"points per {cell_txt} {unit} square", den_rng)
+        _figure(
+            _num(result.get("density")),
+            _e(density_label(str(result.get("unit") or "in"), float(result.get("cell") or 1.0))),
+            den_rng,
+        )
     )
     parts.append(_figure(_num(result.get("bearing_percent")) + " %", "bearing", bear_rng))
     parts.append(_figure(_num(result.get("spot_count")), "spots in the window", cnt_rng))
@@ -394,8 +397,8 @@ def render_report(
         head.append(
             _figure(
                 _num(latest.get("density")),
-                f"points per {float(latest.get('cell') or 1):g} {_e(latest.get('unit'))} "
-                "square, latest",
+                _e(density_label(str(latest.get("unit") or "in"), float(latest.get("cell") or 1.0)))
+                + ", latest",
             )
         )
         head.append(_figure(_num(latest.get("bearing_percent")) + " %", "bearing, latest"))

@@ -24,6 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from printcheck.result import Result
+from printcheck.units import density_label
 
 __all__ = ["OverlayStyle", "COLOURS", "draw_overlay", "spot_boundaries"]
 
@@ -360,7 +361,7 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
             ts,
         )
 
-    unit_text = f"large: points per {result.cell:g} {result.unit} square; small: bearing %"
+    unit_text = f"large: {density_label(result.unit, result.cell)}; small: bearing %"
     lscale = max(0.4, min(w / 1500.0, 1.2))
     band = _legend(w, lscale, max(1, int(round(lscale * 1.6))), unit_text)
     return np.concatenate([img, band], axis=0)

@@ -11,6 +11,8 @@ import io
 from collections.abc import Mapping
 from typing import Any
 
+from printcheck.units import density_label
+
 __all__ = ["trend_png"]
 
 _BLUE = "#1f5fa8"
@@ -105,7 +107,7 @@ def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
                 color=_BLUE,
             )
         ax_d.plot(mid, target, "D", ms=6, color=_BLUE)
-    ax_d.set_ylabel(f"points per {cell:g} {unit} sq.")
+    ax_d.set_ylabel(density_label(str(unit), float(cell)))
     ax_d.set_title("Density", loc="left", fontsize=10)
     tops = [p["density"] for p in passes if p.get("density") is not None]
     if target is not None:
