@@ -180,6 +180,30 @@ def _polygon_area(points: tuple[Point, ...]) -> float:
     return area / 2.0
 
 
+def _inside(x: float, y: float, polygon: tuple[Point, ...]) -> bool:
+    """Even-odd rule: is (x, y) inside ``polygon``."""
+    inside = False
+    for (x0, y0), (x1, y1) in zip(polygon, polygon[1:] + polygon[:1], strict=True):
+        if (y0 > y) != (y1 > y) and x < x0 + (y - y0) * (x1 - x0) / (y1 - y0):
+            inside = not inside
+    return inside
+
+
+def _covers(window: Window, polygons: list[tuple[Point, ...]]) -> bool:
+    """True when every sample point of ``window`` (0.5 mm apart, at most 200 a side) lies in
+    one of ``polygons``.  Stops at the first uncovered point, so it is quick for the usual
+    small exclusions."""
+    nx = min(200, max(2, math.ceil(window.width_mm / 0.5)))
+    ny = min(200, max(2, math.ceil(window.height_mm / 0.5)))
+    for i in range(nx):
+        x = window.x_mm + (i + 0.5) * window.width_mm / nx
+        for j in range(ny):
+            y = window.y_mm + (j + 0.5) * window.height_mm / ny
+            if not any(_inside(x, y, poly) for poly in polygons):
+                return False
+    return True
+
+
 def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
     """Validate a layout read from TOML and convert it to millimetres.
 
@@ -315,6 +339,10 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
         ):
             raise _fail(source, f"{where}.points", "the polygon lies wholly outside the window")
         exclusions.append(pts)
+    if exclusions and _covers(window, exclusions):
+        raise _fail(
+            source, "exclude", "the exclusions cover the whole window; nothing is left to measure"
+        )
 
     return Layout(
         name=name.strip(),
