@@ -230,6 +230,20 @@ def test_errors_name_the_file_the_key_and_the_problem(
     assert isinstance(info.value, ValueError)  # LayoutError is also the built-in it resembles
 
 
+def test_exclusions_that_cover_the_whole_window_are_refused() -> None:
+    # two halves that together cover the 50.8 x 25.4 mm window, one reaching past it
+    halves = [
+        {"points": [[-1.0, -1.0], [30.0, -1.0], [30.0, 30.0], [-1.0, 30.0]]},
+        {"points": [[30.0, 0.0], [50.8, 0.0], [50.8, 25.4], [30.0, 25.4]]},
+    ]
+    with pytest.raises(LayoutError, match="cover the whole window") as info:
+        parse_layout(_set(_valid(), ("exclude",), halves), source=SOURCE)
+    assert str(info.value).startswith(f"layout {SOURCE}: exclude: ")
+    # leave a 2 mm strip uncovered and the layout is fine
+    halves[1]["points"] = [[32.0, 0.0], [50.8, 0.0], [50.8, 25.4], [32.0, 25.4]]
+    assert len(parse_layout(_set(_valid(), ("exclude",), halves)).exclusions) == 2
+
+
 def test_top_level_must_be_a_table() -> None:
     with pytest.raises(LayoutError, match="must be a TOML table"):
         parse_layout([1, 2], source=SOURCE)  # type: ignore[arg-type]
@@ -503,10 +517,10 @@ def _valid_layouts(draw: st.DrawFn) -> dict[str, Any]:
                 ],
             }
         )
-    exclusions = []
+    exclusions = []  # from 30 % in: never over the window's top-left corner
     for _ in range(draw(st.integers(0, 2))):
-        ex0 = x + draw(st.integers(0, 90)) / 100 * width
-        ey0 = y + draw(st.integers(0, 90)) / 100 * height
+        ex0 = x + draw(st.integers(30, 90)) / 100 * width
+        ey0 = y + draw(st.integers(30, 90)) / 100 * height
         ew, eh = draw(_size), draw(_size)
         exclusions.append(
             {"points": [[ex0, ey0], [ex0 + ew, ey0], [ex0 + ew, ey0 + eh], [ex0, ey0 + eh]]}
