@@ -170,7 +170,10 @@ def _decode_pillow(path: Path, im) -> np.ndarray:  # type: ignore[no-untyped-def
 
     try:
         with _quiet():
-            return _pillow_to_bgr8(ImageOps.exif_transpose(im))
+            # in place: ``im`` is this module's own object; exif_transpose would otherwise
+            # copy the whole decoded photo even when it needs no turning
+            ImageOps.exif_transpose(im, in_place=True)
+            return _pillow_to_bgr8(im)
     except OSError as exc:
         raise PhotoError(f"photo {path}: could not be decoded ({exc})") from None
     except (ValueError, SyntaxError) as exc:  # Pillow's word for a malformed stream
