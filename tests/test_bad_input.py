@@ -589,6 +589,14 @@ LAYOUT_CASES = [
         "exclude #1.points",
         "wholly outside the window",
     ),
+    (
+        "all-excluded.toml",
+        lambda t: (
+            t + "\n[[exclude]]\npoints = [[-1.0, -1.0], [52.0, -1.0], [52.0, 52.0], [-1.0, 52.0]]\n"
+        ),
+        "exclude",
+        "cover the whole window",
+    ),
     ("broken.toml", lambda t: t.replace("[window]", "[window"), "", "not valid TOML"),
 ]
 
