@@ -8,13 +8,18 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
+from printcheck.errors import PrintcheckError
 from printcheck.layout import Layout, Window, card_layout
 from printcheck.result import Result
 from printcheck.spec import Spec
 from printcheck.units import default_cell, to_mm
+
+if TYPE_CHECKING:
+    from printcheck.locate import Rectified
 
 __all__ = ["InspectOptions", "inspect_image", "inspect_photo"]
 
@@ -80,19 +85,43 @@ def inspect_image(
     LocateError, OptionError
         When the photo cannot be measured with these options.
     """
-    from printcheck.judge import judge
+    return _measure_rectified(
+        _rectify(image, options),
+        options=options,
+        photo=photo,
+        path=path,
+        sha256=sha256,
+        taken=taken,
+    )
+
+
+def _rectify(image: np.ndarray, options: InspectOptions) -> Rectified:
+    """The locate stage: markers (or the explicit scale) to the rectified window."""
     from printcheck.locate import LocateConfig, locate, rectify_scale
-    from printcheck.measure import MeasureConfig, measure
-    from printcheck.segment import SegmentConfig, mask_at, segment
 
     loc_config = LocateConfig(allow_partial=options.allow_partial)
     if options.px_per_mm is not None:
-        rect = rectify_scale(
+        return rectify_scale(
             image, px_per_mm=options.px_per_mm, window=options.scale_window, config=loc_config
         )
-    else:
-        layout = options.layout if options.layout is not None else card_layout()
-        rect = locate(image, layout=layout, config=loc_config)
+    layout = options.layout if options.layout is not None else card_layout()
+    return locate(image, layout=layout, config=loc_config)
+
+
+def _measure_rectified(
+    rect: Rectified,
+    *,
+    options: InspectOptions,
+    photo: str,
+    path: str | None,
+    sha256: str | None,
+    taken: datetime | None,
+) -> Result:
+    """Segment, measure and judge the rectified window; the photo itself is not needed."""
+    from printcheck.judge import judge
+    from printcheck.measure import MeasureConfig, measure
+    from printcheck.segment import SegmentConfig, mask_at, segment
+
     seg = segment(
         rect.image,
         visible=rect.visible,
@@ -143,11 +172,16 @@ def inspect_photo(path: str | Path, *, options: InspectOptions) -> Result:
     from printcheck.load import load_photo
 
     photo = load_photo(path)
-    return inspect_image(
-        photo.image,
-        options=options,
-        photo=photo.name,
-        path=photo.path,
-        sha256=photo.sha256,
-        taken=photo.taken if photo.taken is not None else photo.file_time,
-    )
+    name, where, sha256 = photo.name, photo.path, photo.sha256
+    taken = photo.taken if photo.taken is not None else photo.file_time
+    try:
+        rect = _rectify(photo.image, options)
+        # the decoded photo is not needed past locate: let it go before segment and measure
+        # (36 MB for 12 MP, 72 MB for 24 MP off the peak memory)
+        del photo
+        return _measure_rectified(
+            rect, options=options, photo=name, path=where, sha256=sha256, taken=taken
+        )
+    except PrintcheckError as exc:
+        # the stages are pure and do not know the file: say which photo it was
+        raise type(exc)(f"photo {path}: {exc}") from None
