@@ -118,11 +118,13 @@ def _render_card(path: Path, size: tuple[int, int], seed: int) -> None:
 def _render_way(path: Path, width_mm: float, height_mm: float, size: tuple[int, int]) -> None:
     from printcheck.synth.render import Camera, Scene, render_photo
 
-    # window 0.8 of the photo width; surface grid 8 px/mm, finer than the photo resolves
+    # surface grid 8 px/mm, finer than the photo resolves (WAY_PX_PER_MM)
     scene = Scene(
         layout=_way_layout(width_mm, height_mm),
         image_size=size,
-        camera=Camera(tilt_deg=10.0, rotation_deg=3.0, window_fraction=0.8),
+        camera=Camera(
+            tilt_deg=10.0, rotation_deg=3.0, window_fraction=width_mm * WAY_PX_PER_MM / size[0]
+        ),
         density=15.0,
         truth_px_per_mm=8.0,
     )
@@ -152,13 +154,18 @@ def card_shot(cache: Path, mp: int, seed: int, log: Callable[[str], None]) -> Sh
     return Shot(key, path, "card", size[0] * size[1] / 1e6)
 
 
-# photo sizes of the way layouts: same camera distance per mm of window (window 0.8 of the
-# photo width), so the photo resolution (px/mm) is the same and the photo grows with area
-WAYS = {
-    (100, 300): (2000, 1334),
-    (200, 600): (4000, 2667),
-    (300, 900): (6000, 4000),
-}
+# The way layouts are photographed at one resolution, WAY_PX_PER_MM at zero tilt: the
+# window and the markers beyond its ends (45 mm each side, and margin) fill 0.9 of the photo
+# width, 3:2 photos; 300 x 900 mm is a 24 MP (6000 x 4000) photo.
+WAY_PX_PER_MM = 5.4
+
+
+def _way_size(width_mm: float) -> tuple[int, int]:
+    w = round((width_mm + 100.0) * WAY_PX_PER_MM / 0.9)
+    return w, round(w * 2 / 3)
+
+
+WAYS = {(h, w): _way_size(w) for h, w in ((100, 300), (200, 600), (300, 900))}
 
 
 def way_shot(cache: Path, height: int, width: int, log: Callable[[str], None]) -> Shot:
@@ -336,32 +343,64 @@ def print_stages(named: list[tuple[str, dict[str, Any]]]) -> None:
 
 
 def _child_rss(path: str, layout_name: str) -> None:
-    """In a fresh process: import, note RSS, inspect and report one photo, print peaks (MB)."""
+    """In a fresh process: import, then inspect and report one photo stage by stage as
+    pipeline.inspect_image chains them, printing the peak RSS (MB) after each as JSON."""
     import skimage.segmentation  # noqa: F401  (imported lazily by measure)
 
-    import printcheck.judge  # noqa: F401
-    import printcheck.load  # noqa: F401
-    import printcheck.locate  # noqa: F401
-    import printcheck.measure  # noqa: F401
     import printcheck.report.files  # noqa: F401
     import printcheck.report.overlay  # noqa: F401
-    import printcheck.segment  # noqa: F401
+    from printcheck.judge import judge
+    from printcheck.load import load_photo
+    from printcheck.locate import LocateConfig, locate
+    from printcheck.measure import MeasureConfig, measure
     from printcheck.pipeline import inspect_photo
+    from printcheck.segment import SegmentConfig, mask_at, segment
 
     options = _options(layout_name)
-
-    def rss_mb() -> float:
-        return _peak_rss_mb()
-
-    base = rss_mb()
-    result = inspect_photo(path, options=options)
-    after_inspect = rss_mb()
+    assert options.layout is not None and options.spec is not None
+    peaks = {"base": _peak_rss_mb()}
+    if os.environ.get("PRINTCHECK_BENCH_WHOLE"):
+        result = inspect_photo(path, options=options)
+        peaks["inspect"] = _peak_rss_mb()
+    else:
+        photo = load_photo(path)
+        peaks["decode"] = _peak_rss_mb()
+        rect = locate(photo.image, layout=options.layout, config=LocateConfig())
+        peaks["locate"] = _peak_rss_mb()
+        seg = segment(
+            rect.image,
+            visible=rect.visible,
+            config=SegmentConfig(px_per_mm=rect.frame.px_per_mm),
+        )
+        peaks["segment"] = _peak_rss_mb()
+        alternates = (
+            mask_at(seg, seg.threshold - seg.spread),
+            mask_at(seg, seg.threshold + seg.spread),
+        )
+        peaks["confidence masks"] = _peak_rss_mb()
+        meas = measure(
+            seg.mask,
+            frame=rect.frame,
+            analysed=rect.analysed,
+            config=MeasureConfig(
+                cell_mm=options.cell_mm,
+                min_spot_mm2=options.min_spot_mm2,
+                max_bare_mm=options.spec.max_bare_mm,
+            ),
+            alternates=alternates,
+        )
+        peaks["measure"] = _peak_rss_mb()
+        judge(meas, options.spec, unit=options.unit)
+        del photo, rect, seg, alternates, meas
+        result = inspect_photo(path, options=options)  # for the report (peak already counted)
+        peaks["inspect"] = _peak_rss_mb()
     out = Path(tempfile.mkdtemp(prefix="printcheck-bench-"))
     try:
         _report(result, out)
     finally:
         shutil.rmtree(out, ignore_errors=True)
-    print(json.dumps({"base": base, "inspect": after_inspect, "report": rss_mb()}))
+    peaks["report"] = _peak_rss_mb()
+    print(json.dumps(peaks))
 
 
 def _peak_rss_mb() -> float:
@@ -380,9 +419,13 @@ def _peak_rss_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: KiB
 
 
-def peak_rss(shot: Shot) -> dict[str, float]:
+def peak_rss(shot: Shot, *, whole: bool) -> dict[str, float]:
+    """Peaks of a fresh child: stage by stage, or (``whole``) one inspect_photo call."""
     cmd = [sys.executable, str(HERE), "--child-rss", str(shot.path), shot.layout]
-    out = subprocess.run(cmd, check=True, capture_output=True, text=True, env=_env()).stdout
+    env = _env()
+    if whole:
+        env["PRINTCHECK_BENCH_WHOLE"] = "1"
+    out = subprocess.run(cmd, check=True, capture_output=True, text=True, env=env).stdout
     return json.loads(out.strip().splitlines()[-1])
 
 
@@ -537,16 +580,20 @@ def main() -> None:
     if "memory" in parts:
         print("\n== peak memory (RSS) per photo, fresh process each (MB)")
         shots = cards + ([] if args.quick else [way_shot(cache, 300, 900, log)])
+        stages = ("decode", "locate", "segment", "confidence masks", "measure")
         print(
-            f"{'photo':30s}{'after imports':>15s}{'peak inspect':>14s}{'peak +report':>14s}"
-            f"{'added':>9s}   target"
+            f"{'photo':28s}{'imports':>8s}{'inspect':>8s}{'+report':>8s}{'added':>7s}  target"
+            "   peak after each stage (stage by stage): " + ", ".join(stages)
         )
         for shot in shots:
-            r = peak_rss(shot)
-            target = "600" if shot.megapixels < 15 else "1000"
+            whole = peak_rss(shot, whole=True)
+            staged = peak_rss(shot, whole=False)
+            target = 600 if shot.megapixels < 15 else 1000
+            ok = "ok" if whole["report"] < target else "OVER"
             print(
-                f"{shot.key:30s}{r['base']:15.0f}{r['inspect']:14.0f}{r['report']:14.0f}"
-                f"{r['report'] - r['base']:9.0f}   < {target} peak"
+                f"{shot.key:28s}{whole['base']:8.0f}{whole['inspect']:8.0f}{whole['report']:8.0f}"
+                f"{whole['report'] - whole['base']:7.0f}  <{target} {ok:4s} "
+                + " ".join(f"{staged[k]:5.0f}" for k in stages)
             )
 
     if "surface" in parts:
