@@ -11,6 +11,7 @@ Exit status: 0 the surface meets its spec (or no spec was asked for), 1 it does 
 from __future__ import annotations
 
 import json
+import math
 import os
 import sys
 from collections.abc import Sequence
@@ -39,6 +40,9 @@ app = typer.Typer(
 )
 
 EXIT_MEETS, EXIT_FAILS, EXIT_UNUSABLE = 0, 1, 2
+MIN_PX_PER_MM, MAX_PX_PER_MM = 1.0, 500.0  # a coarse scan to a microscope stage
+MIN_CELL_MM = 5.0  # a cell must hold a few spots of a millimetre or two
+MAX_MIN_SPOT_MM2 = 100.0
 
 # ---------------------------------------------------------------- shared options
 
@@ -167,12 +171,29 @@ def _build_options(common: _Common, job: JobSettings) -> InspectOptions:
     px_per_mm = _pick(common.px_per_mm, job.px_per_mm, None)
     if px_per_mm is not None and not px_per_mm > 0:
         raise OptionError(f"--px-per-mm must be greater than zero, got {px_per_mm:g}")
+    if px_per_mm is not None and not MIN_PX_PER_MM <= px_per_mm <= MAX_PX_PER_MM:
+        raise OptionError(
+            f"--px-per-mm must be between {MIN_PX_PER_MM:g} and {MAX_PX_PER_MM:g} "
+            f"(pixels per mm of a square-on photo or scan), got {px_per_mm:g}"
+        )
     cell = _pick(common.cell, job.cell, None)
     if cell is not None and not cell > 0:
         raise OptionError(f"--cell must be greater than zero, got {cell:g}")
+    if cell is not None:
+        cell_mm = to_mm(cell, unit) if math.isfinite(cell) else math.inf
+        if not MIN_CELL_MM <= cell_mm < math.inf:
+            raise OptionError(
+                f"--cell must be at least {MIN_CELL_MM:g} mm ({MIN_CELL_MM / MM_PER_IN:g} in) "
+                f"and finite, got {cell:g} {unit}; the customary cell is 1 in or 25 mm"
+            )
     min_spot = _pick(common.min_spot, job.min_spot, 0.1)
-    if not min_spot >= 0:
-        raise OptionError(f"--min-spot must be zero or more mm², got {min_spot:g}")
+    if not 0 <= min_spot <= MAX_MIN_SPOT_MM2:
+        raise OptionError(
+            f"--min-spot must be between 0 and {MAX_MIN_SPOT_MM2:g} mm², got {min_spot:g}"
+        )
+    surface = _pick(common.surface, job.surface, None)
+    if surface is not None and (not surface.strip() or "\n" in surface):
+        raise OptionError(f"--surface must be a name on one line, got {surface!r}")
     layout = None
     layout_path = common.layout if common.layout is not None else job.layout
     if layout_path is not None and px_per_mm is None:
@@ -202,7 +223,7 @@ def _build_options(common: _Common, job: JobSettings) -> InspectOptions:
         compound=_pick(common.compound, job.compound, "blue"),
         compound_on=_pick(common.compound_on, job.compound_on, "reference"),
         spec=spec,
-        surface=_pick(common.surface, job.surface, None),
+        surface=None if surface is None else surface.strip(),
         min_spot_mm2=min_spot,
         allow_partial=common.partial,
     )

@@ -389,7 +389,10 @@ def _number(
     value = data[key]
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise _fail(source, key, f"must be a number, got {value!r}")
-    number = float(value)
+    try:
+        number = float(value)
+    except OverflowError:
+        raise _fail(source, key, f"must be a finite number, got {value!r}") from None
     if not math.isfinite(number):
         raise _fail(source, key, f"must be a finite number, got {value!r}")
     if positive and number <= 0:

@@ -236,3 +236,13 @@ def test_bad_option_values_exit_2_with_one_line(small_job, capsys) -> None:  # t
         code, out, err = _run(capsys, "inspect", photo, *args)
         assert code == 2, args
         assert out == "" and len(err.strip().splitlines()) == 1 and err.startswith("printcheck: ")
+
+
+def test_demo_renders_a_job_and_reports_it(tmp_path, capsys) -> None:  # type: ignore[no-untyped-def]
+    code, out, err = _run(capsys, "demo", str(tmp_path / "demo"), "--passes", "2", "--seed", "3")
+    assert code in (0, 1), err
+    photos = sorted((tmp_path / "demo" / "photos").glob("*.jpg"))
+    assert len(photos) == 2
+    assert (tmp_path / "demo" / "report" / "report.html").is_file()
+    assert (tmp_path / "demo" / "history.sqlite").is_file()  # never the user's own history
+    assert "truth" in out
