@@ -92,6 +92,8 @@ class SegmentConfig:
     hysteresis: float = 0.4
     smooth_mm: float = 0.04
     close_mm: float | None = None
+    rim_share: float = 0.5
+    rim_noise: float = 4.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -145,6 +147,8 @@ class Segmentation:
     glare_fraction: float = 0.0
     floor: np.ndarray | None = field(default=None)
     close_px: int = 0
+    rim_gap: float = 0.0
+    rim_share: float = 0.5
 
 
 # --------------------------------------------------------------------------- evidence
@@ -398,9 +402,20 @@ def _hysteresis(
     low: float,
     allowed: np.ndarray,
     floor: np.ndarray | None = None,
+    rim: tuple[float, float, float] | None = None,
 ) -> np.ndarray:
-    """Pixels above ``low`` connected to a seed above ``high`` (and above ``floor``)."""
-    weak = (score > low) & allowed
+    """Pixels above ``low`` connected to a seed above ``high`` (and above ``floor``).
+
+    With ``rim = (lowest, bare, share)``, a mark whose peak stands only a little above
+    the bare level (a small spot, softened by the optics) keeps its pixels down to
+    ``bare + share * (peak - bare)`` (its half-height contour when ``share`` is 0.5),
+    but never below ``lowest``; a mark with a high peak keeps pixels down to ``low``.
+    """
+    if rim is None or not rim[0] < low:
+        base = low
+    else:
+        base = rim[0]
+    weak = (score > base) & allowed
     n, lab = cv2.connectedComponents(weak.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     if n <= 1:
         return weak
@@ -409,6 +424,23 @@ def _hysteresis(
         strong &= score > floor
     keep = np.zeros(n, bool)
     keep[lab[strong]] = True
+    keep[0] = False
+    if base >= low:
+        return keep[lab]
+    assert rim is not None
+    from scipy import ndimage
+
+    lowest, bare, share = rim
+    peak = np.asarray(ndimage.maximum(score, lab, np.arange(n)), dtype=np.float32)
+    level = np.clip(bare + share * (peak - bare), lowest, low).astype(np.float32)
+    level[~keep] = np.inf
+    weak = score > level[lab]
+    # the raised level may cut a mark off its seed: keep only pieces holding a seed
+    n, lab = cv2.connectedComponents(weak.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    if n <= 1:
+        return weak
+    keep = np.zeros(n, bool)
+    keep[lab[strong & weak]] = True
     keep[0] = False
     return keep[lab]
 
@@ -452,16 +484,43 @@ def mask_at(segmentation: Segmentation, threshold: float) -> np.ndarray:
     """
     seg = segmentation
     allowed = seg.visible if seg.blocked is None else seg.visible & ~seg.blocked
-    m = _hysteresis(
-        seg.score, float(threshold), float(threshold) - seg.low_gap, allowed, seg.floor
-    )
+    low = float(threshold) - seg.low_gap
+    rim = None
+    if seg.rim_gap > 0:
+        rim = (low - seg.rim_gap, seg.bare_level + float(threshold) - seg.threshold,
+               seg.rim_share)
+    m = _hysteresis(seg.score, float(threshold), low, allowed, seg.floor, rim)
     if seg.close_px > 0:
         k = 2 * seg.close_px + 1
         kernel = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (k, k))
         m = cv2.morphologyEx(m.view(np.uint8), cv2.MORPH_CLOSE, kernel).view(bool) & allowed
     max_hole = 0.05 * seg.px_per_mm**2
     m = _fill_small_holes(m, max_hole, seg.blocked)
-    return m & seg.visible
+    return _drop_edge_slivers(m & seg.visible, seg.visible, seg.px_per_mm)
+
+
+def _drop_edge_slivers(mask: np.ndarray, visible: np.ndarray, px_per_mm: float) -> np.ndarray:
+    """Drop marks lying mostly in a thin band along the edge of ``visible``.
+
+    Such a mark is the edge of a card's cut-out (white paper) or its shadow, shown
+    through a registration error of a fraction of a millimetre; a real spot cut by the
+    edge keeps most of its area inside.  The band is ``max(1, 0.1 * px_per_mm)`` pixels
+    wide.
+    """
+    w = max(1, int(round(0.1 * px_per_mm)))
+    inner = cv2.erode(visible.view(np.uint8), np.ones((2 * w + 1, 2 * w + 1), np.uint8),
+                      borderType=cv2.BORDER_CONSTANT, borderValue=0).view(bool)
+    band = mask & ~inner
+    if not band.any():
+        return mask
+    n, lab = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    area = np.bincount(lab.ravel(), minlength=n)
+    in_band = np.bincount(lab[band], minlength=n)
+    drop = in_band > 0.5 * area
+    drop[0] = False
+    if not drop.any():
+        return mask
+    return mask & ~drop[lab]
 
 
 # --------------------------------------------------------------------------- segment
@@ -564,6 +623,7 @@ def segment(
         if not (floor > t - _low_gap(config, t, m0)).any():
             floor = None
     low_gap = config.hysteresis * (t - m0)
+    rim_gap = max(0.0, (t - low_gap) - (m0 + config.rim_noise * s0))
     spread = max(0.15 * (t - m0), 0.5 * s0)
 
     if glare_fraction > 0.05:
@@ -596,6 +656,8 @@ def segment(
         px_per_mm=s,
         warnings=tuple(warnings),
         low_gap=float(low_gap),
+        rim_gap=float(rim_gap),
+        rim_share=float(config.rim_share),
         floor=floor,
         close_px=close_px,
         blocked=glare,

@@ -227,3 +227,20 @@ def test_errors():
         segment(
             np.zeros((10, 10, 3), np.uint8), visible=vis, config=SegmentConfig(compound="green")
         )  # type: ignore[arg-type]
+
+
+def test_card_edge_sliver_is_not_a_spot():
+    # Compound on the work, seen through a card cut-out registered a pixel off: a ring
+    # of white paper along the edge of what is shown.  Truth (how the photo was made):
+    # the rubbed-through spots only; the ring is no spot (DESIGN.md: a spot is a
+    # contact mark on the surface), counted with scipy.ndimage.label.
+    spots = _blobs(seed=5, count=20)
+    img = _render(spots, seed=5, on="work")
+    img[:1, :] = img[-1:, :] = img[:, :1] = img[:, -1:] = 235  # paper, nearly white
+    seg = segment(img, visible=np.ones(SHAPE, bool),
+                  config=SegmentConfig(compound="blue", compound_on="work", px_per_mm=S))
+    inner = np.zeros(SHAPE, bool)
+    inner[1:-1, 1:-1] = True
+    assert _count(seg.mask) == pytest.approx(_truth(spots & inner)[0], abs=1)
+    assert not seg.mask[0, SHAPE[1] // 2 - 20 : SHAPE[1] // 2 + 20].all()
+
