@@ -15,12 +15,12 @@ else ``printcheck.toml`` in the photos' folder); printcheck's default.
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass, fields
 from pathlib import Path
 from typing import Any
 
 from printcheck.errors import OptionError
+from printcheck.tomlfile import read_toml
 
 __all__ = ["JOB_FILE", "JobSettings", "read_job_settings", "find_job_file"]
 
@@ -79,14 +79,7 @@ def read_job_settings(path: str | Path) -> JobSettings:
         One line naming the file, the key and the problem.
     """
     path = Path(path)
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise OptionError(f"job settings {path}: file not found") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise OptionError(f"job settings {path}: cannot be read ({exc})") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise OptionError(f"job settings {path}: not valid TOML ({exc})") from None
+    data = read_toml(path, kind="job settings", error=OptionError)
     values: dict[str, Any] = {}
     for key, value in data.items():
         if key not in _TYPES:
@@ -106,12 +99,18 @@ def read_job_settings(path: str | Path) -> JobSettings:
             except OverflowError:  # a TOML integer too large for a float
                 value = math.inf
             if not math.isfinite(value):
-                raise OptionError(f"job settings {path}: {key}: must be a finite number, got {data[key]!r}")
+                raise OptionError(
+                    f"job settings {path}: {key}: must be a finite number, got {data[key]!r}"
+                )
             if key in _ZERO_OK:
                 if value < 0:
-                    raise OptionError(f"job settings {path}: {key}: must be zero or more, got {value!r}")
+                    raise OptionError(
+                        f"job settings {path}: {key}: must be zero or more, got {value!r}"
+                    )
             elif value <= 0:
-                raise OptionError(f"job settings {path}: {key}: must be greater than zero, got {value!r}")
+                raise OptionError(
+                    f"job settings {path}: {key}: must be greater than zero, got {value!r}"
+                )
         elif not value.strip() or any(ord(ch) < 32 or ord(ch) == 127 for ch in value):
             raise OptionError(
                 f"job settings {path}: {key}: must be one line of text that is not blank, got {value!r}"

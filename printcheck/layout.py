@@ -16,7 +16,6 @@ Keys beyond the contract (all optional, added by printcheck):
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -234,7 +233,9 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
         raise _fail(source, "name", f"must be one line without control characters, got {name!r}")
 
     if "dictionary" not in data:
-        raise _fail(source, "dictionary", "missing; name an OpenCV ArUco dictionary such as DICT_4X4_50")
+        raise _fail(
+            source, "dictionary", "missing; name an OpenCV ArUco dictionary such as DICT_4X4_50"
+        )
     dictionary = data["dictionary"]
     if not isinstance(dictionary, str) or dictionary not in ARUCO_DICTIONARY_SIZES:
         raise _fail(
@@ -246,7 +247,7 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
 
     units = data.get("units", "mm")
     if units not in ("mm", "in"):
-        raise _fail(source, "units", f"must be \"mm\" or \"in\", got {units!r}")
+        raise _fail(source, "units", f'must be "mm" or "in", got {units!r}')
     scale = MM_PER_IN if units == "in" else 1.0
 
     win = data.get("window")
@@ -290,7 +291,9 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
             raise _fail(source, f"{where}.id", f"must be a whole number, got {mid!r}")
         where = f"marker {mid}"
         if not 0 <= mid < size:
-            raise _fail(source, f"{where}.id", f"out of range: {dictionary} has ids 0 to {size - 1}")
+            raise _fail(
+                source, f"{where}.id", f"out of range: {dictionary} has ids 0 to {size - 1}"
+            )
         if mid in seen:
             raise _fail(source, f"{where}.id", "duplicate id; each marker id may appear once")
         seen.add(mid)
@@ -331,12 +334,7 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
             raise _fail(source, f"{where}.points", "the polygon encloses no area")
         xs = [p[0] for p in pts]
         ys = [p[1] for p in pts]
-        if (
-            max(xs) <= wx
-            or min(xs) >= wx + ww
-            or max(ys) <= wy
-            or min(ys) >= wy + wh
-        ):
+        if max(xs) <= wx or min(xs) >= wx + ww or max(ys) <= wy or min(ys) >= wy + wh:
             raise _fail(source, f"{where}.points", "the polygon lies wholly outside the window")
         exclusions.append(pts)
     if exclusions and _covers(window, exclusions):
@@ -364,23 +362,11 @@ def read_layout(path: str | Path) -> Layout:
     LayoutError
         When the file is missing, unreadable, not TOML, or not a valid layout.
     """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise LayoutError(f"layout {path}: file not found; give the path of a layout .toml") from None
-    except IsADirectoryError:
-        raise LayoutError(f"layout {path}: is a folder, not a layout .toml file") from None
-    except PermissionError:
-        raise LayoutError(f"layout {path}: permission denied; make the file readable") from None
-    except UnicodeDecodeError:
-        raise LayoutError(f"layout {path}: not a text file; a layout is a TOML file") from None
-    except OSError as exc:
-        raise LayoutError(f"layout {path}: cannot be read ({exc.strerror})") from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise LayoutError(f"layout {path}: not valid TOML ({exc})") from None
+    from printcheck.tomlfile import read_toml
+
+    data = read_toml(
+        path, kind="layout", error=LayoutError, missing_hint="; give the path of a layout .toml"
+    )
     return parse_layout(data, source=str(path))
 
 
@@ -400,7 +386,9 @@ def card_layout(window_mm: float = 2 * MM_PER_IN, *, name: str | None = None) ->
         Side of the square window in mm (default 2 in = 50.8 mm).
     """
     if not window_mm > 0:
-        raise LayoutError(f"layout built-in card: window must be greater than zero, got {window_mm!r}")
+        raise LayoutError(
+            f"layout built-in card: window must be greater than zero, got {window_mm!r}"
+        )
     w = float(window_mm)
     g, s = CARD_GAP_MM, CARD_MARKER_MM
     lo, hi = -g - s, w + g  # top-left corner of the markers before/after the window
@@ -453,7 +441,12 @@ def layout_to_toml(layout: Layout) -> str:
         f"margin = {f(layout.margin_mm)}",
     ]
     for m in layout.markers:
-        lines += ["", "[[marker]]", f"id = {m.id}", "corners = [" + ", ".join(pt(c) for c in m.corners_mm) + "]"]
+        lines += [
+            "",
+            "[[marker]]",
+            f"id = {m.id}",
+            "corners = [" + ", ".join(pt(c) for c in m.corners_mm) + "]",
+        ]
     for poly in layout.exclusions:
         lines += ["", "[[exclude]]", "points = [" + ", ".join(pt(p) for p in poly) + "]"]
     return "\n".join(lines) + "\n"

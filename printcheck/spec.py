@@ -29,7 +29,6 @@ from __future__ import annotations
 
 import difflib
 import math
-import tomllib
 from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
@@ -533,26 +532,14 @@ def read_spec(path: str | Path) -> Spec:
     SpecError
         When the file is missing, unreadable, not TOML, or not a valid spec.
     """
-    path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise SpecError(
-            f"spec {path}: file not found; give a spec .toml file or a built-in name "
-            "(printcheck specs)"
-        ) from None
-    except IsADirectoryError:
-        raise SpecError(f"spec {path}: is a folder, not a spec .toml file") from None
-    except PermissionError:
-        raise SpecError(f"spec {path}: permission denied; make the file readable") from None
-    except UnicodeDecodeError:
-        raise SpecError(f"spec {path}: not a text file; a spec is a TOML file") from None
-    except OSError as exc:
-        raise SpecError(f"spec {path}: cannot be read ({exc.strerror})") from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise SpecError(f"spec {path}: not valid TOML ({exc})") from None
+    from printcheck.tomlfile import read_toml
+
+    data = read_toml(
+        path,
+        kind="spec",
+        error=SpecError,
+        missing_hint="; give a spec .toml file or a built-in name (printcheck specs)",
+    )
     return parse_spec(data, source=str(path))
 
 
