@@ -526,6 +526,53 @@ def _drop_edge_slivers(mask: np.ndarray, visible: np.ndarray, px_per_mm: float) 
 # --------------------------------------------------------------------------- segment
 
 
+# Evidence (log channel ratio) of a surface that is compound nearly everywhere: bare
+# metal reads near 0 (about +-0.2 under a white-balance shift), a compound mark 0.7-1.8.
+_COVERED_EVIDENCE = 0.4
+
+
+def _mostly_compound(
+    raw: np.ndarray,
+    usable: np.ndarray,
+    visible: np.ndarray,
+    glare: np.ndarray,
+    compound: str,
+    s: float,
+    warnings: list[str],
+) -> Segmentation | None:
+    """A Segmentation for a surface that bears nearly everywhere, else None.
+
+    The threshold normally sits above the *local* bare-metal level, which does not exist
+    when compound covers the whole window (a surface that bears all over, or a print
+    smeared by too thick a film).  When four fifths of the surface carry compound, the
+    threshold is taken on the evidence itself, half-way up to the compound's level.
+    """
+    v = raw[usable]
+    q20, q50 = np.quantile(v, [0.2, 0.5])
+    if not q20 > _COVERED_EVIDENCE:
+        return None
+    t = 0.5 * float(q50)
+    warnings.append(
+        f"{compound} compound covers nearly the whole surface: a film too thick, or the "
+        "work was coated (use --compound-on work)"
+    )
+    seg = Segmentation(
+        mask=np.zeros(raw.shape, bool),
+        score=raw.astype(np.float32),
+        threshold=t,
+        compound=compound,
+        spread=0.15 * t,
+        visible=visible,
+        px_per_mm=s,
+        warnings=tuple(warnings),
+        blocked=glare,
+        bare_level=0.0,
+        compound_level=float(q50),
+        bare_sigma=max(float(np.std(v)), 1e-3),
+    )
+    return replace(seg, mask=mask_at(seg, t))
+
+
 def _low_gap(config: SegmentConfig, t: float, m0: float) -> float:
     return config.hysteresis * (t - m0)
 
@@ -603,6 +650,10 @@ def segment(
     if sigma_px >= 0.3:
         raw = cv2.GaussianBlur(raw, (0, 0), sigma_px)
     usable = visible & ~glare
+    if config.compound_on == "reference" and np.count_nonzero(usable) >= 16:
+        covered = _mostly_compound(raw, usable, visible, glare, compound, s, warnings)
+        if covered is not None:
+            return covered
     # the non-contact class is the lower side of the evidence; its local level is a
     # low quantile (a tile is rarely more than 80% contact)
     bg = _background(raw, usable, tile, 0.2)
