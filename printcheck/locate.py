@@ -438,31 +438,68 @@ def _rms(h: np.ndarray, photo: np.ndarray, layout: np.ndarray) -> float:
     return float(np.sqrt(np.mean(np.sum(d * d, axis=1))))
 
 
+def _fits_all(
+    cands: list[tuple[int, np.ndarray, np.ndarray]], tolerance_mm: float
+) -> np.ndarray | None:
+    """The homography of all candidates when every one is within ``tolerance_mm`` (RMS)."""
+    try:
+        h = fit_homography(
+            np.concatenate([c[1] for c in cands]), np.concatenate([c[2] for c in cands])
+        )
+    except LocateError:
+        return None
+    return h if all(_rms(h, c[1], c[2]) <= tolerance_mm for c in cands) else None
+
+
 def _robust_fit(
     cands: list[tuple[int, np.ndarray, np.ndarray]], drop_above_mm: float
 ) -> tuple[np.ndarray, list[tuple[int, np.ndarray, np.ndarray]], list[tuple[int, float]]]:
     """Fit to the candidates (id, photo (4, 2), layout (4, 2)) that agree, dropping misfits.
 
-    With three or more candidates: first a consensus, seeded by each candidate in turn
-    (its 4 corners fix a homography exactly; candidates whose corners land within
-    ``_SEED_TOLERANCE_MM`` of their layout places agree with it); the largest consensus
-    wins.  Then, leaving one out at a time, the worst is dropped while its corners miss
-    by more than ``drop_above_mm`` (RMS) and by more than 4 times the others' own RMS.
+    When the fit to all candidates (each id once) has every candidate within
+    ``drop_above_mm``, all are kept.  Otherwise, with three or more candidates: first a
+    consensus, seeded by each candidate in turn (its 4 corners fix a homography exactly)
+    and by each pair of candidates (whose seed counts only with a third marker agreeing);
+    candidates whose corners land within ``_SEED_TOLERANCE_MM`` of their layout places
+    agree with it, and the largest consensus wins.  Then, leaving one out at a time, the
+    worst is dropped while its corners miss by more than ``drop_above_mm`` (RMS) and by
+    more than 4 times the others' own RMS, until the fit of all that are left has every
+    one within ``drop_above_mm``.  (On a long layout -- markers at both ends of a
+    slideway -- one marker's homography, or one end's, extrapolated to the other end
+    misses it by far more than the fit of all does: pairs across the ends seed well.)
     Returns the homography, the kept candidates and the dropped (id, miss in mm).
     """
     kept = list(cands)
     dropped: list[tuple[int, float]] = []
+    unique = len({c[0] for c in kept}) == len(kept)
+    if len(kept) >= 3 and unique:
+        h_all = _fits_all(kept, drop_above_mm)
+        if h_all is not None:
+            return h_all, kept, dropped
     if len(kept) >= 3:
         best: tuple[int, float] = (0, 0.0)
         best_set = list(range(len(kept)))
-        for j in range(len(kept)):
+        seeds: list[tuple[int, ...]] = [(j,) for j in range(len(kept))]
+        seeds += [
+            (i, j)
+            for i in range(len(kept))
+            for j in range(i + 1, len(kept))
+            if kept[i][0] != kept[j][0]
+        ]
+        for seed in seeds:
             try:
-                h = fit_homography(kept[j][1], kept[j][2])
+                h = fit_homography(
+                    np.concatenate([kept[j][1] for j in seed]),
+                    np.concatenate([kept[j][2] for j in seed]),
+                )
             except LocateError:
                 continue
             miss = [_rms(h, c[1], c[2]) for c in kept]
             agree = [i for i, m in enumerate(miss) if m <= _SEED_TOLERANCE_MM]
-            score = (len({kept[i][0] for i in agree}), -sum(miss[i] for i in agree))
+            n_ids = len({kept[i][0] for i in agree})
+            if len(seed) == 2 and n_ids < 3:
+                continue  # a pair's own fit is no evidence: a third marker must agree
+            score = (n_ids, -sum(miss[i] for i in agree))
             if score > best:
                 best, best_set = score, agree
         if best[0] >= 2 and len(best_set) < len(kept):  # two or more markers agree
@@ -473,6 +510,8 @@ def _robust_fit(
             dropped = [(c[0], _rms(h, c[1], c[2])) for i, c in enumerate(kept) if i not in best_set]
             kept = [kept[i] for i in best_set]
     while len(kept) >= 3:
+        if len({c[0] for c in kept}) == len(kept) and _fits_all(kept, drop_above_mm) is not None:
+            break
         worst, worst_miss, worst_rest = -1, -1.0, 0.0
         for j in range(len(kept)):
             rest = kept[:j] + kept[j + 1 :]
