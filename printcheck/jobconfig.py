@@ -81,6 +81,7 @@ def read_job_settings(path: str | Path) -> JobSettings:
     path = Path(path)
     data = read_toml(path, kind="job settings", error=OptionError)
     values: dict[str, Any] = {}
+    value: Any
     for key, value in data.items():
         if key not in _TYPES:
             raise OptionError(
@@ -90,8 +91,9 @@ def read_job_settings(path: str | Path) -> JobSettings:
             kind = "text" if _TYPES[key] == (str,) else "a number"
             raise OptionError(f"job settings {path}: {key}: must be {kind}, got {value!r}")
         if key in _CHOICES and value not in _CHOICES[key]:
+            choices = ", ".join(_CHOICES[key])
             raise OptionError(
-                f"job settings {path}: {key}: must be one of {', '.join(_CHOICES[key])}, got {value!r}"
+                f"job settings {path}: {key}: must be one of {choices}, got {value!r}"
             )
         if _TYPES[key] == (int, float):
             try:
@@ -111,9 +113,10 @@ def read_job_settings(path: str | Path) -> JobSettings:
                 raise OptionError(
                     f"job settings {path}: {key}: must be greater than zero, got {value!r}"
                 )
-        elif not value.strip() or any(ord(ch) < 32 or ord(ch) == 127 for ch in value):
+        elif not str(value).strip() or any(ord(ch) < 32 or ord(ch) == 127 for ch in str(value)):
             raise OptionError(
-                f"job settings {path}: {key}: must be one line of text that is not blank, got {value!r}"
+                f"job settings {path}: {key}: must be one line of text that is not blank, "
+                f"got {value!r}"
             )
         values[key] = value
     base = path.parent

@@ -616,7 +616,7 @@ def segment(
     s = float(config.px_per_mm)
     warnings: list[str] = []
 
-    compound = config.compound
+    compound: str = config.compound
     if compound == "auto":
         compound, best, other = _choose_compound(image, visible, config.compound_on)
         if best < 1.5 * other:
