@@ -97,7 +97,7 @@ def read_job_settings(path: str | Path) -> JobSettings:
             )
         if _TYPES[key] == (int, float):
             try:
-                value = float(value)
+                value = float(value)  # type: ignore[arg-type]  # an int or float by the check above
             except OverflowError:  # a TOML integer too large for a float
                 value = math.inf
             if not math.isfinite(value):
