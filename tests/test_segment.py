@@ -244,3 +244,17 @@ def test_card_edge_sliver_is_not_a_spot():
     assert _count(seg.mask) == pytest.approx(_truth(spots & inner)[0], abs=1)
     assert not seg.mask[0, SHAPE[1] // 2 - 20 : SHAPE[1] // 2 + 20].all()
 
+
+
+def test_tile_quantile_equals_numpy_nanquantile() -> None:
+    """The one-sort tile quantile is numpy's nanquantile (linear method), the reference."""
+    from printcheck.segment import _quantile_ignoring_nan
+
+    rng = np.random.default_rng(4)
+    rows = rng.normal(size=(40, 300)).astype(np.float32)
+    rows[rng.random(rows.shape) < 0.35] = np.nan
+    counts = np.sum(~np.isnan(rows), axis=1)
+    for q in (0.05, 0.2, 0.5, 0.95):
+        np.testing.assert_allclose(
+            _quantile_ignoring_nan(rows, counts, q), np.nanquantile(rows, q, axis=1), atol=1e-6
+        )
