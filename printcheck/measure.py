@@ -662,15 +662,12 @@ def measure(
         )
 
     # --- confidence from the alternate masks
-    alt_results: list[tuple[int, float]] = []
-    for alt in alternates:
+    # They are labelled without the neck split, the costly part of labelling; the spots
+    # the split adds on the main mask are added back to their counts.
+    def _count_and_bearing(m: np.ndarray) -> tuple[int, float]:
         alt_labels, alt_n = label_spots(
-            np.asarray(alt, dtype=bool),
-            px_per_mm=s,
-            min_spot_mm2=config.min_spot_mm2,
-            split_touching=config.split_touching,
-            neck_ratio=config.neck_ratio,
-            neck_mm=config.neck_mm,
+            np.asarray(m, dtype=bool), px_per_mm=s, min_spot_mm2=config.min_spot_mm2,
+            split_touching=False,
         )
         _, arc, acc = _spot_table(alt_labels, alt_n)
         apr = np.floor(arc + 0.5).astype(np.int64)
@@ -682,7 +679,14 @@ def measure(
             if analysed_px
             else 0.0
         )
-        alt_results.append((int(ok.sum()), alt_bearing))
+        return int(ok.sum()), alt_bearing
+
+    alt_results: list[tuple[int, float]] = []
+    if alternates:
+        split_added = spot_count - _count_and_bearing(mask)[0] if config.split_touching else 0
+        for alt in alternates:
+            n_alt, b_alt = _count_and_bearing(alt)
+            alt_results.append((n_alt + split_added, b_alt))
     confidence = _confidence(spot_count, bearing, alt_results, config) if alternates else None
 
     guidance = _guidance(
