@@ -22,6 +22,18 @@ __all__ = ["BatchItem", "list_photos", "run_batch"]
 
 EXIT_MEETS, EXIT_FAILS, EXIT_UNUSABLE = 0, 1, 2
 
+_WORKER_MODULES = (
+    "printcheck.pipeline",
+    "printcheck.locate",
+    "printcheck.segment",
+    "printcheck.measure",
+    "printcheck.judge",
+    "printcheck.report.overlay",
+    "printcheck.report.files",
+    "skimage.segmentation",
+    "scipy.ndimage",
+)
+
 
 @dataclass(frozen=True)
 class BatchItem:
@@ -196,6 +208,10 @@ class _Runner:
             # state and can hang; the fork server starts clean children cheaply.
             methods = mp.get_all_start_methods()
             context = mp.get_context("forkserver" if "forkserver" in methods else "spawn")
+            if context.get_start_method() == "forkserver":
+                # the server imports the stages once; each worker forks from it ready to
+                # run (OpenCV starts no threads on import, so forking it is safe)
+                context.set_forkserver_preload(list(_WORKER_MODULES))
             self._pool = ProcessPoolExecutor(max_workers=self._workers, mp_context=context)
             self._futures = {
                 self._pool.submit(_work, item.path, self._options, self._out, True): index
