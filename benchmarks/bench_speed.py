@@ -68,26 +68,9 @@ class Shot:
 
 def _way_layout(width_mm: float, height_mm: float):  # noqa: ANN202
     """A slideway window ``width_mm`` x ``height_mm`` with two 30 mm markers at each end."""
-    from printcheck.layout import Layout, Marker, Window
+    from printcheck.synth.layouts import slideway_layout
 
-    m, gap = 30.0, 15.0
-
-    def marker(i: int, x: float, y: float) -> Marker:
-        return Marker(i, ((x, y), (x + m, y), (x + m, y + m), (x, y + m)))
-
-    return Layout(
-        name=f"way-{width_mm:g}x{height_mm:g}",
-        dictionary="DICT_4X4_50",
-        units="mm",
-        window=Window(0.0, 0.0, width_mm, height_mm),
-        markers=(
-            marker(0, -m - gap, 0.0),
-            marker(1, -m - gap, height_mm - m),
-            marker(2, width_mm + gap, 0.0),
-            marker(3, width_mm + gap, height_mm - m),
-        ),
-        margin_mm=5.0,
-    )
+    return slideway_layout(width_mm, height_mm)
 
 
 def _layout_for(name: str):  # noqa: ANN202

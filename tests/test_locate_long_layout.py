@@ -11,30 +11,14 @@ import cv2
 import numpy as np
 import pytest
 
-from printcheck.layout import Layout, Marker, Window
+from printcheck.layout import Layout
 from printcheck.locate import _robust_fit
+from printcheck.synth.layouts import slideway_layout
 from printcheck.synth.render import Camera, camera_homography
 
 
 def _way(width_mm: float, height_mm: float) -> Layout:
-    m, gap = 30.0, 15.0
-
-    def marker(i: int, x: float, y: float) -> Marker:
-        return Marker(i, ((x, y), (x + m, y), (x + m, y + m), (x, y + m)))
-
-    return Layout(
-        name="way",
-        dictionary="DICT_4X4_50",
-        units="mm",
-        window=Window(0.0, 0.0, width_mm, height_mm),
-        markers=(
-            marker(0, -m - gap, 0.0),
-            marker(1, -m - gap, height_mm - m),
-            marker(2, width_mm + gap, 0.0),
-            marker(3, width_mm + gap, height_mm - m),
-        ),
-        margin_mm=5.0,
-    )
+    return slideway_layout(width_mm, height_mm, name="way")
 
 
 def _candidates(layout: Layout, seed: int, shift: dict[int, float] | None = None):  # noqa: ANN202
