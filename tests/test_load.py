@@ -84,7 +84,9 @@ def _bomb_png(path: Path, width: int, height: int) -> None:
     """A PNG whose header claims width x height (ISO/IEC 15948 IHDR) with almost no data."""
 
     def chunk(kind: bytes, data: bytes) -> bytes:
-        return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data))
+        return (
+            struct.pack(">I", len(data)) + kind + data + struct.pack(">I", zlib.crc32(kind + data))
+        )
 
     ihdr = struct.pack(">IIBBBBB", width, height, 8, 2, 0, 0, 0)
     body = b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", ihdr) + chunk(b"IDAT", zlib.compress(b"\0" * 64))
@@ -98,7 +100,9 @@ def _bomb_png(path: Path, width: int, height: int) -> None:
         ("notes.jpg", b"this is not a photo\n" * 20, "not an image"),
     ],
 )
-def test_bad_files_are_refused_in_one_line(tmp_path: Path, name: str, content: bytes, message: str) -> None:
+def test_bad_files_are_refused_in_one_line(
+    tmp_path: Path, name: str, content: bytes, message: str
+) -> None:
     path = tmp_path / name
     path.write_bytes(content)
     with pytest.raises(PhotoError, match=message) as info:
@@ -107,7 +111,9 @@ def test_bad_files_are_refused_in_one_line(tmp_path: Path, name: str, content: b
 
 
 def test_truncated_jpeg_is_refused(tmp_path: Path) -> None:
-    ok, buf = cv2.imencode(".jpg", np.random.default_rng(1).integers(0, 255, (200, 200, 3), np.uint8))
+    ok, buf = cv2.imencode(
+        ".jpg", np.random.default_rng(1).integers(0, 255, (200, 200, 3), np.uint8)
+    )
     assert ok
     path = tmp_path / "half.jpg"
     path.write_bytes(buf.tobytes()[: len(buf) // 2])
