@@ -139,7 +139,9 @@ def _open_header(path: Path, data: bytes):  # type: ignore[no-untyped-def]
         with _quiet():
             im = Image.open(io.BytesIO(data))
     except UnidentifiedImageError:
-        raise PhotoError(f"photo {path}: not an image printcheck can read (JPEG, PNG, TIFF, HEIC)") from None
+        raise PhotoError(
+            f"photo {path}: not an image printcheck can read (JPEG, PNG, TIFF, HEIC)"
+        ) from None
     except Image.DecompressionBombError:
         raise PhotoError(f"photo {path}: claims too many pixels; refused") from None
     except Exception as exc:
@@ -211,8 +213,8 @@ def load_photo(path: str | Path, *, max_pixels: int = MAX_PIXELS) -> Photo:
     width, height = im.size
     if width * height > max_pixels:
         raise PhotoError(
-            f"photo {path}: {width} x {height} pixels is more than the {max_pixels // 1_000_000} MP "
-            "printcheck accepts; refused"
+            f"photo {path}: {width} x {height} pixels is more than the "
+            f"{max_pixels // 1_000_000} MP printcheck accepts; refused"
         )
     if width < 16 or height < 16:
         raise PhotoError(f"photo {path}: {width} x {height} pixels is too small to measure")

@@ -43,7 +43,8 @@ def test_help_is_quick_and_lists_commands() -> None:
         [
             sys.executable,
             "-c",
-            "import sys, printcheck.cli; print(sorted(m for m in ('cv2','skimage','matplotlib') if m in sys.modules))",
+            "import sys, printcheck.cli; "
+            "print(sorted(m for m in ('cv2', 'skimage', 'matplotlib') if m in sys.modules))",
         ],
         capture_output=True,
         text=True,

@@ -10,7 +10,6 @@ import json
 import re
 import shutil
 import subprocess
-from pathlib import Path
 
 import pytest
 
@@ -19,7 +18,9 @@ from printcheck.cli import main
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 pytestmark = [
     pytest.mark.browser,
-    pytest.mark.skipif(CHROMIUM is None, reason="headless Chromium is not installed (apt-get install chromium)"),
+    pytest.mark.skipif(
+        CHROMIUM is None, reason="headless Chromium is not installed (apt-get install chromium)"
+    ),
 ]
 
 # A file name cannot hold "/", so the classic "<script>...</script>" cannot be a name on
@@ -49,11 +50,20 @@ window.addEventListener('load', function () {
 def _chromium(*args: str) -> subprocess.CompletedProcess[str]:
     assert CHROMIUM is not None
     flags = [
-        "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync",
-        "--hide-scrollbars", "--virtual-time-budget=10000",
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-quic",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--hide-scrollbars",
+        "--virtual-time-budget=10000",
     ]
-    return subprocess.run([CHROMIUM, *flags, *args], capture_output=True, text=True, timeout=120, check=False)
+    return subprocess.run(
+        [CHROMIUM, *flags, *args], capture_output=True, text=True, timeout=120, check=False
+    )
 
 
 @pytest.fixture(scope="module")
@@ -67,8 +77,22 @@ def report(small_job, tmp_path_factory):  # type: ignore[no-untyped-def]
         names.append(name)
     shutil.copy2(folder / "layout.toml", job / "layout.toml")
     out = job / "out"
-    code = main(["batch", str(job), "--layout", str(job / "layout.toml"), "--surface", "<b>way</b>",
-                 "--spec", "slideway-ordinary", "--out", str(out), "--db", str(job / "h.sqlite")])
+    code = main(
+        [
+            "batch",
+            str(job),
+            "--layout",
+            str(job / "layout.toml"),
+            "--surface",
+            "<b>way</b>",
+            "--spec",
+            "slideway-ordinary",
+            "--out",
+            str(out),
+            "--db",
+            str(job / "h.sqlite"),
+        ]
+    )
     assert code in (0, 1)
     return out / "report.html", names
 
@@ -77,7 +101,9 @@ def test_report_loads_every_image_and_runs_no_script(report, tmp_path) -> None: 
     path, names = report
     html = path.read_text(encoding="utf-8")
     probe = tmp_path / "probe.html"
-    probe.write_text(re.sub(r"<head([^>]*)>", lambda m: m.group(0) + PROBE, html, count=1), encoding="utf-8")
+    probe.write_text(
+        re.sub(r"<head([^>]*)>", lambda m: m.group(0) + PROBE, html, count=1), encoding="utf-8"
+    )
     result = _chromium("--user-data-dir=" + str(tmp_path / "profile"), "--dump-dom", probe.as_uri())
     found = re.search(r'<pre id="probe">(.*?)</pre>', result.stdout, re.S)
     assert found, result.stderr[-2000:]
@@ -86,7 +112,9 @@ def test_report_loads_every_image_and_runs_no_script(report, tmp_path) -> None: 
     data = json.loads(html_mod.unescape(found.group(1)))
     assert data["images"] >= len(names) and data["broken"] == 0  # every image decodes
     assert data["external"] == 0  # self-contained: images are data: URIs
-    assert data["scripts"] == 1 and data["alerted"] is False  # only our probe; the file name ran nothing
+    assert (
+        data["scripts"] == 1 and data["alerted"] is False
+    )  # only our probe; the file name ran nothing
     assert data["images"] == html.count("<img ")  # the hostile name added no element
     for name in names:  # every pass is shown, the hostile name as plain text
         assert name in data["text"]
@@ -96,8 +124,12 @@ def test_report_loads_every_image_and_runs_no_script(report, tmp_path) -> None: 
 def test_report_screenshot(report, tmp_path) -> None:  # type: ignore[no-untyped-def]
     path, _ = report
     shot = tmp_path / "report.png"
-    result = _chromium("--user-data-dir=" + str(tmp_path / "profile"), f"--screenshot={shot}",
-                       "--window-size=1280,2400", path.as_uri())
+    result = _chromium(
+        "--user-data-dir=" + str(tmp_path / "profile"),
+        f"--screenshot={shot}",
+        "--window-size=1280,2400",
+        path.as_uri(),
+    )
     assert shot.is_file() and shot.stat().st_size > 10_000, result.stderr[-2000:]
     import cv2
 
