@@ -565,6 +565,9 @@ def _mostly_compound(
     threshold is taken on the evidence itself, half-way up to the compound's level.
     """
     v = raw[usable]
+    # a sample of every 7th pixel decides the common case (bare metal shows) cheaply
+    if not np.quantile(v[::7], 0.2) > _COVERED_EVIDENCE:
+        return None
     q20, q50 = np.quantile(v, [0.2, 0.5])
     if not q20 > _COVERED_EVIDENCE:
         return None
