@@ -71,8 +71,8 @@ class LocateConfig:
         Measure the visible part when the window runs out of the photo, instead of refusing.
     max_px_per_mm : float
         Ceiling of the automatically chosen resolution (a finer photo is reduced).  At
-        20 px/mm the smallest spot (0.1 mm², 0.36 mm across) is still 7 px across, and
-        segment and measure cost a quarter of what they would at 40 px/mm.
+        16 px/mm the smallest spot (0.1 mm², 0.36 mm across) is still 5.7 px across, and
+        segment and measure cost a sixth of what they would at 40 px/mm.
     min_px_per_mm : float
         Floor of the automatically chosen resolution; a photo resolving less is warned
         about.
@@ -84,7 +84,7 @@ class LocateConfig:
     px_per_mm: float | None = None
     max_residual_mm: float = 0.5
     allow_partial: bool = False
-    max_px_per_mm: float = 20.0
+    max_px_per_mm: float = 16.0
     min_px_per_mm: float = 4.0
     max_pixels: int = 40_000_000
 
