@@ -526,23 +526,46 @@ def open_history(
         db.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise _explain(db, exc) from None
-    con: sqlite3.Connection | None = None
+
+    def prepare(con: sqlite3.Connection) -> int:
+        mode = con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+        if str(mode).lower() != "wal":
+            raise sqlite3.OperationalError(f"cannot switch to WAL mode (got {mode})")
+        con.execute("PRAGMA synchronous = FULL")
+        con.execute("PRAGMA foreign_keys = ON")
+        _migrate(con, db, migrations)
+        return int(con.execute("PRAGMA user_version").fetchone()[0])
+
+    con, version = _connect(
+        db, str(db), uri=False, timeout_s=timeout_s, max_wait_s=max_wait_s, prepare=prepare
+    )
+    return History(con, db, max_wait_s=max_wait_s, version=version)
+
+
+def _connect(
+    db: Path,
+    target: str,
+    *,
+    uri: bool,
+    timeout_s: float,
+    max_wait_s: float,
+    prepare: Callable[[sqlite3.Connection], int],
+) -> tuple[sqlite3.Connection, int]:
+    """Connect and run ``prepare`` (returns the schema version), retrying while locked.
+
+    Another run holding the database locked is waited for up to ``max_wait_s``; any
+    other failure becomes one HistoryError line.  A half-opened connection is closed.
+    """
     deadline = time.monotonic() + max_wait_s
     while True:
+        con: sqlite3.Connection | None = None
         try:
             con = sqlite3.connect(
-                str(db), timeout=timeout_s, isolation_level=None, check_same_thread=True
+                target, uri=uri, timeout=timeout_s, isolation_level=None, check_same_thread=True
             )
             con.row_factory = sqlite3.Row
             con.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000):d}")
-            mode = con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
-            if str(mode).lower() != "wal":
-                raise sqlite3.OperationalError(f"cannot switch to WAL mode (got {mode})")
-            con.execute("PRAGMA synchronous = FULL")
-            con.execute("PRAGMA foreign_keys = ON")
-            _migrate(con, db, migrations)
-            version = int(con.execute("PRAGMA user_version").fetchone()[0])
-            break
+            return con, prepare(con)
         except HistoryError:
             if con is not None:
                 con.close()
@@ -550,12 +573,10 @@ def open_history(
         except (sqlite3.Error, OSError) as exc:
             if con is not None:
                 con.close()
-                con = None
             if _is_locked(exc) and time.monotonic() < deadline:
                 time.sleep(_RETRY_SLEEP_S)
                 continue
             raise _explain(db, exc) from None
-    return History(con, db, max_wait_s=max_wait_s, version=version)
 
 
 def _open_readonly(db: Path, *, timeout_s: float, max_wait_s: float, known: int) -> History:
@@ -564,23 +585,13 @@ def _open_readonly(db: Path, *, timeout_s: float, max_wait_s: float, known: int)
     from urllib.parse import quote
 
     uri = "file:" + quote(str(db.resolve())) + "?mode=ro"
-    con: sqlite3.Connection | None = None
-    deadline = time.monotonic() + max_wait_s
-    while True:
-        try:
-            con = sqlite3.connect(uri, uri=True, timeout=timeout_s, isolation_level=None)
-            con.row_factory = sqlite3.Row
-            con.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000):d}")
-            version = int(con.execute("PRAGMA user_version").fetchone()[0])
-            break
-        except sqlite3.Error as exc:
-            if con is not None:
-                con.close()
-                con = None
-            if _is_locked(exc) and time.monotonic() < deadline:
-                time.sleep(_RETRY_SLEEP_S)
-                continue
-            raise _explain(db, exc) from None
+
+    def prepare(con: sqlite3.Connection) -> int:
+        return int(con.execute("PRAGMA user_version").fetchone()[0])
+
+    con, version = _connect(
+        db, uri, uri=True, timeout_s=timeout_s, max_wait_s=max_wait_s, prepare=prepare
+    )
     if version > known:
         con.close()
         raise HistoryError(
