@@ -228,9 +228,7 @@ def _build_options(common: _Common, job: JobSettings) -> InspectOptions:
         allow_partial=common.partial,
     )
     if cell is not None and px_per_mm is None:
-        from printcheck.layout import card_layout
-
-        w = (layout if layout is not None else card_layout()).window
+        w = options.layout_in_use.window
         cell_mm = to_mm(cell, unit)
         if cell_mm > max(w.width_mm, w.height_mm) + 1e-9:
             k = MM_PER_IN if unit == "in" else 1.0

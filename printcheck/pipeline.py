@@ -68,6 +68,11 @@ class InspectOptions:
     def cell_mm(self) -> float:
         return to_mm(self.cell_in_unit, self.unit)
 
+    @property
+    def layout_in_use(self) -> Layout:
+        """The layout the markers are read by: ``layout``, else the built-in 2 in card."""
+        return self.layout if self.layout is not None else card_layout()
+
 
 def inspect_image(
     image: np.ndarray,
@@ -104,7 +109,7 @@ def _rectify(image: np.ndarray, options: InspectOptions) -> Rectified:
         return rectify_scale(
             image, px_per_mm=options.px_per_mm, window=options.scale_window, config=loc_config
         )
-    layout = options.layout if options.layout is not None else card_layout()
+    layout = options.layout_in_use
     return locate(image, layout=layout, config=loc_config)
 
 
