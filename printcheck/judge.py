@@ -206,12 +206,16 @@ def _cell_check(m: Measurement, spec: Spec, unit: str) -> Check:
 
 def _bearing_check(m: Measurement, spec: Spec) -> Check:
     lo, hi = spec.bearing_min, spec.bearing_max
+    # (the target as a short text, how a value that meets it is described)
     if lo is not None and hi is not None:
-        target_text = f"{_num(lo, 1)}-{_num(hi, 1)}%"
+        target_text, within = (
+            f"{_num(lo, 1)}-{_num(hi, 1)}%",
+            f"is within {_num(lo, 1)}-{_num(hi, 1)}%",
+        )
     elif lo is not None:
-        target_text = f">= {_num(lo, 1)}%"
+        target_text, within = f">= {_num(lo, 1)}%", f"is at least {_num(lo, 1)}%"
     else:
-        target_text = f"<= {_num(hi, 1)}%"  # type: ignore[arg-type]
+        target_text, within = f"<= {_num(hi, 1)}%", f"is at most {_num(hi, 1)}%"  # type: ignore[arg-type]
     value = float(m.bearing_percent)
     if not math.isfinite(value):
         return Check("bearing", target_text, None, False, "no analysed area, so no bearing")
@@ -234,13 +238,7 @@ def _bearing_check(m: Measurement, spec: Spec) -> Check:
             f"bearing {v}% is above {t}%: too much contact leaves no oil pockets "
             "and the parts wring; break up the large spots",
         )
-    if lo is not None and hi is not None:
-        reason = f"bearing {_num(value, 1)}% is within {_num(lo, 1)}-{_num(hi, 1)}%"
-    elif lo is not None:
-        reason = f"bearing {_num(value, 1)}% is at least {_num(lo, 1)}%"
-    else:
-        reason = f"bearing {_num(value, 1)}% is at most {_num(hi, 1)}%"  # type: ignore[arg-type]
-    return Check("bearing", target_text, value, True, reason)
+    return Check("bearing", target_text, value, True, f"bearing {_num(value, 1)}% {within}")
 
 
 def _bare_check(m: Measurement, spec: Spec, unit: str) -> Check:
