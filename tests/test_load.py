@@ -151,3 +151,35 @@ def test_awkward_file_names(tmp_path: Path, name: str) -> None:
     photo = load_photo(path)
     assert photo.name == name and photo.image.shape == (60, 80, 3)
     assert path.read_bytes() == before  # photos are never modified
+
+
+@pytest.mark.parametrize("orientation", range(1, 9))
+def test_every_exif_orientation_turns_as_pillow_does(tmp_path: Path, orientation: int) -> None:
+    # The JPEG fast path turns the photo itself; the reference is Pillow's
+    # ImageOps.exif_transpose of the same file (EXIF 2.32 tag 0x0112, values 1-8).
+    from PIL import ImageOps
+
+    rng = np.random.default_rng(orientation)
+    rgb = np.kron(rng.integers(0, 256, (6, 8, 3), dtype=np.uint8), np.ones((8, 8, 1), np.uint8))
+    exif = Image.Exif()
+    exif[0x0112] = orientation
+    path = tmp_path / f"turned{orientation}.jpg"
+    Image.fromarray(rgb).save(path, quality=95, exif=exif)
+    with Image.open(path) as im:
+        ref = np.asarray(ImageOps.exif_transpose(im).convert("RGB"))[..., ::-1]
+    got = load_photo(path).image
+    assert got.shape == ref.shape
+    assert np.abs(got.astype(int) - ref.astype(int)).max() <= 1
+
+
+def test_jpeg_fast_path_equals_pillow_and_opencv(tmp_path: Path) -> None:
+    # Same libjpeg decode three ways: printcheck's (simplejpeg), Pillow's and OpenCV's.
+    rng = np.random.default_rng(3)
+    rgb = cv2.GaussianBlur(rng.integers(0, 256, (120, 160, 3), dtype=np.uint8), (5, 5), 1.5)
+    path = tmp_path / "plain.jpg"
+    Image.fromarray(rgb).save(path, quality=90)
+    got = load_photo(path).image
+    pil = np.asarray(Image.open(path).convert("RGB"))[..., ::-1]
+    ocv = cv2.imread(str(path), cv2.IMREAD_COLOR)
+    assert np.abs(got.astype(int) - pil.astype(int)).max() <= 1
+    assert np.abs(got.astype(int) - ocv.astype(int)).max() <= 1
