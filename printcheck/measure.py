@@ -262,22 +262,23 @@ def label_spots(
     mask = np.asarray(mask, dtype=bool)
     if mask.ndim != 2:
         raise OptionError(f"contact mask must be 2-D (M, N), got shape {mask.shape}")
-    n, comp = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    n, comp, stats, _ = cv2.connectedComponentsWithStats(
+        mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
+    )
     n -= 1
     if n == 0:
         return np.zeros(mask.shape, np.int32), 0
-    areas = np.bincount(comp.ravel(), minlength=n + 1)
     min_px = min_spot_mm2 * px_per_mm**2
-    keep = areas >= min_px - 1e-9
+    keep = stats[:, cv2.CC_STAT_AREA] >= min_px - 1e-9
     keep[0] = False
-    if split_touching and keep.any():
-        comp = _split(
-            comp, keep, px_per_mm=px_per_mm, min_px=min_px, neck_ratio=neck_ratio,
-            neck_mm=neck_mm,
-        )
-    else:
+    if not keep[1:].all():
         lut = np.where(keep, np.arange(n + 1), 0).astype(np.int32)
         comp = lut[comp]
+    if split_touching and keep.any():
+        comp = _split(
+            comp, keep, stats, px_per_mm=px_per_mm, min_px=min_px, neck_ratio=neck_ratio,
+            neck_mm=neck_mm,
+        )
     return _renumber(comp)
 
 
@@ -300,6 +301,7 @@ def _renumber(labels: np.ndarray) -> tuple[np.ndarray, int]:
 def _split(
     comp: np.ndarray,
     keep: np.ndarray,
+    stats: np.ndarray,
     *,
     px_per_mm: float,
     min_px: float,
@@ -307,8 +309,12 @@ def _split(
     neck_mm: float,
     body_mm: float = 0.6,
 ) -> np.ndarray:
-    """Split kept components at narrow necks; return a label image (any numbering)."""
-    kept = keep[comp]
+    """Split kept components at narrow necks; return a label image (any numbering).
+
+    ``comp`` holds the kept components only (the others already 0); ``stats`` are their
+    ``cv2.connectedComponentsWithStats`` rows (bounding boxes).
+    """
+    kept = comp > 0
     padded = np.pad(kept, 1).view(np.uint8)
     edt = cv2.distanceTransform(padded, cv2.DIST_L2, cv2.DIST_MASK_5)[1:-1, 1:-1]
     # regional-maximum candidates (plateau pixels included; merging below sorts them out)
@@ -317,10 +323,9 @@ def _split(
     pn -= 1
     # components holding more than one peak candidate are the only ones worth splitting
     first_peak_comp = np.zeros(pn + 1, np.int64)
-    first_peak_comp[plab[plab > 0]] = comp[plab > 0]
+    first_peak_comp[plab[peaks]] = comp[peaks]
     peaks_in_comp = np.bincount(first_peak_comp[1:], minlength=keep.size)
     multi = (peaks_in_comp >= 2) & keep
-    out = np.where(keep[comp], comp, 0).astype(np.int32)
     min_radius = max(0.5 * math.sqrt(min_px / math.pi), body_mm * px_per_mm)
     neck_px = max(1.0, neck_mm * px_per_mm)
     if multi.any() and neck_px < min_radius:
@@ -328,22 +333,20 @@ def _split(
         # wider than neck_px < min_radius: so their deep cores (edt >= min_radius) are
         # apart.  A component with fewer than two deep cores is never split; leaving it
         # out of the watershed changes nothing and saves most of the work.
-        deep = (edt >= min_radius - 1e-6) & multi[comp]
+        deep = edt >= min_radius - 1e-6
         dn, dlab = cv2.connectedComponents(deep.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
         core_comp = np.zeros(dn, np.int64)
         core_comp[dlab[deep]] = comp[deep]
         multi &= np.bincount(core_comp[1:], minlength=keep.size) >= 2
     if not multi.any():
-        return out
-    from scipy import ndimage
-
+        return comp
     # each candidate is split on its own bounding box: the watershed and the saddle scan
     # then cost in proportion to the candidates, not to the whole image
-    base = int(comp.max()) + 1
-    boxes = ndimage.find_objects(np.where(multi[comp], comp, 0))
-    for label_id, box in enumerate(boxes, start=1):
-        if box is None:
-            continue
+    out = comp.copy()
+    base = int(stats.shape[0])
+    for label_id in np.flatnonzero(multi):
+        x, y, w, h = (int(v) for v in stats[label_id, :4])
+        box = (slice(y, y + h), slice(x, x + w))
         region = comp[box] == label_id
         pieces = _split_component(
             region, edt[box], plab[box], min_px=min_px, min_radius=min_radius,
@@ -479,6 +482,30 @@ def _axis_cells(n_px: int, origin: float, s: float, start: float, length: float,
     return idx, n_cells
 
 
+def _cell_sums(
+    mask: np.ndarray, row_idx: np.ndarray, col_idx: np.ndarray, n_rows: int, n_cols: int
+) -> np.ndarray:
+    """Pixels of ``mask`` in each cell, flat (row-major), from per-axis cell indices.
+
+    The cells are blocks of whole pixel rows and columns (the indices from
+    :func:`_axis_cells` rise along each axis), so the sums are block sums.
+    """
+    r_in, c_in = np.flatnonzero(row_idx >= 0), np.flatnonzero(col_idx >= 0)
+    if r_in.size == 0 or c_in.size == 0:
+        return np.zeros(n_rows * n_cols, np.int64)
+    r_cells, c_cells = row_idx[r_in], col_idx[c_in]
+    if np.unique(r_cells).size != n_rows or np.unique(c_cells).size != n_cols:
+        # a cell without a whole pixel row or column (a sliver at the window's end)
+        cell_of = r_cells[:, None] * n_cols + c_cells[None, :]
+        sub = mask[r_in[0] : r_in[-1] + 1, c_in[0] : c_in[-1] + 1]
+        return np.bincount(cell_of[sub], minlength=n_rows * n_cols)
+    sub = mask[r_in[0] : r_in[-1] + 1, c_in[0] : c_in[-1] + 1].view(np.uint8)
+    r_starts = np.flatnonzero(np.r_[True, r_cells[1:] != r_cells[:-1]])
+    c_starts = np.flatnonzero(np.r_[True, c_cells[1:] != c_cells[:-1]])
+    by_rows = np.add.reduceat(sub, r_starts, axis=0, dtype=np.int64)
+    return np.add.reduceat(by_rows, c_starts, axis=1).ravel()
+
+
 def _count_centres(origin: float, s: float, lo: float, hi: float) -> int:
     """Number of pixel centres (unbounded grid) in [lo, hi) along one axis."""
     a = math.ceil((lo - origin) * s - 0.5 - 1e-9)
@@ -558,15 +585,10 @@ def measure(
     # --- cells: per-pixel cell index by pixel centre
     row_idx, n_rows = _axis_cells(rows_px, frame.origin_mm[1], s, win.y_mm, win.height_mm, c_mm)
     col_idx, n_cols = _axis_cells(cols_px, frame.origin_mm[0], s, win.x_mm, win.width_mm, c_mm)
-    cell_of = np.where(
-        (row_idx[:, None] >= 0) & (col_idx[None, :] >= 0),
-        row_idx[:, None] * n_cols + col_idx[None, :],
-        -1,
-    )
     n_cells = n_rows * n_cols
-    in_an = analysed & (cell_of >= 0)
-    cell_area_px = np.bincount(cell_of[in_an], minlength=n_cells)
-    cell_contact_px = np.bincount(cell_of[in_an & contact], minlength=n_cells)
+    in_an = analysed & (row_idx[:, None] >= 0) & (col_idx[None, :] >= 0)
+    cell_area_px = _cell_sums(in_an, row_idx, col_idx, n_rows, n_cols)
+    cell_contact_px = _cell_sums(in_an & contact, row_idx, col_idx, n_rows, n_cols)
 
     # --- spots
     area_px, rc, cc = _spot_table(labels, count)
@@ -576,7 +598,8 @@ def measure(
     pc = np.floor(cc + 0.5).astype(np.int64)
     inside = (pr >= 0) & (pr < rows_px) & (pc >= 0) & (pc < cols_px)
     prc, pcc = np.clip(pr, 0, rows_px - 1), np.clip(pc, 0, cols_px - 1)
-    spot_cell = np.where(inside, cell_of[prc, pcc], -1)
+    spot_r, spot_c = row_idx[prc], col_idx[pcc]
+    spot_cell = np.where(inside & (spot_r >= 0) & (spot_c >= 0), spot_r * n_cols + spot_c, -1)
     in_window = inside & analysed[prc, pcc] & (spot_cell >= 0)
     spot_cell = np.where(in_window, spot_cell, -1)
     spot_row = np.where(in_window, spot_cell // n_cols, -1).astype(np.int64)
@@ -665,7 +688,7 @@ def measure(
     # They are labelled without the neck split, the costly part of labelling; the spots
     # the split adds on the main mask are added back to their counts.
     min_px = config.min_spot_mm2 * s**2
-    analysed_flat = in_an.ravel()
+    outside_flat = np.flatnonzero(~in_an.ravel())
 
     def _count_and_bearing(m: np.ndarray) -> tuple[int, float]:
         # spots (no split) counted by centroid in the analysed area, and their bearing
@@ -678,7 +701,10 @@ def measure(
         apc = np.floor(cent[:, 0] + 0.5).astype(np.int64)
         ok = keep & (apr >= 0) & (apr < rows_px) & (apc >= 0) & (apc < cols_px)
         ok &= in_an[np.clip(apr, 0, rows_px - 1), np.clip(apc, 0, cols_px - 1)]
-        in_analysed = np.bincount(lab.ravel()[analysed_flat], minlength=n)
+        # pixels in the analysed area: all, less the (few) outside it
+        in_analysed = stats[:, cv2.CC_STAT_AREA] - np.bincount(
+            lab.ravel()[outside_flat], minlength=n
+        )
         alt_bearing = 100.0 * int(in_analysed[keep].sum()) / analysed_px if analysed_px else 0.0
         return int(ok.sum()), alt_bearing
 
@@ -818,7 +844,9 @@ def _guidance(
                 if area_px < 0.25 * k * k:
                     continue
                 cx, cy = frame.to_mm(np.array(cents[j][1]), np.array(cents[j][0]))
-                peak = float(local[lab == j].max())
+                x, y, w, h = (int(v) for v in stats[j, :4])
+                box = (slice(y, y + h), slice(x, x + w))
+                peak = float(local[box][lab[box] == j].max())
                 high.append(
                     (
                         float(cx),

@@ -320,6 +320,39 @@ def test_window_not_a_multiple_of_cell_and_offset_origin():
     assert (m2.rows, m2.cols) == (2, 3) and all(c.complete for c in m2.cells)
 
 
+@pytest.mark.parametrize(
+    ("cell_mm", "win_w"),
+    [(10.0, 30.0), (7.0, 30.0), (25.4, 30.0), (9.99, 30.0), (14.98, 30.0)],
+)
+def test_cell_areas_and_bearing_match_scipy_sum_labels(cell_mm: float, win_w: float) -> None:
+    # Per-pixel cell map from pixel centres (plane geometry), summed by
+    # scipy.ndimage.sum_labels; 9.99 and 14.98 mm leave a cell with no whole pixel column
+    # at the window's end (a sliver), the other sizes a partial or no last cell.
+    s = 5.0
+    window = Window(10.0, 5.0, win_w, 20.0)
+    frame = Frame(px_per_mm=s, origin_mm=(5.0, 0.0), shape=(150, 200), window=window)
+    rng = np.random.default_rng(int(cell_mm * 100))
+    mask = ndimage.binary_opening(rng.random((150, 200)) < 0.35)
+    an = _window_mask(frame)
+    an[60:80, 90:120] = False  # an exclusion
+    m = measure(mask, frame=frame, analysed=an, config=MeasureConfig(cell_mm=cell_mm))
+    yc = (np.arange(150) + 0.5) / s - window.y_mm
+    xc = (np.arange(200) + 5.0 * s + 0.5) / s - window.x_mm
+    n_rows = math.ceil(window.height_mm / cell_mm - 1e-9)
+    n_cols = math.ceil(window.width_mm / cell_mm - 1e-9)
+    ri = np.minimum(np.floor(yc / cell_mm + 1e-9), n_rows - 1).astype(int)
+    ci = np.minimum(np.floor(xc / cell_mm + 1e-9), n_cols - 1).astype(int)
+    cell_map = np.where(an, ri[:, None] * n_cols + ci[None, :] + 1, 0)
+    index = np.arange(1, n_rows * n_cols + 1)
+    area = ndimage.sum_labels(np.ones_like(mask), cell_map, index) / s**2
+    contact = ndimage.sum_labels(m.labels > 0, cell_map, index)
+    assert (m.rows, m.cols) == (n_rows, n_cols)
+    for cell, a, c in zip(m.cells, area, contact, strict=True):
+        assert cell.area_mm2 == pytest.approx(a)
+        expected = 100.0 * c / (a * s**2) if a else 0.0
+        assert cell.bearing_percent == pytest.approx(expected)
+
+
 # ---------------------------------------------------------------- confidence, guidance
 
 
