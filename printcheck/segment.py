@@ -189,6 +189,14 @@ def _tile_grid(
     Tiles with too few valid pixels take their nearest filled neighbour; None when no
     tile has enough.
     """
+    grids = _tile_grids(values, valid, tile_px, (quantile,))
+    return None if grids is None else grids[0]
+
+
+def _tile_grids(
+    values: np.ndarray, valid: np.ndarray, tile_px: int, quantiles: tuple[float, ...]
+) -> list[np.ndarray] | None:
+    """:func:`_tile_grid` for several quantiles at once (one sort of the tiles)."""
     rows, cols = values.shape
     ty, tx = max(1, math.ceil(rows / tile_px)), max(1, math.ceil(cols / tile_px))
     ph, pw = ty * tile_px - rows, tx * tile_px - cols
@@ -198,26 +206,31 @@ def _tile_grid(
     enough = counts >= 0.3 * tile_px * tile_px
     if not enough.any():
         return None
-    grid = np.full((ty, tx), np.nan, np.float32)
-    grid[enough] = _quantile_ignoring_nan(blocks[enough], counts[enough], quantile)
+    ordered = np.sort(blocks[enough], axis=1)
+    nearest = None
     if not enough.all():
         from scipy import ndimage
 
-        _, (ii, jj) = ndimage.distance_transform_edt(~enough, return_indices=True)
-        grid = grid[ii, jj]
-    return grid
+        _, nearest = ndimage.distance_transform_edt(~enough, return_indices=True)
+    grids = []
+    for quantile in quantiles:
+        grid = np.full((ty, tx), np.nan, np.float32)
+        grid[enough] = _quantile_of_sorted(ordered, counts[enough], quantile)
+        if nearest is not None:
+            grid = grid[nearest[0], nearest[1]]
+        grids.append(grid)
+    return grids
 
 
-def _quantile_ignoring_nan(rows: np.ndarray, counts: np.ndarray, quantile: float) -> np.ndarray:
-    """``np.nanquantile(rows, quantile, axis=1)`` (linear method), by one sort.
+def _quantile_of_sorted(ordered: np.ndarray, counts: np.ndarray, quantile: float) -> np.ndarray:
+    """``np.nanquantile(rows, quantile, axis=1)`` (linear method) of rows sorted already.
 
     NaNs sort last, so the valid values of row i are its first ``counts[i]`` entries.
     """
-    ordered = np.sort(rows, axis=1)
     pos = quantile * (counts - 1)
     lo = np.floor(pos).astype(np.intp)
     hi = np.minimum(lo + 1, counts - 1)
-    idx = np.arange(rows.shape[0])
+    idx = np.arange(ordered.shape[0])
     a = ordered[idx, lo]
     b = ordered[idx, hi]
     return a + (pos - lo) * (b - a)
@@ -530,8 +543,10 @@ def _drop_edge_slivers(mask: np.ndarray, visible: np.ndarray, px_per_mm: float) 
     band = mask & ~inner
     if not band.any():
         return mask
-    n, lab = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
-    area = np.bincount(lab.ravel(), minlength=n)
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(
+        mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
+    )
+    area = stats[:, cv2.CC_STAT_AREA]
     in_band = np.bincount(lab[band], minlength=n)
     drop = in_band > 0.5 * area
     drop[0] = False
@@ -683,9 +698,9 @@ def segment(
     contrast = (m1 - m0) / s0
     t = max(m0 + config.level * (m1 - m0), m0 + config.noise_floor * s0)
     # where the bare metal is locally noisier (dim corners, glare, JPEG), the floor rises
-    q = [_tile_grid(score, usable, tile, qq) for qq in (0.05, 0.2)]
+    q = _tile_grids(score, usable, tile, (0.05, 0.2))
     floor = None
-    if q[0] is not None and q[1] is not None:
+    if q is not None:
         local_sigma = np.maximum((q[1] - q[0]) / 0.8, 0.0)
         if min(local_sigma.shape) >= 3:
             local_sigma = cv2.medianBlur(local_sigma.astype(np.float32), 3)

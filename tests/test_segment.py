@@ -246,15 +246,21 @@ def test_card_edge_sliver_is_not_a_spot():
 
 
 
-def test_tile_quantile_equals_numpy_nanquantile() -> None:
-    """The one-sort tile quantile is numpy's nanquantile (linear method), the reference."""
-    from printcheck.segment import _quantile_ignoring_nan
+def test_tile_quantiles_equal_numpy_nanquantile() -> None:
+    """The one-sort tile quantiles are numpy's nanquantile (linear method) of each tile."""
+    from printcheck.segment import _tile_grids
 
     rng = np.random.default_rng(4)
-    rows = rng.normal(size=(40, 300)).astype(np.float32)
-    rows[rng.random(rows.shape) < 0.35] = np.nan
-    counts = np.sum(~np.isnan(rows), axis=1)
-    for q in (0.05, 0.2, 0.5, 0.95):
-        np.testing.assert_allclose(
-            _quantile_ignoring_nan(rows, counts, q), np.nanquantile(rows, q, axis=1), atol=1e-6
-        )
+    values = rng.normal(size=(70, 90)).astype(np.float32)
+    valid = rng.random(values.shape) > 0.35
+    tile = 16
+    grids = _tile_grids(values, valid, tile, (0.05, 0.2, 0.5, 0.95))
+    assert grids is not None
+    for q, grid in zip((0.05, 0.2, 0.5, 0.95), grids, strict=True):
+        assert grid.shape == (5, 6)
+        for r in range(5):
+            for c in range(6):
+                block = values[r * tile : (r + 1) * tile, c * tile : (c + 1) * tile]
+                ok = valid[r * tile : (r + 1) * tile, c * tile : (c + 1) * tile]
+                if ok.sum() >= 0.3 * tile * tile:
+                    assert grid[r, c] == pytest.approx(np.quantile(block[ok], q), abs=1e-6)
