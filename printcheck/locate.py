@@ -199,23 +199,30 @@ def _detect_raw(grey: np.ndarray, dictionary: cv2.aruco.Dictionary) -> list[tupl
 
 
 def _edge_points(
-    grey: np.ndarray, a: np.ndarray, b: np.ndarray, outward: np.ndarray, half_width: float
-) -> np.ndarray:
-    """Sub-pixel points on the dark-to-light edge from corner ``a`` to ``b``.
+    grey: np.ndarray, edges: list[tuple[np.ndarray, np.ndarray, np.ndarray]], half_width: float
+) -> list[np.ndarray]:
+    """Sub-pixel points on each dark-to-light edge ``(a, b, outward)``, from ``a`` to ``b``.
 
     Profiles across the edge (dark inside, light outside along ``outward``), from 15 % to
     85 % of the way along it, are sampled at 0.25 px steps (coarser for wide profiles);
     the edge on each is the centroid of the intensity gradient over the run of samples
-    around its peak where it exceeds a quarter of the peak.  Returns (K, 2) photo (x, y)
-    points.
+    around its peak where it exceeds a quarter of the peak.  Returns one (K, 2) array of
+    photo (x, y) points per edge.  The edges' profiles are sampled and reduced together
+    (each profile on its own, so the result is that of one edge at a time).
     """
-    length = float(np.hypot(*(b - a)))
-    n_profiles = int(np.clip(length / 1.5, 8, 120))
-    t = np.linspace(0.15, 0.85, n_profiles)
     step = max(0.25, 2.0 * half_width / 48.0)
     offsets = np.arange(-half_width, half_width + step / 2, step)
-    base = a[None, :] + t[:, None] * (b - a)[None, :]  # (P, 2)
-    xy = base[:, None, :] + offsets[None, :, None] * outward[None, None, :]  # (P, S, 2)
+    bases, outwards, sizes = [], [], []
+    for a, b, outward in edges:
+        length = float(np.hypot(*(b - a)))
+        n_profiles = int(np.clip(length / 1.5, 8, 120))
+        t = np.linspace(0.15, 0.85, n_profiles)
+        bases.append(a[None, :] + t[:, None] * (b - a)[None, :])  # (P, 2)
+        outwards.append(np.broadcast_to(outward, (n_profiles, 2)))
+        sizes.append(n_profiles)
+    base = np.concatenate(bases)
+    out = np.concatenate(outwards)
+    xy = base[:, None, :] + offsets[None, :, None] * out[:, None, :]  # (P, S, 2)
     map_x = xy[..., 0].astype(np.float32)
     map_y = xy[..., 1].astype(np.float32)
     prof = cv2.remap(grey, map_x, map_y, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
@@ -236,8 +243,9 @@ def _edge_points(
     total = w.sum(axis=1)
     ok &= total > 0
     shift = (w * offsets[None, :]).sum(axis=1) / np.where(total > 0, total, 1.0)
-    pts = base + shift[:, None] * outward[None, :]
-    return pts[ok]
+    pts = base + shift[:, None] * out
+    bounds = np.cumsum([0, *sizes])
+    return [pts[b0:b1][ok[b0:b1]] for b0, b1 in zip(bounds[:-1], bounds[1:], strict=True)]
 
 
 def _fit_line(points: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
@@ -289,14 +297,16 @@ def _refine_corners(
     first = min(first, 0.85 * module) if module > 4 else first
     for half_width in (first, float(np.clip(0.5 * module, 2.5, 10.0))):
         centre = current.mean(axis=0)
-        lines = []
+        edges = []
         for i in range(4):
             a, b = current[i], current[(i + 1) % 4]
             d = (b - a) / max(np.hypot(*(b - a)), 1e-9)
             n = np.array([d[1], -d[0]])
             if np.dot((a + b) / 2 - centre, n) < 0:
                 n = -n
-            pts = _edge_points(grey, a, b, n, half_width)
+            edges.append((a, b, n))
+        lines = []
+        for pts in _edge_points(grey, edges, half_width):
             line = _fit_line(pts)
             if line is None:
                 return None
