@@ -45,6 +45,8 @@ __all__ = [
     "Measurement",
     "measure",
     "label_spots",
+    "confidence_counts",
+    "with_confidence",
 ]
 
 _EIGHT = np.ones((3, 3), dtype=bool)
@@ -685,36 +687,13 @@ def measure(
         )
 
     # --- confidence from the alternate masks
-    # They are labelled without the neck split, the costly part of labelling; the spots
-    # the split adds on the main mask are added back to their counts.
-    min_px = config.min_spot_mm2 * s**2
-    outside_flat = np.flatnonzero(~in_an.ravel())
-
-    def _count_and_bearing(m: np.ndarray) -> tuple[int, float]:
-        # spots (no split) counted by centroid in the analysed area, and their bearing
-        n, lab, stats, cent = cv2.connectedComponentsWithStats(
-            np.asarray(m, dtype=bool).view(np.uint8), connectivity=8, ltype=cv2.CV_32S
-        )
-        keep = stats[:, cv2.CC_STAT_AREA] >= min_px - 1e-9
-        keep[0] = False
-        apr = np.floor(cent[:, 1] + 0.5).astype(np.int64)
-        apc = np.floor(cent[:, 0] + 0.5).astype(np.int64)
-        ok = keep & (apr >= 0) & (apr < rows_px) & (apc >= 0) & (apc < cols_px)
-        ok &= in_an[np.clip(apr, 0, rows_px - 1), np.clip(apc, 0, cols_px - 1)]
-        # pixels in the analysed area: all, less the (few) outside it
-        in_analysed = stats[:, cv2.CC_STAT_AREA] - np.bincount(
-            lab.ravel()[outside_flat], minlength=n
-        )
-        alt_bearing = 100.0 * int(in_analysed[keep].sum()) / analysed_px if analysed_px else 0.0
-        return int(ok.sum()), alt_bearing
-
-    alt_results: list[tuple[int, float]] = []
+    meas_alts: tuple[tuple[int, float], ...] = ()
+    confidence = None
     if alternates:
-        split_added = spot_count - _count_and_bearing(mask)[0] if config.split_touching else 0
-        for alt in alternates:
-            n_alt, b_alt = _count_and_bearing(alt)
-            alt_results.append((n_alt + split_added, b_alt))
-    confidence = _confidence(spot_count, bearing, alt_results, config) if alternates else None
+        counts = confidence_counts(
+            (mask, *alternates), frame=frame, analysed=analysed, config=config
+        )
+        confidence, meas_alts = _confidence_from_counts(spot_count, bearing, counts, config)
 
     guidance = _guidance(
         spots=spots,
@@ -741,7 +720,7 @@ def measure(
         confidence=confidence,
         guidance=guidance,
         size_stats=size_stats,
-        alternates=tuple(alt_results),
+        alternates=meas_alts,
     )
 
 
@@ -762,6 +741,88 @@ def _largest_bare(free: np.ndarray, frame: Frame) -> tuple[BarePatch, np.ndarray
     r, c = divmod(k, free.shape[1])
     x, y = frame.to_mm(np.array(float(r)), np.array(float(c)))
     return BarePatch(2.0 * float(radius.flat[k]) / frame.px_per_mm, float(x), float(y)), radius
+
+
+def _in_window(frame: Frame, analysed: np.ndarray) -> np.ndarray:
+    """``analysed`` less any pixel whose centre lies outside the window."""
+    s = float(frame.px_per_mm)
+    win = frame.window
+    rows_px, cols_px = analysed.shape
+    # the cell size does not move the window's pixel rows and columns
+    row_idx, _ = _axis_cells(rows_px, frame.origin_mm[1], s, win.y_mm, win.height_mm, 1.0)
+    col_idx, _ = _axis_cells(cols_px, frame.origin_mm[0], s, win.x_mm, win.width_mm, 1.0)
+    return analysed & (row_idx[:, None] >= 0) & (col_idx[None, :] >= 0)
+
+
+def confidence_counts(
+    masks: tuple[np.ndarray, ...] | list[np.ndarray],
+    *,
+    frame: Frame,
+    analysed: np.ndarray,
+    config: MeasureConfig = MeasureConfig(),
+) -> list[tuple[int, float]]:
+    """Spot count and bearing of each mask, for the confidence range.
+
+    The masks are labelled without the neck split (the costly part of labelling): each
+    8-connected component of at least ``config.min_spot_mm2`` counts when its centroid's
+    pixel is analysed, and its analysed pixels bear.  Pass the main contact mask first
+    and the alternates after it, and hand the result to :func:`with_confidence`; the
+    spots the split adds on the main mask are added back to the alternates' counts.
+
+    Independent of :func:`measure`, so it may run beside it (another thread).
+    """
+    analysed = np.asarray(analysed, dtype=bool)
+    s = float(frame.px_per_mm)
+    rows_px, cols_px = analysed.shape
+    in_an = _in_window(frame, analysed)
+    analysed_px = int(np.count_nonzero(in_an))
+    min_px = config.min_spot_mm2 * s**2
+    outside_flat = np.flatnonzero(~in_an.ravel())
+    out: list[tuple[int, float]] = []
+    for m in masks:
+        if np.shape(m) != analysed.shape:
+            raise OptionError(
+                f"alternate mask has shape {np.shape(m)}, expected {analysed.shape}"
+            )
+        n, lab, stats, cent = cv2.connectedComponentsWithStats(
+            np.asarray(m, dtype=bool).view(np.uint8), connectivity=8, ltype=cv2.CV_32S
+        )
+        keep = stats[:, cv2.CC_STAT_AREA] >= min_px - 1e-9
+        keep[0] = False
+        apr = np.floor(cent[:, 1] + 0.5).astype(np.int64)
+        apc = np.floor(cent[:, 0] + 0.5).astype(np.int64)
+        ok = keep & (apr >= 0) & (apr < rows_px) & (apc >= 0) & (apc < cols_px)
+        ok &= in_an[np.clip(apr, 0, rows_px - 1), np.clip(apc, 0, cols_px - 1)]
+        # pixels in the analysed area: all, less the (few) outside it
+        in_analysed = stats[:, cv2.CC_STAT_AREA] - np.bincount(
+            lab.ravel()[outside_flat], minlength=n
+        )
+        bearing = 100.0 * int(in_analysed[keep].sum()) / analysed_px if analysed_px else 0.0
+        out.append((int(ok.sum()), bearing))
+    return out
+
+
+def with_confidence(
+    measurement: Measurement,
+    counts: list[tuple[int, float]],
+    config: MeasureConfig = MeasureConfig(),
+) -> Measurement:
+    """``measurement`` with the confidence range from :func:`confidence_counts` output."""
+    from dataclasses import replace
+
+    confidence, alts = _confidence_from_counts(
+        measurement.spot_count, measurement.bearing_percent, counts, config
+    )
+    return replace(measurement, confidence=confidence, alternates=alts)
+
+
+def _confidence_from_counts(
+    spot_count: int, bearing: float, counts: list[tuple[int, float]], config: MeasureConfig
+) -> tuple[Confidence, tuple[tuple[int, float], ...]]:
+    main, *alts = counts
+    split_added = spot_count - main[0] if config.split_touching else 0
+    shifted = [(n + split_added, b) for n, b in alts]
+    return _confidence(spot_count, bearing, shifted, config), tuple(shifted)
 
 
 def _confidence(

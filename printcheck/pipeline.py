@@ -5,6 +5,7 @@ This module only chains the stages; each stage is pure and lives in its own modu
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -124,7 +125,7 @@ def _measure_rectified(
 ) -> Result:
     """Segment, measure and judge the rectified window; the photo itself is not needed."""
     from printcheck.judge import judge
-    from printcheck.measure import MeasureConfig, measure
+    from printcheck.measure import MeasureConfig, confidence_counts, measure, with_confidence
     from printcheck.segment import SegmentConfig, mask_at, segment
 
     seg = segment(
@@ -136,22 +137,30 @@ def _measure_rectified(
             px_per_mm=rect.frame.px_per_mm,
         ),
     )
-    alternates = (
-        mask_at(seg, seg.threshold - seg.spread),
-        mask_at(seg, seg.threshold + seg.spread),
-    )
     spec = options.spec
-    meas = measure(
-        seg.mask,
-        frame=rect.frame,
-        analysed=rect.analysed,
-        config=MeasureConfig(
-            cell_mm=options.cell_mm,
-            min_spot_mm2=options.min_spot_mm2,
-            max_bare_mm=None if spec is None else spec.max_bare_mm,
-        ),
-        alternates=alternates,
+    config = MeasureConfig(
+        cell_mm=options.cell_mm,
+        min_spot_mm2=options.min_spot_mm2,
+        max_bare_mm=None if spec is None else spec.max_bare_mm,
     )
+
+    def nudged() -> list[tuple[int, float]]:
+        # the masks at the threshold nudged down and up, and the counts for the range
+        alternates = (
+            mask_at(seg, seg.threshold - seg.spread),
+            mask_at(seg, seg.threshold + seg.spread),
+        )
+        return confidence_counts(
+            (seg.mask, *alternates), frame=rect.frame, analysed=rect.analysed, config=config
+        )
+
+    # The confidence range needs nothing of the measurement: it runs on a second thread
+    # while the main mask is measured (OpenCV and numpy release the GIL in their loops;
+    # on two cores it takes the range off the wall time).
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="printcheck-range") as pool:
+        counts = pool.submit(nudged)
+        meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
+        meas = with_confidence(meas, counts.result(), config)
     verdict = None if spec is None else judge(meas, spec, unit=options.unit)
     warnings = tuple(rect.warnings) + tuple(seg.warnings)
     if meas.confidence is not None and meas.confidence.doubtful:

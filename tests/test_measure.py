@@ -407,3 +407,28 @@ def test_shape_errors():
             analysed=np.ones((10, 10), bool),
             config=MeasureConfig(cell_mm=0.0),
         )
+
+
+def test_confidence_counted_apart_equals_confidence_in_measure():
+    # The pipeline counts the nudged masks on another thread and adds the range after
+    # measuring; that must be the same as measure(..., alternates=...) doing it all.
+    from printcheck.measure import confidence_counts, with_confidence
+
+    frame = _frame((120, 100))
+    an = _window_mask(frame)
+    an[:10, :] = False  # some pixels outside the analysed area
+    base = _disc((120, 100), 30, 30, 6) | _disc((120, 100), 80, 70, 7)
+    # two touching discs joined by a hairline: split on the main mask only
+    base |= _disc((120, 100), 90, 20, 6) | _disc((120, 100), 90, 36, 6)
+    low = base | _disc((120, 100), 30, 70, 5) | _disc((120, 100), 5, 50, 4)
+    high = base & ~_disc((120, 100), 80, 70, 7)
+    config = MeasureConfig(cell_mm=5.0)
+    whole = measure(base, frame=frame, analysed=an, config=config, alternates=(low, high))
+    apart = with_confidence(
+        measure(base, frame=frame, analysed=an, config=config),
+        confidence_counts((base, low, high), frame=frame, analysed=an, config=config),
+        config,
+    )
+    assert whole.confidence == apart.confidence
+    assert whole.alternates == apart.alternates
+    assert whole.confidence is not None and whole.confidence.count_high > whole.spot_count
