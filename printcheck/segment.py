@@ -314,7 +314,8 @@ def _glare_field(
     share : float
         Share of ``valid`` where glare adds more than a quarter of the diffuse light.
     """
-    lin_max = _TO_LINEAR[cv2.max(cv2.max(image[..., 0], image[..., 1]), image[..., 2])]
+    # cv2.LUT: the same table look-up as _TO_LINEAR[...], ~10x faster
+    lin_max = cv2.LUT(cv2.max(cv2.max(image[..., 0], image[..., 1]), image[..., 2]), _TO_LINEAR)
     # keep clear of the edge of what is shown (a card's cut-out edge is white paper)
     k = 2 * max(1, int(round(0.3 * px_per_mm))) + 1
     valid = cv2.erode(valid.view(np.uint8), np.ones((k, k), np.uint8)).view(bool)
@@ -362,7 +363,7 @@ def _evidence(image: np.ndarray, compound: str, glare: np.ndarray | None) -> np.
     """Compound evidence, with broad glare subtracted (in linear light) first."""
     if glare is None:
         return compound_evidence(image, compound)
-    lin = _TO_LINEAR[image]
+    lin = cv2.LUT(image, _TO_LINEAR)
     # additive white light can never exceed the darkest channel of a pixel
     low = cv2.min(cv2.min(lin[..., 0], lin[..., 1]), lin[..., 2])
     lin = lin - np.minimum(glare, 0.9 * low)[..., None]
@@ -380,7 +381,7 @@ def _stats(score: np.ndarray, valid: np.ndarray) -> tuple[float, float, float, f
     v = score[valid]
     if v.size < 16:
         return 0.0, 1e-3, 1e-3, 0.0
-    lo, hi = np.quantile(v, [0.001, 0.999])
+    lo, hi = _tail_quantiles(v, 0.001, 0.999)
     if not hi > lo:
         return float(lo), 1e-3, float(lo) + 1e-3, 0.0
     hist, edges = np.histogram(v, bins=256, range=(float(lo), float(hi)))
@@ -393,6 +394,45 @@ def _stats(score: np.ndarray, valid: np.ndarray) -> tuple[float, float, float, f
     clear = v[v > mode + 6.0 * sigma]
     comp = float(np.median(clear)) if clear.size else mode + 6.0 * sigma
     return float(mode), sigma, comp, clear.size / v.size
+
+
+def _tail_quantiles(v: np.ndarray, low: float, high: float) -> tuple[float, float]:
+    """``np.quantile(v, [low, high])`` for a low and a high quantile of a 1-D array.
+
+    The same values, without partitioning all of ``v``: the order statistics wanted lie
+    among the values beyond thresholds read off a strided sample (checked by count;
+    np.quantile itself when the check fails), and they are interpolated by np.quantile
+    with numpy's own weights.
+    """
+    n = v.size
+    if n < 20_000 or not 0 < low < 0.5 < high < 1:
+        a, b = np.quantile(v, [low, high])
+        return float(a), float(b)
+    stride = 64
+    sample = np.sort(v[::stride])
+    out = []
+    for q in (low, high):
+        pos = q * (n - 1)
+        k = math.floor(pos)
+        k1 = min(k + 1, n - 1)
+        if q < 0.5:
+            t = sample[min(sample.size - 1, int(1.5 * (k1 + 1) / stride) + 8)]
+            cand = v[v <= t]
+            first = 0  # rank in v of cand's smallest
+            ok = cand.size >= k1 + 1
+        else:
+            t = sample[max(0, sample.size - 1 - int(1.5 * (n - k) / stride) - 8)]
+            cand = v[v >= t]
+            first = n - cand.size
+            ok = k >= first
+        if not ok:
+            a, b = np.quantile(v, [low, high])
+            return float(a), float(b)
+        part = np.partition(cand, [k - first, k1 - first])
+        pair = np.array([part[k - first], part[k1 - first]], dtype=v.dtype)
+        # q as a float64 array, as np.quantile(v, [low, high]) has it: the same arithmetic
+        out.append(float(np.quantile(pair, np.array([pos - k]))[0]))
+    return out[0], out[1]
 
 
 def _choose_compound(image: np.ndarray, valid: np.ndarray, on: str) -> tuple[str, float, float]:

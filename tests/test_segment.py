@@ -264,3 +264,23 @@ def test_tile_quantiles_equal_numpy_nanquantile() -> None:
                 ok = valid[r * tile : (r + 1) * tile, c * tile : (c + 1) * tile]
                 if ok.sum() >= 0.3 * tile * tile:
                     assert grid[r, c] == pytest.approx(np.quantile(block[ok], q), abs=1e-6)
+
+
+@pytest.mark.parametrize("kind", ["normal", "ties", "two modes", "sorted", "small"])
+def test_tail_quantiles_equal_numpy_quantile(kind: str) -> None:
+    """The sampled-threshold tail quantiles are np.quantile's values, bit for bit."""
+    from printcheck.segment import _tail_quantiles
+
+    rng = np.random.default_rng(len(kind))
+    n = 5_000 if kind == "small" else 150_000
+    if kind == "ties":
+        v = rng.integers(0, 5, n).astype(np.float32)
+    elif kind == "two modes":
+        v = np.r_[rng.normal(0, 1, n // 2), rng.normal(5, 0.1, n - n // 2)].astype(np.float32)
+        rng.shuffle(v)
+    elif kind == "sorted":
+        v = np.sort(rng.exponential(size=n)).astype(np.float32)
+    else:
+        v = rng.normal(size=n).astype(np.float32)
+    expected = np.quantile(v, [0.001, 0.999])
+    assert _tail_quantiles(v, 0.001, 0.999) == (float(expected[0]), float(expected[1]))
