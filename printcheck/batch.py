@@ -7,7 +7,6 @@ only whole passes, and re-running it records nothing twice.
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable, Iterator
 from concurrent.futures import Future, ProcessPoolExecutor
 from dataclasses import dataclass
@@ -16,7 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from printcheck.errors import PrintcheckError, ReportError
-from printcheck.pipeline import InspectOptions
+from printcheck.pipeline import InspectOptions, cores_available
 
 __all__ = ["BatchItem", "list_photos", "run_batch"]
 
@@ -84,6 +83,9 @@ def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -
         import cv2
 
         cv2.setNumThreads(1)
+        from printcheck.pipeline import use_range_thread
+
+        use_range_thread(False)
     from printcheck.pipeline import inspect_photo
     from printcheck.report.files import encode_image, output_name, write_bytes, write_json
     from printcheck.report.overlay import draw_overlay
@@ -148,8 +150,17 @@ def run_batch(
     except OSError as exc:
         raise ReportError(f"output folder {out}: cannot be created ({exc.strerror})") from None
     surface = options.surface or folder.resolve().name
-    workers = max(1, min(jobs or os.cpu_count() or 1, len(items)))
+    workers = max(1, min(jobs or cores_available(), len(items)))
     spec_name = None if options.spec is None else options.spec.name
+
+    # matplotlib's import and first drawing (~1 s) are needed only for the report at the
+    # end: a thread does them while the photos are measured (from the first result on,
+    # so that it does not hold up the start)
+    import threading
+
+    from printcheck.report.plots import warm_up
+
+    warming = threading.Thread(target=warm_up, name="printcheck-plots", daemon=True)
 
     outcomes: dict[int, dict[str, Any]] = {}
     if show_progress is None:
@@ -158,6 +169,8 @@ def run_batch(
         with _Progress(len(items), enabled=show_progress) as bar:
             for index, outcome in finished:
                 outcomes[index] = outcome
+                if warming.ident is None and cores_available() > 1:
+                    warming.start()
                 if "error" in outcome:
                     warn(f"{outcome['error']}; skipped")
                 else:
@@ -169,6 +182,8 @@ def run_batch(
                 bar.advance(items[index].path.name)
         passes = history.passes(surface)
 
+    if warming.ident is not None:
+        warming.join()
     done = [outcomes[i] for i in sorted(outcomes) if "data" in outcomes[i]]
     if not done:
         warn(f"batch {folder}: none of the {len(items)} photos could be measured")

@@ -101,6 +101,27 @@ def inspect_image(
     )
 
 
+def cores_available() -> int:
+    """CPU cores this process may run on (its affinity mask; os.cpu_count where unknown)."""
+    import os
+
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not on Linux
+        return os.cpu_count() or 1
+
+
+# Whether inspect computes the confidence range on a second thread (see
+# _measure_rectified).  Batch workers, one per core, turn it off: the cores are busy.
+_RANGE_THREAD = [True]
+
+
+def use_range_thread(enabled: bool) -> None:
+    """Compute the confidence range on a second thread beside measure (default on; it is
+    used only when the process may run on more than one core)."""
+    _RANGE_THREAD[0] = bool(enabled)
+
+
 def _rectify(image: np.ndarray, options: InspectOptions) -> Rectified:
     """The locate stage: markers (or the explicit scale) to the rectified window."""
     from printcheck.locate import LocateConfig, locate, rectify_scale
@@ -157,10 +178,14 @@ def _measure_rectified(
     # The confidence range needs nothing of the measurement: it runs on a second thread
     # while the main mask is measured (OpenCV and numpy release the GIL in their loops;
     # on two cores it takes the range off the wall time).
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="printcheck-range") as pool:
-        counts = pool.submit(nudged)
+    if _RANGE_THREAD[0] and cores_available() > 1:
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="printcheck-range") as pool:
+            counts = pool.submit(nudged)
+            meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
+            meas = with_confidence(meas, counts.result(), config)
+    else:
         meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
-        meas = with_confidence(meas, counts.result(), config)
+        meas = with_confidence(meas, nudged(), config)
     verdict = None if spec is None else judge(meas, spec, unit=options.unit)
     warnings = tuple(rect.warnings) + tuple(seg.warnings)
     if meas.confidence is not None and meas.confidence.doubtful:

@@ -13,12 +13,33 @@ from typing import Any
 
 from printcheck.units import density_label
 
-__all__ = ["trend_png"]
+__all__ = ["trend_png", "warm_up"]
 
 _BLUE = "#1f5fa8"
 _GREEN = "#2e8b57"
 _RED = "#c0392b"
 _GREY = "#7f8c8d"
+
+
+def warm_up() -> None:
+    """Import matplotlib and draw a tiny labelled figure, so the first real plot is quick.
+
+    Importing matplotlib and its first text drawing (font loading) take about a second;
+    batch runs this on a thread while the photos are measured.  Any failure is left
+    for :func:`trend_png` to report.
+    """
+    try:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
+
+        fig = Figure(figsize=(1.0, 1.0), dpi=20, layout="constrained")
+        FigureCanvasAgg(fig)
+        ax = fig.subplots()
+        ax.plot([0, 1], [0, 1], marker="o")
+        ax.set_ylabel(density_label("in", 1.0))
+        fig.savefig(io.BytesIO(), format="png")
+    except Exception:  # the report itself will say what is wrong
+        pass
 
 
 def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
