@@ -83,9 +83,9 @@ def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -
         import cv2
 
         cv2.setNumThreads(1)
-        from printcheck.pipeline import use_range_thread
+        from printcheck.pipeline import use_side_thread
 
-        use_range_thread(False)
+        use_side_thread(False)
     from printcheck.pipeline import inspect_photo
     from printcheck.report.files import encode_image, output_name, write_bytes, write_json
     from printcheck.report.overlay import draw_overlay

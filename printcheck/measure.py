@@ -27,6 +27,7 @@ Conventions chosen here (where the contract is silent):
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import cv2
@@ -47,6 +48,7 @@ __all__ = [
     "label_spots",
     "confidence_counts",
     "with_confidence",
+    "bare_map",
 ]
 
 _EIGHT = np.ones((3, 3), dtype=bool)
@@ -525,6 +527,7 @@ def measure(
     analysed: np.ndarray,
     config: MeasureConfig = MeasureConfig(),
     alternates: tuple[np.ndarray, ...] = (),
+    bare: tuple[BarePatch, np.ndarray] | Callable[[], tuple[BarePatch, np.ndarray]] | None = None,
 ) -> Measurement:
     """Measure the contact ``mask`` (M, N) bool on rectified ``frame``.
 
@@ -540,6 +543,11 @@ def measure(
     alternates : tuple of (M, N) bool ndarray
         Masks at nudged thresholds from which the confidence range is taken; with
         none, ``confidence`` is None.
+    bare : (BarePatch, (M, N) float32 ndarray) or a function returning one, optional
+        :func:`bare_map` of the same mask, frame, analysed area and config, when it is
+        computed elsewhere (the pipeline runs it beside measure and passes its future's
+        ``result``, called when measure comes to the bare patch); else measure computes
+        it.
 
     Returns
     -------
@@ -665,8 +673,12 @@ def measure(
             )
 
     # --- bare patches
-    free = in_an & ~contact
-    largest, bare_edt = _largest_bare(free, frame)
+    if bare is None:
+        largest, bare_edt = _largest_bare(in_an & ~contact, frame)
+    else:
+        largest, bare_edt = bare() if callable(bare) else bare
+        if bare_edt.shape != mask.shape:
+            raise OptionError(f"bare map has shape {bare_edt.shape}, expected {mask.shape}")
 
     # --- size statistics of the counted spots
     a_in = area_mm2[in_window]
@@ -722,6 +734,32 @@ def measure(
         size_stats=size_stats,
         alternates=meas_alts,
     )
+
+
+def bare_map(
+    mask: np.ndarray,
+    *,
+    frame: Frame,
+    analysed: np.ndarray,
+    config: MeasureConfig = MeasureConfig(),
+) -> tuple[BarePatch, np.ndarray]:
+    """The largest bare patch of a contact mask, and the radius map it comes from.
+
+    What :func:`measure` computes for its ``largest_bare`` (and its bare-patch
+    guidance), on its own: the spots are the 8-connected components of ``mask`` of at
+    least ``config.min_spot_mm2`` (splitting touching spots moves no pixel), the bare
+    area the analysed window less them.  Independent of :func:`measure`, so it may run
+    beside it; pass the result to ``measure(..., bare=...)``.
+    """
+    mask = np.asarray(mask, dtype=bool)
+    analysed = np.asarray(analysed, dtype=bool)
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(
+        mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
+    )
+    keep = stats[:, cv2.CC_STAT_AREA] >= config.min_spot_mm2 * frame.px_per_mm**2 - 1e-9
+    keep[0] = False
+    contact = keep[lab] if not keep[1:].all() else mask
+    return _largest_bare(_in_window(frame, analysed) & ~contact, frame)
 
 
 def _largest_bare(free: np.ndarray, frame: Frame) -> tuple[BarePatch, np.ndarray]:

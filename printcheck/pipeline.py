@@ -111,15 +111,15 @@ def cores_available() -> int:
         return os.cpu_count() or 1
 
 
-# Whether inspect computes the confidence range on a second thread (see
-# _measure_rectified).  Batch workers, one per core, turn it off: the cores are busy.
-_RANGE_THREAD = [True]
+# Whether inspect computes the bare patch and the confidence range on a second thread
+# (see _measure_rectified).  Batch workers, one per core, turn it off: the cores are busy.
+_SIDE_THREAD = [True]
 
 
-def use_range_thread(enabled: bool) -> None:
-    """Compute the confidence range on a second thread beside measure (default on; it is
-    used only when the process may run on more than one core)."""
-    _RANGE_THREAD[0] = bool(enabled)
+def use_side_thread(enabled: bool) -> None:
+    """Compute the bare patch and the confidence range on a second thread beside measure
+    (default on; it is used only when the process may run on more than one core)."""
+    _SIDE_THREAD[0] = bool(enabled)
 
 
 def _rectify(image: np.ndarray, options: InspectOptions) -> Rectified:
@@ -146,7 +146,14 @@ def _measure_rectified(
 ) -> Result:
     """Segment, measure and judge the rectified window; the photo itself is not needed."""
     from printcheck.judge import judge
-    from printcheck.measure import MeasureConfig, confidence_counts, measure, with_confidence
+    from printcheck.measure import (
+        BarePatch,
+        MeasureConfig,
+        bare_map,
+        confidence_counts,
+        measure,
+        with_confidence,
+    )
     from printcheck.segment import SegmentConfig, mask_at, segment
 
     seg = segment(
@@ -175,13 +182,24 @@ def _measure_rectified(
             (seg.mask, *alternates), frame=rect.frame, analysed=rect.analysed, config=config
         )
 
-    # The confidence range needs nothing of the measurement: it runs on a second thread
-    # while the main mask is measured (OpenCV and numpy release the GIL in their loops;
-    # on two cores it takes the range off the wall time).
-    if _RANGE_THREAD[0] and cores_available() > 1:
-        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="printcheck-range") as pool:
+    def bare() -> tuple[BarePatch, np.ndarray]:
+        return bare_map(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
+
+    if _SIDE_THREAD[0] and cores_available() > 1:
+        # The bare patch and the confidence range need nothing of the measurement: a
+        # second thread computes them (the bare patch first: measure waits for it half
+        # way) while the main mask is measured.  OpenCV and numpy release the GIL in
+        # their loops, so on two cores they come off the wall time.
+        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="printcheck-side") as pool:
+            bare_patch = pool.submit(bare)
             counts = pool.submit(nudged)
-            meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
+            meas = measure(
+                seg.mask,
+                frame=rect.frame,
+                analysed=rect.analysed,
+                config=config,
+                bare=bare_patch.result,
+            )
             meas = with_confidence(meas, counts.result(), config)
     else:
         meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)

@@ -73,21 +73,21 @@ def test_inspect_json_is_the_library_result(small_job, capsys) -> None:  # type:
     assert data["format"] == "printcheck-result/1" and data["photo"] == photo.name
 
 
-def test_confidence_range_thread_changes_no_result(small_job) -> None:  # type: ignore[no-untyped-def]
+def test_side_thread_changes_no_result(small_job) -> None:  # type: ignore[no-untyped-def]
     # inspect computes the range on a second thread; batch workers compute it in line
     from printcheck.layout import read_layout
-    from printcheck.pipeline import InspectOptions, inspect_photo, use_range_thread
+    from printcheck.pipeline import InspectOptions, inspect_photo, use_side_thread
     from printcheck.result import result_to_dict
 
     folder, photos = small_job
     options = InspectOptions(layout=read_layout(folder / "layout.toml"))
     for photo in photos:
         threaded = result_to_dict(inspect_photo(folder / photo.file, options=options))
-        use_range_thread(False)
+        use_side_thread(False)
         try:
             in_line = result_to_dict(inspect_photo(folder / photo.file, options=options))
         finally:
-            use_range_thread(True)
+            use_side_thread(True)
         assert threaded == in_line
 
 
