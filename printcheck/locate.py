@@ -222,12 +222,16 @@ def _edge_points(
         sizes.append(n_profiles)
     base = np.concatenate(bases)
     out = np.concatenate(outwards)
-    xy = base[:, None, :] + offsets[None, :, None] * out[:, None, :]  # (P, S, 2)
-    map_x = xy[..., 0].astype(np.float32)
-    map_y = xy[..., 1].astype(np.float32)
+    # sample positions (P, S): profile p, offset s
+    map_x = (base[:, 0, None] + offsets[None, :] * out[:, 0, None]).astype(np.float32)
+    map_y = (base[:, 1, None] + offsets[None, :] * out[:, 1, None]).astype(np.float32)
     prof = cv2.remap(grey, map_x, map_y, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
     prof = prof.astype(np.float64)
-    grad = np.gradient(prof, axis=1)
+    # np.gradient(prof, axis=1): central differences inside, one-sided at the ends
+    grad = np.empty_like(prof)
+    grad[:, 1:-1] = (prof[:, 2:] - prof[:, :-2]) / 2.0
+    grad[:, 0] = prof[:, 1] - prof[:, 0]
+    grad[:, -1] = prof[:, -1] - prof[:, -2]
     n_samples = grad.shape[1]
     idx = np.arange(n_samples)[None, :]
     j = np.argmax(grad, axis=1)[:, None]

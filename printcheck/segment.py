@@ -384,7 +384,13 @@ def _stats(score: np.ndarray, valid: np.ndarray) -> tuple[float, float, float, f
     lo, hi = _tail_quantiles(v, 0.001, 0.999)
     if not hi > lo:
         return float(lo), 1e-3, float(lo) + 1e-3, 0.0
-    hist, edges = np.histogram(v, bins=256, range=(float(lo), float(hi)))
+    # cv2.calcHist: np.histogram's counts (bar a value at the very top edge, which
+    # np.histogram puts in the last bin) about 3x faster
+    edges = np.linspace(float(lo), float(hi), 257)
+    hist = cv2.calcHist(
+        [np.ascontiguousarray(v, dtype=np.float32).reshape(-1, 1)], [0], None, [256],
+        [float(lo), float(hi)],
+    ).ravel()
     sm = np.convolve(hist.astype(float), np.ones(5) / 5.0, mode="same")
     k = int(np.argmax(sm))
     mode = 0.5 * (edges[k] + edges[k + 1])
