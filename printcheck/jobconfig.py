@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any
 
 from printcheck.errors import OptionError
-from printcheck.tomlfile import read_toml
+from printcheck.tomlfile import read_toml, shown_key
 
 __all__ = ["JOB_FILE", "JobSettings", "read_job_settings", "find_job_file"]
 
@@ -85,7 +85,8 @@ def read_job_settings(path: str | Path) -> JobSettings:
     for key, value in data.items():
         if key not in _TYPES:
             raise OptionError(
-                f"job settings {path}: {key}: unknown key; expected one of {sorted(_TYPES)}"
+                f"job settings {path}: {shown_key(key)}: unknown key; "
+                f"expected one of {sorted(_TYPES)}"
             )
         if isinstance(value, bool) or not isinstance(value, _TYPES[key]):
             kind = "text" if _TYPES[key] == (str,) else "a number"

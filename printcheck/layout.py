@@ -21,6 +21,7 @@ from pathlib import Path
 from typing import Any
 
 from printcheck.errors import LayoutError
+from printcheck.tomlfile import shown_key
 from printcheck.units import MM_PER_IN
 
 __all__ = [
@@ -141,11 +142,6 @@ def _fail(source: str, key: str, problem: str) -> LayoutError:
     return LayoutError(f"layout {source}: {key}: {problem}")
 
 
-def _shown(key: str) -> str:
-    """A key as it can be shown in a one-line message (quoted when it has odd characters)."""
-    return key if key.isprintable() and key else repr(key)
-
-
 def _number(value: Any, source: str, key: str, scale: float = 1.0) -> float:
     """``value`` times ``scale`` (mm per file unit), refusing what is not a sane length."""
     if isinstance(value, bool) or not isinstance(value, int | float):
@@ -224,7 +220,7 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
     known = {"name", "dictionary", "units", "window", "marker", "exclude"}
     unknown = sorted(set(data) - known)
     if unknown:
-        raise _fail(source, _shown(unknown[0]), f"unknown key; expected one of {sorted(known)}")
+        raise _fail(source, shown_key(unknown[0]), f"unknown key; expected one of {sorted(known)}")
 
     name = data.get("name", Path(source).stem if source != "<memory>" else "layout")
     if not isinstance(name, str) or not name.strip():
@@ -258,7 +254,7 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
             raise _fail(source, f"window.{key}", "missing")
     extra = sorted(set(win) - {"x", "y", "width", "height", "margin"})
     if extra:
-        raise _fail(source, f"window.{_shown(extra[0])}", "unknown key")
+        raise _fail(source, f"window.{shown_key(extra[0])}", "unknown key")
     wx = _number(win["x"], source, "window.x", scale)
     wy = _number(win["y"], source, "window.y", scale)
     ww = _number(win["width"], source, "window.width", scale)
@@ -299,7 +295,7 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
         seen.add(mid)
         extra = sorted(set(raw) - {"id", "corners"})
         if extra:
-            raise _fail(source, f"{where}.{_shown(extra[0])}", "unknown key")
+            raise _fail(source, f"{where}.{shown_key(extra[0])}", "unknown key")
         corners = raw.get("corners")
         if not isinstance(corners, list):
             raise _fail(source, f"{where}.corners", "missing or not a list of 4 points")

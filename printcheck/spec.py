@@ -35,6 +35,7 @@ from pathlib import Path
 from typing import Any
 
 from printcheck.errors import SpecError
+from printcheck.tomlfile import shown_key
 from printcheck.units import MM_PER_IN
 
 __all__ = [
@@ -430,7 +431,7 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
     if unknown:
         near = difflib.get_close_matches(unknown[0], _KNOWN_KEYS, n=1)
         hint = f"did you mean {near[0]}?" if near else f"expected one of {', '.join(_KNOWN_KEYS)}"
-        raise _fail(source, unknown[0], f"unknown key; {hint}")
+        raise _fail(source, shown_key(unknown[0]), f"unknown key; {hint}")
 
     default_name = Path(source).stem if source != "<memory>" else "spec"
     name = _text(data, "name", source, default_name, one_line=True)
@@ -495,7 +496,7 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
         raise _fail(source, "sources", f'must be a table of target = "text", got {raw_sources!r}')
     sources: list[tuple[str, str]] = []
     for key in raw_sources:
-        where = f"sources.{key}"
+        where = f"sources.{shown_key(key)}"
         if key not in TARGET_KEYS:
             raise _fail(source, where, f"not a target; use one of {', '.join(TARGET_KEYS)}")
         if present[key] is None:

@@ -12,7 +12,14 @@ from typing import Any
 
 from printcheck.errors import PrintcheckError
 
-__all__ = ["read_toml"]
+__all__ = ["read_toml", "shown_key"]
+
+
+def shown_key(key: object) -> str:
+    """A TOML key as it can be shown in a one-line message (quoted when it has odd
+    characters: a key may hold a newline or be empty)."""
+    text = str(key)
+    return text if text.isprintable() and text else repr(text)
 
 
 def read_toml(

@@ -451,3 +451,14 @@ def test_the_documented_example_parses():
     assert (spec.min_density, spec.min_cell_density, spec.cell_share) == (16, 14, 0.9)
     assert (spec.bearing_min, spec.bearing_max, spec.max_bare_mm) == (20, 60, 19)
     assert spec.source_of("bearing_max") == "common practice"
+
+
+@pytest.mark.parametrize("key", ["\n", "", "a\tb", "bad\nkey"])
+def test_odd_unknown_keys_are_shown_on_one_line(key: str) -> None:
+    # found by the fuzz test above: a key holding a newline made a two-line message
+    with pytest.raises(SpecError) as info:
+        parse_spec({key: 1, "min_density": 10}, source="odd.toml")
+    assert "\n" not in str(info.value) and "unknown key" in str(info.value)
+    with pytest.raises(SpecError) as info:
+        parse_spec({"min_density": 10, "sources": {key: "x"}}, source="odd.toml")
+    assert "\n" not in str(info.value)
