@@ -6,7 +6,7 @@ This module only chains the stages; each stage is pure and lives in its own modu
 from __future__ import annotations
 
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import datetime
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -154,9 +154,9 @@ def _measure_rectified(
         measure,
         with_confidence,
     )
-    from printcheck.segment import SegmentConfig, mask_at, segment
+    from printcheck.segment import SegmentConfig, mask_at, segment_levels
 
-    seg = segment(
+    levels = segment_levels(
         rect.image,
         visible=rect.visible,
         config=SegmentConfig(
@@ -171,28 +171,31 @@ def _measure_rectified(
         min_spot_mm2=options.min_spot_mm2,
         max_bare_mm=None if spec is None else spec.max_bare_mm,
     )
+    # the confidence range: masks at the threshold nudged down and up
+    nudged = (levels.threshold - levels.spread, levels.threshold + levels.spread)
 
-    def nudged() -> list[tuple[int, float]]:
-        # the masks at the threshold nudged down and up, and the counts for the range
-        alternates = (
-            mask_at(seg, seg.threshold - seg.spread),
-            mask_at(seg, seg.threshold + seg.spread),
-        )
+    def counted(mask: np.ndarray, alternates: tuple[np.ndarray, ...]) -> list[tuple[int, float]]:
         return confidence_counts(
-            (seg.mask, *alternates), frame=rect.frame, analysed=rect.analysed, config=config
+            (mask, *alternates), frame=rect.frame, analysed=rect.analysed, config=config
         )
 
-    def bare() -> tuple[BarePatch, np.ndarray]:
-        return bare_map(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
+    def bare(mask: np.ndarray) -> tuple[BarePatch, np.ndarray]:
+        return bare_map(mask, frame=rect.frame, analysed=rect.analysed, config=config)
 
     if _SIDE_THREAD[0] and cores_available() > 1:
-        # The bare patch and the confidence range need nothing of the measurement: a
-        # second thread computes them (the bare patch first: measure waits for it half
-        # way) while the main mask is measured.  OpenCV and numpy release the GIL in
-        # their loops, so on two cores they come off the wall time.
+        # The nudged masks, their counts and the bare patch need nothing of the
+        # measurement: a second thread computes them (the nudged masks while this one
+        # makes the contact mask, then the bare patch, which measure waits for half way,
+        # then the counts) while the contact mask is made and measured.  OpenCV and
+        # numpy release the GIL in their loops, so on two cores they come off the wall
+        # time.
         with ThreadPoolExecutor(max_workers=1, thread_name_prefix="printcheck-side") as pool:
-            bare_patch = pool.submit(bare)
-            counts = pool.submit(nudged)
+            alternates = [pool.submit(mask_at, levels, t) for t in nudged]
+            seg = replace(levels, mask=mask_at(levels, levels.threshold))
+            bare_patch = pool.submit(bare, seg.mask)
+            counts = pool.submit(
+                lambda: counted(seg.mask, tuple(a.result() for a in alternates))
+            )
             meas = measure(
                 seg.mask,
                 frame=rect.frame,
@@ -202,8 +205,11 @@ def _measure_rectified(
             )
             meas = with_confidence(meas, counts.result(), config)
     else:
+        seg = replace(levels, mask=mask_at(levels, levels.threshold))
         meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
-        meas = with_confidence(meas, nudged(), config)
+        meas = with_confidence(
+            meas, counted(seg.mask, tuple(mask_at(levels, t) for t in nudged)), config
+        )
     verdict = None if spec is None else judge(meas, spec, unit=options.unit)
     warnings = tuple(rect.warnings) + tuple(seg.warnings)
     if meas.confidence is not None and meas.confidence.doubtful:

@@ -43,7 +43,14 @@ import numpy as np
 
 from printcheck.errors import OptionError, PhotoError
 
-__all__ = ["SegmentConfig", "Segmentation", "segment", "mask_at", "compound_evidence"]
+__all__ = [
+    "SegmentConfig",
+    "Segmentation",
+    "segment",
+    "segment_levels",
+    "mask_at",
+    "compound_evidence",
+]
 
 Compound = Literal["blue", "red", "auto"]
 CompoundOn = Literal["reference", "work"]
@@ -651,7 +658,7 @@ def _mostly_compound(
         compound_level=float(q50),
         bare_sigma=max(float(np.std(v)), 1e-3),
     )
-    return replace(seg, mask=mask_at(seg, t))
+    return seg
 
 
 def _low_gap(config: SegmentConfig, t: float, m0: float) -> float:
@@ -662,6 +669,9 @@ def segment(
     image: np.ndarray, *, visible: np.ndarray, config: SegmentConfig = SegmentConfig()
 ) -> Segmentation:
     """Segment the contact marks of a rectified photo.
+
+    The same as :func:`segment_levels` followed by
+    ``replace(levels, mask=mask_at(levels, levels.threshold))``.
 
     Parameters
     ----------
@@ -674,6 +684,22 @@ def segment(
     Returns
     -------
     Segmentation
+    """
+    levels = segment_levels(image, visible=visible, config=config)
+    return replace(levels, mask=mask_at(levels, levels.threshold))
+
+
+def segment_levels(
+    image: np.ndarray, *, visible: np.ndarray, config: SegmentConfig = SegmentConfig()
+) -> Segmentation:
+    """Everything :func:`segment` finds but the mask: score, threshold, levels, warnings.
+
+    The returned Segmentation's ``mask`` is empty (all False);
+    ``mask_at(levels, levels.threshold)`` is the contact mask, and ``mask_at`` at other
+    thresholds gives the confidence range's masks, so a caller may compute them all at
+    once (the pipeline does, on two threads).
+
+    Parameters and errors are those of :func:`segment`.
     """
     image = np.asarray(image)
     if image.ndim != 3 or image.shape[2] != 3 or image.dtype != np.uint8:
@@ -798,4 +824,4 @@ def segment(
         bare_sigma=float(s0),
         glare_fraction=glare_fraction,
     )
-    return replace(seg, mask=mask_at(seg, t))
+    return seg
