@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Iterator
 from concurrent.futures import Future, ProcessPoolExecutor
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import datetime
 from pathlib import Path
 from typing import Any
@@ -83,9 +83,8 @@ def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -
         import cv2
 
         cv2.setNumThreads(1)
-        from printcheck.pipeline import use_side_thread
-
-        use_side_thread(False)
+        # one worker per core: the cores are busy, no side thread either
+        options = replace(options, side_thread=False)
     from printcheck.pipeline import inspect_photo
     from printcheck.report.files import encode_image, output_name, write_bytes, write_json
     from printcheck.report.overlay import draw_overlay

@@ -47,6 +47,10 @@ class InspectOptions:
     min_spot_mm2 : float
     allow_partial : bool
         Measure the visible part of a window that runs out of the photo.
+    side_thread : bool
+        Compute the bare patch and the confidence range on a second thread beside
+        measure when the process may run on more than one core (the results are the
+        same either way).  Batch workers, one per core, turn it off.
     """
 
     layout: Layout | None = None
@@ -60,6 +64,7 @@ class InspectOptions:
     surface: str | None = None
     min_spot_mm2: float = 0.1
     allow_partial: bool = False
+    side_thread: bool = True
 
     @property
     def cell_in_unit(self) -> float:
@@ -109,17 +114,6 @@ def cores_available() -> int:
         return len(os.sched_getaffinity(0))
     except AttributeError:  # pragma: no cover - not on Linux
         return os.cpu_count() or 1
-
-
-# Whether inspect computes the bare patch and the confidence range on a second thread
-# (see _measure_rectified).  Batch workers, one per core, turn it off: the cores are busy.
-_SIDE_THREAD = [True]
-
-
-def use_side_thread(enabled: bool) -> None:
-    """Compute the bare patch and the confidence range on a second thread beside measure
-    (default on; it is used only when the process may run on more than one core)."""
-    _SIDE_THREAD[0] = bool(enabled)
 
 
 def _rectify(image: np.ndarray, options: InspectOptions) -> Rectified:
@@ -182,7 +176,7 @@ def _measure_rectified(
     def bare(mask: np.ndarray) -> tuple[BarePatch, np.ndarray]:
         return bare_map(mask, frame=rect.frame, analysed=rect.analysed, config=config)
 
-    if _SIDE_THREAD[0] and cores_available() > 1:
+    if options.side_thread and cores_available() > 1:
         # The nudged masks, their counts and the bare patch need nothing of the
         # measurement: a second thread computes them (the nudged masks while this one
         # makes the contact mask, then the bare patch, which measure waits for half way,
