@@ -395,3 +395,16 @@ def test_report_without_spec_or_progress(tmp_path: Path) -> None:
     assert "no spec" in text and "<img" not in text
     buf = io.StringIO(text)
     assert buf.read(15) == "<!DOCTYPE html>"
+
+
+@pytest.mark.parametrize(
+    "name", ["=HYPERLINK(1).jpg", "+1.jpg", "-2.jpg", "@SUM(A1).jpg", "\tx.jpg"]
+)
+def test_csv_text_a_spreadsheet_would_run_is_inert(tmp_path: Path, name: str) -> None:
+    # OWASP, "CSV Injection": cells starting = + - @ tab or CR are formulas to spreadsheet
+    # programs; a leading ' makes them text.  Numbers stay numbers; the JSON keeps the name.
+    data = result_to_dict(make_result(photo=name, verdict=a_verdict(True)))
+    with open(write_csv(tmp_path, CSV_NAME, [data]), newline="", encoding="utf-8") as fh:
+        row = next(csv.DictReader(fh))
+    assert row["photo"] == "'" + name and data["photo"] == name
+    assert float(row["density"]) == data["density"]

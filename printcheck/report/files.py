@@ -195,7 +195,9 @@ def result_row(result: Mapping[str, Any]) -> dict[str, Any]:
     """One CSV row (the :data:`CSV_COLUMNS`) from a result dict.
 
     Booleans become ``true``/``false``, missing values the empty string, warnings are
-    joined with ``"; "``.
+    joined with ``"; "``.  Text that a spreadsheet would take for a formula (starting
+    with ``= + - @``, a tab or a carriage return) gets a leading ``'``; numbers are
+    left as they are.
     """
     spec = result.get("spec") if isinstance(result.get("spec"), Mapping) else None
     raw_conf = result.get("confidence")
@@ -207,7 +209,7 @@ def result_row(result: Mapping[str, Any]) -> dict[str, Any]:
     def v(x: Any) -> Any:
         return "" if x is None else x
 
-    return {
+    row = {
         "photo": v(result.get("photo")),
         "surface": v(result.get("surface")),
         "taken": v(result.get("taken")),
@@ -226,6 +228,19 @@ def result_row(result: Mapping[str, Any]) -> dict[str, Any]:
         "doubtful": b(conf.get("doubtful")),
         "warnings": "; ".join(str(w) for w in result.get("warnings") or ()),
     }
+    return {key: _inert(value) for key, value in row.items()}
+
+
+# A text cell starting with one of these is read as a formula by spreadsheet programs
+# (a photo or surface named "=HYPERLINK(...)"); OWASP's advice on CSV injection is to
+# start such a cell with a single quote, which the spreadsheet shows as text.
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def _inert(value: Any) -> Any:
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        return "'" + value
+    return value
 
 
 def write_csv(
