@@ -225,7 +225,9 @@ def _decode_jpeg_fast(data: bytes, im) -> np.ndarray | None:  # type: ignore[no-
         if simplejpeg.decode_jpeg_header(data)[2] not in ("YCbCr", "Gray"):
             return None
         image = simplejpeg.decode_jpeg(data, colorspace="BGR", strict=True)
-    except ValueError:
+    except MemoryError:
+        raise
+    except Exception:  # any complaint: Pillow decodes it, or says why it cannot
         return None
     try:
         with _quiet():
