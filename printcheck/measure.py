@@ -266,15 +266,11 @@ def label_spots(
     mask = np.asarray(mask, dtype=bool)
     if mask.ndim != 2:
         raise OptionError(f"contact mask must be 2-D (M, N), got shape {mask.shape}")
-    n, comp, stats, _ = cv2.connectedComponentsWithStats(
-        mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
-    )
+    min_px = min_spot_mm2 * px_per_mm**2
+    n, comp, stats, _, keep = _components(mask, min_px)
     n -= 1
     if n == 0:
         return np.zeros(mask.shape, np.int32), 0
-    min_px = min_spot_mm2 * px_per_mm**2
-    keep = stats[:, cv2.CC_STAT_AREA] >= min_px - 1e-9
-    keep[0] = False
     if not keep[1:].all():
         lut = np.where(keep, np.arange(n + 1), 0).astype(np.int32)
         comp = lut[comp]
@@ -284,6 +280,24 @@ def label_spots(
             neck_mm=neck_mm,
         )
     return _renumber(comp)
+
+
+def _components(
+    mask: np.ndarray, min_px: float
+) -> tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """8-connected components of ``mask`` and which of them are spots.
+
+    Returns ``(n, labels, stats, centroids, keep)`` as
+    ``cv2.connectedComponentsWithStats`` gives them (``n`` counts the background, label
+    0), and ``keep[i]``: component i has at least ``min_px`` pixels (never the
+    background).
+    """
+    n, lab, stats, cent = cv2.connectedComponentsWithStats(
+        mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
+    )
+    keep = stats[:, cv2.CC_STAT_AREA] >= min_px - 1e-9
+    keep[0] = False
+    return n, lab, stats, cent, keep
 
 
 def _renumber(labels: np.ndarray) -> tuple[np.ndarray, int]:
@@ -596,7 +610,7 @@ def measure(
     row_idx, n_rows = _axis_cells(rows_px, frame.origin_mm[1], s, win.y_mm, win.height_mm, c_mm)
     col_idx, n_cols = _axis_cells(cols_px, frame.origin_mm[0], s, win.x_mm, win.width_mm, c_mm)
     n_cells = n_rows * n_cols
-    in_an = analysed & (row_idx[:, None] >= 0) & (col_idx[None, :] >= 0)
+    in_an = _in_window(frame, analysed)
     cell_area_px = _cell_sums(in_an, row_idx, col_idx, n_rows, n_cols)
     cell_contact_px = _cell_sums(in_an & contact, row_idx, col_idx, n_rows, n_cols)
 
@@ -753,11 +767,7 @@ def bare_map(
     """
     mask = np.asarray(mask, dtype=bool)
     analysed = np.asarray(analysed, dtype=bool)
-    n, lab, stats, _ = cv2.connectedComponentsWithStats(
-        mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
-    )
-    keep = stats[:, cv2.CC_STAT_AREA] >= config.min_spot_mm2 * frame.px_per_mm**2 - 1e-9
-    keep[0] = False
+    _, lab, _, _, keep = _components(mask, config.min_spot_mm2 * frame.px_per_mm**2)
     contact = keep[lab] if not keep[1:].all() else mask
     return _largest_bare(_in_window(frame, analysed) & ~contact, frame)
 
@@ -822,11 +832,7 @@ def confidence_counts(
             raise OptionError(
                 f"alternate mask has shape {np.shape(m)}, expected {analysed.shape}"
             )
-        n, lab, stats, cent = cv2.connectedComponentsWithStats(
-            np.asarray(m, dtype=bool).view(np.uint8), connectivity=8, ltype=cv2.CV_32S
-        )
-        keep = stats[:, cv2.CC_STAT_AREA] >= min_px - 1e-9
-        keep[0] = False
+        n, lab, stats, cent, keep = _components(np.asarray(m, dtype=bool), min_px)
         apr = np.floor(cent[:, 1] + 0.5).astype(np.int64)
         apc = np.floor(cent[:, 0] + 0.5).astype(np.int64)
         ok = keep & (apr >= 0) & (apr < rows_px) & (apc >= 0) & (apc < cols_px)

@@ -432,3 +432,18 @@ def test_confidence_counted_apart_equals_confidence_in_measure():
     assert whole.confidence == apart.confidence
     assert whole.alternates == apart.alternates
     assert whole.confidence is not None and whole.confidence.count_high > whole.spot_count
+    # each mask's unsplit count and bearing against scipy: 8-connected components of at
+    # least the minimum area, counted where the pixel holding the centroid is analysed
+    s = frame.px_per_mm
+    min_px = config.min_spot_mm2 * s * s
+    counts = confidence_counts((base, low, high), frame=frame, analysed=an, config=config)
+    for m, (n_got, bearing_got) in zip((base, low, high), counts, strict=True):
+        lab, n = ndimage.label(m, structure=EIGHT)
+        index = np.arange(1, n + 1)
+        sizes = ndimage.sum_labels(m, lab, index)
+        kept = index[sizes >= min_px]
+        centres = ndimage.center_of_mass(m, lab, kept)
+        n_ref = sum(bool(an[int(np.floor(r + 0.5)), int(np.floor(c + 0.5))]) for r, c in centres)
+        bearing_ref = 100.0 * np.isin(lab, kept)[an].sum() / an.sum()
+        assert n_got == n_ref
+        assert bearing_got == pytest.approx(bearing_ref)
