@@ -41,7 +41,7 @@ from printcheck.errors import PrintcheckError
 from printcheck.frame import Frame
 from printcheck.layout import Layout, card_layout, parse_layout
 from printcheck.measure import MeasureConfig, Measurement, measure
-from printcheck.segment import SegmentConfig, mask_at, segment
+from printcheck.segment import SegmentConfig, segment
 from printcheck.synth import Camera, Lighting, Scene, render_photo
 from printcheck.synth.truth import Truth, layout_masks
 
@@ -274,13 +274,12 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
             )
             method = f"homography ({type(exc).__name__})"
     s = frame.px_per_mm
-    seg = segment(rect_img, visible=visible,
+    seg = segment(rect_img, visible=visible, analysed=analysed,
                   config=SegmentConfig(compound=scene.compound, compound_on=scene.compound_on,
                                        px_per_mm=s))
     meas = measure(
         seg.mask, frame=frame, analysed=analysed, config=MeasureConfig(cell_mm=25.4),
-        alternates=(mask_at(seg, seg.threshold - seg.spread),
-                    mask_at(seg, seg.threshold + seg.spread)),
+        alternates=seg.alternates,
     )
     warnings.extend(seg.warnings)
     return Outcome(case, rendered["truth"], meas, method, s, time.perf_counter() - t0,

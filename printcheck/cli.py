@@ -70,7 +70,7 @@ CellOpt = Annotated[
 ]
 CompoundOpt = Annotated[
     Literal["blue", "red", "auto"] | None,
-    typer.Option("--compound", help="Colour of the marking compound (default blue)."),
+    typer.Option("--compound", help="Colour of the marking compound (default auto: found from the photo)."),
 ]
 CompoundOnOpt = Annotated[
     Literal["reference", "work"] | None,
@@ -220,7 +220,7 @@ def _build_options(common: _Common, job: JobSettings) -> InspectOptions:
         px_per_mm=px_per_mm,
         unit=unit,
         cell=cell,
-        compound=_pick(common.compound, job.compound, "blue"),
+        compound=_pick(common.compound, job.compound, "auto"),
         compound_on=_pick(common.compound_on, job.compound_on, "reference"),
         spec=spec,
         surface=None if surface is None else surface.strip(),

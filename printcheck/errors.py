@@ -12,6 +12,7 @@ __all__ = [
     "LayoutError",
     "SpecError",
     "LocateError",
+    "NoCompoundError",
     "OptionError",
     "HistoryError",
     "ReportError",
@@ -36,6 +37,10 @@ class SpecError(PrintcheckError, ValueError):
 
 class LocateError(PrintcheckError, ValueError):
     """The layout's markers could not be found or do not fit the layout."""
+
+
+class NoCompoundError(PrintcheckError, ValueError):
+    """No marking compound can be found in a photo: it is not a measurement of zero."""
 
 
 class OptionError(PrintcheckError, ValueError):

@@ -5,15 +5,14 @@ This module only chains the stages; each stage is pure and lives in its own modu
 
 from __future__ import annotations
 
-from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
 
-from printcheck.errors import PrintcheckError
+from printcheck.errors import NoCompoundError, PrintcheckError
 from printcheck.layout import Layout, Window, card_layout
 from printcheck.result import Result
 from printcheck.spec import Spec
@@ -58,7 +57,7 @@ class InspectOptions:
     scale_window: Window | None = None
     unit: str = "in"
     cell: float | None = None
-    compound: str = "blue"
+    compound: str = "auto"
     compound_on: str = "reference"
     spec: Spec | None = None
     surface: str | None = None
@@ -140,19 +139,13 @@ def _measure_rectified(
 ) -> Result:
     """Segment, measure and judge the rectified window; the photo itself is not needed."""
     from printcheck.judge import judge
-    from printcheck.measure import (
-        BarePatch,
-        MeasureConfig,
-        bare_map,
-        confidence_counts,
-        measure,
-        with_confidence,
-    )
-    from printcheck.segment import SegmentConfig, mask_at, segment_levels
+    from printcheck.measure import MeasureConfig, measure
+    from printcheck.segment import SegmentConfig, segment
 
-    levels = segment_levels(
+    seg = segment(
         rect.image,
         visible=rect.visible,
+        analysed=rect.analysed,
         config=SegmentConfig(
             compound=options.compound,  # type: ignore[arg-type]
             compound_on=options.compound_on,  # type: ignore[arg-type]
@@ -160,50 +153,20 @@ def _measure_rectified(
         ),
     )
     spec = options.spec
-    config = MeasureConfig(
-        cell_mm=options.cell_mm,
-        min_spot_mm2=options.min_spot_mm2,
-        max_bare_mm=None if spec is None else spec.max_bare_mm,
+    meas = measure(
+        seg.mask,
+        frame=rect.frame,
+        analysed=rect.analysed,
+        config=MeasureConfig(
+            cell_mm=options.cell_mm,
+            min_spot_mm2=options.min_spot_mm2,
+            max_bare_mm=None if spec is None else spec.max_bare_mm,
+        ),
+        alternates=seg.alternates,
+        photo_px_per_mm=rect.calibration.photo_px_per_mm,
     )
-    # the confidence range: masks at the threshold nudged down and up
-    nudged = (levels.threshold - levels.spread, levels.threshold + levels.spread)
-
-    def counted(mask: np.ndarray, alternates: tuple[np.ndarray, ...]) -> list[tuple[int, float]]:
-        return confidence_counts(
-            (mask, *alternates), frame=rect.frame, analysed=rect.analysed, config=config
-        )
-
-    def bare(mask: np.ndarray) -> tuple[BarePatch, np.ndarray]:
-        return bare_map(mask, frame=rect.frame, analysed=rect.analysed, config=config)
-
-    if options.side_thread and cores_available() > 1:
-        # The nudged masks, their counts and the bare patch need nothing of the
-        # measurement: a second thread computes them (the nudged masks while this one
-        # makes the contact mask, then the bare patch, which measure waits for half way,
-        # then the counts) while the contact mask is made and measured.  OpenCV and
-        # numpy release the GIL in their loops, so on two cores they come off the wall
-        # time.
-        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="printcheck-side") as pool:
-            alternates = [pool.submit(mask_at, levels, t) for t in nudged]
-            seg = replace(levels, mask=mask_at(levels, levels.threshold))
-            bare_patch = pool.submit(bare, seg.mask)
-            counts = pool.submit(
-                lambda: counted(seg.mask, tuple(a.result() for a in alternates))
-            )
-            meas = measure(
-                seg.mask,
-                frame=rect.frame,
-                analysed=rect.analysed,
-                config=config,
-                bare=bare_patch.result,
-            )
-            meas = with_confidence(meas, counts.result(), config)
-    else:
-        seg = replace(levels, mask=mask_at(levels, levels.threshold))
-        meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
-        meas = with_confidence(
-            meas, counted(seg.mask, tuple(mask_at(levels, t) for t in nudged)), config
-        )
+    if meas.spot_count == 0:
+        raise NoCompoundError(_no_compound(options, seg.compound))
     verdict = None if spec is None else judge(meas, spec, unit=options.unit)
     warnings = tuple(rect.warnings) + tuple(seg.warnings)
     if meas.confidence is not None and meas.confidence.doubtful:
@@ -221,6 +184,19 @@ def _measure_rectified(
         measurement=meas,
         verdict=verdict,
         warnings=warnings,
+    )
+
+
+def _no_compound(options: InspectOptions, chosen: str) -> str:
+    what = "blue or red" if options.compound == "auto" else chosen
+    if options.compound_on == "work":
+        where = "no contact rubbed through a coat of"
+    else:
+        where = "no spot of"
+    return (
+        f"{where} {what} marking compound found in the window: this is not a measurement of "
+        "zero; check that the print was spotted, the photo shows it in focus, and the "
+        "compound settings match (compound on the reference or on the work)"
     )
 
 

@@ -149,7 +149,9 @@ def result_to_dict(result: Result) -> dict[str, Any]:
         "spot_sizes": {k: _r(v, 4) for k, v in m.size_stats.items()},
         "segmentation": {
             "compound": result.segmentation.compound,
-            "threshold": _r(result.segmentation.threshold, 4),
+            "compound_on": result.segmentation.compound_on,
+            "compound_level": _r(result.segmentation.compound_level, 4),
+            "noise": _r(result.segmentation.noise, 5),
         },
         "guidance": {
             "high": [

@@ -1,0 +1,302 @@
+"""Contacts: from the evidence and its local levels to the contact marks.
+
+A contact is decided in four steps, each a rule a fitter would recognise:
+
+1. **Seeds** -- where the print is unmistakably marked: the evidence, smoothed at the
+   scale of the smallest spot, stands several noise levels above the bare metal *and* a
+   share of the compound's local level.  The second test is what keeps a thin smear of
+   compound (haze) and the colour fringes of bright scrape facets out, however wide they
+   are, while a spot washed pale by glare still counts (glare lowers the local compound
+   level with it).
+2. **Growth** -- from each seed, every connected pixel whose evidence is still clearly
+   above the bare noise: the pale rim of a spot belongs to the spot.
+3. **Separation** -- neighbouring contacts often touch once blurred.  The grown region is
+   cut along the valleys of the evidence between its peaks (a watershed), and two
+   neighbours stay apart when the evidence between them dips below a share of the weaker
+   one's peak: two contacts have bare metal, or at least thinner compound, between them;
+   one irregular contact does not.  Each contact then keeps the pixels above a share of
+   its own peak (its rim, where the film thins to nothing), and a one-pixel gap is cut
+   where two contacts meet, so that they are counted apart.
+4. **Clean-up** -- small holes in a contact (a glint) are filled.
+
+With compound on the work the same steps run on the share of the way from the local coat
+level to the bare metal: a worn-through contact is where the coat is more than half gone.
+"""
+
+from __future__ import annotations
+
+import math
+
+import cv2
+import numpy as np
+
+__all__ = ["seeds_and_growth", "separate", "contact_labels", "finish", "fill_small_holes"]
+
+
+def _disc(radius: int) -> np.ndarray:
+    return cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * radius + 1, 2 * radius + 1))
+
+
+def seeds_and_growth(
+    seeds: np.ndarray, grow: np.ndarray
+) -> np.ndarray:
+    """The pixels of ``grow`` 8-connected to a pixel of ``seeds`` (hysteresis)."""
+    n, lab = cv2.connectedComponents(grow.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    if n <= 1:
+        return np.zeros(grow.shape, bool)
+    keep = np.zeros(n, bool)
+    keep[lab[seeds & grow]] = True
+    keep[0] = False
+    return keep[lab]
+
+
+def separate(
+    region: np.ndarray,
+    seeds: np.ndarray,
+    height: np.ndarray,
+    *,
+    px_per_mm: float,
+    split_share: float,
+    min_dip: float,
+    rim_share: float | None,
+    score: np.ndarray | None = None,
+    large_lobes_deeper: bool = True,
+) -> np.ndarray:
+    """Cut ``region`` into contacts along the valleys of ``height``.
+
+    Parameters
+    ----------
+    region : (M, N) bool ndarray
+        The grown contact region.
+    seeds : (M, N) bool ndarray
+        A contact must hold a seed pixel.
+    height : (M, N) float32 ndarray
+        The evidence smoothed at spot scale (what the valleys are read on).
+    px_per_mm : float
+    split_share : float
+        Two neighbours stay apart when the highest point of the valley between them is
+        below ``split_share`` times the lower of their peaks ...
+    min_dip : float
+        ... and at least ``min_dip`` below it (noise units of ``height``).
+    rim_share : float or None
+        Each contact keeps its pixels above ``rim_share`` times its own peak of
+        ``score``; None keeps the whole region.
+    score : (M, N) float32 ndarray, optional
+        The evidence the rim is cut on (default ``height``).
+    large_lobes_deeper : bool
+        Between lobes over 1.5 mm across, ask for a deeper valley (down to 0.4 of
+        ``split_share`` at 3 mm): a real gap between large lobes shows deep, so a shallow
+        valley there is the film thinning within one contact.  With compound on the work
+        the coat between two worn-through contacts never belongs to either: off.
+
+    Returns
+    -------
+    (M, N) bool ndarray
+        The contacts, with a one-pixel gap wherever two of them would touch.
+    """
+    labels = contact_labels(region, height, px_per_mm=px_per_mm, split_share=split_share,
+                            min_dip=min_dip, large_lobes_deeper=large_lobes_deeper)
+    return finish(labels, seeds, height, rim_share=rim_share, score=score)
+
+
+def contact_labels(
+    region: np.ndarray, height: np.ndarray, *, px_per_mm: float, split_share: float,
+    min_dip: float, large_lobes_deeper: bool = True,
+) -> np.ndarray:
+    """Label image of the contacts ``region`` holds (see :func:`separate`), rims uncut."""
+    if not region.any():
+        return np.zeros(region.shape, np.int32)
+    regions, n = _watershed(region, height, px_per_mm)
+    return _merge(regions, n, height, split_share=split_share, min_dip=min_dip,
+                  px_per_mm=px_per_mm, large_lobes_deeper=large_lobes_deeper)
+
+
+def finish(
+    labels: np.ndarray,
+    seeds: np.ndarray,
+    height: np.ndarray,
+    *,
+    rim_share: float | None,
+    score: np.ndarray | None = None,
+    min_core_px: float = 0.0,
+) -> np.ndarray:
+    """Cut each contact at ``rim_share`` of its peak, keep those with a seed (and, with
+    ``min_core_px``, at least that many pixels above half their peak), carve gaps."""
+    if rim_share is not None:
+        sc = height if score is None else score
+        peak = _label_max(labels, sc)
+        if min_core_px > 0:
+            core = np.bincount(labels[sc > (0.5 * peak)[labels]], minlength=peak.size)
+            small = core < min_core_px
+            small[0] = False
+            labels = np.where(small[labels], 0, labels)
+        labels = np.where(sc > (rim_share * peak)[labels], labels, 0)
+    has_seed = np.zeros(int(labels.max()) + 1, bool)
+    has_seed[labels[seeds & (labels > 0)]] = True
+    has_seed[0] = False
+    labels = np.where(has_seed[labels], labels, 0)
+    mask = _carve(labels, height)
+    # cutting a contact's rim may leave crumbs of its halo apart from it: only the piece
+    # holding the contact's highest point is the contact
+    n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    if n <= 1:
+        return mask
+    top = np.zeros(int(labels.max()) + 1, np.int64)
+    best = np.full(top.size, -np.inf)
+    flat = np.flatnonzero(mask.ravel())
+    lab_f = labels.ravel()[flat]
+    h_f = height.ravel()[flat]
+    order = np.lexsort((h_f, lab_f))
+    last = np.r_[lab_f[order][1:] != lab_f[order][:-1], True]
+    top_px = flat[order][last]
+    keep = np.zeros(n, bool)
+    keep[pieces.ravel()[top_px]] = True
+    keep[0] = False
+    del top, best
+    return keep[pieces]
+
+
+def _label_max(labels: np.ndarray, values: np.ndarray) -> np.ndarray:
+    peak = np.full(int(labels.max()) + 1, -np.inf, np.float32)
+    sel = labels > 0
+    np.maximum.at(peak, labels[sel], values[sel])
+    peak[0] = np.inf
+    return peak
+
+
+def _watershed(region: np.ndarray, height: np.ndarray, px_per_mm: float) -> tuple[np.ndarray, int]:
+    """Watershed regions of ``-height`` in ``region``, one per local peak (0.15 mm apart)."""
+    from skimage.segmentation import watershed
+
+    k = max(1, int(round(0.15 * px_per_mm)))
+    peaks = (height >= cv2.dilate(height, _disc(k))) & region
+    n, markers = cv2.connectedComponents(peaks.view(np.uint8), connectivity=8,
+                                         ltype=cv2.CV_32S)
+    if n <= 2:
+        return region.astype(np.int32), 1
+    ws = watershed(-height, markers=markers, mask=region, connectivity=2)
+    return ws.astype(np.int32), n - 1
+
+
+def _merge(
+    regions: np.ndarray, n: int, height: np.ndarray, *, split_share: float, min_dip: float,
+    px_per_mm: float, large_lobes_deeper: bool,
+) -> np.ndarray:
+    """Merge neighbouring watershed regions unless the valley between them is deep.
+
+    Regions are merged in order of their highest shared boundary point (the saddle), as
+    water rising from the peaks would join them; two stay apart when the saddle is below
+    ``split_share`` of the lower peak and at least ``min_dip`` below it.
+    """
+    if n <= 1:
+        return regions
+    peak = _label_max(regions, height).astype(np.float64)
+    area = np.bincount(regions.ravel(), minlength=n + 1).astype(np.float64)
+    keys, saddles = _saddles(regions, n, height)
+    parent = np.arange(n + 1)
+
+    def find(i: int) -> int:
+        root = i
+        while parent[root] != root:
+            root = parent[root]
+        while parent[i] != root:
+            parent[i], i = root, parent[i]
+        return root
+
+    top = peak.copy()
+    small_px = (0.75 * px_per_mm) ** 2 * math.pi  # a lobe 1.5 mm across
+    for k in np.argsort(-saddles, kind="stable"):
+        a, b = find(int(keys[k] // (n + 1))), find(int(keys[k] % (n + 1)))
+        if a == b:
+            continue
+        saddle = float(saddles[k])
+        low = min(top[a], top[b])
+        # lobes up to 1.5 mm across: a shallow valley may be a gap the blur filled in;
+        # between lobes twice that, a gap would show deep, so a shallow valley is the
+        # film thinning within one contact
+        share = split_share
+        if large_lobes_deeper:
+            across = math.sqrt(min(area[a], area[b]) / small_px)
+            share *= min(max(2.0 - across, 0.4), 1.0)
+        if saddle < share * low and low - saddle >= min_dip:
+            continue
+        parent[b] = a
+        top[a] = max(top[a], top[b])
+        area[a] += area[b]
+    roots = np.array([find(i) for i in range(n + 1)], dtype=np.int32)
+    return roots[regions]
+
+
+def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Each pair of touching regions (key ``a * (n + 1) + b``, a < b) and its saddle.
+
+    The saddle is the highest value, along their shared boundary, of the lower of two
+    8-neighbours that lie one in each region.
+    """
+    padded = np.pad(regions, 1)
+    flat = padded.ravel()
+    hf = np.pad(height, 1).ravel().astype(np.float64)
+    idx = np.flatnonzero(flat)
+    here = flat[idx].astype(np.int64)
+    width = padded.shape[1]
+    keys_l, vals_l = [], []
+    for off in (1, width - 1, width, width + 1):
+        nb = flat[idx + off].astype(np.int64)
+        sel = (nb != 0) & (nb != here)
+        if sel.any():
+            a, b = here[sel], nb[sel]
+            keys_l.append(np.minimum(a, b) * (n + 1) + np.maximum(a, b))
+            vals_l.append(np.minimum(hf[idx[sel]], hf[idx[sel] + off]))
+    if not keys_l:
+        return np.zeros(0, np.int64), np.zeros(0)
+    keys = np.concatenate(keys_l)
+    vals = np.concatenate(vals_l)
+    order = np.argsort(keys, kind="stable")
+    keys, vals = keys[order], vals[order]
+    starts = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])
+    return keys[starts], np.maximum.reduceat(vals, starts)
+
+
+def _carve(labels: np.ndarray, height: np.ndarray) -> np.ndarray:
+    """Contact mask with a gap wherever two contacts touch (the lower side is removed)."""
+    mask = labels > 0
+    lab = np.pad(labels, 1)
+    hp = np.pad(height, 1, constant_values=-np.inf)
+    rows, cols = labels.shape
+    drop = np.zeros(labels.shape, bool)
+    for dy in (-1, 0, 1):
+        for dx in (-1, 0, 1):
+            if dy == 0 and dx == 0:
+                continue
+            nb = lab[1 + dy : 1 + dy + rows, 1 + dx : 1 + dx + cols]
+            nh = hp[1 + dy : 1 + dy + rows, 1 + dx : 1 + dx + cols]
+            touch = mask & (nb > 0) & (nb != labels)
+            if touch.any():
+                drop |= touch & ((height < nh) | ((height == nh) & (labels < nb)))
+    return mask & ~drop
+
+
+def fill_small_holes(mask: np.ndarray, max_px: float, glare: np.ndarray | None) -> np.ndarray:
+    """Fill holes of ``mask`` up to ``max_px`` pixels (20 times that when mostly glare)."""
+    inv = ~mask
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(inv.view(np.uint8), connectivity=4)
+    if n <= 1:
+        return mask
+    area = stats[:, cv2.CC_STAT_AREA]
+    x, y = stats[:, cv2.CC_STAT_LEFT], stats[:, cv2.CC_STAT_TOP]
+    w, h = stats[:, cv2.CC_STAT_WIDTH], stats[:, cv2.CC_STAT_HEIGHT]
+    rows, cols = mask.shape
+    border = (x == 0) | (y == 0) | (x + w == cols) | (y + h == rows)
+    fill = (area <= max_px) & ~border
+    if glare is not None and glare.any():
+        glare_px = np.bincount(lab[glare], minlength=n)
+        fill |= (area <= 20 * max_px) & ~border & (glare_px >= 0.5 * area)
+    fill[0] = False
+    if not fill.any():
+        return mask
+    return mask | fill[lab]
+
+
+def spot_scale_px(px_per_mm: float, mm: float) -> float:
+    """A length in mm as pixels (for filters), never below a third of a pixel."""
+    return max(mm * px_per_mm, 1.0 / 3.0) if math.isfinite(px_per_mm) else 1.0

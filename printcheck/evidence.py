@@ -1,0 +1,223 @@
+"""Compound evidence: how strongly each pixel carries marking compound, and its local levels.
+
+Marking compound is strongly coloured; scraped steel and cast iron are grey.  The
+evidence of a pixel is a log ratio of its colour channels (blue compound: blue over red;
+red compound: red over the mean of green and blue).  A ratio does not change when the
+light gets brighter or dimmer, so vignetting, light falling off across the window, the
+brightness of the scrape facets and dark, thick compound do not move it; a white-balance
+error multiplies channels by constants and so only offsets it.  With compound on the
+work the evidence is negated: contact is where the coat was rubbed through.
+
+What is left varies slowly across a photo: a colour cast that changes with the light, a
+thin smear of compound over the bare metal (haze).  :func:`level_maps` measures, block by
+block over the pixels that are not contact, the local bare level, the local noise of the
+evidence (from the lower side of the bare distribution, which contact cannot reach) and
+the local level of the compound itself (which broad glare lowers by washing its colour
+out).  Contacts are then judged against those local levels (:mod:`printcheck.contacts`).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from printcheck.errors import OptionError
+
+__all__ = [
+    "EVIDENCE_FLOOR",
+    "LevelMaps",
+    "compound_evidence",
+    "choose_compound",
+    "level_maps",
+    "block_quantiles",
+    "fill_and_smooth",
+]
+
+_EPS = 4.0  # added to 8-bit channel values before the log ratio (tames dark noise)
+
+#: Smallest noise level of the evidence.  One 8-bit step of a mid-grey channel moves the
+#: log ratio by about 1/150; JPEG smooths colour so much that a measured spread can come
+#: out far below that, which would make every faint colour fringe look significant.
+EVIDENCE_FLOOR = 0.004
+
+
+def compound_evidence(image: np.ndarray, compound: str) -> np.ndarray:
+    """Colour-opponent evidence of ``compound`` in ``image``.
+
+    Parameters
+    ----------
+    image : (M, N, 3) uint8 ndarray, BGR
+    compound : {"blue", "red"}
+
+    Returns
+    -------
+    (M, N) float32 ndarray
+        ``log(B + e) - log(R + e)`` for blue, ``log(R + e) - log((G + B) / 2 + e)`` for
+        red (natural log, ``e`` = 4 in 8-bit units).  Grey is 0; the compound is
+        positive.
+    """
+    if compound not in ("blue", "red"):
+        raise OptionError(f"compound must be 'blue' or 'red', got {compound!r}")
+    img = image.astype(np.float32) + np.float32(_EPS)
+    if compound == "blue":
+        return cv2.log(img[..., 0]) - cv2.log(img[..., 2])
+    return cv2.log(img[..., 2]) - cv2.log(np.float32(0.5) * (img[..., 0] + img[..., 1]))
+
+
+def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> tuple[str, float]:
+    """The compound colour the photo shows, and how clearly (a ratio >= 1).
+
+    With compound on the reference the spots are the strongly coloured tail of the
+    evidence; with compound on the work the rubbed-through metal is the tail below the
+    coat.  The colour whose tail stands further from the bulk wins; the ratio of the two
+    tails says how clear the choice was.
+
+    Parameters
+    ----------
+    image : (M, N, 3) uint8 ndarray, BGR
+    where : (M, N) bool ndarray
+        The pixels to judge by (the analysed window).
+    compound_on : {"reference", "work"}
+    """
+    step = max(1, int(math.sqrt(max(int(where.sum()), 1) / 200_000.0)))
+    sub = (slice(None, None, step), slice(None, None, step))
+    sel = where[sub]
+    tails = {}
+    for name in ("blue", "red"):
+        ev = compound_evidence(image[sub], name)[sel]
+        if ev.size < 16:
+            tails[name] = 0.0
+            continue
+        lo, mid, hi = np.quantile(ev, [0.005, 0.5, 0.995])
+        tails[name] = float(hi - mid) if compound_on == "reference" else float(mid - lo)
+    best = max(tails, key=lambda k: tails[k])
+    other = tails["red" if best == "blue" else "blue"]
+    return best, tails[best] / max(other, 1e-6)
+
+
+def block_quantiles(
+    values: np.ndarray, where: np.ndarray, block: int, quantiles: tuple[float, ...]
+) -> tuple[np.ndarray, np.ndarray]:
+    """Quantiles of ``values`` over ``where`` in square blocks of ``block`` pixels.
+
+    Returns
+    -------
+    q : (Q, BY, BX) float32 ndarray
+        One grid per quantile (NaN in blocks without any pixel).
+    count : (BY, BX) int ndarray
+        Pixels of ``where`` in each block.
+    """
+    rows, cols = values.shape
+    by, bx = max(1, math.ceil(rows / block)), max(1, math.ceil(cols / block))
+    padded = np.full((by * block, bx * block), np.nan, np.float32)
+    padded[:rows, :cols] = np.where(where, values, np.nan)
+    blocks = padded.reshape(by, block, bx, block).transpose(0, 2, 1, 3).reshape(by, bx, -1)
+    count = np.count_nonzero(~np.isnan(blocks), axis=2)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN blocks give NaN
+        q = np.nanquantile(blocks, quantiles, axis=2).astype(np.float32)
+    return q, count
+
+
+def fill_and_smooth(grid: np.ndarray, weight: np.ndarray, sigma: float) -> np.ndarray:
+    """Normalised convolution: ``grid`` smoothed where ``weight`` > 0 and filled elsewhere.
+
+    Blocks far from any weighted block take the value of the nearest one.
+    """
+    g = np.where(weight > 0, np.nan_to_num(grid), 0.0).astype(np.float32)
+    w = weight.astype(np.float32)
+    num = cv2.GaussianBlur(g * w, (0, 0), sigma, borderType=cv2.BORDER_REFLECT)
+    den = cv2.GaussianBlur(w, (0, 0), sigma, borderType=cv2.BORDER_REFLECT)
+    out = num / np.maximum(den, 1e-6)
+    empty = den < 1e-3
+    if empty.any() and not empty.all():
+        from scipy import ndimage
+
+        _, nearest = ndimage.distance_transform_edt(empty, return_indices=True)
+        out = out[nearest[0], nearest[1]]
+    return out.astype(np.float32)
+
+
+def upsample(grid: np.ndarray, block: int, shape: tuple[int, int]) -> np.ndarray:
+    """Bilinear map of a block grid to pixels (block centres at block centres)."""
+    by, bx = grid.shape
+    big = cv2.resize(grid.astype(np.float32), (bx * block, by * block),
+                     interpolation=cv2.INTER_LINEAR)
+    return np.ascontiguousarray(big[: shape[0], : shape[1]])
+
+
+@dataclass(frozen=True, eq=False)
+class LevelMaps:
+    """Local levels of the evidence, each an (M, N) float32 map.
+
+    Attributes
+    ----------
+    bare : the evidence of bare metal (or, with compound on the work, of the coat)
+    sigma : the noise of the evidence over bare metal, per pixel
+    sigma_spot : the noise of the evidence smoothed at spot scale
+    """
+
+    bare: np.ndarray
+    sigma: np.ndarray
+    sigma_spot: np.ndarray
+
+
+def level_maps(
+    evidence: np.ndarray,
+    smoothed: np.ndarray,
+    bare: np.ndarray,
+    *,
+    block: int,
+) -> LevelMaps:
+    """Local bare level and noise of ``evidence`` over the ``bare`` pixels.
+
+    Parameters
+    ----------
+    evidence : (M, N) float32 ndarray
+    smoothed : (M, N) float32 ndarray
+        The evidence smoothed at spot scale, whose noise ``sigma_spot`` measures.
+    bare : (M, N) bool ndarray
+        Pixels taken to be bare metal (contact and its surroundings left out).
+    block : int
+        Block side in pixels; blocks with less than a quarter bare are filled in from
+        their neighbours.
+    """
+    q, count = block_quantiles(evidence, bare, block, (0.05, 0.5))
+    ok = count >= 0.25 * block * block
+    if not ok.any():
+        ok = count > 0
+    weight = ok.astype(np.float32)
+    level = fill_and_smooth(q[1], weight, 1.5)
+    sigma = _noise_grid(q[1] - q[0], ok)
+    qs, count_s = block_quantiles(smoothed - upsample(level, block, evidence.shape), bare,
+                                  block, (0.05, 0.5))
+    ok_s = count_s >= 0.25 * block * block
+    if not ok_s.any():
+        ok_s = count_s > 0
+    sigma_s = _noise_grid(qs[1] - qs[0], ok_s)
+    shape = evidence.shape
+    return LevelMaps(
+        bare=upsample(level, block, shape),
+        sigma=np.maximum(upsample(fill_and_smooth(sigma, weight, 1.5), block, shape),
+                         EVIDENCE_FLOOR),
+        sigma_spot=np.maximum(
+            upsample(fill_and_smooth(sigma_s, ok_s.astype(np.float32), 1.5), block, shape),
+            EVIDENCE_FLOOR,
+        ),
+    )
+
+
+def _noise_grid(spread: np.ndarray, ok: np.ndarray) -> np.ndarray:
+    """Noise per block from the (median - 5th percentile) spread of its bare pixels.
+
+    A block is never taken as quieter than half the photo's typical block: a block of
+    flat JPEG colour has almost no spread but is no more trustworthy than its neighbours.
+    """
+    sigma = np.nan_to_num(spread / 1.645)
+    if ok.any():
+        sigma = np.maximum(sigma, 0.5 * float(np.median(sigma[ok])))
+    return sigma.astype(np.float32)

@@ -1,0 +1,169 @@
+"""Guidance: where to scrape next, and the bare patches of a print.
+
+- **High areas** to break up: spots far larger than the print's median spot, and regions
+  whose local bearing (over a box of half a cell) stands well above the window's.
+- **Bare patches**: the largest circle inside the analysed area that touches no spot
+  (from the Euclidean distance transform of the bare analysed pixels), and every patch
+  larger than the spec allows (leave those alone this pass; they come up as the high
+  areas around them are scraped).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import cv2
+import numpy as np
+
+from printcheck.frame import Frame
+from printcheck.spots import Spots
+
+__all__ = ["BarePatch", "HighArea", "Guidance", "guidance", "largest_bare"]
+
+
+@dataclass(frozen=True)
+class BarePatch:
+    """A region of no contact: the largest circle touching no spot, centre in mm."""
+
+    diameter_mm: float
+    x_mm: float
+    y_mm: float
+
+
+class HighArea(NamedTuple):
+    """A high area to break up: centre (layout mm), size (mm across) and why."""
+
+    x_mm: float
+    y_mm: float
+    size_mm: float
+    reason: str
+
+
+@dataclass(frozen=True)
+class Guidance:
+    """Where to scrape next.
+
+    ``high`` are the high areas to break up (oversized spots, heavy-bearing regions);
+    ``bare`` the low areas larger than the spec allows (leave alone this pass).
+    """
+
+    high: tuple[HighArea, ...] = ()
+    bare: tuple[BarePatch, ...] = ()
+
+
+def guidance(
+    *,
+    spots: Spots,
+    contact: np.ndarray,
+    in_an: np.ndarray,
+    frame: Frame,
+    bare_edt: np.ndarray,
+    bearing: float,
+    oversize_factor: float,
+    heavy_bearing_factor: float,
+    cell_mm: float,
+    max_bare_mm: float | None,
+) -> Guidance:
+    """High areas and over-large bare patches of a measured print (see the module)."""
+    s = frame.px_per_mm
+    high: list[HighArea] = []
+    inw = spots.in_window
+    if inw.sum() >= 5:
+        med = float(np.median(spots.area_mm2[inw]))
+        big = np.flatnonzero(inw & (spots.area_mm2 > oversize_factor * med))
+        big = big[np.argsort(-spots.area_mm2[big], kind="stable")][:50]
+        for i in big:
+            a = float(spots.area_mm2[i])
+            high.append(
+                HighArea(
+                    float(spots.x_mm[i]),
+                    float(spots.y_mm[i]),
+                    float(spots.diameter_mm[i]),
+                    f"large spot {a:.1f} mm² ({a / med:.0f}x the median): break it up",
+                )
+            )
+    # heavy-bearing regions: local bearing over a box of half a cell
+    if in_an.any() and bearing > 0:
+        k = max(3, int(round(0.5 * cell_mm * s)) | 1)
+        an_f = in_an.astype(np.float32)
+        num = cv2.boxFilter((contact & in_an).astype(np.float32), -1, (k, k), normalize=False,
+                            borderType=cv2.BORDER_CONSTANT)
+        den = cv2.boxFilter(an_f, -1, (k, k), normalize=False, borderType=cv2.BORDER_CONSTANT)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            local = np.where(den > 0.5 * k * k, 100.0 * num / np.maximum(den, 1.0), 0.0)
+        limit = max(heavy_bearing_factor * bearing, bearing + 15.0)
+        heavy = (local > limit) & in_an
+        if heavy.any():
+            n, lab, stats, cents = cv2.connectedComponentsWithStats(
+                heavy.view(np.uint8), connectivity=8
+            )
+            order = np.argsort(-stats[1:, cv2.CC_STAT_AREA])[:20] + 1
+            for j in order:
+                area_px = float(stats[j, cv2.CC_STAT_AREA])
+                if area_px < 0.25 * k * k:
+                    continue
+                cx, cy = frame.to_mm(np.array(cents[j][1]), np.array(cents[j][0]))
+                x, y, w, h = (int(v) for v in stats[j, :4])
+                box = (slice(y, y + h), slice(x, x + w))
+                peak = float(local[box][lab[box] == j].max())
+                high.append(
+                    HighArea(
+                        float(cx),
+                        float(cy),
+                        2.0 * math.sqrt(area_px / math.pi) / s,
+                        f"heavy bearing {peak:.0f}% against {bearing:.0f}% overall: "
+                        "scrape this area down",
+                    )
+                )
+    bare: list[BarePatch] = []
+    if max_bare_mm is not None and bare_edt.size:
+        limit_px = 0.5 * max_bare_mm * s
+        bare = _bare_patches(bare_edt, limit_px, frame)
+    return Guidance(high=tuple(high), bare=tuple(bare))
+
+
+def _bare_patches(radius: np.ndarray, limit_px: float, frame: Frame) -> list[BarePatch]:
+    """Disjoint circles of radius above ``limit_px``, largest first (at most 20)."""
+    cand = (radius > limit_px) & (radius >= cv2.dilate(radius, np.ones((3, 3), np.uint8)))
+    rr, cc = np.nonzero(cand)
+    if rr.size == 0:
+        return []
+    rad = radius[rr, cc]
+    order = np.argsort(-rad, kind="stable")
+    rr, cc, rad = rr[order], cc[order], rad[order]
+    taken: list[int] = []
+    alive = np.ones(rr.size, bool)
+    for i in range(rr.size):
+        if not alive[i]:
+            continue
+        taken.append(i)
+        if len(taken) >= 20:
+            break
+        d = np.hypot(rr - rr[i], cc - cc[i])
+        alive &= d >= rad[i] + rad
+    out = []
+    for i in taken:
+        x, y = frame.to_mm(np.array(float(rr[i])), np.array(float(cc[i])))
+        out.append(BarePatch(2.0 * float(rad[i]) / frame.px_per_mm, float(x), float(y)))
+    return out
+
+
+def largest_bare(free: np.ndarray, frame: Frame) -> tuple[BarePatch, np.ndarray]:
+    """Largest circle inside ``free`` (bare analysed pixels); also the radius map in px.
+
+    The distance transform gives the distance from each free pixel centre to the
+    nearest blocked pixel centre; the blocked pixel's square edge is half a pixel
+    nearer, so the circle's radius is that distance less 0.5 px.
+    """
+    if not free.any():
+        x, y = frame.to_mm(np.array(0.0), np.array(0.0))
+        return BarePatch(0.0, float(x), float(y)), np.zeros(free.shape, np.float32)
+    padded = np.pad(free, 1).view(np.uint8)
+    edt = cv2.distanceTransform(padded, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)[1:-1, 1:-1]
+    radius = np.maximum(edt - 0.5, 0.0)
+    k = int(np.argmax(radius))
+    r, c = divmod(k, free.shape[1])
+    x, y = frame.to_mm(np.array(float(r)), np.array(float(c)))
+    return BarePatch(2.0 * float(radius.flat[k]) / frame.px_per_mm, float(x), float(y)), radius
