@@ -9,13 +9,14 @@ from __future__ import annotations
 
 from collections.abc import Callable, Iterator
 from concurrent.futures import Future, ProcessPoolExecutor
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 from typing import Any
 
-from printcheck.errors import PrintcheckError, ReportError
-from printcheck.pipeline import InspectOptions, cores_available
+from printcheck.errors import OptionError, PrintcheckError, ReportError
+from printcheck.options import InspectOptions
+from printcheck.pipeline import cores_available
 
 __all__ = ["BatchItem", "list_photos", "run_batch"]
 
@@ -79,12 +80,10 @@ def list_photos(folder: Path) -> tuple[list[BatchItem], list[str]]:
 
 def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -> dict[str, Any]:
     """Inspect one photo and write its JSON and overlay (runs in a worker process)."""
-    if single_thread:
+    if single_thread:  # one worker per core: the cores are busy
         import cv2
 
         cv2.setNumThreads(1)
-        # one worker per core: the cores are busy, no side thread either
-        options = replace(options, side_thread=False)
     from printcheck.pipeline import inspect_photo
     from printcheck.report.files import encode_image, output_name, write_bytes, write_json
     from printcheck.report.overlay import draw_overlay
@@ -133,12 +132,24 @@ def run_batch(
 
     Writes ``<stem>.json`` and ``<stem>.overlay.png`` per photo, ``results.csv`` and
     ``report.html`` to ``out``, and records every pass in the history at ``db``.
+
+    Raises
+    ------
+    OptionError
+        ``jobs`` is less than 1.
+    ReportError
+        The folder holds no photos, or ``out`` cannot be created.
     """
     import json
 
     from printcheck.history import open_history
     from printcheck.report.files import CSV_NAME, write_csv
 
+    if jobs is not None and jobs < 1:
+        raise OptionError(
+            f"jobs must be 1 or more, got {jobs}; leave it out to use every core",
+            parameter="jobs",
+        )
     items, notes = list_photos(folder)
     for note in notes:
         warn(note)

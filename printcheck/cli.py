@@ -11,11 +11,9 @@ Exit status: 0 the surface meets its spec (or no spec was asked for), 1 it does 
 from __future__ import annotations
 
 import json
-import math
 import os
 import sys
-from collections.abc import Sequence
-from dataclasses import dataclass
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any, Literal
 
@@ -25,7 +23,7 @@ from printcheck.errors import OptionError, PrintcheckError
 
 if TYPE_CHECKING:
     from printcheck.jobconfig import JobSettings
-    from printcheck.pipeline import InspectOptions
+    from printcheck.options import InspectOptions
     from printcheck.result import Result
 
 __all__ = ["app", "main"]
@@ -40,9 +38,19 @@ app = typer.Typer(
 )
 
 EXIT_MEETS, EXIT_FAILS, EXIT_UNUSABLE = 0, 1, 2
-MIN_PX_PER_MM, MAX_PX_PER_MM = 1.0, 500.0  # a coarse scan to a microscope stage
-MIN_CELL_MM = 5.0  # a cell must hold a few spots of a millimetre or two
-MAX_MIN_SPOT_MM2 = 100.0
+
+# The library's parameter names and the flags that set them (see _in_flags).
+FLAGS = {
+    "px_per_mm": "--px-per-mm",
+    "unit": "--unit",
+    "cell": "--cell",
+    "compound": "--compound",
+    "compound_on": "--compound-on",
+    "target": "--target",
+    "surface": "--surface",
+    "min_spot_mm2": "--min-spot",
+    "jobs": "--jobs",
+}
 
 # ---------------------------------------------------------------- shared options
 
@@ -128,31 +136,6 @@ JobsOpt = Annotated[
 ]
 
 
-@dataclass(frozen=True)
-class _Common:
-    """The inspect options as typed, before the job file fills the gaps."""
-
-    layout: Path | None
-    px_per_mm: float | None
-    unit: str | None
-    cell: float | None
-    compound: str | None
-    compound_on: str | None
-    spec: str | None
-    target: float | None
-    surface: str | None
-    min_spot: float | None
-    partial: bool
-
-
-def _pick(cli_value: Any, job_value: Any, default: Any) -> Any:
-    if cli_value is not None:
-        return cli_value
-    if job_value is not None:
-        return job_value
-    return default
-
-
 def _job_settings(config: Path | None, folder: Path | None) -> JobSettings:
     from printcheck.jobconfig import JobSettings, find_job_file, read_job_settings
 
@@ -162,81 +145,40 @@ def _job_settings(config: Path | None, folder: Path | None) -> JobSettings:
     return read_job_settings(found) if found is not None else JobSettings()
 
 
-def _build_options(common: _Common, job: JobSettings) -> InspectOptions:
-    from printcheck.layout import read_layout
-    from printcheck.pipeline import InspectOptions
-    from printcheck.units import MM_PER_IN, to_mm
+def _inspect_options(params: Mapping[str, Any], folder: Path | None) -> InspectOptions:
+    """The inspect options of a command: its options over the job file over the defaults.
 
-    unit = _pick(common.unit, job.unit, "in")
-    px_per_mm = _pick(common.px_per_mm, job.px_per_mm, None)
-    if px_per_mm is not None and not px_per_mm > 0:
-        raise OptionError(f"--px-per-mm must be greater than zero, got {px_per_mm:g}")
-    if px_per_mm is not None and not MIN_PX_PER_MM <= px_per_mm <= MAX_PX_PER_MM:
-        raise OptionError(
-            f"--px-per-mm must be between {MIN_PX_PER_MM:g} and {MAX_PX_PER_MM:g} "
-            f"(pixels per mm of a square-on photo or scan), got {px_per_mm:g}"
-        )
-    cell = _pick(common.cell, job.cell, None)
-    if cell is not None and not cell > 0:
-        raise OptionError(f"--cell must be greater than zero, got {cell:g}")
-    if cell is not None:
-        cell_mm = to_mm(cell, unit) if math.isfinite(cell) else math.inf
-        if not MIN_CELL_MM <= cell_mm < math.inf:
-            raise OptionError(
-                f"--cell must be at least {MIN_CELL_MM:g} mm ({MIN_CELL_MM / MM_PER_IN:g} in) "
-                f"and finite, got {cell:g} {unit}; the customary cell is 1 in or 25 mm"
-            )
-    min_spot = _pick(common.min_spot, job.min_spot, 0.1)
-    if not 0 <= min_spot <= MAX_MIN_SPOT_MM2:
-        raise OptionError(
-            f"--min-spot must be between 0 and {MAX_MIN_SPOT_MM2:g} mm², got {min_spot:g}"
-        )
-    surface = _pick(common.surface, job.surface, None)
-    if surface is not None and (not surface.strip() or "\n" in surface):
-        raise OptionError(f"--surface must be a name on one line, got {surface!r}")
-    layout = None
-    layout_path = common.layout if common.layout is not None else job.layout
-    if layout_path is not None and px_per_mm is None:
-        layout = read_layout(layout_path)
-    spec = None
-    target = _pick(common.target, job.target, None)
-    spec_name = (
-        common.spec
-        if common.spec is not None
-        else (None if common.target is not None else job.spec)
+    ``params`` are the command's parsed parameters (``ctx.params``); the job file is
+    ``--config``, else ``printcheck.toml`` in ``folder``.
+    """
+    from printcheck.jobconfig import JobSettings, resolve_settings
+    from printcheck.options import options_from_settings
+
+    layout = params["layout"]
+    given = JobSettings(
+        surface=params["surface"],
+        layout=None if layout is None else str(layout),
+        px_per_mm=params["px_per_mm"],
+        spec=params["spec"],
+        target=params["target"],
+        unit=params["unit"],
+        cell=params["cell"],
+        compound=params["compound"],
+        compound_on=params["compound_on"],
+        min_spot=params["min_spot"],
     )
-    if target is not None and spec_name is None:
-        from printcheck.spec import target_spec
+    settings = resolve_settings(given, _job_settings(params["config"], folder))
+    return options_from_settings(settings, allow_partial=params["partial"])
 
-        if not target > 0:
-            raise OptionError(f"--target must be greater than zero, got {target:g}")
-        spec = target_spec(target, basis_mm=MM_PER_IN if unit == "in" else 25.0)
-    elif spec_name is not None:
-        from printcheck.spec import find_spec
 
-        spec = find_spec(spec_name)
-    options = InspectOptions(
-        layout=layout,
-        px_per_mm=px_per_mm,
-        unit=unit,
-        cell=cell,
-        compound=_pick(common.compound, job.compound, "blue"),
-        compound_on=_pick(common.compound_on, job.compound_on, "reference"),
-        spec=spec,
-        surface=None if surface is None else surface.strip(),
-        min_spot_mm2=min_spot,
-        allow_partial=common.partial,
-    )
-    if cell is not None and px_per_mm is None:
-        w = options.layout_in_use.window
-        cell_mm = to_mm(cell, unit)
-        if cell_mm > max(w.width_mm, w.height_mm) + 1e-9:
-            k = MM_PER_IN if unit == "in" else 1.0
-            raise OptionError(
-                f"--cell {cell:g} {unit} is larger than the window "
-                f"({w.width_mm / k:g} x {w.height_mm / k:g} {unit}); choose a smaller cell"
-            )
-    return options
+def _in_flags(exc: PrintcheckError) -> str:
+    """The error's message, a leading library parameter name said as its flag."""
+    text = str(exc)
+    parameter = getattr(exc, "parameter", None)
+    flag = FLAGS.get(parameter or "")
+    if parameter and flag and text.startswith(parameter):
+        return flag + text[len(parameter) :]
+    return text
 
 
 def _fail(message: str) -> None:
@@ -256,6 +198,7 @@ def _exit_for(results: Sequence[Result], failures: int) -> int:
 
 @app.command()
 def inspect(
+    ctx: typer.Context,
     photos: Annotated[list[Path], typer.Argument(help="Photos of prints.", show_default=False)],
     layout: LayoutOpt = None,
     px_per_mm: ScaleOpt = None,
@@ -276,21 +219,7 @@ def inspect(
     from printcheck.pipeline import inspect_photo
     from printcheck.result import result_to_dict
 
-    common = _Common(
-        layout,
-        px_per_mm,
-        unit,
-        cell,
-        compound,
-        compound_on,
-        spec,
-        target,
-        surface,
-        min_spot,
-        partial,
-    )
-    job = _job_settings(config, photos[0].parent if photos else None)
-    options = _build_options(common, job)
+    options = _inspect_options(ctx.params, photos[0].parent if photos else None)
     results: list[Result] = []
     failures = 0
     for path in photos:
@@ -298,7 +227,7 @@ def inspect(
             result = inspect_photo(path, options=options)
         except PrintcheckError as exc:
             failures += 1
-            _fail(str(exc))
+            _fail(_in_flags(exc))
             continue
         results.append(result)
         data = result_to_dict(result)
@@ -320,6 +249,7 @@ def inspect(
 
 @app.command()
 def batch(
+    ctx: typer.Context,
     folder: Annotated[
         Path, typer.Argument(help="Folder of photos of one surface's passes.", show_default=False)
     ],
@@ -345,30 +275,13 @@ def batch(
 
     if not folder.is_dir():
         raise OptionError(f"batch {folder}: not a folder; give the folder that holds the photos")
-    common = _Common(
-        layout,
-        px_per_mm,
-        unit,
-        cell,
-        compound,
-        compound_on,
-        spec,
-        target,
-        surface,
-        min_spot,
-        partial,
-    )
-    job = _job_settings(config, folder)
-    options = _build_options(common, job)
+    options = _inspect_options(ctx.params, folder)
     if options.surface is None:
         options = _with_surface(options, folder)
-    if jobs is not None and jobs < 1:
-        raise OptionError(f"--jobs must be 1 or more, got {jobs}")
-    out_dir = out if out is not None else folder / "printcheck-out"
     outcome = run_batch(
         folder,
         options=options,
-        out=out_dir,
+        out=out if out is not None else folder / "printcheck-out",
         db=_db_path(db),
         jobs=jobs,
         json_lines=json_out,
@@ -503,7 +416,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         _fail(exc.format_message())
         return _exit(EXIT_UNUSABLE, argv)
     except PrintcheckError as exc:
-        _fail(str(exc))
+        _fail(_in_flags(exc))
         return _exit(EXIT_UNUSABLE, argv)
     except KeyboardInterrupt:
         _fail("interrupted; the history holds only whole passes")

@@ -5,8 +5,7 @@ This module only chains the stages; each stage is pure and lives in its own modu
 
 from __future__ import annotations
 
-from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from datetime import datetime
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -14,70 +13,13 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from printcheck.errors import PrintcheckError
-from printcheck.layout import Layout, Window, card_layout
+from printcheck.options import InspectOptions
 from printcheck.result import Result
-from printcheck.spec import Spec
-from printcheck.units import default_cell, to_mm
 
 if TYPE_CHECKING:
     from printcheck.locate import Rectified
 
 __all__ = ["InspectOptions", "inspect_image", "inspect_photo"]
-
-
-@dataclass(frozen=True)
-class InspectOptions:
-    """Everything that decides how a photo is inspected.
-
-    Attributes
-    ----------
-    layout : Layout or None
-        Where the markers are; the built-in 2 in card when neither this nor
-        ``px_per_mm`` is given.
-    px_per_mm : float or None
-        Explicit scale for square-on photos (no markers).
-    scale_window : Window or None
-        With ``px_per_mm``: the window in mm from the image's top-left (default: all).
-    unit : {"in", "mm"}
-    cell : float or None
-        Side of the counting cell in ``unit`` (default 1 in or 25 mm).
-    compound, compound_on : see :class:`printcheck.segment.SegmentConfig`
-    spec : Spec or None
-    surface : str or None
-    min_spot_mm2 : float
-    allow_partial : bool
-        Measure the visible part of a window that runs out of the photo.
-    side_thread : bool
-        Compute the bare patch and the confidence range on a second thread beside
-        measure when the process may run on more than one core (the results are the
-        same either way).  Batch workers, one per core, turn it off.
-    """
-
-    layout: Layout | None = None
-    px_per_mm: float | None = None
-    scale_window: Window | None = None
-    unit: str = "in"
-    cell: float | None = None
-    compound: str = "blue"
-    compound_on: str = "reference"
-    spec: Spec | None = None
-    surface: str | None = None
-    min_spot_mm2: float = 0.1
-    allow_partial: bool = False
-    side_thread: bool = True
-
-    @property
-    def cell_in_unit(self) -> float:
-        return self.cell if self.cell is not None else default_cell(self.unit)
-
-    @property
-    def cell_mm(self) -> float:
-        return to_mm(self.cell_in_unit, self.unit)
-
-    @property
-    def layout_in_use(self) -> Layout:
-        """The layout the markers are read by: ``layout``, else the built-in 2 in card."""
-        return self.layout if self.layout is not None else card_layout()
 
 
 def inspect_image(
@@ -141,9 +83,7 @@ def _measure_rectified(
     """Segment, measure and judge the rectified window; the photo itself is not needed."""
     from printcheck.judge import judge
     from printcheck.measure import (
-        BarePatch,
         MeasureConfig,
-        bare_map,
         confidence_counts,
         measure,
         with_confidence,
@@ -173,37 +113,11 @@ def _measure_rectified(
             (mask, *alternates), frame=rect.frame, analysed=rect.analysed, config=config
         )
 
-    def bare(mask: np.ndarray) -> tuple[BarePatch, np.ndarray]:
-        return bare_map(mask, frame=rect.frame, analysed=rect.analysed, config=config)
-
-    if options.side_thread and cores_available() > 1:
-        # The nudged masks, their counts and the bare patch need nothing of the
-        # measurement: a second thread computes them (the nudged masks while this one
-        # makes the contact mask, then the bare patch, which measure waits for half way,
-        # then the counts) while the contact mask is made and measured.  OpenCV and
-        # numpy release the GIL in their loops, so on two cores they come off the wall
-        # time.
-        with ThreadPoolExecutor(max_workers=1, thread_name_prefix="printcheck-side") as pool:
-            alternates = [pool.submit(mask_at, levels, t) for t in nudged]
-            seg = replace(levels, mask=mask_at(levels, levels.threshold))
-            bare_patch = pool.submit(bare, seg.mask)
-            counts = pool.submit(
-                lambda: counted(seg.mask, tuple(a.result() for a in alternates))
-            )
-            meas = measure(
-                seg.mask,
-                frame=rect.frame,
-                analysed=rect.analysed,
-                config=config,
-                bare=bare_patch.result,
-            )
-            meas = with_confidence(meas, counts.result(), config)
-    else:
-        seg = replace(levels, mask=mask_at(levels, levels.threshold))
-        meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
-        meas = with_confidence(
-            meas, counted(seg.mask, tuple(mask_at(levels, t) for t in nudged)), config
-        )
+    seg = replace(levels, mask=mask_at(levels, levels.threshold))
+    meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed, config=config)
+    meas = with_confidence(
+        meas, counted(seg.mask, tuple(mask_at(levels, t) for t in nudged)), config
+    )
     verdict = None if spec is None else judge(meas, spec, unit=options.unit)
     warnings = tuple(rect.warnings) + tuple(seg.warnings)
     if meas.confidence is not None and meas.confidence.doubtful:

@@ -73,24 +73,6 @@ def test_inspect_json_is_the_library_result(small_job, capsys) -> None:  # type:
     assert data["format"] == "printcheck-result/1" and data["photo"] == photo.name
 
 
-def test_side_thread_changes_no_result(small_job) -> None:  # type: ignore[no-untyped-def]
-    # inspect computes the bare patch and the range on a second thread; batch workers
-    # compute them in line
-    from dataclasses import replace
-
-    from printcheck.layout import read_layout
-    from printcheck.pipeline import InspectOptions, inspect_photo
-    from printcheck.result import result_to_dict
-
-    folder, photos = small_job
-    options = InspectOptions(layout=read_layout(folder / "layout.toml"))
-    in_line_options = replace(options, side_thread=False)
-    for photo in photos:
-        threaded = result_to_dict(inspect_photo(folder / photo.file, options=options))
-        in_line = result_to_dict(inspect_photo(folder / photo.file, options=in_line_options))
-        assert threaded == in_line
-
-
 def test_inspect_several_photos_prints_json_lines(small_job, capsys) -> None:  # type: ignore[no-untyped-def]
     folder, photos = small_job
     paths = [str(folder / p.file) for p in photos[:2]]
