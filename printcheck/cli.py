@@ -369,7 +369,7 @@ def card(
 @app.command()
 def specs() -> None:
     """List the built-in specs and where each one's numbers come from."""
-    from printcheck.spec import describe_specs
+    from printcheck.builtin_specs import describe_specs
 
     typer.echo(describe_specs())
 

@@ -40,6 +40,7 @@ from typing import Any
 
 from printcheck.spec import Spec
 from printcheck.units import to_mm
+from printcheck.wording import density_words, num
 
 __all__ = [
     "PROGRESS_FORMAT",
@@ -51,7 +52,7 @@ __all__ = [
     "project",
     "uniformity",
     "cells_meeting_percent",
-    "density_target",
+    "projection_words",
 ]
 
 PROGRESS_FORMAT = "printcheck-progress/1"
@@ -106,27 +107,6 @@ def _cell_mm(result: Mapping[str, Any]) -> float | None:
     if unit not in ("in", "mm") or not isinstance(cell, int | float) or cell <= 0:
         return None
     return to_mm(float(cell), str(unit))
-
-
-def density_target(spec: Spec | None, *, cell_mm: float, per_cell: bool = False) -> float | None:
-    """The spec's density target in points per ``cell_mm`` square.
-
-    ``per_cell`` asks for the cell target (``min_cell_density``, falling back to
-    ``min_density``); otherwise the window target (``min_density``, falling back to
-    ``min_cell_density``).  The spec states densities per ``basis_mm`` square; a count per
-    area scales with the area, so the target is multiplied by ``(cell_mm / basis_mm)**2``.
-    """
-    if spec is None:
-        return None
-    first, second = (
-        (spec.min_cell_density, spec.min_density)
-        if per_cell
-        else (spec.min_density, spec.min_cell_density)
-    )
-    value = first if first is not None else second
-    if value is None:
-        return None
-    return float(value) * (cell_mm / spec.basis_mm) ** 2
 
 
 def uniformity(result: Mapping[str, Any]) -> float | None:
@@ -240,7 +220,7 @@ def surface_spec(passes: Sequence[Mapping[str, Any]]) -> Spec | None:
     The spec's targets kept in the history (``spec_targets``) win; otherwise a built-in
     spec of the recorded name; otherwise None.
     """
-    from printcheck.spec import builtin_specs
+    from printcheck.builtin_specs import builtin_specs
 
     for p in reversed(passes):
         fields = p.get("spec_targets")
@@ -309,7 +289,9 @@ def build_progress(
         factor = 1.0
         if basis_mm is not None and cell_mm is not None:
             factor = (basis_mm / cell_mm) ** 2
-        cell_target = density_target(spec, cell_mm=cell_mm, per_cell=True) if cell_mm else None
+        cell_target = None
+        if spec is not None and cell_mm:
+            cell_target = spec.density_target(cell_mm, per_cell=True)
         spec_block = res.get("spec") if isinstance(res.get("spec"), Mapping) else None
         rows.append(
             {
@@ -333,13 +315,15 @@ def build_progress(
             if name:
                 spec_name = name
                 break
-    target = density_target(spec, cell_mm=basis_mm) if basis_mm else None
+    target = cell_target = None
+    if spec is not None and basis_mm:
+        target = spec.density_target(basis_mm)
+        cell_target = spec.density_target(basis_mm, per_cell=True)
     densities = [r["density"] for r in rows]
     known = [float(d) for d in densities if d is not None]
     projection = None
     if len(known) == len(densities):
         projection = project(known, target, fit_passes=fit_passes)
-    cell_target = density_target(spec, cell_mm=basis_mm, per_cell=True) if basis_mm else None
     targets = {
         "density": None if target is None else round(target, 4),
         "cell_density": None if cell_target is None else round(cell_target, 4),
@@ -358,23 +342,40 @@ def build_progress(
     }
 
 
-def _short(value: float) -> str:
-    """A number for people: at most one decimal, no trailing zeros (10.3226 -> 10.3)."""
-    text = f"{float(value):.1f}"
-    return text[:-2] if text.endswith(".0") else text
+def _per(progress: Mapping[str, Any]) -> str:
+    unit = progress.get("unit") or "in"
+    return density_words(to_mm(float(progress.get("cell") or 1.0), unit), unit)
+
+
+def projection_words(progress: Mapping[str, Any]) -> str:
+    """The projection as one sentence, for people (no capital, no full stop)."""
+    passes = list(progress.get("passes") or ())
+    target = (progress.get("targets") or {}).get("density")
+    proj = progress.get("projection")
+    if target is None:
+        return "no density target to project against"
+    if proj is None:
+        if len(passes) < MIN_PASSES:
+            return f"too few passes yet ({len(passes)} of {MIN_PASSES} needed)"
+        return f"the density is not approaching the target of {num(target, 1)}"
+    if proj["passes_to_spec"] == 0:
+        return f"the latest pass reaches the density target of {num(target, 1)}"
+    hi = proj.get("high")
+    rng = f"{proj['low']} to {hi}" if hi is not None else f"{proj['low']} or more"
+    more = proj["passes_to_spec"]
+    return (
+        f"about {more} more pass{'es' if more != 1 else ''} to {num(target, 1)} "
+        f"{_per(progress)} (likely {rng}; {proj['rate']:+.1f} per pass)"
+    )
 
 
 def progress_text(progress: Mapping[str, Any]) -> str:
     """A few lines for people: the latest pass against the spec, the trend, the projection."""
     passes = list(progress.get("passes") or ())
     surface = progress.get("surface") or "surface"
-    unit = progress.get("unit") or "in"
-    cell = progress.get("cell") or 1.0
-    from printcheck.units import density_label
-
-    per = density_label(unit, float(cell))
     if not passes:
         return f"{surface}: no passes recorded"
+    per = _per(progress)
     last = passes[-1]
     spec = progress.get("spec")
     verdict = {True: "meets", False: "does not meet", None: "not judged against"}[last.get("meets")]
@@ -392,25 +393,5 @@ def progress_text(progress: Mapping[str, Any]) -> str:
             f"bearing {'-' if b is None else f'{b:4.1f}'} %, "
             f"uniformity {'-' if u is None else f'{u:3.0f}'} %  {mark}".rstrip()
         )
-    target = (progress.get("targets") or {}).get("density")
-    proj = progress.get("projection")
-    if target is None:
-        lines.append("projection: no density target to project against")
-    elif proj is None:
-        if len(passes) < MIN_PASSES:
-            lines.append(f"projection: too few passes yet ({len(passes)} of {MIN_PASSES} needed)")
-        else:
-            lines.append(
-                f"projection: the density is not approaching the target of {_short(target)}"
-            )
-    elif proj["passes_to_spec"] == 0:
-        lines.append(f"projection: the latest pass reaches the density target of {_short(target)}")
-    else:
-        hi = proj.get("high")
-        rng = f"{proj['low']} to {hi}" if hi is not None else f"{proj['low']} or more"
-        lines.append(
-            f"projection: about {proj['passes_to_spec']} more pass"
-            f"{'es' if proj['passes_to_spec'] != 1 else ''} to {_short(target)} {per} "
-            f"(likely {rng}; {proj['rate']:+.1f} per pass)"
-        )
+    lines.append(f"projection: {projection_words(progress)}")
     return "\n".join(lines)

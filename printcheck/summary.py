@@ -4,7 +4,8 @@ from __future__ import annotations
 
 from typing import Any
 
-from printcheck.units import density_label
+from printcheck.units import to_mm
+from printcheck.wording import density_words
 
 __all__ = ["summary_text"]
 
@@ -25,7 +26,7 @@ def summary_text(data: dict[str, Any]) -> str:
         count += f" ({conf['spot_count_low']}-{conf['spot_count_high']})"
     win = data["window"]
     lines.append(
-        f"  {data['density']:.1f} {density_label(unit, data['cell'])}   {count} in "
+        f"  {data['density']:.1f} {density_words(to_mm(data['cell'], unit), unit)}   {count} in "
         f"{win['width']:g} x {win['height']:g} {unit}"
     )
     bearing = f"{data['bearing_percent']:.1f}%"

@@ -12,17 +12,17 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from printcheck.builtin_specs import builtin_specs
 from printcheck.progress import (
     PROGRESS_FORMAT,
     build_progress,
     cells_meeting_percent,
-    density_target,
     fit_line,
     progress_text,
     project,
     uniformity,
 )
-from printcheck.spec import Spec, builtin_specs
+from printcheck.spec import Spec
 
 PPI20 = Spec("ppi20", "test: 20 points per square inch", 25.4, min_density=20.0)
 
@@ -138,12 +138,12 @@ def test_high_is_open_when_the_rate_could_be_zero() -> None:
 def test_density_target_converts_between_squares() -> None:
     # a count per area scales with the area: 20 per in² (645.16 mm², 1 in = 25.4 mm
     # exactly) is 20 * 625 / 645.16 = 19.375... per 25 mm square
-    assert density_target(PPI20, cell_mm=25.0) == pytest.approx(20 * 625 / 645.16)
-    assert density_target(PPI20, cell_mm=25.4) == pytest.approx(20.0)
+    assert PPI20.density_target(25.0) == pytest.approx(20 * 625 / 645.16)
+    assert PPI20.density_target(25.4) == pytest.approx(20.0)
     both = Spec("x", "x", 25.4, min_density=10.0, min_cell_density=8.0)
-    assert density_target(both, cell_mm=25.4, per_cell=True) == 8.0
-    assert density_target(both, cell_mm=25.4) == 10.0
-    assert density_target(None, cell_mm=25.4) is None
+    assert both.density_target(25.4, per_cell=True) == 8.0
+    assert both.density_target(25.4) == 10.0
+    assert Spec("b", "b", 25.4, bearing_max=60.0).density_target(25.4) is None
 
 
 def test_uniformity_is_one_minus_cv_of_complete_cells() -> None:
@@ -218,7 +218,7 @@ def test_build_progress_takes_the_spec_from_the_history_rows() -> None:
     rows2 = [{"pass": 1, "spec": builtin.name, "result": _res(1, 5.0)}]
     out2 = build_progress(rows2, surface="s")
     assert out2["spec"] == builtin.name
-    expected = density_target(builtin, cell_mm=25.4)
+    expected = builtin.density_target(25.4)
     assert out2["targets"]["density"] == (None if expected is None else round(expected, 4))
 
 

@@ -18,9 +18,11 @@ from typing import Any
 from urllib.parse import quote
 
 from printcheck import __version__
+from printcheck.progress import projection_words
 from printcheck.report.files import CSV_NAME, output_name, write_text
 from printcheck.spec import Spec
-from printcheck.units import density_label
+from printcheck.units import to_mm
+from printcheck.wording import bearing_words, density_words, fixed, num, target_lines
 
 __all__ = ["render_report", "write_report"]
 
@@ -89,12 +91,6 @@ def _e(value: Any) -> str:
     return html.escape("" if value is None else str(value), quote=True)
 
 
-def _short(value: float) -> str:
-    """At most one decimal, no trailing zero (10.3226 -> "10.3")."""
-    text = f"{float(value):.1f}"
-    return text[:-2] if text.endswith(".0") else text
-
-
 def _data_uri(data: bytes) -> str:
     if data[:8] == b"\x89PNG\r\n\x1a\n":
         mime = "image/png"
@@ -105,14 +101,10 @@ def _data_uri(data: bytes) -> str:
     return f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
 
 
-def _num(value: Any, digits: int = 1) -> str:
-    if value is None:
-        return "–"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, int):
-        return str(value)
-    return f"{float(value):.{digits}f}"
+def _per(result: Mapping[str, Any]) -> str:
+    """The density unit of a result in words, escaped."""
+    unit = str(result.get("unit") or "in")
+    return _e(density_words(to_mm(float(result.get("cell") or 1.0), unit), unit))
 
 
 def _badge(meets: bool | None) -> str:
@@ -159,13 +151,10 @@ def _bearing_colour(value: float, lo: float | None, hi: float | None) -> str:
 
 
 def _cell_target(result: Mapping[str, Any], spec: Spec | None) -> float | None:
-    from printcheck.progress import density_target
-    from printcheck.units import to_mm
-
     unit, cell = result.get("unit"), result.get("cell")
     if spec is None or unit not in ("in", "mm") or not cell:
         return None
-    return density_target(spec, cell_mm=to_mm(float(cell), str(unit)), per_cell=True)
+    return spec.density_target(to_mm(float(cell), str(unit)), per_cell=True)
 
 
 def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
@@ -181,7 +170,7 @@ def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
     top = max((float(c.get("density") or 0.0) for c in cells), default=0.0)
     lo = None if spec is None else spec.bearing_min
     hi = None if spec is None else spec.bearing_max
-    unit_text = _e(density_label(str(result.get("unit") or "in"), float(result.get("cell") or 1.0)))
+    unit_text = _per(result)
 
     def table(key: str, caption: str) -> str:
         out = [f'<table class="heat"><caption>{caption}</caption>']
@@ -195,8 +184,8 @@ def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
                 v = float(cell.get(key) or 0.0)
                 if key == "density":
                     bg = _density_colour(v, target, top)
-                    text = _num(v, 1)
-                    small = f"{_num(cell.get('spot_count'))} pts"
+                    text = fixed(v, 1)
+                    small = f"{fixed(cell.get('spot_count'))} pts"
                 else:
                     bg = _bearing_colour(v, lo, hi)
                     text = f"{v:.0f}%"
@@ -209,13 +198,10 @@ def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
         out.append("</table>")
         return "".join(out)
 
-    dcap = f"Density, {unit_text}" + ("" if target is None else f" (target {_short(target)})")
+    dcap = f"Density, {unit_text}" + ("" if target is None else f" (target {num(target, 1)})")
+    bcap = "Bearing"
     if lo is not None or hi is not None:
-        lo_txt = "0" if lo is None else _num(lo, 0)
-        hi_txt = "100" if hi is None else _num(hi, 0)
-        bcap = f"Bearing (target {lo_txt}–{hi_txt} %)"
-    else:
-        bcap = "Bearing"
+        bcap = f"Bearing (target {_e(bearing_words(lo, hi).span)})"
     return (
         '<div class="cols"><div>'
         + table("density", dcap)
@@ -223,28 +209,6 @@ def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
         + table("bearing_percent", bcap)
         + '</div></div><p class="key">Italic: incomplete cell (cut by the window edge or an '
         "exclusion). Green: meets the target; amber: close; red: well short.</p>"
-    )
-
-
-def _projection_text(progress: Mapping[str, Any], spec: Spec | None) -> str:
-    proj = progress.get("projection")
-    passes = progress.get("passes") or ()
-    target = (progress.get("targets") or {}).get("density")
-    if spec is None or target is None:
-        return "No density target to project against."
-    if proj is None:
-        if len(passes) < 3:
-            return f"Too few passes to project yet ({len(passes)} of 3 needed)."
-        return "The density trend is not approaching the target; no projection."
-    n = proj["passes_to_spec"]
-    if n == 0:
-        return f"The latest pass reaches the density target of {_short(target)}."
-    lo, hi = proj.get("low"), proj.get("high")
-    rng = f"{lo}–{hi}" if hi is not None else f"{lo} or more"
-    word = "pass" if n == 1 else "passes"
-    return (
-        f"About <b>{n} more {word}</b> to reach {_short(target)} points (likely range {rng}), "
-        f"at {proj.get('rate', 0):.1f} points per pass."
     )
 
 
@@ -276,8 +240,8 @@ def _pass_section(
         how = "layout " + _e(cal.get("layout")) if cal.get("method") == "layout" else "given scale"
         res = cal.get("residual_mm")
         parts.append(
-            f" · scale from {how}, {_num(cal.get('px_per_mm'), 1)} px/mm"
-            + ("" if res is None else f", fit residual {_num(res, 3)} mm")
+            f" · scale from {how}, {fixed(cal.get('px_per_mm'), 1)} px/mm"
+            + ("" if res is None else f", fit residual {fixed(res, 3)} mm")
         )
     if folder is not None and result.get("photo"):
         for suffix, label in ((".json", "result JSON"), (".overlay.png", "full-size overlay")):
@@ -288,20 +252,20 @@ def _pass_section(
 
     cnt_rng = den_rng = bear_rng = ""
     if conf:
-        cnt_rng = f"range {_num(conf.get('spot_count_low'))}–{_num(conf.get('spot_count_high'))}"
+        cnt_rng = f"range {fixed(conf.get('spot_count_low'))}–{fixed(conf.get('spot_count_high'))}"
         b_lo, b_hi = conf.get("bearing_percent_low"), conf.get("bearing_percent_high")
-        bear_rng = f"range {_num(b_lo)}–{_num(b_hi)} %"
+        bear_rng = f"range {fixed(b_lo)}–{fixed(b_hi)} %"
     parts.append('<div class="figures">')
     parts.append(
         _figure(
-            _num(result.get("density")),
-            _e(density_label(str(result.get("unit") or "in"), float(result.get("cell") or 1.0))),
+            fixed(result.get("density")),
+            _per(result),
             den_rng,
         )
     )
-    parts.append(_figure(_num(result.get("bearing_percent")) + " %", "bearing", bear_rng))
-    parts.append(_figure(_num(result.get("spot_count")), "spots in the window", cnt_rng))
-    parts.append(_figure(_num(result.get("largest_bare"), 2) + f" {unit}", "largest bare patch"))
+    parts.append(_figure(fixed(result.get("bearing_percent")) + " %", "bearing", bear_rng))
+    parts.append(_figure(fixed(result.get("spot_count")), "spots in the window", cnt_rng))
+    parts.append(_figure(fixed(result.get("largest_bare"), 2) + f" {unit}", "largest bare patch"))
     parts.append("</div>")
     if conf and conf.get("doubtful"):
         parts.append(
@@ -319,7 +283,7 @@ def _pass_section(
             ok = bool(ch.get("ok"))
             parts.append(
                 f"<tr><td>{_e(ch.get('name'))}</td><td>{_e(ch.get('target'))}</td>"
-                f"<td>{_num(ch.get('value'), 2)}</td>"
+                f"<td>{fixed(ch.get('value'), 2)}</td>"
                 f'<td class="{"ok" if ok else "bad"}">{"✓ ok" if ok else "✗ short"}</td>'
                 f"<td>{_e(ch.get('reason'))}</td></tr>"
             )
@@ -344,23 +308,12 @@ def _pass_section(
 
 
 def _spec_text(spec: Spec | None) -> str:
+    """The spec's title and its targets, in the words of ``printcheck specs``."""
     if spec is None:
         return "No spec: figures only."
-    bits = []
-    basis = "in²" if abs(spec.basis_mm - 25.4) < 1e-9 else f"{spec.basis_mm:g} mm square"
-    if spec.min_density is not None:
-        bits.append(f"at least {spec.min_density:g} points per {basis}")
-    if spec.min_cell_density is not None:
-        share = "every" if spec.cell_share >= 1 else f"{spec.cell_share * 100:.0f} % of"
-        bits.append(f"{share} complete cell at least {spec.min_cell_density:g}")
-    if spec.bearing_min is not None or spec.bearing_max is not None:
-        lo = "0" if spec.bearing_min is None else f"{spec.bearing_min:g}"
-        hi = "100" if spec.bearing_max is None else f"{spec.bearing_max:g}"
-        bits.append(f"bearing {lo}–{hi} %")
-    if spec.max_bare_mm is not None:
-        bits.append(f"no bare patch over {spec.max_bare_mm:g} mm")
+    targets = "; ".join(f"{t.label} {t.words}" for t in target_lines(spec))
     title = spec.title or spec.name
-    return f"<b>{_e(title)}</b> ({_e(spec.name)}): " + _e("; ".join(bits) or "no targets")
+    return f"<b>{_e(title)}</b> ({_e(spec.name)}): " + _e(targets or "no targets")
 
 
 def render_report(
@@ -396,15 +349,15 @@ def render_report(
         head.append('<div class="figures">')
         head.append(
             _figure(
-                _num(latest.get("density")),
-                _e(density_label(str(latest.get("unit") or "in"), float(latest.get("cell") or 1.0)))
-                + ", latest",
+                fixed(latest.get("density")),
+                _per(latest) + ", latest",
             )
         )
-        head.append(_figure(_num(latest.get("bearing_percent")) + " %", "bearing, latest"))
+        head.append(_figure(fixed(latest.get("bearing_percent")) + " %", "bearing, latest"))
         head.append("</div>")
     if progress is not None:
-        head.append(f"<p>{_projection_text(progress, spec)}</p>")
+        words = projection_words(progress)
+        head.append(f"<p>{_e(words[:1].upper() + words[1:])}.</p>")
         if progress.get("passes"):
             png = trend_png(progress)
             head.append(

@@ -24,7 +24,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from printcheck.result import Result
-from printcheck.units import density_label
+from printcheck.units import to_mm
+from printcheck.wording import cell_figure, density_words
 
 __all__ = ["OverlayStyle", "COLOURS", "draw_overlay", "spot_boundaries"]
 
@@ -115,10 +116,6 @@ def _resample(
     ri = r0 + np.minimum(((np.arange(h) + 0.5) * (r1 - r0) / h).astype(np.intp), r1 - r0 - 1)
     ci = c0 + np.minimum(((np.arange(w) + 0.5) * (c1 - c0) / w).astype(np.intp), c1 - c0 - 1)
     return array[np.ix_(ri, ci)]
-
-
-def _fmt_density(value: float) -> str:
-    return f"{value:.0f}" if abs(value) >= 10 else f"{value:.1f}"
 
 
 def _put_text(
@@ -348,7 +345,7 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
         (_, th1), _ = cv2.getTextSize("0", font, f, tb)
         colour = COLOURS["text"] if c.complete else COLOURS["text_partial"]
         margin = max(4, int(th1 * 0.4))
-        _put_text(img, _fmt_density(c.density), (x + margin, y + margin + th1), f, colour, tb)
+        _put_text(img, cell_figure(c.density), (x + margin, y + margin + th1), f, colour, tb)
         fs = f * 0.62
         ts = max(1, int(round(fs * 1.8)))
         (_, th2), _ = cv2.getTextSize("0", font, fs, ts)
@@ -361,7 +358,8 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
             ts,
         )
 
-    unit_text = f"large: {density_label(result.unit, result.cell)}; small: bearing %"
+    per = density_words(to_mm(result.cell, result.unit), result.unit)
+    unit_text = f"large: {per}; small: bearing %"
     lscale = max(0.4, min(w / 1500.0, 1.2))
     band = _legend(w, lscale, max(1, int(round(lscale * 1.6))), unit_text)
     return np.concatenate([img, band], axis=0)

@@ -11,7 +11,8 @@ import io
 from collections.abc import Mapping
 from typing import Any
 
-from printcheck.units import density_label
+from printcheck.units import to_mm
+from printcheck.wording import density_words, num
 
 __all__ = ["trend_png", "warm_up"]
 
@@ -36,7 +37,7 @@ def warm_up() -> None:
         FigureCanvasAgg(fig)
         ax = fig.subplots()
         ax.plot([0, 1], [0, 1], marker="o")
-        ax.set_ylabel(density_label("in", 1.0))
+        ax.set_ylabel(density_words(to_mm(1.0, "in"), "in"))
         fig.savefig(io.BytesIO(), format="png")
     except Exception:  # the report itself will say what is wrong
         pass
@@ -98,9 +99,7 @@ def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
     dots(ax_d, "density")
     target = targets.get("density")
     if target is not None:
-        ax_d.axhline(
-            target, color=_RED, ls="--", lw=1.2, label=f"target {target:.1f}".removesuffix(".0")
-        )
+        ax_d.axhline(target, color=_RED, ls="--", lw=1.2, label=f"target {num(target, 1)}")
     if projection and target is not None and xs and projection.get("passes_to_spec"):
         last_x = xs[-1]
         last_y = passes[-1]["density"]
@@ -128,7 +127,7 @@ def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
                 color=_BLUE,
             )
         ax_d.plot(mid, target, "D", ms=6, color=_BLUE)
-    ax_d.set_ylabel(density_label(str(unit), float(cell)))
+    ax_d.set_ylabel(density_words(to_mm(float(cell), str(unit)), str(unit)))
     ax_d.set_title("Density", loc="left", fontsize=10)
     tops = [p["density"] for p in passes if p.get("density") is not None]
     if target is not None:
