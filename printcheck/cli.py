@@ -24,7 +24,6 @@ from printcheck.errors import OptionError, PrintcheckError
 if TYPE_CHECKING:
     from printcheck.jobconfig import JobSettings
     from printcheck.options import InspectOptions
-    from printcheck.result import Result
 
 __all__ = ["app", "main"]
 
@@ -185,12 +184,10 @@ def _fail(message: str) -> None:
     typer.echo(f"printcheck: {message}", err=True)
 
 
-def _exit_for(results: Sequence[Result], failures: int) -> int:
-    if not results:
+def _exit_for(verdicts: Sequence[bool | None], failures: int) -> int:
+    if not verdicts or failures:
         return EXIT_UNUSABLE
-    if failures:
-        return EXIT_UNUSABLE
-    return EXIT_FAILS if any(r.meets is False for r in results) else EXIT_MEETS
+    return EXIT_FAILS if any(meets is False for meets in verdicts) else EXIT_MEETS
 
 
 # ---------------------------------------------------------------- inspect
@@ -217,10 +214,10 @@ def inspect(
 ) -> None:
     """Measure the print in each photo and judge it against a spec."""
     from printcheck.pipeline import inspect_photo
-    from printcheck.result import result_to_dict
+    from printcheck.serde import summarize, summary_to_dict
 
     options = _inspect_options(ctx.params, photos[0].parent if photos else None)
-    results: list[Result] = []
+    verdicts: list[bool | None] = []
     failures = 0
     for path in photos:
         try:
@@ -229,19 +226,20 @@ def inspect(
             failures += 1
             _fail(_in_flags(exc))
             continue
-        results.append(result)
-        data = result_to_dict(result)
+        summary = summarize(result)
+        verdicts.append(summary.meets)
         if out is not None:
             from printcheck.report.files import write_photo_outputs
 
-            write_photo_outputs(result, data, out)
+            write_photo_outputs(result, out)
         if json_out:
+            data = summary_to_dict(summary)
             typer.echo(json.dumps(data, ensure_ascii=False, indent=None if len(photos) > 1 else 2))
         else:
             from printcheck.summary import summary_text
 
-            typer.echo(summary_text(data))
-    raise typer.Exit(_exit_for(results, failures))
+            typer.echo(summary_text(summary))
+    raise typer.Exit(_exit_for(verdicts, failures))
 
 
 # ---------------------------------------------------------------- batch
@@ -315,25 +313,25 @@ def progress(
 ) -> None:
     """Show a surface's passes so far, the trend, and how many passes it may still need."""
     from printcheck.history import open_history
-    from printcheck.progress import build_progress, progress_text
+    from printcheck.progress import build_progress, progress_text, surface_spec
+    from printcheck.serde import progress_to_dict
 
     path = _db_path(db)
     if not path.exists():
         raise OptionError(f"history {path}: no history yet; run 'printcheck batch' first")
     with open_history(path, readonly=True) as history:
-        passes = history.passes(surface)
-        if not passes:
+        stored = history.passes(surface)
+        if not stored:
             known = ", ".join(history.surfaces()) or "none"
             raise OptionError(
                 f"progress: no passes recorded for surface {surface!r} (recorded: {known})"
             )
-    data = build_progress(passes, surface=surface)
+    report = build_progress(surface, [p.summary for p in stored], spec=surface_spec(stored))
     if json_out:
-        typer.echo(json.dumps(data, ensure_ascii=False, indent=2))
+        typer.echo(json.dumps(progress_to_dict(report), ensure_ascii=False, indent=2))
     else:
-        typer.echo(progress_text(data))
-    last = data["passes"][-1]["meets"]
-    raise typer.Exit(EXIT_FAILS if last is False else EXIT_MEETS)
+        typer.echo(progress_text(report))
+    raise typer.Exit(EXIT_FAILS if report.passes[-1].meets is False else EXIT_MEETS)
 
 
 # ---------------------------------------------------------------- card, specs, demo

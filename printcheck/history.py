@@ -16,13 +16,14 @@ Data safety
   migrations in :data:`MIGRATIONS`, run in order, each in its own transaction.  A database
   written by a newer printcheck is refused rather than guessed at.
 
-Every failure is a :class:`printcheck.errors.HistoryError` with a one-line message naming
-the file and what to do.
+Each pass is stored as its result JSON (``printcheck-result/1``, docs/formats.md) and read
+back as a typed :class:`printcheck.records.StoredPass`.  Every failure is a
+:class:`printcheck.errors.HistoryError` with a one-line message naming the file and what
+to do.
 """
 
 from __future__ import annotations
 
-import dataclasses
 import errno
 import json
 import os
@@ -35,6 +36,9 @@ from pathlib import Path
 from typing import Any, TypeVar
 
 from printcheck.errors import HistoryError
+from printcheck.records import PassSummary, StoredPass
+from printcheck.serde import spec_from_dict, spec_to_dict, summary_from_dict, summary_to_dict
+from printcheck.spec import Spec
 
 __all__ = [
     "ENV_VAR",
@@ -168,23 +172,11 @@ def _explain(path: Path, exc: BaseException) -> HistoryError:
     return HistoryError(f"history {path}: {msg}")
 
 
-def _as_int_bool(value: Any) -> int | None:
-    return None if value is None else int(bool(value))
-
-
-def _number(value: Any) -> float | None:
-    if value is None or isinstance(value, bool):
-        return None
-    try:
-        return float(value)
-    except (TypeError, ValueError):
-        return None
-
-
 class History:
     """An open history database.  Use :func:`open_history` to get one.
 
-    Methods return plain data (lists of dicts, strings, numbers); none of them expose
+    Methods take and return records (:class:`printcheck.records.PassSummary`,
+    :class:`printcheck.records.StoredPass`), strings and numbers; none of them expose
     SQLite objects.
     """
 
@@ -242,30 +234,21 @@ class History:
 
     # ------------------------------------------------------------------ writing
 
-    def record(
-        self,
-        result: Mapping[str, Any],
-        *,
-        surface: str,
-        spec_name: str | None = None,
-        spec: Any = None,
-    ) -> bool:
+    def record(self, summary: PassSummary, *, surface: str, spec: Spec | None = None) -> bool:
         """Record one photo's result as a pass of ``surface``.
 
         Parameters
         ----------
-        result : dict
-            The result JSON object (``printcheck.result.result_to_dict``); it must carry
-            ``photo`` and ``sha256``.  It is stored whole, as JSON text, plus indexed
-            columns (photo, sha256, taken, density, bearing_percent, spot_count, meets, spec).
+        summary : PassSummary
+            The photo's result; it must carry ``photo`` and ``sha256``.  It is stored
+            whole, as its result JSON, plus indexed columns (photo, sha256, taken,
+            density, bearing_percent, spot_count, meets, spec).
         surface : str
             The surface's name (created on first use).
-        spec_name : str or None
-            The spec judged against; defaults to ``spec.name``, else
-            ``result["spec"]["name"]`` when present.
-        spec : printcheck.spec.Spec or None
-            The spec itself: its targets are kept with the pass, so the progress of a
-            surface judged against a spec file or ``--target`` can be projected later.
+        spec : Spec or None
+            The spec judged against: its name and targets are kept with the pass, so the
+            progress of a surface judged against a spec file or a quick target can be
+            projected later.  Without one, the verdict's spec name is kept.
 
         Returns
         -------
@@ -285,58 +268,15 @@ class History:
                 f"history {self.path}: surface name must be a non-empty text, got {surface!r}; "
                 "give --surface NAME"
             )
-        surface = surface.strip()
-        sha = result.get("sha256")
-        photo = result.get("photo")
-        if not isinstance(sha, str) or not sha:
-            raise HistoryError(
-                f"history {self.path}: result for photo {photo!r} has no sha256; "
-                "only results of photo files can be recorded"
-            )
-        if not isinstance(photo, str) or not photo:
-            raise HistoryError(f"history {self.path}: result has no photo name; got {photo!r}")
-        spec_block = result.get("spec")
-        spec_json = None
-        if spec is not None:
-            if spec_name is None:
-                spec_name = getattr(spec, "name", None)
-            try:
-                spec_json = json.dumps(
-                    dataclasses.asdict(spec), ensure_ascii=False, allow_nan=False
-                )
-            except (TypeError, ValueError):
-                spec_json = None
-        if spec_name is None and isinstance(spec_block, Mapping):
-            spec_name = spec_block.get("name")
-        meets = spec_block.get("meets") if isinstance(spec_block, Mapping) else None
-        try:
-            text = json.dumps(result, ensure_ascii=False, allow_nan=False, sort_keys=False)
-        except (TypeError, ValueError) as exc:
-            raise HistoryError(
-                f"history {self.path}: result for photo {photo!r} is not plain JSON data ({exc}); "
-                "pass the output of result_to_dict"
-            ) from None
-        taken = result.get("taken")
-        row = (
-            sha,
-            photo,
-            None if taken is None else str(taken),
-            spec_name,
-            _number(result.get("density")),
-            _number(result.get("bearing_percent")),
-            None if result.get("spot_count") is None else int(result["spot_count"]),
-            _as_int_bool(meets),
-            _now(),
-            text,
-            spec_json,
-        )
+        row = self._row(summary, spec)
 
         def work(con: sqlite3.Connection) -> bool:
             con.execute(
-                "INSERT OR IGNORE INTO surfaces (name, created) VALUES (?, ?)", (surface, _now())
+                "INSERT OR IGNORE INTO surfaces (name, created) VALUES (?, ?)",
+                (surface.strip(), _now()),
             )
             (surface_id,) = con.execute(
-                "SELECT id FROM surfaces WHERE name = ?", (surface,)
+                "SELECT id FROM surfaces WHERE name = ?", (surface.strip(),)
             ).fetchone()
             values = (surface_id, *row) if self._version >= 2 else (surface_id, *row[:-1])
             columns = (
@@ -349,6 +289,46 @@ class History:
             return cur.rowcount == 1
 
         return self._retry(work)
+
+    def _row(self, summary: PassSummary, spec: Spec | None) -> tuple[Any, ...]:
+        """The passes row of ``summary`` (without its surface id), its JSON checked."""
+        photo, sha = summary.photo, summary.sha256
+        if not sha:
+            raise HistoryError(
+                f"history {self.path}: result for photo {photo!r} has no sha256; "
+                "only results of photo files can be recorded"
+            )
+        if not photo:
+            raise HistoryError(f"history {self.path}: result has no photo name; got {photo!r}")
+        spec_json = None
+        if spec is not None:
+            try:
+                spec_json = json.dumps(spec_to_dict(spec), ensure_ascii=False, allow_nan=False)
+            except (TypeError, ValueError):
+                spec_json = None
+        try:
+            text = json.dumps(summary_to_dict(summary), ensure_ascii=False, allow_nan=False)
+        except (TypeError, ValueError) as exc:
+            raise HistoryError(
+                f"history {self.path}: result for photo {photo!r} is not plain JSON data "
+                f"({exc}); its figures must be finite numbers"
+            ) from None
+        verdict = summary.verdict
+        spec_name = spec.name if spec is not None else (None if verdict is None else verdict.name)
+        meets = summary.meets
+        return (
+            sha,
+            photo,
+            None if summary.taken is None else summary.taken.isoformat(timespec="seconds"),
+            spec_name,
+            summary.density,
+            summary.bearing_percent,
+            summary.spot_count,
+            None if meets is None else int(meets),
+            _now(),
+            text,
+            spec_json,
+        )
 
     # ------------------------------------------------------------------ reading
 
@@ -363,28 +343,23 @@ class History:
         )
         return [r[0] for r in rows]
 
-    def passes(self, surface: str) -> list[dict[str, Any]]:
+    def passes(self, surface: str) -> list[StoredPass]:
         """Every pass of ``surface`` in the order the photos were taken.
 
         Ordered by ``taken`` (passes without a time last), then by photo name, then by
-        the order they were recorded.
+        the order they were recorded; numbered from 1 in that order.  Empty for an
+        unknown surface.
 
-        Returns
-        -------
-        list of dict
-            Each with ``pass`` (1-based number in this order), ``photo``, ``sha256``,
-            ``taken``, ``spec``, ``density``, ``bearing_percent``, ``spot_count``,
-            ``meets`` (bool or None), ``recorded`` (UTC ISO time), ``spec_targets``
-            (the fields of the Spec recorded with the pass, or None) and ``result`` (the
-            whole stored result dict).  Empty for an unknown surface.
+        Raises
+        ------
+        HistoryError
+            A pass's stored JSON is damaged, or the database could not be read.
         """
         if self._version < 1:
             return []
         spec_col = "p.spec_json" if self._version >= 2 else "NULL"
         rows = self._read(
-            f"""SELECT p.photo, p.sha256, p.taken, p.spec, p.density, p.bearing_percent,
-                      p.spot_count, p.meets, p.recorded, p.result_json,
-                      {spec_col} AS spec_json
+            f"""SELECT p.photo, p.spec, p.recorded, p.result_json, {spec_col} AS spec_json
                FROM passes p JOIN surfaces s ON s.id = p.surface_id
                WHERE s.name = ?
                ORDER BY p.taken IS NULL, p.taken, p.photo, p.id""",
@@ -393,29 +368,15 @@ class History:
         out = []
         for n, r in enumerate(rows, start=1):
             try:
-                result = json.loads(r["result_json"])
-                targets = None if r["spec_json"] is None else json.loads(r["spec_json"])
+                summary = summary_from_dict(json.loads(r["result_json"]))
+                kept = None if r["spec_json"] is None else json.loads(r["spec_json"])
             except ValueError:
                 raise HistoryError(
                     f"history {self.path}: pass {r['photo']!r} of {surface!r} holds damaged "
                     "JSON; restore a backup or give a new --db path"
                 ) from None
-            out.append(
-                {
-                    "pass": n,
-                    "photo": r["photo"],
-                    "sha256": r["sha256"],
-                    "taken": r["taken"],
-                    "spec": r["spec"],
-                    "density": r["density"],
-                    "bearing_percent": r["bearing_percent"],
-                    "spot_count": r["spot_count"],
-                    "meets": None if r["meets"] is None else bool(r["meets"]),
-                    "recorded": r["recorded"],
-                    "spec_targets": targets,
-                    "result": result,
-                }
-            )
+            spec = spec_from_dict(kept) if isinstance(kept, Mapping) else None
+            out.append(StoredPass(n, summary, r["spec"], spec, r["recorded"]))
         return out
 
     def schema_version(self) -> int:

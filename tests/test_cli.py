@@ -57,7 +57,7 @@ def test_help_is_quick_and_lists_commands() -> None:
 def test_inspect_json_is_the_library_result(small_job, capsys) -> None:  # type: ignore[no-untyped-def]
     from printcheck.layout import read_layout
     from printcheck.pipeline import InspectOptions, inspect_photo
-    from printcheck.result import result_to_dict
+    from printcheck.serde import result_to_dict
 
     folder, photos = small_job
     photo = folder / photos[1].file
