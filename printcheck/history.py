@@ -199,28 +199,13 @@ class History:
 
     def _retry(self, work: Callable[[sqlite3.Connection], T]) -> T:
         """Run ``work`` in one IMMEDIATE transaction, retrying while the database is locked."""
-        deadline = time.monotonic() + self.max_wait_s
-        while True:
-            try:
-                return _transaction(self._con, work)
-            except sqlite3.Error as exc:
-                if _is_locked(exc) and time.monotonic() < deadline:
-                    time.sleep(_RETRY_SLEEP_S)
-                    continue
-                raise _explain(self.path, exc) from None
-            except OSError as exc:
-                raise _explain(self.path, exc) from None
+        return _retrying(self.path, self.max_wait_s, lambda: _transaction(self._con, work))
 
     def _read(self, sql: str, params: tuple[Any, ...] = ()) -> list[sqlite3.Row]:
-        deadline = time.monotonic() + self.max_wait_s
-        while True:
-            try:
-                return list(self._con.execute(sql, params).fetchall())
-            except sqlite3.Error as exc:
-                if _is_locked(exc) and time.monotonic() < deadline:
-                    time.sleep(_RETRY_SLEEP_S)
-                    continue
-                raise _explain(self.path, exc) from None
+        """The rows of one query, retrying while the database is locked."""
+        return _retrying(
+            self.path, self.max_wait_s, lambda: list(self._con.execute(sql, params).fetchall())
+        )
 
     def close(self) -> None:
         """Close the database (idempotent)."""
@@ -503,6 +488,26 @@ def open_history(
     return History(con, db, max_wait_s=max_wait_s, version=version)
 
 
+def _retrying(path: Path, max_wait_s: float, action: Callable[[], T]) -> T:
+    """Run ``action``; while another run holds the database locked, again, for up to
+    ``max_wait_s`` seconds.
+
+    Any other SQLite or OS failure becomes one HistoryError line naming ``path`` and the
+    fix; a HistoryError from ``action`` passes as it is.
+    """
+    deadline = time.monotonic() + max_wait_s
+    while True:
+        try:
+            return action()
+        except HistoryError:
+            raise
+        except (sqlite3.Error, OSError) as exc:
+            if _is_locked(exc) and time.monotonic() < deadline:
+                time.sleep(_RETRY_SLEEP_S)
+                continue
+            raise _explain(path, exc) from None
+
+
 def _connect(
     db: Path,
     target: str,
@@ -514,30 +519,22 @@ def _connect(
 ) -> tuple[sqlite3.Connection, int]:
     """Connect and run ``prepare`` (returns the schema version), retrying while locked.
 
-    Another run holding the database locked is waited for up to ``max_wait_s``; any
-    other failure becomes one HistoryError line.  A half-opened connection is closed.
+    A half-opened connection is closed before the next try or the error.
     """
-    deadline = time.monotonic() + max_wait_s
-    while True:
-        con: sqlite3.Connection | None = None
+
+    def attempt() -> tuple[sqlite3.Connection, int]:
+        con = sqlite3.connect(
+            target, uri=uri, timeout=timeout_s, isolation_level=None, check_same_thread=True
+        )
         try:
-            con = sqlite3.connect(
-                target, uri=uri, timeout=timeout_s, isolation_level=None, check_same_thread=True
-            )
             con.row_factory = sqlite3.Row
             con.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000):d}")
             return con, prepare(con)
-        except HistoryError:
-            if con is not None:
-                con.close()
+        except BaseException:
+            con.close()
             raise
-        except (sqlite3.Error, OSError) as exc:
-            if con is not None:
-                con.close()
-            if _is_locked(exc) and time.monotonic() < deadline:
-                time.sleep(_RETRY_SLEEP_S)
-                continue
-            raise _explain(db, exc) from None
+
+    return _retrying(db, max_wait_s, attempt)
 
 
 def _open_readonly(db: Path, *, timeout_s: float, max_wait_s: float, known: int) -> History:
