@@ -20,16 +20,15 @@ cells_meeting_percent
 
 Projection
 ----------
-Density is fitted against pass number by least squares on the last ``fit_passes``
-passes (default 5).  With the fitted rate ``a`` (points per
-pass), its standard error ``se`` and the fitted density at the latest pass ``y_n``, the
-passes still needed are
-``ceil((target - y_n) / a)`` (at least 1), with ``low`` and ``high`` from the rates
-``a + se`` and ``a - se`` (``high`` is ``None`` when ``a - se <= 0``: the trend may not
-reach the target at all).  The projection is ``None`` with fewer than three passes, without
-a density target, or when the fitted rate is not positive; ``passes_to_spec`` (and
-``low``, ``high``) is 0 when the latest pass already reaches the target, however few passes
-there are.
+Density is fitted against pass number by least squares (``scipy.stats.linregress``) on
+the last ``fit_passes`` passes (default 5).  With the fitted rate ``a`` (points per pass),
+its standard error ``se`` and the fitted density at the latest pass ``y_n``, the passes
+still needed are ``ceil((target - y_n) / a)`` (at least 1), with ``low`` and ``high``
+from the rates ``a + se`` and ``a - se`` (``high`` is ``None`` when ``a - se <= 0``: the
+trend may not reach the target at all).  The projection is ``None`` with fewer than three
+passes, without a density target, or when the fitted rate is not positive;
+``passes_to_spec`` (and ``low``, ``high``) is 0 when the latest pass already reaches the
+target, however few passes there are.
 """
 
 from __future__ import annotations
@@ -85,27 +84,25 @@ def fit_line(x: Sequence[float], y: Sequence[float]) -> LineFit:
     Returns
     -------
     LineFit
-        ``slope_stderr`` is ``sqrt(SSR / (n - 2) / Sxx)`` (0 for n == 2).
+        From ``scipy.stats.linregress``; ``slope_stderr`` is
+        ``sqrt(SSR / (n - 2) / Sxx)`` (0 for n == 2).
+
+    Raises
+    ------
+    ValueError
+        Fewer than two pairs, ``x`` and ``y`` of different lengths, or ``x`` all equal.
     """
     n = len(x)
     if n != len(y) or n < 2:
         raise ValueError(
             f"fit_line needs two or more (x, y) pairs of equal length, got {n}, {len(y)}"
         )
-    mx = sum(x) / n
-    my = sum(y) / n
-    sxx = sum((xi - mx) ** 2 for xi in x)
-    if sxx == 0:
+    if min(x) == max(x):
         raise ValueError("fit_line needs at least two different x values")
-    sxy = sum((xi - mx) * (yi - my) for xi, yi in zip(x, y, strict=True))
-    slope = sxy / sxx
-    intercept = my - slope * mx
-    if n > 2:
-        ssr = sum((yi - (slope * xi + intercept)) ** 2 for xi, yi in zip(x, y, strict=True))
-        se = math.sqrt(ssr / (n - 2) / sxx)
-    else:
-        se = 0.0
-    return LineFit(slope, intercept, se)
+    from scipy.stats import linregress
+
+    fit = linregress([float(v) for v in x], [float(v) for v in y])
+    return LineFit(float(fit.slope), float(fit.intercept), float(fit.stderr))
 
 
 def _cell_mm(summary: PassSummary | None) -> float | None:

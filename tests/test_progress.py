@@ -1,7 +1,8 @@
 """Tests of printcheck.progress: the trend fit, the projection and the uniformity figure.
 
-The least-squares line is checked against scipy.stats.linregress and numpy.polyfit
-(reference libraries); projections against sums worked by hand in the comments.
+The least-squares line (scipy.stats.linregress) is checked against numpy.polyfit and its
+covariance (a reference library); projections against scipy.stats.linregress and sums
+worked by hand in the comments.
 """
 
 from __future__ import annotations
@@ -52,17 +53,23 @@ def _cells(densities: list[float], complete: bool = True) -> tuple[CellSummary, 
 # ------------------------------------------------------------------ the fit
 
 
-def test_fit_line_matches_scipy_linregress() -> None:
+def test_fit_line_matches_numpy_polyfit_and_its_covariance() -> None:
+    # fit_line is scipy.stats.linregress; the reference here is numpy.polyfit, whose
+    # covariance (cov=True scales by SSR / (n - 2)) gives the slope's standard error
     rng = np.random.default_rng(7)
     x = np.arange(1, 9, dtype=float)
     y = 3.0 + 2.2 * x + rng.normal(0, 0.8, x.size)
     fit = fit_line(list(x), list(y))
-    ref = stats.linregress(x, y)  # reference: scipy
-    assert fit.slope == pytest.approx(ref.slope, rel=1e-12)
-    assert fit.intercept == pytest.approx(ref.intercept, rel=1e-12)
-    assert fit.slope_stderr == pytest.approx(ref.stderr, rel=1e-10)
-    slope, intercept = np.polyfit(x, y, 1)  # reference: numpy
+    (slope, intercept), cov = np.polyfit(x, y, 1, cov=True)
     assert (fit.slope, fit.intercept) == pytest.approx((slope, intercept), rel=1e-10)
+    assert fit.slope_stderr == pytest.approx(math.sqrt(cov[0, 0]), rel=1e-9)
+    # and the textbook form: sqrt(SSR / (n - 2) / Sxx)
+    ssr = float(np.sum((y - (slope * x + intercept)) ** 2))
+    sxx = float(np.sum((x - x.mean()) ** 2))
+    assert fit.slope_stderr == pytest.approx(math.sqrt(ssr / (x.size - 2) / sxx), rel=1e-9)
+    # two points: an exact line, no error to estimate
+    two = fit_line([1.0, 3.0], [2.0, 8.0])
+    assert (two.slope, two.intercept, two.slope_stderr) == pytest.approx((3.0, -1.0, 0.0))
 
 
 def test_fit_line_refuses_degenerate_input() -> None:
