@@ -231,7 +231,37 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
     if not name:
         raise _fail(source, "name", "must not be empty")
     title = _text(data, "title", source, name, one_line=True) or name
+    units = _units(data, source)
+    scale = MM_PER_IN if units == "in" else 1.0
+    basis = _number(data, "basis", source)
+    basis_mm = (1.0 * MM_PER_IN if units == "in" else 25.0) if basis is None else basis * scale
+    if not math.isfinite(basis_mm):
+        raise _fail(source, "basis", f"is too large, got {data['basis']!r}")
+    targets = _targets(data, source)
+    max_bare = targets["max_bare"]
+    max_bare_mm = None if max_bare is None else max_bare * scale
+    if max_bare_mm is not None and not math.isfinite(max_bare_mm):
+        raise _fail(source, "max_bare", f"is too large, got {data['max_bare']!r}")
+    share = targets["cell_share"]
+    return Spec(
+        name=name,
+        title=title,
+        basis_mm=basis_mm,
+        min_density=targets["min_density"],
+        min_cell_density=targets["min_cell_density"],
+        cell_share=1.0 if share is None else share,
+        bearing_min=targets["bearing_min"],
+        bearing_max=targets["bearing_max"],
+        max_bare_mm=max_bare_mm,
+        source=_text(data, "source", source, "", one_line=False),
+        units=units,
+        sources=_sources(data, source, targets),
+        notes=_text(data, "notes", source, "", one_line=False),
+        origin=source,
+    )
 
+
+def _units(data: dict[str, Any], source: str) -> str:
     if "units" not in data:
         raise _fail(
             source,
@@ -242,13 +272,11 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
     units = data["units"]
     if units not in ("mm", "in"):
         raise _fail(source, "units", f'must be "mm" or "in", got {units!r}')
-    scale = MM_PER_IN if units == "in" else 1.0
+    return str(units)
 
-    basis = _number(data, "basis", source)
-    basis_mm = (1.0 * MM_PER_IN if units == "in" else 25.0) if basis is None else basis * scale
-    if not math.isfinite(basis_mm):
-        raise _fail(source, "basis", f"is too large, got {data['basis']!r}")
 
+def _targets(data: dict[str, Any], source: str) -> dict[str, float | None]:
+    """Each of :data:`TARGET_KEYS` as the file gives it (None: not set); at least one set."""
     min_density = _number(data, "min_density", source)
     min_cell_density = _number(data, "min_cell_density", source)
     share = _number(data, "cell_share", source, upper=1.0)
@@ -264,11 +292,7 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
             "the range must run low to high",
         )
     max_bare = _number(data, "max_bare", source)
-    max_bare_mm = None if max_bare is None else max_bare * scale
-    if max_bare_mm is not None and not math.isfinite(max_bare_mm):
-        raise _fail(source, "max_bare", f"is too large, got {data['max_bare']!r}")
-
-    present = {
+    targets = {
         "min_density": min_density,
         "min_cell_density": min_cell_density,
         "cell_share": share,
@@ -276,14 +300,20 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
         "bearing_max": bearing_max,
         "max_bare": max_bare,
     }
-    if all(v is None for v in present.values()):
+    if all(v is None for v in targets.values()):
         raise _fail(
             source,
             "(targets)",
             "none given; set at least one of min_density, min_cell_density, "
             "bearing_min, bearing_max, max_bare",
         )
+    return targets
 
+
+def _sources(
+    data: dict[str, Any], source: str, targets: dict[str, float | None]
+) -> tuple[tuple[str, str], ...]:
+    """The ``[sources]`` table: (target key, text) for targets the spec sets, in key order."""
     raw_sources = data.get("sources", {})
     if not isinstance(raw_sources, dict):
         raise _fail(source, "sources", f'must be a table of target = "text", got {raw_sources!r}')
@@ -292,30 +322,14 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
         where = f"sources.{shown_key(key)}"
         if key not in TARGET_KEYS:
             raise _fail(source, where, f"not a target; use one of {', '.join(TARGET_KEYS)}")
-        if present[key] is None:
+        if targets[key] is None:
             raise _fail(source, where, f"names a target the spec does not set; add {key}")
         text = raw_sources[key]
         if not isinstance(text, str):
             raise _fail(source, where, f"must be a string, got {text!r}")
         sources.append((key, text.strip()))
     sources.sort(key=lambda item: TARGET_KEYS.index(item[0]))
-
-    return Spec(
-        name=name,
-        title=title,
-        basis_mm=basis_mm,
-        min_density=min_density,
-        min_cell_density=min_cell_density,
-        cell_share=1.0 if share is None else share,
-        bearing_min=bearing_min,
-        bearing_max=bearing_max,
-        max_bare_mm=max_bare_mm,
-        source=_text(data, "source", source, "", one_line=False),
-        units=units,
-        sources=tuple(sources),
-        notes=_text(data, "notes", source, "", one_line=False),
-        origin=source,
-    )
+    return tuple(sources)
 
 
 def read_spec(path: str | Path) -> Spec:
