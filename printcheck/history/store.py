@@ -1,111 +1,37 @@
-"""History: the SQLite store of surfaces, their passes and each pass's result.
+"""The history store: record a pass, read a surface's passes, open a database.
 
-This is the only module that touches SQLite.  A *pass* is one photo's result recorded
-for one surface; a photo is identified by the SHA-256 of its bytes, so recording the same
-photo for the same surface twice stores it once (re-running a batch records nothing twice).
-
-Data safety
------------
-- The database runs in WAL mode with ``synchronous=FULL``: a committed pass survives a crash
-  of the program (and of the machine), and readers never block the writer.
-- Each pass is written in ONE transaction (``BEGIN IMMEDIATE`` ... ``COMMIT``), so a
-  SIGKILL or Ctrl-C at any moment leaves only whole passes.
-- Two runs may write at once: SQLite's busy timeout waits for the other writer, and a retry
-  loop on "database is locked" bounds the total wait (``max_wait_s``).
-- The schema carries its version in ``PRAGMA user_version``; schema changes are the named
-  migrations in :data:`MIGRATIONS`, run in order, each in its own transaction.  A database
-  written by a newer printcheck is refused rather than guessed at.
-
-Each pass is stored as its result JSON (``printcheck-result/1``, docs/formats.md) and read
-back as a typed :class:`printcheck.records.StoredPass`.  Every failure is a
-:class:`printcheck.errors.HistoryError` with a one-line message naming the file and what
-to do.
+Each pass is stored as its result JSON (``printcheck-result/1``, docs/formats.md) in one
+transaction, plus indexed columns, and read back as a typed
+:class:`printcheck.records.StoredPass`.
 """
 
 from __future__ import annotations
 
-import errno
 import json
 import os
 import sqlite3
-import time
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
-from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, TypeVar
 
 from printcheck.errors import HistoryError
+from printcheck.history.schema import MIGRATIONS, Migration, migrate
+from printcheck.history.sqlite import (
+    ENV_VAR,
+    connect,
+    explain,
+    now,
+    retrying,
+    too_new,
+    transaction,
+)
 from printcheck.records import PassSummary, StoredPass
 from printcheck.serde import spec_from_dict, spec_to_dict, summary_from_dict, summary_to_dict
 from printcheck.spec import Spec
 
-__all__ = [
-    "ENV_VAR",
-    "MIGRATIONS",
-    "SCHEMA_VERSION",
-    "Migration",
-    "History",
-    "default_db_path",
-    "open_history",
-]
-
-ENV_VAR = "PRINTCHECK_DB"
+__all__ = ["History", "default_db_path", "open_history"]
 
 T = TypeVar("T")
-
-
-@dataclass(frozen=True)
-class Migration:
-    """One named schema change: the SQL statements that take version ``n - 1`` to ``n``."""
-
-    name: str
-    statements: tuple[str, ...]
-
-
-MIGRATIONS: tuple[Migration, ...] = (
-    Migration(
-        "create surfaces and passes",
-        (
-            """CREATE TABLE surfaces (
-                id INTEGER PRIMARY KEY,
-                name TEXT NOT NULL UNIQUE,
-                created TEXT NOT NULL
-            )""",
-            """CREATE TABLE passes (
-                id INTEGER PRIMARY KEY,
-                surface_id INTEGER NOT NULL REFERENCES surfaces(id),
-                sha256 TEXT NOT NULL,
-                photo TEXT NOT NULL,
-                taken TEXT,
-                spec TEXT,
-                density REAL,
-                bearing_percent REAL,
-                spot_count INTEGER,
-                meets INTEGER,
-                recorded TEXT NOT NULL,
-                result_json TEXT NOT NULL,
-                UNIQUE (surface_id, sha256)
-            )""",
-            "CREATE INDEX passes_by_time ON passes (surface_id, taken, photo)",
-            "CREATE INDEX passes_by_photo ON passes (photo)",
-            "CREATE INDEX passes_by_spec ON passes (spec)",
-            """CREATE TABLE migrations (
-                version INTEGER PRIMARY KEY,
-                name TEXT NOT NULL,
-                applied TEXT NOT NULL
-            )""",
-        ),
-    ),
-    Migration(
-        "keep each pass's spec targets",
-        ("ALTER TABLE passes ADD COLUMN spec_json TEXT",),
-    ),
-)
-
-SCHEMA_VERSION = len(MIGRATIONS)
-
-_RETRY_SLEEP_S = 0.05
 
 
 def default_db_path(env: Mapping[str, str] = os.environ) -> Path:
@@ -128,48 +54,6 @@ def default_db_path(env: Mapping[str, str] = os.environ) -> Path:
     import platformdirs
 
     return Path(platformdirs.user_data_path("printcheck")) / "history.sqlite"
-
-
-def _now() -> str:
-    return datetime.now(UTC).isoformat(timespec="seconds")
-
-
-def _is_locked(exc: BaseException) -> bool:
-    text = str(exc).lower()
-    return isinstance(exc, sqlite3.OperationalError) and ("locked" in text or "busy" in text)
-
-
-def _explain(path: Path, exc: BaseException) -> HistoryError:
-    """Turn a sqlite3/OS error into a one-line HistoryError naming the file and the fix."""
-    text = str(exc).lower()
-    code = getattr(exc, "sqlite_errorcode", None)
-    err = getattr(exc, "errno", None)
-    if "not a database" in text or code == getattr(sqlite3, "SQLITE_NOTADB", 26):
-        msg = "is not a printcheck history (not an SQLite database); give another --db path"
-    elif "full" in text or err in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG) or code == 13:
-        msg = "the disk is full; free some space or give a --db path on another disk"
-    elif (
-        "readonly" in text
-        or "read-only" in text
-        or "unable to open" in text
-        or err in (errno.EROFS, errno.EACCES, errno.EPERM)
-    ):
-        msg = (
-            "cannot be written there (read-only or no permission); give a writable "
-            f"--db path or set {ENV_VAR}"
-        )
-    elif _is_locked(exc):
-        msg = "another printcheck run kept the history locked too long; try again when it ends"
-    elif "malformed" in text or "corrupt" in text:
-        msg = "the database is damaged; restore a backup or give a new --db path"
-    elif "disk i/o" in text:
-        msg = (
-            "writing to the disk failed (disk full, a file size limit, or a disk fault); "
-            "free some space or give another --db path"
-        )
-    else:
-        msg = f"{exc}".strip() or type(exc).__name__
-    return HistoryError(f"history {path}: {msg}")
 
 
 class History:
@@ -199,11 +83,11 @@ class History:
 
     def _retry(self, work: Callable[[sqlite3.Connection], T]) -> T:
         """Run ``work`` in one IMMEDIATE transaction, retrying while the database is locked."""
-        return _retrying(self.path, self.max_wait_s, lambda: _transaction(self._con, work))
+        return retrying(self.path, self.max_wait_s, lambda: transaction(self._con, work))
 
     def _read(self, sql: str, params: tuple[Any, ...] = ()) -> list[sqlite3.Row]:
         """The rows of one query, retrying while the database is locked."""
-        return _retrying(
+        return retrying(
             self.path, self.max_wait_s, lambda: list(self._con.execute(sql, params).fetchall())
         )
 
@@ -258,7 +142,7 @@ class History:
         def work(con: sqlite3.Connection) -> bool:
             con.execute(
                 "INSERT OR IGNORE INTO surfaces (name, created) VALUES (?, ?)",
-                (surface.strip(), _now()),
+                (surface.strip(), now()),
             )
             (surface_id,) = con.execute(
                 "SELECT id FROM surfaces WHERE name = ?", (surface.strip(),)
@@ -310,7 +194,7 @@ class History:
             summary.bearing_percent,
             summary.spot_count,
             None if meets is None else int(meets),
-            _now(),
+            now(),
             text,
             spec_json,
         )
@@ -369,63 +253,6 @@ class History:
         return int(self._read("PRAGMA user_version")[0][0])
 
 
-def _transaction(con: sqlite3.Connection, work: Callable[[sqlite3.Connection], T]) -> T:
-    """Run ``work`` between BEGIN IMMEDIATE and COMMIT; roll back on any failure."""
-    con.execute("BEGIN IMMEDIATE")
-    try:
-        value = work(con)
-        con.execute("COMMIT")
-    except BaseException:
-        if con.in_transaction:
-            try:
-                con.execute("ROLLBACK")
-            except sqlite3.Error:
-                pass
-        raise
-    return value
-
-
-def _migrate(con: sqlite3.Connection, path: Path, migrations: tuple[Migration, ...]) -> None:
-    """Bring the schema up to ``len(migrations)``, one transaction per migration."""
-    known = len(migrations)
-    for target in range(1, known + 1):
-
-        def step(c: sqlite3.Connection, target: int = target) -> None:
-            # re-read inside the write lock: another process may have migrated meanwhile
-            version = int(c.execute("PRAGMA user_version").fetchone()[0])
-            if version >= target:
-                return
-            if version == 0:
-                tables = c.execute(
-                    "SELECT count(*) FROM sqlite_master WHERE name NOT LIKE 'sqlite_%'"
-                ).fetchone()[0]
-                if tables:
-                    raise HistoryError(
-                        f"history {path}: is an SQLite database of another program (no "
-                        "printcheck schema); give another --db path"
-                    )
-            if version != target - 1:
-                raise HistoryError(
-                    f"history {path}: schema version {version} skipped a step; give a new --db path"
-                )
-            for sql in migrations[target - 1].statements:
-                c.execute(sql)
-            c.execute(
-                "INSERT INTO migrations (version, name, applied) VALUES (?, ?, ?)",
-                (target, migrations[target - 1].name, _now()),
-            )
-            c.execute(f"PRAGMA user_version = {target:d}")
-
-        version = int(con.execute("PRAGMA user_version").fetchone()[0])
-        if version > known:
-            raise HistoryError(
-                f"history {path}: schema version {version} is newer than this printcheck "
-                f"knows ({known}); upgrade printcheck or give another --db path"
-            )
-        if version < target:
-            _transaction(con, step)
-
-
 def open_history(
     path: str | os.PathLike[str] | None = None,
     *,
@@ -471,7 +298,7 @@ def open_history(
     try:
         db.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise _explain(db, exc) from None
+        raise explain(db, exc) from None
 
     def prepare(con: sqlite3.Connection) -> int:
         mode = con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
@@ -479,62 +306,13 @@ def open_history(
             raise sqlite3.OperationalError(f"cannot switch to WAL mode (got {mode})")
         con.execute("PRAGMA synchronous = FULL")
         con.execute("PRAGMA foreign_keys = ON")
-        _migrate(con, db, migrations)
+        migrate(con, db, migrations)
         return int(con.execute("PRAGMA user_version").fetchone()[0])
 
-    con, version = _connect(
+    con, version = connect(
         db, str(db), uri=False, timeout_s=timeout_s, max_wait_s=max_wait_s, prepare=prepare
     )
     return History(con, db, max_wait_s=max_wait_s, version=version)
-
-
-def _retrying(path: Path, max_wait_s: float, action: Callable[[], T]) -> T:
-    """Run ``action``; while another run holds the database locked, again, for up to
-    ``max_wait_s`` seconds.
-
-    Any other SQLite or OS failure becomes one HistoryError line naming ``path`` and the
-    fix; a HistoryError from ``action`` passes as it is.
-    """
-    deadline = time.monotonic() + max_wait_s
-    while True:
-        try:
-            return action()
-        except HistoryError:
-            raise
-        except (sqlite3.Error, OSError) as exc:
-            if _is_locked(exc) and time.monotonic() < deadline:
-                time.sleep(_RETRY_SLEEP_S)
-                continue
-            raise _explain(path, exc) from None
-
-
-def _connect(
-    db: Path,
-    target: str,
-    *,
-    uri: bool,
-    timeout_s: float,
-    max_wait_s: float,
-    prepare: Callable[[sqlite3.Connection], int],
-) -> tuple[sqlite3.Connection, int]:
-    """Connect and run ``prepare`` (returns the schema version), retrying while locked.
-
-    A half-opened connection is closed before the next try or the error.
-    """
-
-    def attempt() -> tuple[sqlite3.Connection, int]:
-        con = sqlite3.connect(
-            target, uri=uri, timeout=timeout_s, isolation_level=None, check_same_thread=True
-        )
-        try:
-            con.row_factory = sqlite3.Row
-            con.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000):d}")
-            return con, prepare(con)
-        except BaseException:
-            con.close()
-            raise
-
-    return _retrying(db, max_wait_s, attempt)
 
 
 def _open_readonly(db: Path, *, timeout_s: float, max_wait_s: float, known: int) -> History:
@@ -547,13 +325,10 @@ def _open_readonly(db: Path, *, timeout_s: float, max_wait_s: float, known: int)
     def prepare(con: sqlite3.Connection) -> int:
         return int(con.execute("PRAGMA user_version").fetchone()[0])
 
-    con, version = _connect(
+    con, version = connect(
         db, uri, uri=True, timeout_s=timeout_s, max_wait_s=max_wait_s, prepare=prepare
     )
     if version > known:
         con.close()
-        raise HistoryError(
-            f"history {db}: schema version {version} is newer than this printcheck "
-            f"knows ({known}); upgrade printcheck or give another --db path"
-        )
+        raise too_new(db, version, known)
     return History(con, db, max_wait_s=max_wait_s, version=version, readonly=True)
