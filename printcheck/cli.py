@@ -13,9 +13,9 @@ from __future__ import annotations
 import json
 import os
 import sys
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated, Any, Literal
+from typing import TYPE_CHECKING, Annotated, Any, Literal, TypeVar
 
 import typer
 
@@ -53,77 +53,13 @@ FLAGS = {
 
 # ---------------------------------------------------------------- shared options
 
-LayoutOpt = Annotated[
-    Path | None,
-    typer.Option(
-        "--layout", help="Layout TOML: where the markers sit (default: the built-in 2 in card)."
-    ),
-]
-ScaleOpt = Annotated[
-    float | None,
-    typer.Option(
-        "--px-per-mm", help="Explicit scale for square-on photos (a rig or a scan); no markers."
-    ),
-]
-UnitOpt = Annotated[
-    Literal["in", "mm"] | None,
-    typer.Option(
-        "--unit", help="Units of results: in (points per square inch) or mm (per 25 mm square)."
-    ),
-]
-CellOpt = Annotated[
-    float | None,
-    typer.Option("--cell", help="Side of the counting cell in --unit (default 1 in, or 25 mm)."),
-]
-CompoundOpt = Annotated[
-    Literal["blue", "red", "auto"] | None,
-    typer.Option("--compound", help="Colour of the marking compound (default blue)."),
-]
-CompoundOnOpt = Annotated[
-    Literal["reference", "work"] | None,
-    typer.Option(
-        "--compound-on",
-        help="reference: the spots carry compound (default); work: the work was coated "
-        "and the spots are where the reference rubbed it through.",
-    ),
-]
-SpecOpt = Annotated[
-    str | None,
-    typer.Option(
-        "--spec", help="A built-in spec name (see 'printcheck specs') or a spec TOML file."
-    ),
-]
-TargetOpt = Annotated[
-    float | None,
-    typer.Option(
-        "--target", help="Quick density target in points per --unit cell, instead of --spec."
-    ),
-]
-SurfaceOpt = Annotated[
-    str | None, typer.Option("--surface", help="Name of the surface, e.g. bed-front-way.")
-]
-OutOpt = Annotated[
-    Path | None, typer.Option("--out", help="Folder for result JSON, overlays and reports.")
-]
+
+def _option(kind: Any, flag: str, text: str) -> Any:
+    """A command-line option of type ``kind``: its flag and its help text."""
+    return Annotated[kind, typer.Option(flag, help=text)]
+
+
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print only the result JSON on stdout.")]
-MinSpotOpt = Annotated[
-    float | None,
-    typer.Option(
-        "--min-spot", help="Smallest spot in mm²; smaller specks are not spots (default 0.1)."
-    ),
-]
-ConfigOpt = Annotated[
-    Path | None,
-    typer.Option(
-        "--config", help="Job settings file (default: printcheck.toml beside the photos)."
-    ),
-]
-PartialOpt = Annotated[
-    bool,
-    typer.Option(
-        "--partial", help="Measure what is visible when the window runs out of the photo."
-    ),
-]
 DbOpt = Annotated[
     Path | None,
     typer.Option(
@@ -133,6 +69,135 @@ DbOpt = Annotated[
 JobsOpt = Annotated[
     int | None, typer.Option("--jobs", help="Photos processed at once (default: all cores).")
 ]
+
+# The options inspect and batch share, defined once, in the order --help lists them:
+# (parameter, type with its option, default).
+INSPECT_OPTIONS: tuple[tuple[str, Any, Any], ...] = (
+    (
+        "layout",
+        _option(
+            Path | None,
+            "--layout",
+            "Layout TOML: where the markers sit (default: the built-in 2 in card).",
+        ),
+        None,
+    ),
+    (
+        "px_per_mm",
+        _option(
+            float | None,
+            "--px-per-mm",
+            "Explicit scale for square-on photos (a rig or a scan); no markers.",
+        ),
+        None,
+    ),
+    (
+        "unit",
+        _option(
+            Literal["in", "mm"] | None,
+            "--unit",
+            "Units of results: in (points per square inch) or mm (per 25 mm square).",
+        ),
+        None,
+    ),
+    (
+        "cell",
+        _option(
+            float | None, "--cell", "Side of the counting cell in --unit (default 1 in, or 25 mm)."
+        ),
+        None,
+    ),
+    (
+        "compound",
+        _option(
+            Literal["blue", "red", "auto"] | None,
+            "--compound",
+            "Colour of the marking compound (default blue).",
+        ),
+        None,
+    ),
+    (
+        "compound_on",
+        _option(
+            Literal["reference", "work"] | None,
+            "--compound-on",
+            "reference: the spots carry compound (default); work: the work was coated "
+            "and the spots are where the reference rubbed it through.",
+        ),
+        None,
+    ),
+    (
+        "spec",
+        _option(
+            str | None,
+            "--spec",
+            "A built-in spec name (see 'printcheck specs') or a spec TOML file.",
+        ),
+        None,
+    ),
+    (
+        "target",
+        _option(
+            float | None,
+            "--target",
+            "Quick density target in points per --unit cell, instead of --spec.",
+        ),
+        None,
+    ),
+    ("surface", _option(str | None, "--surface", "Name of the surface, e.g. bed-front-way."), None),
+    ("out", _option(Path | None, "--out", "Folder for result JSON, overlays and reports."), None),
+    ("json_out", JsonOpt, False),
+    (
+        "min_spot",
+        _option(
+            float | None,
+            "--min-spot",
+            "Smallest spot in mm²; smaller specks are not spots (default 0.1).",
+        ),
+        None,
+    ),
+    (
+        "config",
+        _option(
+            Path | None,
+            "--config",
+            "Job settings file (default: printcheck.toml beside the photos).",
+        ),
+        None,
+    ),
+    (
+        "partial",
+        _option(
+            bool, "--partial", "Measure what is visible when the window runs out of the photo."
+        ),
+        False,
+    ),
+)
+
+Command = TypeVar("Command", bound=Callable[..., None])
+
+
+def _with_inspect_options(command: Command) -> Command:
+    """Give ``command`` the :data:`INSPECT_OPTIONS` after its arguments.
+
+    Typer reads a command's options from its signature; the command takes the shared
+    ones as keyword arguments (``**given``) and finds them in ``ctx.params``.
+    """
+    import inspect as python_inspect
+
+    keyword = python_inspect.Parameter.KEYWORD_ONLY
+    sig = python_inspect.signature(command, eval_str=True)
+    own = [p for p in sig.parameters.values() if p.kind is not p.VAR_KEYWORD]
+    arguments = [p for p in own if p.default is p.empty]
+    extra = [p.replace(kind=keyword) for p in own if p.default is not p.empty]
+    shared = [
+        python_inspect.Parameter(name, keyword, default=default, annotation=kind)
+        for name, kind, default in INSPECT_OPTIONS
+    ]
+    command.__signature__ = sig.replace(  # type: ignore[attr-defined]
+        parameters=[*arguments, *shared, *extra]
+    )
+    return command
 
 
 def _job_settings(config: Path | None, folder: Path | None) -> JobSettings:
@@ -194,29 +259,19 @@ def _exit_for(verdicts: Sequence[bool | None], failures: int) -> int:
 
 
 @app.command()
+@_with_inspect_options
 def inspect(
     ctx: typer.Context,
     photos: Annotated[list[Path], typer.Argument(help="Photos of prints.", show_default=False)],
-    layout: LayoutOpt = None,
-    px_per_mm: ScaleOpt = None,
-    unit: UnitOpt = None,
-    cell: CellOpt = None,
-    compound: CompoundOpt = None,
-    compound_on: CompoundOnOpt = None,
-    spec: SpecOpt = None,
-    target: TargetOpt = None,
-    surface: SurfaceOpt = None,
-    out: OutOpt = None,
-    json_out: JsonOpt = False,
-    min_spot: MinSpotOpt = None,
-    config: ConfigOpt = None,
-    partial: PartialOpt = False,
+    **given: Any,
 ) -> None:
     """Measure the print in each photo and judge it against a spec."""
     from printcheck.pipeline import inspect_photo
     from printcheck.serde import summarize, summary_to_dict
 
     options = _inspect_options(ctx.params, photos[0].parent if photos else None)
+    out: Path | None = ctx.params["out"]
+    json_out: bool = ctx.params["json_out"]
     verdicts: list[bool | None] = []
     failures = 0
     for path in photos:
@@ -246,27 +301,15 @@ def inspect(
 
 
 @app.command()
+@_with_inspect_options
 def batch(
     ctx: typer.Context,
     folder: Annotated[
         Path, typer.Argument(help="Folder of photos of one surface's passes.", show_default=False)
     ],
-    layout: LayoutOpt = None,
-    px_per_mm: ScaleOpt = None,
-    unit: UnitOpt = None,
-    cell: CellOpt = None,
-    compound: CompoundOpt = None,
-    compound_on: CompoundOnOpt = None,
-    spec: SpecOpt = None,
-    target: TargetOpt = None,
-    surface: SurfaceOpt = None,
-    out: OutOpt = None,
-    json_out: JsonOpt = False,
-    min_spot: MinSpotOpt = None,
-    config: ConfigOpt = None,
-    partial: PartialOpt = False,
     db: DbOpt = None,
     jobs: JobsOpt = None,
+    **given: Any,
 ) -> None:
     """Process every photo in FOLDER in the order taken: results, history and one report."""
     from printcheck.batch import run_batch
@@ -276,13 +319,14 @@ def batch(
     options = _inspect_options(ctx.params, folder)
     if options.surface is None:
         options = _with_surface(options, folder)
+    out: Path | None = ctx.params["out"]
     outcome = run_batch(
         folder,
         options=options,
         out=out if out is not None else folder / "printcheck-out",
         db=_db_path(db),
         jobs=jobs,
-        json_lines=json_out,
+        json_lines=ctx.params["json_out"],
         echo=typer.echo,
         warn=_fail,
     )
