@@ -19,7 +19,7 @@ import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import datetime
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, NamedTuple
 
 import numpy as np
 
@@ -44,6 +44,7 @@ __all__ = [
     "RESULT_FORMAT",
     "PROGRESS_FORMAT",
     "CellBox",
+    "Circle",
     "OverlayMarks",
     "summarize",
     "result_to_dict",
@@ -386,6 +387,14 @@ class CellBox:
     bearing_percent: float
 
 
+class Circle(NamedTuple):
+    """A round area the overlay marks: centre and diameter in mm (layout frame)."""
+
+    x_mm: float
+    y_mm: float
+    diameter_mm: float
+
+
 @dataclass(frozen=True, eq=False)
 class OverlayMarks:
     """What the overlay draws over the rectified photo.
@@ -399,9 +408,9 @@ class OverlayMarks:
     cells : tuple of CellBox
     cell_mm : float
         Side of the counting cell, mm.
-    high : tuple of (x_mm, y_mm, size_mm)
-        High areas to break up.
-    bare : tuple of (x_mm, y_mm, diameter_mm)
+    high : tuple of Circle
+        High areas to break up (the circle spans the area's size).
+    bare : tuple of Circle
         Bare patches over the spec's limit.
     """
 
@@ -409,8 +418,8 @@ class OverlayMarks:
     counted: np.ndarray
     cells: tuple[CellBox, ...]
     cell_mm: float
-    high: tuple[tuple[float, float, float], ...]
-    bare: tuple[tuple[float, float, float], ...]
+    high: tuple[Circle, ...]
+    bare: tuple[Circle, ...]
 
 
 def overlay_marks(result: Result) -> OverlayMarks:
@@ -432,6 +441,6 @@ def overlay_marks(result: Result) -> OverlayMarks:
             for c in m.cells
         ),
         cell_mm=float(m.cell_mm),
-        high=tuple((x, y, size) for x, y, size, _why in m.guidance.high),
-        bare=tuple((b.x_mm, b.y_mm, b.diameter_mm) for b in m.guidance.bare),
+        high=tuple(Circle(x, y, size) for x, y, size, _why in m.guidance.high),
+        bare=tuple(Circle(b.x_mm, b.y_mm, b.diameter_mm) for b in m.guidance.bare),
     )

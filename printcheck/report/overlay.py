@@ -322,12 +322,14 @@ def _draw_outlines(
 
 def _draw_guidance(img: np.ndarray, marks: OverlayMarks, view: _View, thick: int) -> None:
     """High areas as hatched circles, bare patches over the limit as dashed ones."""
-    for x_mm, y_mm, size_mm in marks.high:
-        radius = max(view.length(size_mm / 2), 3 * thick)
-        _hatched_circle(img, view.px(x_mm, y_mm), radius, _Pen(COLOURS["high"], thick + 1))
-    for x_mm, y_mm, diameter_mm in marks.bare:
-        radius = view.length(diameter_mm / 2)
-        _dashed_circle(img, view.px(x_mm, y_mm), radius, _Pen(COLOURS["bare"], thick + 1))
+    for high in marks.high:
+        radius = max(view.length(high.diameter_mm / 2), 3 * thick)
+        _hatched_circle(
+            img, view.px(high.x_mm, high.y_mm), radius, _Pen(COLOURS["high"], thick + 1)
+        )
+    for bare in marks.bare:
+        radius = view.length(bare.diameter_mm / 2)
+        _dashed_circle(img, view.px(bare.x_mm, bare.y_mm), radius, _Pen(COLOURS["bare"], thick + 1))
 
 
 def _draw_grid(img: np.ndarray, marks: OverlayMarks, view: _View, thick: int) -> None:
