@@ -21,7 +21,7 @@ from pathlib import Path
 from typing import Any
 
 from printcheck.errors import LayoutError
-from printcheck.tomlfile import shown_key
+from printcheck.tomlfile import read_toml_as, shown_key
 from printcheck.units import MM_PER_IN
 
 __all__ = [
@@ -379,19 +379,10 @@ def _exclusions(
 
 
 def read_layout(path: str | Path) -> Layout:
-    """Read and validate a layout TOML file.
-
-    Raises
-    ------
-    LayoutError
-        When the file is missing, unreadable, not TOML, or not a valid layout.
-    """
-    from printcheck.tomlfile import read_toml
-
-    data = read_toml(
-        path, kind="layout", error=LayoutError, missing_hint="; give the path of a layout .toml"
-    )
-    return parse_layout(data, source=str(path))
+    """Read and validate a layout TOML file (LayoutError: missing, unreadable, not TOML, or
+    not a valid layout)."""
+    hint = "; give the path of a layout .toml"
+    return read_toml_as(path, parse_layout, kind="layout", error=LayoutError, missing_hint=hint)
 
 
 # --------------------------------------------------------------------------- the card

@@ -34,7 +34,7 @@ from pathlib import Path
 from typing import Any
 
 from printcheck.errors import SpecError
-from printcheck.tomlfile import shown_key
+from printcheck.tomlfile import read_toml_as, shown_key
 from printcheck.units import MM_PER_IN, convert_density
 from printcheck.wording import density_words, num
 
@@ -57,21 +57,7 @@ TARGET_KEYS = (
     "bearing_max",
     "max_bare",
 )
-_KNOWN_KEYS = (
-    "name",
-    "title",
-    "units",
-    "basis",
-    "min_density",
-    "min_cell_density",
-    "cell_share",
-    "bearing_min",
-    "bearing_max",
-    "max_bare",
-    "source",
-    "sources",
-    "notes",
-)
+_KNOWN_KEYS = ("name", "title", "units", "basis", *TARGET_KEYS, "source", "sources", "notes")
 
 
 @dataclass(frozen=True)
@@ -333,22 +319,10 @@ def _sources(
 
 
 def read_spec(path: str | Path) -> Spec:
-    """Read and validate a spec TOML file.
-
-    Raises
-    ------
-    SpecError
-        When the file is missing, unreadable, not TOML, or not a valid spec.
-    """
-    from printcheck.tomlfile import read_toml
-
-    data = read_toml(
-        path,
-        kind="spec",
-        error=SpecError,
-        missing_hint="; give a spec .toml file or a built-in name (printcheck specs)",
-    )
-    return parse_spec(data, source=str(path))
+    """Read and validate a spec TOML file (SpecError: missing, unreadable, not TOML, or
+    not a valid spec)."""
+    hint = "; give a spec .toml file or a built-in name (printcheck specs)"
+    return read_toml_as(path, parse_spec, kind="spec", error=SpecError, missing_hint=hint)
 
 
 def find_spec(name_or_path: str) -> Spec:
