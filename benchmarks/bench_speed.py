@@ -185,7 +185,7 @@ def _report(result: Any, out: Path) -> None:
     """What batch writes per photo: JSON, overlay PNG, and the HTML report's preview JPEG."""
     from printcheck.report.files import encode_image, output_name, write_bytes, write_json
     from printcheck.report.overlay import draw_overlay
-    from printcheck.result import result_to_dict
+    from printcheck.serde import result_to_dict
 
     data = result_to_dict(result)
     overlay = draw_overlay(result)

@@ -7,17 +7,20 @@ only whole passes, and re-running it records nothing twice.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ProcessPoolExecutor
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 from typing import Any
 
-from printcheck.errors import PrintcheckError, ReportError
-from printcheck.pipeline import InspectOptions, cores_available
+from printcheck.errors import OptionError, PrintcheckError, ReportError
+from printcheck.options import InspectOptions
+from printcheck.pipeline import cores_available
+from printcheck.records import PassSummary, Progress
+from printcheck.spec import Spec
 
-__all__ = ["BatchItem", "list_photos", "run_batch"]
+__all__ = ["BatchItem", "Measured", "Skipped", "list_photos", "run_batch"]
 
 EXIT_MEETS, EXIT_FAILS, EXIT_UNUSABLE = 0, 1, 2
 
@@ -32,6 +35,26 @@ _WORKER_MODULES = (
     "skimage.segmentation",
     "scipy.ndimage",
 )
+
+
+@dataclass(frozen=True)
+class Measured:
+    """A photo a worker measured: its summary and a JPEG preview of its overlay."""
+
+    path: Path
+    summary: PassSummary
+    preview: bytes
+
+
+@dataclass(frozen=True)
+class Skipped:
+    """A photo a worker could not measure, and the one-line reason."""
+
+    path: Path
+    error: str
+
+
+Outcome = Measured | Skipped
 
 
 @dataclass(frozen=True)
@@ -77,34 +100,29 @@ def list_photos(folder: Path) -> tuple[list[BatchItem], list[str]]:
     return items, notes
 
 
-def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -> dict[str, Any]:
+def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -> Outcome:
     """Inspect one photo and write its JSON and overlay (runs in a worker process)."""
-    if single_thread:
+    if single_thread:  # one worker per core: the cores are busy
         import cv2
 
         cv2.setNumThreads(1)
-        # one worker per core: the cores are busy, no side thread either
-        options = replace(options, side_thread=False)
     from printcheck.pipeline import inspect_photo
     from printcheck.report.files import encode_image, output_name, write_bytes, write_json
     from printcheck.report.overlay import draw_overlay
-    from printcheck.result import result_to_dict
+    from printcheck.serde import summarize, summary_to_dict
 
     try:
         result = inspect_photo(path, options=options)
-        data = result_to_dict(result)
+        summary = summarize(result)
         overlay = draw_overlay(result)
-        write_json(out, output_name(result.photo, ".json"), data)
+        write_json(out, output_name(result.photo, ".json"), summary_to_dict(summary))
         write_bytes(out, output_name(result.photo, ".overlay.png"), encode_image(overlay, ".png"))
         preview = encode_image(_shrink(overlay, 1400), ".jpg", jpeg_quality=85)
     except PrintcheckError as exc:
-        return {"error": str(exc), "path": str(path)}
+        return Skipped(path, str(exc))
     except Exception as exc:  # a bug or out of memory on one photo must not stop the batch
-        return {
-            "error": f"photo {path}: internal error: {type(exc).__name__}: {exc}",
-            "path": str(path),
-        }
-    return {"data": data, "preview": preview, "path": str(path)}
+        return Skipped(path, f"photo {path}: internal error: {type(exc).__name__}: {exc}")
+    return Measured(path, summary, preview)
 
 
 def _shrink(image: Any, longest: int) -> Any:
@@ -133,12 +151,19 @@ def run_batch(
 
     Writes ``<stem>.json`` and ``<stem>.overlay.png`` per photo, ``results.csv`` and
     ``report.html`` to ``out``, and records every pass in the history at ``db``.
+
+    Raises
+    ------
+    OptionError
+        ``jobs`` is less than 1.
+    ReportError
+        The folder holds no photos, or ``out`` cannot be created.
     """
-    import json
-
-    from printcheck.history import open_history
-    from printcheck.report.files import CSV_NAME, write_csv
-
+    if jobs is not None and jobs < 1:
+        raise OptionError(
+            f"jobs must be 1 or more, got {jobs}; leave it out to use every core",
+            parameter="jobs",
+        )
     items, notes = list_photos(folder)
     for note in notes:
         warn(note)
@@ -150,51 +175,99 @@ def run_batch(
         raise ReportError(f"output folder {out}: cannot be created ({exc.strerror})") from None
     surface = options.surface or folder.resolve().name
     workers = max(1, min(jobs or cores_available(), len(items)))
-    spec_name = None if options.spec is None else options.spec.name
+    if show_progress is None:
+        show_progress = _stderr_is_terminal()
+    done, progress = _measure_and_record(
+        items,
+        options,
+        out,
+        db,
+        surface=surface,
+        workers=workers,
+        json_lines=json_lines,
+        echo=echo,
+        warn=warn,
+        show_progress=show_progress,
+    )
+    if not done:
+        warn(f"batch {folder}: none of the {len(items)} photos could be measured")
+        return EXIT_UNUSABLE
+    _write_outputs(out, surface=surface, spec=options.spec, done=done, progress=progress)
+    if not json_lines:
+        from printcheck.progress import progress_text
+
+        echo(progress_text(progress))
+        failed = len(items) - len(done)
+        extra = f", {failed} skipped" if failed else ""
+        echo(f"{len(done)} photos measured{extra}; report: {out / 'report.html'}")
+    return EXIT_FAILS if done[-1].summary.meets is False else EXIT_MEETS
+
+
+def _measure_and_record(
+    items: list[BatchItem],
+    options: InspectOptions,
+    out: Path,
+    db: Path,
+    *,
+    surface: str,
+    workers: int,
+    json_lines: bool,
+    echo: Callable[[str], None],
+    warn: Callable[[str], None],
+    show_progress: bool,
+) -> tuple[list[Measured], Progress]:
+    """Measure every photo, record each pass as it comes; the measured photos in the
+    order taken, and the surface's progress over its whole history."""
+    import json
+    import threading
+
+    from printcheck.history import open_history
+    from printcheck.progress import build_progress, surface_spec
+    from printcheck.report.plots import warm_up
+    from printcheck.serde import summary_to_dict
 
     # matplotlib's import and first drawing (~1 s) are needed only for the report at the
     # end: a thread does them while the photos are measured (from the first result on,
     # so that it does not hold up the start)
-    import threading
-
-    from printcheck.report.plots import warm_up
-
     warming = threading.Thread(target=warm_up, name="printcheck-plots", daemon=True)
-
-    outcomes: dict[int, dict[str, Any]] = {}
-    if show_progress is None:
-        show_progress = _stderr_is_terminal()
+    outcomes: dict[int, Outcome] = {}
     with open_history(db) as history, _Runner(items, options, out, workers) as finished:
         with _Progress(len(items), enabled=show_progress) as bar:
             for index, outcome in finished:
                 outcomes[index] = outcome
                 if warming.ident is None and cores_available() > 1:
                     warming.start()
-                if "error" in outcome:
-                    warn(f"{outcome['error']}; skipped")
+                if isinstance(outcome, Skipped):
+                    warn(f"{outcome.error}; skipped")
                 else:
-                    history.record(
-                        outcome["data"], surface=surface, spec_name=spec_name, spec=options.spec
-                    )
+                    history.record(outcome.summary, surface=surface, spec=options.spec)
                     if json_lines:
-                        echo(json.dumps(outcome["data"], ensure_ascii=False))
+                        echo(json.dumps(summary_to_dict(outcome.summary), ensure_ascii=False))
                 bar.advance(items[index].path.name)
-        passes = history.passes(surface)
-
+        stored = history.passes(surface)
     if warming.ident is not None:
         warming.join()
-    done = [outcomes[i] for i in sorted(outcomes) if "data" in outcomes[i]]
-    if not done:
-        warn(f"batch {folder}: none of the {len(items)} photos could be measured")
-        return EXIT_UNUSABLE
-    results = [o["data"] for o in done]
-    write_csv(out, CSV_NAME, results)
-    progress = _progress(surface, passes, options)
-    _write_report(out, surface=surface, options=options, done=done, progress=progress)
-    if not json_lines:
-        _echo_summary(echo, folder, out, results, progress, failed=len(items) - len(done))
-    last = results[-1].get("spec")
-    return EXIT_FAILS if isinstance(last, dict) and last.get("meets") is False else EXIT_MEETS
+    done = [o for _, o in sorted(outcomes.items()) if isinstance(o, Measured)]
+    spec = options.spec if options.spec is not None else surface_spec(stored)
+    progress = build_progress(surface, [p.summary for p in stored], spec=spec)
+    return done, progress
+
+
+def _write_outputs(
+    out: Path, *, surface: str, spec: Spec | None, done: Sequence[Measured], progress: Progress
+) -> None:
+    """``results.csv`` and ``report.html`` of the measured photos."""
+    from printcheck.report.files import CSV_NAME, write_csv
+    from printcheck.report.html import write_report
+
+    write_csv(out, CSV_NAME, [m.summary for m in done])
+    write_report(
+        out / "report.html",
+        surface=surface,
+        spec=spec,
+        passes=[(m.summary, m.preview) for m in done],
+        progress=progress,
+    )
 
 
 class _Runner:
@@ -212,7 +285,7 @@ class _Runner:
         self._out = out
         self._workers = workers
         self._pool: ProcessPoolExecutor | None = None
-        self._futures: dict[Future[dict[str, Any]], int] = {}
+        self._futures: dict[Future[Outcome], int] = {}
 
     def __enter__(self) -> _Runner:
         if self._workers > 1:
@@ -233,7 +306,7 @@ class _Runner:
             }
         return self
 
-    def __iter__(self) -> Iterator[tuple[int, dict[str, Any]]]:
+    def __iter__(self) -> Iterator[tuple[int, Outcome]]:
         if self._pool is None:
             for index, item in enumerate(self._items):
                 yield index, _work(item.path, self._options, self._out, False)
@@ -246,49 +319,6 @@ class _Runner:
     def __exit__(self, *exc: object) -> None:
         if self._pool is not None:
             self._pool.shutdown(wait=True, cancel_futures=True)
-
-
-def _progress(
-    surface: str, passes: list[dict[str, Any]], options: InspectOptions
-) -> dict[str, Any]:
-    from printcheck.progress import build_progress
-
-    return build_progress(passes, surface=surface, spec=options.spec)
-
-
-def _write_report(
-    out: Path,
-    *,
-    surface: str,
-    options: InspectOptions,
-    done: list[dict[str, Any]],
-    progress: dict[str, Any],
-) -> Path:
-    from printcheck.report.html import write_report
-
-    return write_report(
-        out / "report.html",
-        surface=surface,
-        spec=options.spec,
-        passes=[(o["data"], o["preview"]) for o in done],
-        progress=progress,
-    )
-
-
-def _echo_summary(
-    echo: Callable[[str], None],
-    folder: Path,
-    out: Path,
-    results: list[dict[str, Any]],
-    progress: dict[str, Any],
-    *,
-    failed: int,
-) -> None:
-    from printcheck.progress import progress_text
-
-    echo(progress_text(progress))
-    extra = f", {failed} skipped" if failed else ""
-    echo(f"{len(results)} photos measured{extra}; report: {out / 'report.html'}")
 
 
 def _stderr_is_terminal() -> bool:

@@ -11,13 +11,11 @@ Exit status: 0 the surface meets its spec (or no spec was asked for), 1 it does 
 from __future__ import annotations
 
 import json
-import math
 import os
 import sys
-from collections.abc import Sequence
-from dataclasses import dataclass
+from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated, Any, Literal
+from typing import TYPE_CHECKING, Annotated, Any, Literal, TypeVar
 
 import typer
 
@@ -25,8 +23,7 @@ from printcheck.errors import OptionError, PrintcheckError
 
 if TYPE_CHECKING:
     from printcheck.jobconfig import JobSettings
-    from printcheck.pipeline import InspectOptions
-    from printcheck.result import Result
+    from printcheck.options import InspectOptions
 
 __all__ = ["app", "main"]
 
@@ -40,83 +37,29 @@ app = typer.Typer(
 )
 
 EXIT_MEETS, EXIT_FAILS, EXIT_UNUSABLE = 0, 1, 2
-MIN_PX_PER_MM, MAX_PX_PER_MM = 1.0, 500.0  # a coarse scan to a microscope stage
-MIN_CELL_MM = 5.0  # a cell must hold a few spots of a millimetre or two
-MAX_MIN_SPOT_MM2 = 100.0
+
+# The library's parameter names and the flags that set them (see _in_flags).
+FLAGS = {
+    "px_per_mm": "--px-per-mm",
+    "unit": "--unit",
+    "cell": "--cell",
+    "compound": "--compound",
+    "compound_on": "--compound-on",
+    "target": "--target",
+    "surface": "--surface",
+    "min_spot_mm2": "--min-spot",
+    "jobs": "--jobs",
+}
 
 # ---------------------------------------------------------------- shared options
 
-LayoutOpt = Annotated[
-    Path | None,
-    typer.Option(
-        "--layout", help="Layout TOML: where the markers sit (default: the built-in 2 in card)."
-    ),
-]
-ScaleOpt = Annotated[
-    float | None,
-    typer.Option(
-        "--px-per-mm", help="Explicit scale for square-on photos (a rig or a scan); no markers."
-    ),
-]
-UnitOpt = Annotated[
-    Literal["in", "mm"] | None,
-    typer.Option(
-        "--unit", help="Units of results: in (points per square inch) or mm (per 25 mm square)."
-    ),
-]
-CellOpt = Annotated[
-    float | None,
-    typer.Option("--cell", help="Side of the counting cell in --unit (default 1 in, or 25 mm)."),
-]
-CompoundOpt = Annotated[
-    Literal["blue", "red", "auto"] | None,
-    typer.Option("--compound", help="Colour of the marking compound (default auto: found from the photo)."),
-]
-CompoundOnOpt = Annotated[
-    Literal["reference", "work"] | None,
-    typer.Option(
-        "--compound-on",
-        help="reference: the spots carry compound (default); work: the work was coated "
-        "and the spots are where the reference rubbed it through.",
-    ),
-]
-SpecOpt = Annotated[
-    str | None,
-    typer.Option(
-        "--spec", help="A built-in spec name (see 'printcheck specs') or a spec TOML file."
-    ),
-]
-TargetOpt = Annotated[
-    float | None,
-    typer.Option(
-        "--target", help="Quick density target in points per --unit cell, instead of --spec."
-    ),
-]
-SurfaceOpt = Annotated[
-    str | None, typer.Option("--surface", help="Name of the surface, e.g. bed-front-way.")
-]
-OutOpt = Annotated[
-    Path | None, typer.Option("--out", help="Folder for result JSON, overlays and reports.")
-]
+
+def _option(kind: Any, flag: str, text: str) -> Any:
+    """A command-line option of type ``kind``: its flag and its help text."""
+    return Annotated[kind, typer.Option(flag, help=text)]
+
+
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print only the result JSON on stdout.")]
-MinSpotOpt = Annotated[
-    float | None,
-    typer.Option(
-        "--min-spot", help="Smallest spot in mm²; smaller specks are not spots (default 0.1)."
-    ),
-]
-ConfigOpt = Annotated[
-    Path | None,
-    typer.Option(
-        "--config", help="Job settings file (default: printcheck.toml beside the photos)."
-    ),
-]
-PartialOpt = Annotated[
-    bool,
-    typer.Option(
-        "--partial", help="Measure what is visible when the window runs out of the photo."
-    ),
-]
 DbOpt = Annotated[
     Path | None,
     typer.Option(
@@ -127,30 +70,134 @@ JobsOpt = Annotated[
     int | None, typer.Option("--jobs", help="Photos processed at once (default: all cores).")
 ]
 
+# The options inspect and batch share, defined once, in the order --help lists them:
+# (parameter, type with its option, default).
+INSPECT_OPTIONS: tuple[tuple[str, Any, Any], ...] = (
+    (
+        "layout",
+        _option(
+            Path | None,
+            "--layout",
+            "Layout TOML: where the markers sit (default: the built-in 2 in card).",
+        ),
+        None,
+    ),
+    (
+        "px_per_mm",
+        _option(
+            float | None,
+            "--px-per-mm",
+            "Explicit scale for square-on photos (a rig or a scan); no markers.",
+        ),
+        None,
+    ),
+    (
+        "unit",
+        _option(
+            Literal["in", "mm"] | None,
+            "--unit",
+            "Units of results: in (points per square inch) or mm (per 25 mm square).",
+        ),
+        None,
+    ),
+    (
+        "cell",
+        _option(
+            float | None, "--cell", "Side of the counting cell in --unit (default 1 in, or 25 mm)."
+        ),
+        None,
+    ),
+    (
+        "compound",
+        _option(
+            Literal["blue", "red", "auto"] | None,
+            "--compound",
+            "Colour of the marking compound (default auto: read from the photo).",
+        ),
+        None,
+    ),
+    (
+        "compound_on",
+        _option(
+            Literal["reference", "work"] | None,
+            "--compound-on",
+            "reference: the spots carry compound (default); work: the work was coated "
+            "and the spots are where the reference rubbed it through.",
+        ),
+        None,
+    ),
+    (
+        "spec",
+        _option(
+            str | None,
+            "--spec",
+            "A built-in spec name (see 'printcheck specs') or a spec TOML file.",
+        ),
+        None,
+    ),
+    (
+        "target",
+        _option(
+            float | None,
+            "--target",
+            "Quick density target in points per --unit cell, instead of --spec.",
+        ),
+        None,
+    ),
+    ("surface", _option(str | None, "--surface", "Name of the surface, e.g. bed-front-way."), None),
+    ("out", _option(Path | None, "--out", "Folder for result JSON, overlays and reports."), None),
+    ("json_out", JsonOpt, False),
+    (
+        "min_spot",
+        _option(
+            float | None,
+            "--min-spot",
+            "Smallest spot in mm²; smaller specks are not spots (default 0.1).",
+        ),
+        None,
+    ),
+    (
+        "config",
+        _option(
+            Path | None,
+            "--config",
+            "Job settings file (default: printcheck.toml beside the photos).",
+        ),
+        None,
+    ),
+    (
+        "partial",
+        _option(
+            bool, "--partial", "Measure what is visible when the window runs out of the photo."
+        ),
+        False,
+    ),
+)
 
-@dataclass(frozen=True)
-class _Common:
-    """The inspect options as typed, before the job file fills the gaps."""
-
-    layout: Path | None
-    px_per_mm: float | None
-    unit: str | None
-    cell: float | None
-    compound: str | None
-    compound_on: str | None
-    spec: str | None
-    target: float | None
-    surface: str | None
-    min_spot: float | None
-    partial: bool
+Command = TypeVar("Command", bound=Callable[..., None])
 
 
-def _pick(cli_value: Any, job_value: Any, default: Any) -> Any:
-    if cli_value is not None:
-        return cli_value
-    if job_value is not None:
-        return job_value
-    return default
+def _with_inspect_options(command: Command) -> Command:
+    """Give ``command`` the :data:`INSPECT_OPTIONS` after its arguments.
+
+    Typer reads a command's options from its signature; the command takes the shared
+    ones as keyword arguments (``**given``) and finds them in ``ctx.params``.
+    """
+    import inspect as python_inspect
+
+    keyword = python_inspect.Parameter.KEYWORD_ONLY
+    sig = python_inspect.signature(command, eval_str=True)
+    own = [p for p in sig.parameters.values() if p.kind is not p.VAR_KEYWORD]
+    arguments = [p for p in own if p.default is p.empty]
+    extra = [p.replace(kind=keyword) for p in own if p.default is not p.empty]
+    shared = [
+        python_inspect.Parameter(name, keyword, default=default, annotation=kind)
+        for name, kind, default in INSPECT_OPTIONS
+    ]
+    command.__signature__ = sig.replace(  # type: ignore[attr-defined]
+        parameters=[*arguments, *shared, *extra]
+    )
+    return command
 
 
 def _job_settings(config: Path | None, folder: Path | None) -> JobSettings:
@@ -162,216 +209,124 @@ def _job_settings(config: Path | None, folder: Path | None) -> JobSettings:
     return read_job_settings(found) if found is not None else JobSettings()
 
 
-def _build_options(common: _Common, job: JobSettings) -> InspectOptions:
-    from printcheck.layout import read_layout
-    from printcheck.pipeline import InspectOptions
-    from printcheck.units import MM_PER_IN, to_mm
+def _inspect_options(params: Mapping[str, Any], folder: Path | None) -> InspectOptions:
+    """The inspect options of a command: its options over the job file over the defaults.
 
-    unit = _pick(common.unit, job.unit, "in")
-    px_per_mm = _pick(common.px_per_mm, job.px_per_mm, None)
-    if px_per_mm is not None and not px_per_mm > 0:
-        raise OptionError(f"--px-per-mm must be greater than zero, got {px_per_mm:g}")
-    if px_per_mm is not None and not MIN_PX_PER_MM <= px_per_mm <= MAX_PX_PER_MM:
-        raise OptionError(
-            f"--px-per-mm must be between {MIN_PX_PER_MM:g} and {MAX_PX_PER_MM:g} "
-            f"(pixels per mm of a square-on photo or scan), got {px_per_mm:g}"
-        )
-    cell = _pick(common.cell, job.cell, None)
-    if cell is not None and not cell > 0:
-        raise OptionError(f"--cell must be greater than zero, got {cell:g}")
-    if cell is not None:
-        cell_mm = to_mm(cell, unit) if math.isfinite(cell) else math.inf
-        if not MIN_CELL_MM <= cell_mm < math.inf:
-            raise OptionError(
-                f"--cell must be at least {MIN_CELL_MM:g} mm ({MIN_CELL_MM / MM_PER_IN:g} in) "
-                f"and finite, got {cell:g} {unit}; the customary cell is 1 in or 25 mm"
-            )
-    min_spot = _pick(common.min_spot, job.min_spot, 0.1)
-    if not 0 <= min_spot <= MAX_MIN_SPOT_MM2:
-        raise OptionError(
-            f"--min-spot must be between 0 and {MAX_MIN_SPOT_MM2:g} mm², got {min_spot:g}"
-        )
-    surface = _pick(common.surface, job.surface, None)
-    if surface is not None and (not surface.strip() or "\n" in surface):
-        raise OptionError(f"--surface must be a name on one line, got {surface!r}")
-    layout = None
-    layout_path = common.layout if common.layout is not None else job.layout
-    if layout_path is not None and px_per_mm is None:
-        layout = read_layout(layout_path)
-    spec = None
-    target = _pick(common.target, job.target, None)
-    spec_name = (
-        common.spec
-        if common.spec is not None
-        else (None if common.target is not None else job.spec)
+    ``params`` are the command's parsed parameters (``ctx.params``); the job file is
+    ``--config``, else ``printcheck.toml`` in ``folder``.
+    """
+    from printcheck.jobconfig import JobSettings, resolve_settings
+    from printcheck.options import options_from_settings
+
+    layout = params["layout"]
+    given = JobSettings(
+        surface=params["surface"],
+        layout=None if layout is None else str(layout),
+        px_per_mm=params["px_per_mm"],
+        spec=params["spec"],
+        target=params["target"],
+        unit=params["unit"],
+        cell=params["cell"],
+        compound=params["compound"],
+        compound_on=params["compound_on"],
+        min_spot=params["min_spot"],
     )
-    if target is not None and spec_name is None:
-        from printcheck.spec import target_spec
+    settings = resolve_settings(given, _job_settings(params["config"], folder))
+    return options_from_settings(settings, allow_partial=params["partial"])
 
-        if not target > 0:
-            raise OptionError(f"--target must be greater than zero, got {target:g}")
-        spec = target_spec(target, basis_mm=MM_PER_IN if unit == "in" else 25.0)
-    elif spec_name is not None:
-        from printcheck.spec import find_spec
 
-        spec = find_spec(spec_name)
-    options = InspectOptions(
-        layout=layout,
-        px_per_mm=px_per_mm,
-        unit=unit,
-        cell=cell,
-        compound=_pick(common.compound, job.compound, "auto"),
-        compound_on=_pick(common.compound_on, job.compound_on, "reference"),
-        spec=spec,
-        surface=None if surface is None else surface.strip(),
-        min_spot_mm2=min_spot,
-        allow_partial=common.partial,
-    )
-    if cell is not None and px_per_mm is None:
-        w = options.layout_in_use.window
-        cell_mm = to_mm(cell, unit)
-        if cell_mm > max(w.width_mm, w.height_mm) + 1e-9:
-            k = MM_PER_IN if unit == "in" else 1.0
-            raise OptionError(
-                f"--cell {cell:g} {unit} is larger than the window "
-                f"({w.width_mm / k:g} x {w.height_mm / k:g} {unit}); choose a smaller cell"
-            )
-    return options
+def _in_flags(exc: PrintcheckError) -> str:
+    """The error's message, a leading library parameter name said as its flag."""
+    text = str(exc)
+    parameter = getattr(exc, "parameter", None)
+    flag = FLAGS.get(parameter or "")
+    if parameter and flag and text.startswith(parameter):
+        return flag + text[len(parameter) :]
+    return text
 
 
 def _fail(message: str) -> None:
     typer.echo(f"printcheck: {message}", err=True)
 
 
-def _exit_for(results: Sequence[Result], failures: int) -> int:
-    if not results:
+def _exit_for(verdicts: Sequence[bool | None], failures: int) -> int:
+    if not verdicts or failures:
         return EXIT_UNUSABLE
-    if failures:
-        return EXIT_UNUSABLE
-    return EXIT_FAILS if any(r.meets is False for r in results) else EXIT_MEETS
+    return EXIT_FAILS if any(meets is False for meets in verdicts) else EXIT_MEETS
 
 
 # ---------------------------------------------------------------- inspect
 
 
 @app.command()
+@_with_inspect_options
 def inspect(
+    ctx: typer.Context,
     photos: Annotated[list[Path], typer.Argument(help="Photos of prints.", show_default=False)],
-    layout: LayoutOpt = None,
-    px_per_mm: ScaleOpt = None,
-    unit: UnitOpt = None,
-    cell: CellOpt = None,
-    compound: CompoundOpt = None,
-    compound_on: CompoundOnOpt = None,
-    spec: SpecOpt = None,
-    target: TargetOpt = None,
-    surface: SurfaceOpt = None,
-    out: OutOpt = None,
-    json_out: JsonOpt = False,
-    min_spot: MinSpotOpt = None,
-    config: ConfigOpt = None,
-    partial: PartialOpt = False,
+    **given: Any,
 ) -> None:
     """Measure the print in each photo and judge it against a spec."""
     from printcheck.pipeline import inspect_photo
-    from printcheck.result import result_to_dict
+    from printcheck.serde import summarize, summary_to_dict
 
-    common = _Common(
-        layout,
-        px_per_mm,
-        unit,
-        cell,
-        compound,
-        compound_on,
-        spec,
-        target,
-        surface,
-        min_spot,
-        partial,
-    )
-    job = _job_settings(config, photos[0].parent if photos else None)
-    options = _build_options(common, job)
-    results: list[Result] = []
+    options = _inspect_options(ctx.params, photos[0].parent if photos else None)
+    out: Path | None = ctx.params["out"]
+    json_out: bool = ctx.params["json_out"]
+    verdicts: list[bool | None] = []
     failures = 0
     for path in photos:
         try:
             result = inspect_photo(path, options=options)
         except PrintcheckError as exc:
             failures += 1
-            _fail(str(exc))
+            _fail(_in_flags(exc))
             continue
-        results.append(result)
-        data = result_to_dict(result)
+        summary = summarize(result)
+        verdicts.append(summary.meets)
         if out is not None:
             from printcheck.report.files import write_photo_outputs
 
-            write_photo_outputs(result, data, out)
+            write_photo_outputs(result, out)
         if json_out:
+            data = summary_to_dict(summary)
             typer.echo(json.dumps(data, ensure_ascii=False, indent=None if len(photos) > 1 else 2))
         else:
             from printcheck.summary import summary_text
 
-            typer.echo(summary_text(data))
-    raise typer.Exit(_exit_for(results, failures))
+            typer.echo(summary_text(summary))
+    raise typer.Exit(_exit_for(verdicts, failures))
 
 
 # ---------------------------------------------------------------- batch
 
 
 @app.command()
+@_with_inspect_options
 def batch(
+    ctx: typer.Context,
     folder: Annotated[
         Path, typer.Argument(help="Folder of photos of one surface's passes.", show_default=False)
     ],
-    layout: LayoutOpt = None,
-    px_per_mm: ScaleOpt = None,
-    unit: UnitOpt = None,
-    cell: CellOpt = None,
-    compound: CompoundOpt = None,
-    compound_on: CompoundOnOpt = None,
-    spec: SpecOpt = None,
-    target: TargetOpt = None,
-    surface: SurfaceOpt = None,
-    out: OutOpt = None,
-    json_out: JsonOpt = False,
-    min_spot: MinSpotOpt = None,
-    config: ConfigOpt = None,
-    partial: PartialOpt = False,
     db: DbOpt = None,
     jobs: JobsOpt = None,
+    **given: Any,
 ) -> None:
     """Process every photo in FOLDER in the order taken: results, history and one report."""
     from printcheck.batch import run_batch
 
     if not folder.is_dir():
         raise OptionError(f"batch {folder}: not a folder; give the folder that holds the photos")
-    common = _Common(
-        layout,
-        px_per_mm,
-        unit,
-        cell,
-        compound,
-        compound_on,
-        spec,
-        target,
-        surface,
-        min_spot,
-        partial,
-    )
-    job = _job_settings(config, folder)
-    options = _build_options(common, job)
+    options = _inspect_options(ctx.params, folder)
     if options.surface is None:
         options = _with_surface(options, folder)
-    if jobs is not None and jobs < 1:
-        raise OptionError(f"--jobs must be 1 or more, got {jobs}")
-    out_dir = out if out is not None else folder / "printcheck-out"
+    out: Path | None = ctx.params["out"]
     outcome = run_batch(
         folder,
         options=options,
-        out=out_dir,
+        out=out if out is not None else folder / "printcheck-out",
         db=_db_path(db),
         jobs=jobs,
-        json_lines=json_out,
+        json_lines=ctx.params["json_out"],
         echo=typer.echo,
         warn=_fail,
     )
@@ -402,25 +357,25 @@ def progress(
 ) -> None:
     """Show a surface's passes so far, the trend, and how many passes it may still need."""
     from printcheck.history import open_history
-    from printcheck.progress import build_progress, progress_text
+    from printcheck.progress import build_progress, progress_text, surface_spec
+    from printcheck.serde import progress_to_dict
 
     path = _db_path(db)
     if not path.exists():
         raise OptionError(f"history {path}: no history yet; run 'printcheck batch' first")
     with open_history(path, readonly=True) as history:
-        passes = history.passes(surface)
-        if not passes:
+        stored = history.passes(surface)
+        if not stored:
             known = ", ".join(history.surfaces()) or "none"
             raise OptionError(
                 f"progress: no passes recorded for surface {surface!r} (recorded: {known})"
             )
-    data = build_progress(passes, surface=surface)
+    report = build_progress(surface, [p.summary for p in stored], spec=surface_spec(stored))
     if json_out:
-        typer.echo(json.dumps(data, ensure_ascii=False, indent=2))
+        typer.echo(json.dumps(progress_to_dict(report), ensure_ascii=False, indent=2))
     else:
-        typer.echo(progress_text(data))
-    last = data["passes"][-1]["meets"]
-    raise typer.Exit(EXIT_FAILS if last is False else EXIT_MEETS)
+        typer.echo(progress_text(report))
+    raise typer.Exit(EXIT_FAILS if report.passes[-1].meets is False else EXIT_MEETS)
 
 
 # ---------------------------------------------------------------- card, specs, demo
@@ -456,7 +411,7 @@ def card(
 @app.command()
 def specs() -> None:
     """List the built-in specs and where each one's numbers come from."""
-    from printcheck.spec import describe_specs
+    from printcheck.builtin_specs import describe_specs
 
     typer.echo(describe_specs())
 
@@ -503,7 +458,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         _fail(exc.format_message())
         return _exit(EXIT_UNUSABLE, argv)
     except PrintcheckError as exc:
-        _fail(str(exc))
+        _fail(_in_flags(exc))
         return _exit(EXIT_UNUSABLE, argv)
     except KeyboardInterrupt:
         _fail("interrupted; the history holds only whole passes")

@@ -61,21 +61,12 @@ def run_demo(
     """
     from printcheck.batch import run_batch
     from printcheck.jobconfig import read_job_settings
-    from printcheck.layout import read_layout
-    from printcheck.pipeline import InspectOptions
-    from printcheck.spec import find_spec
+    from printcheck.options import options_from_settings
 
     photos = folder / "photos"
     echo(f"rendering {passes} passes of a simulated scraping job into {photos} ...")
     truth = write_demo_job(photos, passes=passes, seed=seed)
-    settings = read_job_settings(photos / "printcheck.toml")
-    assert settings.layout is not None and settings.spec is not None
-    options = InspectOptions(
-        layout=read_layout(settings.layout),
-        spec=find_spec(settings.spec),
-        surface=settings.surface,
-        unit="in",
-    )
+    options = options_from_settings(read_job_settings(photos / "printcheck.toml"))
     status = run_batch(
         photos,
         options=options,

@@ -44,7 +44,15 @@ class NoCompoundError(PrintcheckError, ValueError):
 
 
 class OptionError(PrintcheckError, ValueError):
-    """A command-line option or job setting has an unusable value."""
+    """An option (of the library, a job setting or the command line) has an unusable value.
+
+    ``parameter`` names the option in the library's words (``"px_per_mm"``) when the
+    message starts with it, so that the command line can say its own flag instead.
+    """
+
+    def __init__(self, message: str, *, parameter: str | None = None) -> None:
+        super().__init__(message)
+        self.parameter = parameter
 
 
 class HistoryError(PrintcheckError, OSError):

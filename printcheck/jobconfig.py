@@ -10,19 +10,22 @@ A job file sets, once for a job, what would otherwise be typed on every command:
 
 Precedence, highest first: the command-line option; the job file (``--config FILE``,
 else ``printcheck.toml`` in the photos' folder); printcheck's default.
+:func:`resolve_settings` applies the first two (the command line's values are job
+settings too); :func:`printcheck.options.options_from_settings` fills in the defaults.
+The format is in docs/formats.md ("Job settings").
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from pathlib import Path
 from typing import Any
 
 from printcheck.errors import OptionError
 from printcheck.tomlfile import read_toml, shown_key
 
-__all__ = ["JOB_FILE", "JobSettings", "read_job_settings", "find_job_file"]
+__all__ = ["JOB_FILE", "JobSettings", "read_job_settings", "find_job_file", "resolve_settings"]
 
 JOB_FILE = "printcheck.toml"
 
@@ -127,3 +130,22 @@ def read_job_settings(path: str | Path) -> JobSettings:
         values["spec"] = str((base / values["spec"]).resolve())
     names = {f.name for f in fields(JobSettings)}
     return JobSettings(**{k: v for k, v in values.items() if k in names}, source=str(path))
+
+
+def resolve_settings(given: JobSettings, job: JobSettings) -> JobSettings:
+    """Each setting from ``given`` (the command line) when set there, else from ``job``.
+
+    Two settings decide others: an explicit scale (``px_per_mm``) leaves no layout to
+    read, and a spec or a quick target given on the command line replaces whichever of the
+    two the job file sets (when both end up set, the spec wins and the target is dropped).
+    Pure: nothing is read; what neither sets stays None (the default applies later).
+    """
+    values = {f.name: (getattr(given, f.name), getattr(job, f.name)) for f in fields(JobSettings)}
+    merged = JobSettings(**{k: job_v if cli is None else cli for k, (cli, job_v) in values.items()})
+    if given.spec is None and given.target is not None:
+        merged = replace(merged, spec=None)
+    if merged.spec is not None:
+        merged = replace(merged, target=None)
+    if merged.px_per_mm is not None:
+        merged = replace(merged, layout=None)
+    return merged

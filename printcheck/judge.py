@@ -28,10 +28,14 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-from printcheck.measure import Measurement
-from printcheck.spec import Spec, _num, convert_density, density_words
 from printcheck.units import from_mm
+from printcheck.wording import bearing_words, density_words, num
+
+if TYPE_CHECKING:
+    from printcheck.measure import Measurement
+    from printcheck.spec import Spec
 
 __all__ = ["Check", "Verdict", "judge", "describe_cells"]
 
@@ -75,7 +79,7 @@ def _at_most(value: float, target: float) -> bool:
 def _pair(value: float, target: float, ok: bool, digits: int = 1) -> tuple[str, str]:
     """Format value and target so that a failing value never reads equal to its target."""
     for d in range(digits, digits + 4):
-        v, t = _num(value, d), _num(target, d)
+        v, t = num(value, d), num(target, d)
         if v != t or ok:
             return v, t
     return v, t
@@ -85,7 +89,8 @@ def _runs(cols: list[int]) -> str:
     """Sorted 1-based columns as ``"3-4, 7"``."""
     parts: list[str] = []
     start = prev = cols[0]
-    for c in cols[1:] + [None]:  # type: ignore[list-item]
+    ends: list[int | None] = [*cols[1:], None]
+    for c in ends:
         if c is not None and c == prev + 1:
             prev = c
             continue
@@ -124,18 +129,19 @@ def _as_stated(figure: float, spec: Spec, m: Measurement) -> str:
     if math.isclose(spec.basis_mm, m.cell_mm, rel_tol=1e-9):
         return ""
     words = density_words(spec.basis_mm, spec.units).removeprefix("points ")
-    return f" ({_num(figure, 3)} {words})"
+    return f" ({num(figure, 3)} {words})"
 
 
 def _density_check(m: Measurement, spec: Spec, unit: str) -> Check:
     assert spec.min_density is not None
-    target = convert_density(spec.min_density, from_cell_mm=spec.basis_mm, to_cell_mm=m.cell_mm)
+    target = spec.density_target(m.cell_mm)
+    assert target is not None
     per = density_words(m.cell_mm, unit)
     value = float(m.density)
     if not math.isfinite(value) or not m.area_mm2 > 0:
         return Check(
             "density",
-            f">= {_num(target, 1)}",
+            f">= {num(target, 1)}",
             None,
             False,
             "no analysed area in the window, so no density; check the window and exclusions",
@@ -147,19 +153,18 @@ def _density_check(m: Measurement, spec: Spec, unit: str) -> Check:
         reason = f"{v} {per} over the window; at least {t} needed{stated}"
     else:
         reason = f"{v} {per} over the window, below the {t} needed{stated}"
-    return Check("density", f">= {_num(target, 1)}", value, ok, reason)
+    return Check("density", f">= {num(target, 1)}", value, ok, reason)
 
 
 def _cell_check(m: Measurement, spec: Spec, unit: str) -> Check:
     assert spec.min_cell_density is not None
-    target = convert_density(
-        spec.min_cell_density, from_cell_mm=spec.basis_mm, to_cell_mm=m.cell_mm
-    )
+    target = spec.density_target(m.cell_mm, per_cell=True)
+    assert target is not None
     stated = _as_stated(spec.min_cell_density, spec, m)
     per = density_words(m.cell_mm, unit)
     share = spec.cell_share
-    t = _num(target, 1)
-    target_text = f">= {t}" if share >= 1.0 else f">= {t} in {_num(100 * share, 1)}% of cells"
+    t = num(target, 1)
+    target_text = f">= {t}" if share >= 1.0 else f">= {t} in {num(100 * share, 1)}% of cells"
     complete = [c for c in m.cells if c.complete and c.area_mm2 > 0]
     partial = len(m.cells) - len(complete)
 
@@ -195,10 +200,10 @@ def _cell_check(m: Measurement, spec: Spec, unit: str) -> Check:
         where = describe_cells(failing)
         reason = f"{len(failing)} of {n} {cells_word} below {t} {per}{stated}: {where}"
         if share < 1.0:
-            reason += f"; {n_ok} reach it, {need} must ({_num(100 * share, 1)}%)"
+            reason += f"; {n_ok} reach it, {need} must ({num(100 * share, 1)}%)"
     else:
         lowest = densities[-1]
-        reason = f"all {n} {cells_word} reach {t} {per}{stated} (lowest {_num(lowest, 1)})"
+        reason = f"all {n} {cells_word} reach {t} {per}{stated} (lowest {num(lowest, 1)})"
     if partial:
         reason += f"; {partial} part {'cell' if partial == 1 else 'cells'} at the edge not judged"
     return Check("cell_density", target_text, value, ok, reason)
@@ -206,46 +211,32 @@ def _cell_check(m: Measurement, spec: Spec, unit: str) -> Check:
 
 def _bearing_check(m: Measurement, spec: Spec) -> Check:
     lo, hi = spec.bearing_min, spec.bearing_max
-    # (the target as a short text, how a value that meets it is described)
-    if lo is not None and hi is not None:
-        target_text, within = (
-            f"{_num(lo, 1)}-{_num(hi, 1)}%",
-            f"is within {_num(lo, 1)}-{_num(hi, 1)}%",
-        )
-    elif lo is not None:
-        target_text, within = f">= {_num(lo, 1)}%", f"is at least {_num(lo, 1)}%"
-    else:
-        target_text, within = f"<= {_num(hi, 1)}%", f"is at most {_num(hi, 1)}%"  # type: ignore[arg-type]
+    words = bearing_words(lo, hi)
+    target_text = words.target
     value = float(m.bearing_percent)
     if not math.isfinite(value):
         return Check("bearing", target_text, None, False, "no analysed area, so no bearing")
     if lo is not None and not _at_least(value, lo):
         v, t = _pair(value, lo, False)
-        return Check(
-            "bearing",
-            target_text,
-            value,
-            False,
-            f"bearing {v}% is below {t}%: too little contact",
-        )
-    if hi is not None and not _at_most(value, hi):
+        fault = f"bearing {v}% is below {t}%: too little contact"
+    elif hi is not None and not _at_most(value, hi):
         v, t = _pair(value, hi, False)
-        return Check(
-            "bearing",
-            target_text,
-            value,
-            False,
+        fault = (
             f"bearing {v}% is above {t}%: too much contact leaves no oil pockets "
-            "and the parts wring; break up the large spots",
+            "and the parts wring; break up the large spots"
         )
-    return Check("bearing", target_text, value, True, f"bearing {_num(value, 1)}% {within}")
+    else:
+        fault = ""
+    if fault:
+        return Check("bearing", target_text, value, False, fault)
+    return Check("bearing", target_text, value, True, f"bearing {num(value, 1)}% {words.within}")
 
 
 def _bare_check(m: Measurement, spec: Spec, unit: str) -> Check:
     assert spec.max_bare_mm is not None
     limit = from_mm(spec.max_bare_mm, unit)
     digits = 3 if unit == "in" else 1
-    target_text = f"<= {_num(limit, digits)}"
+    target_text = f"<= {num(limit, digits)}"
     bare = m.largest_bare
     d_mm = float(bare.diameter_mm)
     if not math.isfinite(d_mm):
@@ -254,8 +245,8 @@ def _bare_check(m: Measurement, spec: Spec, unit: str) -> Check:
     ok = _at_most(value, limit)
     v, t = _pair(value, limit, ok, digits)
     where = (
-        f"centre x {_num(from_mm(bare.x_mm, unit), digits)}, "
-        f"y {_num(from_mm(bare.y_mm, unit), digits)} {unit}"
+        f"centre x {num(from_mm(bare.x_mm, unit), digits)}, "
+        f"y {num(from_mm(bare.y_mm, unit), digits)} {unit}"
     )
     if ok:
         reason = f"largest bare patch {v} {unit} across ({where}); at most {t} {unit} allowed"

@@ -1,8 +1,8 @@
 """Layouts: where the fiducial markers sit relative to the analysed window.
 
-A layout is read from the TOML contract in DESIGN.md.  Whatever the file's ``units``,
-the :class:`Layout` holds every coordinate in millimetres in the layout frame
-(x right, y down).
+A layout is read from the TOML format of docs/formats.md ("Layout").  Whatever the
+file's ``units``, the :class:`Layout` holds every coordinate in millimetres in the layout
+frame (x right, y down).
 
 Keys beyond the contract (all optional, added by printcheck):
 
@@ -21,7 +21,7 @@ from pathlib import Path
 from typing import Any
 
 from printcheck.errors import LayoutError
-from printcheck.tomlfile import shown_key
+from printcheck.tomlfile import read_toml_as, shown_key
 from printcheck.units import MM_PER_IN
 
 __all__ = [
@@ -205,7 +205,7 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
     Parameters
     ----------
     data : dict
-        The parsed TOML document.
+        The parsed TOML document (the format is in docs/formats.md, "Layout").
     source : str
         Name used in error messages (usually the file path).
 
@@ -221,13 +221,37 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
     unknown = sorted(set(data) - known)
     if unknown:
         raise _fail(source, shown_key(unknown[0]), f"unknown key; expected one of {sorted(known)}")
+    name = _name(data, source)
+    dictionary = _dictionary(data, source)
+    units = data.get("units", "mm")
+    if units not in ("mm", "in"):
+        raise _fail(source, "units", f'must be "mm" or "in", got {units!r}')
+    scale = MM_PER_IN if units == "in" else 1.0
+    window, margin = _window(data.get("window"), source, scale)
+    markers = _markers(data.get("marker"), source, dictionary, scale)
+    exclusions = _exclusions(data.get("exclude", []), source, window, scale)
+    return Layout(
+        name=name,
+        dictionary=dictionary,
+        units=units,
+        window=window,
+        markers=markers,
+        exclusions=exclusions,
+        margin_mm=margin,
+        source=source,
+    )
 
+
+def _name(data: dict[str, Any], source: str) -> str:
     name = data.get("name", Path(source).stem if source != "<memory>" else "layout")
     if not isinstance(name, str) or not name.strip():
         raise _fail(source, "name", f"must be a non-empty string, got {name!r}")
     if any(ord(ch) < 32 or ord(ch) == 127 for ch in name):
         raise _fail(source, "name", f"must be one line without control characters, got {name!r}")
+    return name.strip()
 
+
+def _dictionary(data: dict[str, Any], source: str) -> str:
     if "dictionary" not in data:
         raise _fail(
             source, "dictionary", "missing; name an OpenCV ArUco dictionary such as DICT_4X4_50"
@@ -240,13 +264,11 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
             f"unknown ArUco dictionary {dictionary!r}; use one of OpenCV's predefined "
             f"names, e.g. DICT_4X4_50, DICT_5X5_100, DICT_APRILTAG_36h11",
         )
+    return dictionary
 
-    units = data.get("units", "mm")
-    if units not in ("mm", "in"):
-        raise _fail(source, "units", f'must be "mm" or "in", got {units!r}')
-    scale = MM_PER_IN if units == "in" else 1.0
 
-    win = data.get("window")
+def _window(win: Any, source: str, scale: float) -> tuple[Window, float]:
+    """The ``[window]`` table: the window in mm and its margin in mm."""
     if not isinstance(win, dict):
         raise _fail(source, "window", "missing or not a table; give x, y, width, height")
     for key in ("x", "y", "width", "height"):
@@ -255,27 +277,26 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
     extra = sorted(set(win) - {"x", "y", "width", "height", "margin"})
     if extra:
         raise _fail(source, f"window.{shown_key(extra[0])}", "unknown key")
-    wx = _number(win["x"], source, "window.x", scale)
-    wy = _number(win["y"], source, "window.y", scale)
-    ww = _number(win["width"], source, "window.width", scale)
-    wh = _number(win["height"], source, "window.height", scale)
-    if ww <= 0:
-        raise _fail(source, "window.width", f"must be greater than zero, got {win['width']!r}")
-    if wh <= 0:
-        raise _fail(source, "window.height", f"must be greater than zero, got {win['height']!r}")
+    x, y, width, height = (
+        _number(win[key], source, f"window.{key}", scale) for key in ("x", "y", "width", "height")
+    )
+    for key, value in (("width", width), ("height", height)):
+        if value <= 0:
+            raise _fail(source, f"window.{key}", f"must be greater than zero, got {win[key]!r}")
     margin = DEFAULT_MARGIN_MM
     if "margin" in win:
         margin = _number(win["margin"], source, "window.margin", scale)
         if margin < 0:
             raise _fail(source, "window.margin", f"must be zero or more, got {win['margin']!r}")
-    window = Window(wx, wy, ww, wh)
+    return Window(x, y, width, height), margin
 
-    raw_markers = data.get("marker")
+
+def _markers(raw_markers: Any, source: str, dictionary: str, scale: float) -> tuple[Marker, ...]:
+    """The ``[[marker]]`` tables: ids within the dictionary, each once, 4 clockwise corners."""
     if not isinstance(raw_markers, list) or not raw_markers:
         raise _fail(source, "marker", "at least one [[marker]] with id and corners is needed")
     size = ARUCO_DICTIONARY_SIZES[dictionary]
     markers: list[Marker] = []
-    seen: set[int] = set()
     for index, raw in enumerate(raw_markers):
         where = f"marker #{index + 1}"
         if not isinstance(raw, dict):
@@ -290,34 +311,45 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
             raise _fail(
                 source, f"{where}.id", f"out of range: {dictionary} has ids 0 to {size - 1}"
             )
-        if mid in seen:
+        if any(m.id == mid for m in markers):
             raise _fail(source, f"{where}.id", "duplicate id; each marker id may appear once")
-        seen.add(mid)
         extra = sorted(set(raw) - {"id", "corners"})
         if extra:
             raise _fail(source, f"{where}.{shown_key(extra[0])}", "unknown key")
-        corners = raw.get("corners")
-        if not isinstance(corners, list):
-            raise _fail(source, f"{where}.corners", "missing or not a list of 4 points")
-        if len(corners) != 4:
-            raise _fail(source, f"{where}.corners", f"must be 4 points, got {len(corners)}")
-        pts = tuple(_point(c, source, f"{where}.corners", scale) for c in corners)
-        area = _polygon_area(pts)
-        if abs(area) < 1e-6:
-            raise _fail(source, f"{where}.corners", "the 4 corners enclose no area")
-        if area < 0:
-            raise _fail(
-                source,
-                f"{where}.corners",
-                "corners run anticlockwise on the page; give them as top-left, top-right, "
-                "bottom-right, bottom-left",
-            )
-        markers.append(Marker(mid, pts))  # type: ignore[arg-type]
+        markers.append(Marker(mid, _corners(raw.get("corners"), source, where, scale)))
+    return tuple(markers)
 
-    exclusions: list[tuple[Point, ...]] = []
-    raw_ex = data.get("exclude", [])
+
+def _corners(
+    corners: Any, source: str, where: str, scale: float
+) -> tuple[Point, Point, Point, Point]:
+    """A marker's 4 corners in mm, clockwise on the page (OpenCV's order)."""
+    if not isinstance(corners, list):
+        raise _fail(source, f"{where}.corners", "missing or not a list of 4 points")
+    if len(corners) != 4:
+        raise _fail(source, f"{where}.corners", f"must be 4 points, got {len(corners)}")
+    a, b, c, d = (_point(p, source, f"{where}.corners", scale) for p in corners)
+    area = _polygon_area((a, b, c, d))
+    if abs(area) < 1e-6:
+        raise _fail(source, f"{where}.corners", "the 4 corners enclose no area")
+    if area < 0:
+        raise _fail(
+            source,
+            f"{where}.corners",
+            "corners run anticlockwise on the page; give them as top-left, top-right, "
+            "bottom-right, bottom-left",
+        )
+    return (a, b, c, d)
+
+
+def _exclusions(
+    raw_ex: Any, source: str, window: Window, scale: float
+) -> tuple[tuple[Point, ...], ...]:
+    """The ``[[exclude]]`` polygons in mm: each overlaps the window, together they do not
+    cover it."""
     if not isinstance(raw_ex, list):
         raise _fail(source, "exclude", "must be a list of [[exclude]] tables")
+    exclusions: list[tuple[Point, ...]] = []
     for index, raw in enumerate(raw_ex):
         where = f"exclude #{index + 1}"
         if not isinstance(raw, dict) or "points" not in raw:
@@ -330,40 +362,27 @@ def parse_layout(data: dict[str, Any], *, source: str = "<memory>") -> Layout:
             raise _fail(source, f"{where}.points", "the polygon encloses no area")
         xs = [p[0] for p in pts]
         ys = [p[1] for p in pts]
-        if max(xs) <= wx or min(xs) >= wx + ww or max(ys) <= wy or min(ys) >= wy + wh:
+        w = window
+        if (
+            max(xs) <= w.x_mm
+            or min(xs) >= w.x_mm + w.width_mm
+            or max(ys) <= w.y_mm
+            or min(ys) >= w.y_mm + w.height_mm
+        ):
             raise _fail(source, f"{where}.points", "the polygon lies wholly outside the window")
         exclusions.append(pts)
     if exclusions and _covers(window, exclusions):
         raise _fail(
             source, "exclude", "the exclusions cover the whole window; nothing is left to measure"
         )
-
-    return Layout(
-        name=name.strip(),
-        dictionary=dictionary,
-        units=units,
-        window=window,
-        markers=tuple(markers),
-        exclusions=tuple(exclusions),
-        margin_mm=margin,
-        source=source,
-    )
+    return tuple(exclusions)
 
 
 def read_layout(path: str | Path) -> Layout:
-    """Read and validate a layout TOML file.
-
-    Raises
-    ------
-    LayoutError
-        When the file is missing, unreadable, not TOML, or not a valid layout.
-    """
-    from printcheck.tomlfile import read_toml
-
-    data = read_toml(
-        path, kind="layout", error=LayoutError, missing_hint="; give the path of a layout .toml"
-    )
-    return parse_layout(data, source=str(path))
+    """Read and validate a layout TOML file (LayoutError: missing, unreadable, not TOML, or
+    not a valid layout)."""
+    hint = "; give the path of a layout .toml"
+    return read_toml_as(path, parse_layout, kind="layout", error=LayoutError, missing_hint=hint)
 
 
 # --------------------------------------------------------------------------- the card

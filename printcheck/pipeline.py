@@ -5,7 +5,6 @@ This module only chains the stages; each stage is pure and lives in its own modu
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -13,70 +12,13 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from printcheck.errors import NoCompoundError, PrintcheckError
-from printcheck.layout import Layout, Window, card_layout
+from printcheck.options import InspectOptions
 from printcheck.result import Result
-from printcheck.spec import Spec
-from printcheck.units import default_cell, to_mm
 
 if TYPE_CHECKING:
     from printcheck.locate import Rectified
 
 __all__ = ["InspectOptions", "inspect_image", "inspect_photo"]
-
-
-@dataclass(frozen=True)
-class InspectOptions:
-    """Everything that decides how a photo is inspected.
-
-    Attributes
-    ----------
-    layout : Layout or None
-        Where the markers are; the built-in 2 in card when neither this nor
-        ``px_per_mm`` is given.
-    px_per_mm : float or None
-        Explicit scale for square-on photos (no markers).
-    scale_window : Window or None
-        With ``px_per_mm``: the window in mm from the image's top-left (default: all).
-    unit : {"in", "mm"}
-    cell : float or None
-        Side of the counting cell in ``unit`` (default 1 in or 25 mm).
-    compound, compound_on : see :class:`printcheck.segment.SegmentConfig`
-    spec : Spec or None
-    surface : str or None
-    min_spot_mm2 : float
-    allow_partial : bool
-        Measure the visible part of a window that runs out of the photo.
-    side_thread : bool
-        Compute the bare patch and the confidence range on a second thread beside
-        measure when the process may run on more than one core (the results are the
-        same either way).  Batch workers, one per core, turn it off.
-    """
-
-    layout: Layout | None = None
-    px_per_mm: float | None = None
-    scale_window: Window | None = None
-    unit: str = "in"
-    cell: float | None = None
-    compound: str = "auto"
-    compound_on: str = "reference"
-    spec: Spec | None = None
-    surface: str | None = None
-    min_spot_mm2: float = 0.1
-    allow_partial: bool = False
-    side_thread: bool = True
-
-    @property
-    def cell_in_unit(self) -> float:
-        return self.cell if self.cell is not None else default_cell(self.unit)
-
-    @property
-    def cell_mm(self) -> float:
-        return to_mm(self.cell_in_unit, self.unit)
-
-    @property
-    def layout_in_use(self) -> Layout:
-        """The layout the markers are read by: ``layout``, else the built-in 2 in card."""
-        return self.layout if self.layout is not None else card_layout()
 
 
 def inspect_image(

@@ -29,27 +29,23 @@ from __future__ import annotations
 
 import difflib
 import math
-from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from printcheck.errors import SpecError
-from printcheck.tomlfile import shown_key
-from printcheck.units import MM_PER_IN
+from printcheck.tomlfile import read_toml_as, shown_key
+from printcheck.units import MM_PER_IN, convert_density
+from printcheck.wording import density_words, num
 
 __all__ = [
     "Spec",
     "TARGET_KEYS",
-    "convert_density",
-    "density_words",
-    "builtin_specs",
     "find_spec",
     "parse_spec",
     "read_spec",
     "spec_to_toml",
     "target_spec",
-    "describe_specs",
 ]
 
 # The spec keys that set a target, in the order they are checked and shown.
@@ -61,21 +57,7 @@ TARGET_KEYS = (
     "bearing_max",
     "max_bare",
 )
-_KNOWN_KEYS = (
-    "name",
-    "title",
-    "units",
-    "basis",
-    "min_density",
-    "min_cell_density",
-    "cell_share",
-    "bearing_min",
-    "bearing_max",
-    "max_bare",
-    "source",
-    "sources",
-    "notes",
-)
+_KNOWN_KEYS = ("name", "title", "units", "basis", *TARGET_KEYS, "source", "sources", "notes")
 
 
 @dataclass(frozen=True)
@@ -138,226 +120,23 @@ class Spec:
                 return text
         return ""
 
+    def density_target(self, cell_mm: float, *, per_cell: bool = False) -> float | None:
+        """The density target in points per ``cell_mm`` square, or None without one.
 
-# --------------------------------------------------------------------------- units
-
-
-def convert_density(density: float, *, from_cell_mm: float, to_cell_mm: float) -> float:
-    """Convert points per ``from_cell_mm`` square to points per ``to_cell_mm`` square.
-
-    A density is a count per area, so it scales with the square of the cell side:
-    20 points per square inch (645.16 mm²) is 20 × 625 / 645.16 = 19.375 points per
-    25 mm square.
-    """
-    return float(density) * (float(to_cell_mm) / float(from_cell_mm)) ** 2
-
-
-def _num(value: float, digits: int = 1) -> str:
-    """A number for people: ``digits`` decimals at most, no trailing zeros."""
-    text = f"{value:.{digits}f}"
-    if "." in text:
-        text = text.rstrip("0").rstrip(".")
-    return "0" if text == "-0" else text
-
-
-def density_words(cell_mm: float, unit: str = "mm") -> str:
-    """The density unit in words for a counting square of ``cell_mm``.
-
-    ``"points per square inch"`` for 25.4 mm, ``"points per 25 mm square"`` for 25 mm,
-    otherwise ``"points per N mm square"`` (``"points per N in square"`` when ``unit``
-    is ``"in"``).
-    """
-    if math.isclose(cell_mm, MM_PER_IN, rel_tol=1e-9):
-        return "points per square inch"
-    if unit == "in":
-        return f"points per {_num(cell_mm / MM_PER_IN, 3)} in square"
-    return f"points per {_num(cell_mm, 2)} mm square"
-
-
-def _length_words(value_mm: float, unit: str) -> str:
-    if unit == "in":
-        return f"{_num(value_mm / MM_PER_IN, 3)} in"
-    return f"{_num(value_mm, 1)} mm"
-
-
-# --------------------------------------------------------------------------- built-ins
-
-# Phrases shared by several built-in specs (each says how sure we are).
-_BEARING_MAX_SOURCE = (
-    "common practice: more leaves no oil pockets and the parts wring (principle: "
-    "ISO 8512-1:1990 clause 9; the 60% figure is ours)"
-)
-_EVEN_SOURCE = "our reading of 'evenly spread': the count must hold wherever the frame is put down"
-_BARE_SOURCE = (
-    "printcheck's own rule, not a standard: 3 x the even-grid spacing at the target density"
-)
-_PLATE_STD = "ISO 8512-1:1990 clause 9 (clause not re-checked here)"
-_MACHINE_STD = (
-    "from memory, not verified: a national machine-tool assembly standard "
-    "(general assembly conditions for metal-cutting machine tools)"
-)
-_FITTERS = "from memory: a fitters' training text's table of scraped-surface counts"
-
-
-def bare_rule_mm(density: float, basis_mm: float) -> float:
-    """printcheck's bare-patch limit: 3 × the even-grid spacing, to the nearest mm.
-
-    Points spread on a square grid at ``density`` per ``basis_mm`` square lie
-    ``basis_mm / sqrt(density)`` apart; a well-spread print leaves no bare circle much
-    over twice that, a random one often leaves four or five times it (our simulation,
-    docs/specs.md).  This is our rule, not a standard's.
-    """
-    return float(round(3.0 * basis_mm / math.sqrt(density)))
-
-
-def _even(
-    name: str,
-    title: str,
-    density: float,
-    density_source: str,
-    *,
-    bearing_min: float | None = None,
-    bearing_min_source: str = "",
-    bearing_max: float | None = 60.0,
-    bare: bool = True,
-    notes: str = "",
-    extra_source: str = "",
-) -> Spec:
-    """A built-in spec whose points must be evenly spread (counted per 25 mm square)."""
-    sources = [("min_density", density_source), ("min_cell_density", _EVEN_SOURCE)]
-    if bearing_min is not None:
-        sources.append(("bearing_min", bearing_min_source))
-    if bearing_max is not None:
-        sources.append(("bearing_max", _BEARING_MAX_SOURCE))
-    max_bare = bare_rule_mm(density, 25.0) if bare else None
-    if max_bare is not None:
-        sources.append(("max_bare", _BARE_SOURCE))
-    summary = f"density: {density_source}"
-    if bearing_min is not None:
-        summary += f"; bearing minimum: {bearing_min_source}"
-    if extra_source:
-        summary += f"; {extra_source}"
-    return Spec(
-        name=name,
-        title=title,
-        basis_mm=25.0,
-        min_density=density,
-        min_cell_density=density,
-        cell_share=1.0,
-        bearing_min=bearing_min,
-        bearing_max=bearing_max,
-        max_bare_mm=max_bare,
-        source=summary,
-        units="mm",
-        sources=tuple(sources),
-        notes=notes,
-    )
-
-
-def _builtins() -> tuple[Spec, ...]:
-    plate_density = "from memory: a national cast-iron surface plate standard"
-    specs = [
-        _even(
-            "plate-grade-0",
-            "cast-iron surface plate, grade 0",
-            25.0,
-            plate_density + " (about 25)",
-            bearing_min=20.0,
-            bearing_min_source=_PLATE_STD,
-            notes="spots evenly spread; not so much bearing that the work wrings",
-        ),
-        _even(
-            "plate-grade-1",
-            "cast-iron surface plate, grade 1",
-            20.0,
-            plate_density + " (20 to 25); a fitters' training text agrees",
-            bearing_min=15.0,
-            bearing_min_source=_PLATE_STD + "; BS 817:1988 clause 8.1 asks at least 20%",
-            notes="BS 817:1988 asks at least 20% bearing; use a spec file for that",
-        ),
-    ]
-    for grade in (2, 3):
-        specs.append(
-            _even(
-                f"plate-grade-{grade}",
-                f"cast-iron surface plate, grade {grade} (grades 2 and 3 share targets)",
-                12.0,
-                plate_density + " (about 12)",
-                bearing_min=10.0,
-                bearing_min_source=_PLATE_STD,
-            )
+        ``per_cell`` asks for the cell target (``min_cell_density``, falling back to
+        ``min_density``); otherwise the window target (``min_density``, falling back to
+        ``min_cell_density``).  The spec states densities per ``basis_mm`` square; they
+        are converted by area (:func:`printcheck.units.convert_density`).
+        """
+        first, second = (
+            (self.min_cell_density, self.min_density)
+            if per_cell
+            else (self.min_density, self.min_cell_density)
         )
-    for slug, words, narrow, wide in (
-        ("high-precision", "high-precision", 20.0, 16.0),
-        ("precision", "precision", 16.0, 12.0),
-        ("ordinary", "ordinary", 10.0, 8.0),
-    ):
-        specs.append(
-            _even(
-                f"slideway-{slug}",
-                f"{words} machine-tool slideway, up to 250 mm wide",
-                narrow,
-                _MACHINE_STD,
-                notes="points evenly spread",
-            )
-        )
-        specs.append(
-            _even(
-                f"slideway-{slug}-wide",
-                f"{words} machine-tool slideway, over 250 mm wide",
-                wide,
-                _MACHINE_STD,
-                notes="points evenly spread",
-            )
-        )
-    specs += [
-        _even(
-            "straightedge",
-            "scraped straightedge or precision datum face",
-            16.0,
-            _FITTERS + " (16 to 20)",
-        ),
-        _even(
-            "bearing-shell",
-            "precision plain bearing shell (machine-tool spindle)",
-            20.0,
-            "common practice, from memory",
-            notes="points heavier at the ends than in the middle (not checked: "
-            "photograph the ends and the middle as separate prints)",
-        ),
-        _even(
-            "datum-face",
-            "machine table or general datum face, sealing joint",
-            8.0,
-            _FITTERS + " (8 to 12)",
-            bearing_max=None,
-            bare=False,
-        ),
-        _even(
-            "fixed-joint",
-            "important fixed joint (bolted mounting face)",
-            6.0,
-            "common practice, from memory (6 to 12; 12 for high-precision machines)",
-            bearing_max=None,
-            bare=False,
-        ),
-        Spec(
-            name="roughing",
-            title="roughing pass (before the finishing passes)",
-            basis_mm=MM_PER_IN,
-            min_density=5.0,
-            source="density: common practice",
-            units="in",
-            sources=(("min_density", "common practice"),),
-            notes="only the window average is checked; spread and bearing come later",
-        ),
-    ]
-    return tuple(specs)
-
-
-def builtin_specs() -> tuple[Spec, ...]:
-    """Every built-in spec, in the order ``printcheck specs`` lists them."""
-    return _builtins()
+        value = first if first is not None else second
+        if value is None:
+            return None
+        return convert_density(value, from_cell_mm=self.basis_mm, to_cell_mm=cell_mm)
 
 
 # --------------------------------------------------------------------------- parsing
@@ -400,7 +179,7 @@ def _number(
     if not positive and number < 0:
         raise _fail(source, key, f"must be zero or more, got {value!r}")
     if upper is not None and number > upper:
-        raise _fail(source, key, f"must be at most {_num(upper, 3)}, got {value!r}")
+        raise _fail(source, key, f"must be at most {num(upper, 3)}, got {value!r}")
     return number
 
 
@@ -438,7 +217,37 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
     if not name:
         raise _fail(source, "name", "must not be empty")
     title = _text(data, "title", source, name, one_line=True) or name
+    units = _units(data, source)
+    scale = MM_PER_IN if units == "in" else 1.0
+    basis = _number(data, "basis", source)
+    basis_mm = (1.0 * MM_PER_IN if units == "in" else 25.0) if basis is None else basis * scale
+    if not math.isfinite(basis_mm):
+        raise _fail(source, "basis", f"is too large, got {data['basis']!r}")
+    targets = _targets(data, source)
+    max_bare = targets["max_bare"]
+    max_bare_mm = None if max_bare is None else max_bare * scale
+    if max_bare_mm is not None and not math.isfinite(max_bare_mm):
+        raise _fail(source, "max_bare", f"is too large, got {data['max_bare']!r}")
+    share = targets["cell_share"]
+    return Spec(
+        name=name,
+        title=title,
+        basis_mm=basis_mm,
+        min_density=targets["min_density"],
+        min_cell_density=targets["min_cell_density"],
+        cell_share=1.0 if share is None else share,
+        bearing_min=targets["bearing_min"],
+        bearing_max=targets["bearing_max"],
+        max_bare_mm=max_bare_mm,
+        source=_text(data, "source", source, "", one_line=False),
+        units=units,
+        sources=_sources(data, source, targets),
+        notes=_text(data, "notes", source, "", one_line=False),
+        origin=source,
+    )
 
+
+def _units(data: dict[str, Any], source: str) -> str:
     if "units" not in data:
         raise _fail(
             source,
@@ -449,13 +258,11 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
     units = data["units"]
     if units not in ("mm", "in"):
         raise _fail(source, "units", f'must be "mm" or "in", got {units!r}')
-    scale = MM_PER_IN if units == "in" else 1.0
+    return str(units)
 
-    basis = _number(data, "basis", source)
-    basis_mm = (1.0 * MM_PER_IN if units == "in" else 25.0) if basis is None else basis * scale
-    if not math.isfinite(basis_mm):
-        raise _fail(source, "basis", f"is too large, got {data['basis']!r}")
 
+def _targets(data: dict[str, Any], source: str) -> dict[str, float | None]:
+    """Each of :data:`TARGET_KEYS` as the file gives it (None: not set); at least one set."""
     min_density = _number(data, "min_density", source)
     min_cell_density = _number(data, "min_cell_density", source)
     share = _number(data, "cell_share", source, upper=1.0)
@@ -467,15 +274,11 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
         raise _fail(
             source,
             "bearing_min",
-            f"{_num(bearing_min, 3)} is above bearing_max {_num(bearing_max, 3)}; "
+            f"{num(bearing_min, 3)} is above bearing_max {num(bearing_max, 3)}; "
             "the range must run low to high",
         )
     max_bare = _number(data, "max_bare", source)
-    max_bare_mm = None if max_bare is None else max_bare * scale
-    if max_bare_mm is not None and not math.isfinite(max_bare_mm):
-        raise _fail(source, "max_bare", f"is too large, got {data['max_bare']!r}")
-
-    present = {
+    targets = {
         "min_density": min_density,
         "min_cell_density": min_cell_density,
         "cell_share": share,
@@ -483,14 +286,20 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
         "bearing_max": bearing_max,
         "max_bare": max_bare,
     }
-    if all(v is None for v in present.values()):
+    if all(v is None for v in targets.values()):
         raise _fail(
             source,
             "(targets)",
             "none given; set at least one of min_density, min_cell_density, "
             "bearing_min, bearing_max, max_bare",
         )
+    return targets
 
+
+def _sources(
+    data: dict[str, Any], source: str, targets: dict[str, float | None]
+) -> tuple[tuple[str, str], ...]:
+    """The ``[sources]`` table: (target key, text) for targets the spec sets, in key order."""
     raw_sources = data.get("sources", {})
     if not isinstance(raw_sources, dict):
         raise _fail(source, "sources", f'must be a table of target = "text", got {raw_sources!r}')
@@ -499,49 +308,21 @@ def parse_spec(data: dict[str, Any], *, source: str = "<memory>") -> Spec:
         where = f"sources.{shown_key(key)}"
         if key not in TARGET_KEYS:
             raise _fail(source, where, f"not a target; use one of {', '.join(TARGET_KEYS)}")
-        if present[key] is None:
+        if targets[key] is None:
             raise _fail(source, where, f"names a target the spec does not set; add {key}")
         text = raw_sources[key]
         if not isinstance(text, str):
             raise _fail(source, where, f"must be a string, got {text!r}")
         sources.append((key, text.strip()))
     sources.sort(key=lambda item: TARGET_KEYS.index(item[0]))
-
-    return Spec(
-        name=name,
-        title=title,
-        basis_mm=basis_mm,
-        min_density=min_density,
-        min_cell_density=min_cell_density,
-        cell_share=1.0 if share is None else share,
-        bearing_min=bearing_min,
-        bearing_max=bearing_max,
-        max_bare_mm=max_bare_mm,
-        source=_text(data, "source", source, "", one_line=False),
-        units=units,
-        sources=tuple(sources),
-        notes=_text(data, "notes", source, "", one_line=False),
-        origin=source,
-    )
+    return tuple(sources)
 
 
 def read_spec(path: str | Path) -> Spec:
-    """Read and validate a spec TOML file.
-
-    Raises
-    ------
-    SpecError
-        When the file is missing, unreadable, not TOML, or not a valid spec.
-    """
-    from printcheck.tomlfile import read_toml
-
-    data = read_toml(
-        path,
-        kind="spec",
-        error=SpecError,
-        missing_hint="; give a spec .toml file or a built-in name (printcheck specs)",
-    )
-    return parse_spec(data, source=str(path))
+    """Read and validate a spec TOML file (SpecError: missing, unreadable, not TOML, or
+    not a valid spec)."""
+    hint = "; give a spec .toml file or a built-in name (printcheck specs)"
+    return read_toml_as(path, parse_spec, kind="spec", error=SpecError, missing_hint=hint)
 
 
 def find_spec(name_or_path: str) -> Spec:
@@ -552,6 +333,8 @@ def find_spec(name_or_path: str) -> Spec:
     SpecError
         When the name is neither a built-in spec nor a readable, valid spec file.
     """
+    from printcheck.builtin_specs import builtin_specs
+
     text = str(name_or_path).strip()
     specs = builtin_specs()
     for spec in specs:
@@ -570,7 +353,7 @@ def find_spec(name_or_path: str) -> Spec:
 
 
 def target_spec(density: float, *, basis_mm: float) -> Spec:
-    """An ad-hoc spec for ``--target N``: at least ``density`` points on average.
+    """An ad-hoc spec for a quick density target: at least ``density`` points on average.
 
     Parameters
     ----------
@@ -589,18 +372,22 @@ def target_spec(density: float, *, basis_mm: float) -> Spec:
         or not isinstance(density, int | float)
         or not (math.isfinite(density) and density > 0)
     ):
-        raise SpecError(f"--target: must be a number of points greater than zero, got {density!r}")
+        raise SpecError(
+            f"density must be a number of points greater than zero, got {density!r}; "
+            "give the average density the surface must reach"
+        )
     if not (isinstance(basis_mm, int | float) and math.isfinite(basis_mm) and basis_mm > 0):
         raise SpecError(
-            f"--target: the counting square must be greater than zero, got {basis_mm!r}"
+            f"basis_mm (the counting square) must be greater than zero, got {basis_mm!r}; "
+            "give 25.4 for points per square inch or 25.0 for per 25 mm square"
         )
     if math.isclose(basis_mm, MM_PER_IN, rel_tol=1e-9):
         per, units = "ppi", "in"
     else:
-        per, units = f"per-{_num(basis_mm, 2)}mm", "mm"
+        per, units = f"per-{num(basis_mm, 2)}mm", "mm"
     return Spec(
-        name=f"target-{_num(density, 3)}-{per}",
-        title=f"ad-hoc target: at least {_num(density, 3)} {density_words(basis_mm, units)}",
+        name=f"target-{num(density, 3)}-{per}",
+        title=f"ad-hoc target: at least {num(density, 3)} {density_words(basis_mm, units)}",
         basis_mm=float(basis_mm),
         min_density=float(density),
         source="given on the command line (--target)",
@@ -613,33 +400,21 @@ def target_spec(density: float, *, basis_mm: float) -> Spec:
 # --------------------------------------------------------------------------- writing
 
 
-def _toml_str(text: str) -> str:
-    out = []
-    for ch in text:
-        if ch == '"':
-            out.append('\\"')
-        elif ch == "\\":
-            out.append("\\\\")
-        elif ord(ch) < 32 or ord(ch) == 127:
-            out.append(f"\\u{ord(ch):04x}")
-        else:
-            out.append(ch)
-    return '"' + "".join(out) + '"'
-
-
-def _toml_key(key: str) -> str:
-    return key if key.replace("_", "").isalnum() and key.isascii() else _toml_str(key)
-
-
 def spec_to_toml(spec: Spec) -> str:
-    """Write ``spec`` as TOML in its own units (round-trips through :func:`parse_spec`)."""
+    """Write ``spec`` as TOML in its own units (round-trips through :func:`parse_spec`).
+
+    The text is written by ``tomli_w``, which quotes and escapes strings and keys as
+    TOML 1.0 requires.
+    """
+    import tomli_w
+
     k = MM_PER_IN if spec.units == "in" else 1.0
-    lines = [
-        f"name = {_toml_str(spec.name)}",
-        f"title = {_toml_str(spec.title)}",
-        f"units = {_toml_str(spec.units)}",
-        f"basis = {spec.basis_mm / k!r}",
-    ]
+    data: dict[str, Any] = {
+        "name": spec.name,
+        "title": spec.title,
+        "units": spec.units,
+        "basis": spec.basis_mm / k,
+    }
     for key, value in (
         ("min_density", spec.min_density),
         ("min_cell_density", spec.min_cell_density),
@@ -649,96 +424,11 @@ def spec_to_toml(spec: Spec) -> str:
         ("max_bare", None if spec.max_bare_mm is None else spec.max_bare_mm / k),
     ):
         if value is not None:
-            lines.append(f"{key} = {float(value)!r}")
+            data[key] = float(value)
     if spec.source:
-        lines.append(f"source = {_toml_str(spec.source)}")
+        data["source"] = spec.source
     if spec.notes:
-        lines.append(f"notes = {_toml_str(spec.notes)}")
+        data["notes"] = spec.notes
     if spec.sources:
-        lines += ["", "[sources]"]
-        lines += [f"{_toml_key(key)} = {_toml_str(text)}" for key, text in spec.sources]
-    return "\n".join(lines) + "\n"
-
-
-# --------------------------------------------------------------------------- listing
-
-
-def _target_lines(spec: Spec) -> list[tuple[str, str, str]]:
-    """(label, target in words, source) for each target of ``spec``."""
-    per = density_words(spec.basis_mm, spec.units)
-    out: list[tuple[str, str, str]] = []
-    if spec.min_density is not None:
-        out.append(
-            (
-                "density",
-                f"at least {_num(spec.min_density, 3)} {per} on average",
-                spec.source_of("min_density"),
-            )
-        )
-    if spec.min_cell_density is not None:
-        share = (
-            "every complete cell"
-            if spec.cell_share >= 1.0
-            else f"{_num(100 * spec.cell_share, 1)}% of complete cells"
-        )
-        out.append(
-            (
-                "cells",
-                f"at least {_num(spec.min_cell_density, 3)} {per} in {share}",
-                spec.source_of("min_cell_density"),
-            )
-        )
-    if spec.bearing_min is not None or spec.bearing_max is not None:
-        lo, hi = spec.bearing_min, spec.bearing_max
-        if lo is not None and hi is not None:
-            words = f"{_num(lo, 1)}% to {_num(hi, 1)}%"
-        elif lo is not None:
-            words = f"at least {_num(lo, 1)}%"
-        else:
-            words = f"at most {_num(hi, 1)}%"  # type: ignore[arg-type]
-        srcs = [
-            f"{bound}: {text}"
-            for bound, text in (
-                ("min", spec.source_of("bearing_min")),
-                ("max", spec.source_of("bearing_max")),
-            )
-            if text
-        ]
-        out.append(("bearing", words, "; ".join(srcs)))
-    if spec.max_bare_mm is not None:
-        out.append(
-            (
-                "bare patch",
-                f"at most {_length_words(spec.max_bare_mm, spec.units)} across",
-                spec.source_of("max_bare"),
-            )
-        )
-    return out
-
-
-def describe_specs(specs: Iterable[Spec] | None = None) -> str:
-    """The spec list for ``printcheck specs``: plain text lines, sources with each number.
-
-    Parameters
-    ----------
-    specs : iterable of Spec, optional
-        Default: :func:`builtin_specs`.
-    """
-    chosen = builtin_specs() if specs is None else tuple(specs)
-    lines = [
-        "Built-in specs (use the name with --spec; --target N sets an ad-hoc density).",
-        "Densities are counted per 25 mm square unless stated; the judge converts them",
-        "to the counting cell you choose. 'from memory' marks a figure not checked",
-        "against its standard here.",
-    ]
-    for spec in chosen:
-        lines += ["", f"{spec.name}: {spec.title}"]
-        for label, words, src in _target_lines(spec):
-            lines.append(f"  {label:<11}{words}")
-            if src:
-                lines.append(f"  {'':<11}  source: {src}")
-        if spec.notes:
-            lines.append(f"  {'note':<11}{spec.notes}")
-        if spec.origin != "built-in":
-            lines.append(f"  {'from':<11}{spec.origin}")
-    return "\n".join(lines)
+        data["sources"] = dict(spec.sources)
+    return tomli_w.dumps(data)

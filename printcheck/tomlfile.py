@@ -7,12 +7,15 @@ the kind of file, the path and what to do.
 from __future__ import annotations
 
 import tomllib
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 from printcheck.errors import PrintcheckError
 
-__all__ = ["read_toml", "shown_key"]
+__all__ = ["read_toml", "read_toml_as", "shown_key"]
+
+T = TypeVar("T")
 
 
 def shown_key(key: object) -> str:
@@ -60,3 +63,17 @@ def read_toml(
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise error(f"{where}: not valid TOML ({exc})") from None
+
+
+def read_toml_as(
+    path: str | Path,
+    parse: Callable[..., T],
+    *,
+    kind: str,
+    error: type[PrintcheckError],
+    missing_hint: str = "",
+) -> T:
+    """Parse the TOML file at ``path`` (:func:`read_toml`) and validate it with
+    ``parse(data, source=str(path))``."""
+    data = read_toml(path, kind=kind, error=error, missing_hint=missing_hint)
+    return parse(data, source=str(path))

@@ -13,7 +13,15 @@ from typing import Literal
 
 from printcheck.errors import OptionError
 
-__all__ = ["MM_PER_IN", "Unit", "to_mm", "from_mm", "parse_length", "default_cell", "density_label"]
+__all__ = [
+    "MM_PER_IN",
+    "Unit",
+    "to_mm",
+    "from_mm",
+    "parse_length",
+    "default_cell",
+    "convert_density",
+]
 
 MM_PER_IN = 25.4
 Unit = Literal["in", "mm"]
@@ -62,14 +70,11 @@ def default_cell(unit: str) -> float:
     return 1.0 if unit == "in" else 25.0
 
 
-def density_label(unit: str, cell: float) -> str:
-    """Words for a density in ``unit`` with a ``cell`` side.
+def convert_density(density: float, *, from_cell_mm: float, to_cell_mm: float) -> float:
+    """Convert points per ``from_cell_mm`` square to points per ``to_cell_mm`` square.
 
-    "points per square inch" (1 in cell), "points per 25 mm square", "points per 2 in square".
+    A density is a count per area, so it scales with the square of the cell side:
+    20 points per square inch (645.16 mm²) is 20 × 625 / 645.16 = 19.375 points per
+    25 mm square.
     """
-    cell = float(cell)
-    if unit == "in":
-        return (
-            "points per square inch" if abs(cell - 1.0) < 1e-9 else f"points per {cell:g} in square"
-        )
-    return f"points per {cell:g} mm square"
+    return float(density) * (float(to_cell_mm) / float(from_cell_mm)) ** 2

@@ -8,7 +8,7 @@ measure stage would report for that picture.
 from __future__ import annotations
 
 import hashlib
-from datetime import datetime
+from datetime import datetime, timedelta
 
 import cv2
 import numpy as np
@@ -19,10 +19,11 @@ from printcheck.judge import Check, Verdict
 from printcheck.layout import Window
 from printcheck.locate import Calibration, Rectified
 from printcheck.measure import BarePatch, Cell, Confidence, Guidance, Measurement, Spots
+from printcheck.records import CalibrationSummary, CellSummary, PassSummary, WindowSummary
 from printcheck.result import Result
 from printcheck.segment import Segmentation
 
-__all__ = ["make_result"]
+__all__ = ["make_result", "make_summary", "a_verdict"]
 
 
 def make_result(
@@ -158,4 +159,42 @@ def a_verdict(meets: bool = False) -> Verdict:
             Check("density", ">= 20", 14.0, meets, "2 of 4 cells below 20 points"),
             Check("bearing", "25 - 50 %", 31.0, True, "bearing 31 % is within 25 - 50 %"),
         ),
+    )
+
+
+def make_summary(
+    i: int = 1,
+    density: float = 10.0,
+    *,
+    photo: str | None = None,
+    taken: datetime | None = None,
+    unit: str = "in",
+    cell: float = 1.0,
+    bearing_percent: float | None = None,
+    cells: tuple[CellSummary, ...] = (),
+    verdict: Verdict | None = None,
+    sha256: str | None = None,
+    warnings: tuple[str, ...] = (),
+) -> PassSummary:
+    """A small PassSummary of pass ``i`` (a 2 x 2 in window), for history and progress."""
+    return PassSummary(
+        photo=photo or f"IMG_{i:04d}.jpg",
+        surface="bed",
+        taken=taken if taken is not None else datetime(2026, 11, 10, 10) + timedelta(days=i),
+        unit=unit,
+        cell=cell,
+        calibration=CalibrationSummary("layout", "card-2in", (0, 1, 2, 3), 20.0, 0.03, 21.0),
+        window=WindowSummary(2.0, 2.0, 4.0),
+        spot_count=int(round(density * 4)),
+        density=density,
+        bearing_percent=10.0 + 5 * i if bearing_percent is None else bearing_percent,
+        largest_bare=0.3,
+        cells=cells,
+        verdict=verdict,
+        sha256=sha256 if sha256 is not None else f"{i:064x}",
+        confidence=None,
+        spot_sizes=(("median_area_mm2", 1.5),),
+        compound="blue",
+        threshold=0.5,
+        warnings=warnings,
     )

@@ -18,6 +18,18 @@ from pathlib import Path
 import pytest
 
 from printcheck.cli import main
+from printcheck.spec import find_spec
+
+# The accuracy the counts are held to (the segment/measure issue): within 15 % of the truth.
+COUNT_TOLERANCE = 0.15
+
+
+def _surely_short_of(true_density: float, spec_name: str) -> bool:
+    """True when a print of this true density (points per square inch) fails the spec's
+    density target even if measured at the top of the count tolerance."""
+    target = find_spec(spec_name).density_target(25.4)
+    assert target is not None
+    return true_density * (1 + COUNT_TOLERANCE) < target
 
 
 def _run(capsys: pytest.CaptureFixture[str], *args: str) -> tuple[int, str, str]:
@@ -57,7 +69,7 @@ def test_help_is_quick_and_lists_commands() -> None:
 def test_inspect_json_is_the_library_result(small_job, capsys) -> None:  # type: ignore[no-untyped-def]
     from printcheck.layout import read_layout
     from printcheck.pipeline import InspectOptions, inspect_photo
-    from printcheck.result import result_to_dict
+    from printcheck.serde import result_to_dict
 
     folder, photos = small_job
     photo = folder / photos[1].file
@@ -71,24 +83,6 @@ def test_inspect_json_is_the_library_result(small_job, capsys) -> None:  # type:
     )
     assert data == json.loads(json.dumps(expected))
     assert data["format"] == "printcheck-result/1" and data["photo"] == photo.name
-
-
-def test_side_thread_changes_no_result(small_job) -> None:  # type: ignore[no-untyped-def]
-    # inspect computes the bare patch and the range on a second thread; batch workers
-    # compute them in line
-    from dataclasses import replace
-
-    from printcheck.layout import read_layout
-    from printcheck.pipeline import InspectOptions, inspect_photo
-    from printcheck.result import result_to_dict
-
-    folder, photos = small_job
-    options = InspectOptions(layout=read_layout(folder / "layout.toml"))
-    in_line_options = replace(options, side_thread=False)
-    for photo in photos:
-        threaded = result_to_dict(inspect_photo(folder / photo.file, options=options))
-        in_line = result_to_dict(inspect_photo(folder / photo.file, options=in_line_options))
-        assert threaded == in_line
 
 
 def test_inspect_several_photos_prints_json_lines(small_job, capsys) -> None:  # type: ignore[no-untyped-def]
@@ -157,14 +151,16 @@ def test_batch_then_progress_in_true_time_order(small_job, tmp_path, capsys) -> 
         "--surface",
         "test-way",
         "--spec",
-        "slideway-ordinary",
+        "slideway-high-precision",
         "--out",
         str(out),
         "--db",
         str(db),
     ]
+    # the last pass's true density is far below the spec's: batch must say "does not meet"
+    assert _surely_short_of(photos[-1].density, "slideway-high-precision")
     code, _, err = _run(capsys, *args)
-    assert code in (0, 1), err
+    assert code == 1, err
     assert (out / "report.html").is_file() and (out / "results.csv").is_file()
     code, stdout, _ = _run(capsys, "progress", "test-way", "--json", "--db", str(db))
     data = json.loads(stdout)
@@ -173,7 +169,8 @@ def test_batch_then_progress_in_true_time_order(small_job, tmp_path, capsys) -> 
     assert [p["photo"] for p in data["passes"]] == [p.file for p in photos]
     for got, truth in zip(data["passes"], photos, strict=True):
         # accuracy bound of the segment/measure issue: count error well under 15 %
-        assert got["density"] == pytest.approx(truth.density, rel=0.15, abs=1.0)
+        assert got["density"] == pytest.approx(truth.density, rel=COUNT_TOLERANCE, abs=1.0)
+        assert got["meets"] is False
     # re-running the batch records nothing twice
     rows = _history_rows(db)
     code, _, _ = _run(capsys, *args)
@@ -259,7 +256,12 @@ def test_bad_option_values_exit_2_with_one_line(small_job, capsys) -> None:  # t
 
 def test_demo_renders_a_job_and_reports_it(tmp_path, capsys) -> None:  # type: ignore[no-untyped-def]
     code, out, err = _run(capsys, "demo", str(tmp_path / "demo"), "--passes", "2", "--seed", "3")
-    assert code in (0, 1), err
+    # the demo prints the simulator's truth: "  <photo>: 11.5 points per square inch, ..."
+    truth = [float(line.split(":")[1].split()[0]) for line in out.splitlines() if "jpg:" in line]
+    assert len(truth) == 2
+    # two passes in, the surface is far from the demo's spec: exit 1, "does not meet"
+    assert _surely_short_of(truth[-1], "slideway-precision")
+    assert code == 1, err
     photos = sorted((tmp_path / "demo" / "photos").glob("*.jpg"))
     assert len(photos) == 2
     assert (tmp_path / "demo" / "report" / "report.html").is_file()

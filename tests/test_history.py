@@ -17,9 +17,12 @@ import signal
 import sqlite3
 import tempfile
 import time
+from dataclasses import replace
+from datetime import datetime
 from pathlib import Path
 
 import pytest
+from _hand_results import make_summary
 
 from printcheck.errors import HistoryError
 from printcheck.history import (
@@ -30,34 +33,31 @@ from printcheck.history import (
     default_db_path,
     open_history,
 )
+from printcheck.judge import Check, Verdict
+from printcheck.records import PassSummary
+from printcheck.serde import summary_from_dict, summary_to_dict
 from printcheck.spec import Spec
 
 FORK = mp.get_context("fork")
 
 
-_DEFAULT = "default"
+_DEFAULT = datetime(2000, 1, 1)
 
 
 def _result(
-    i: int, *, taken: str | None = _DEFAULT, photo: str | None = None, pad: int = 0
-) -> dict:
-    """A small plain result dict, shaped like result_to_dict output."""
-    return {
-        "format": "printcheck-result/1",
-        "photo": photo or f"IMG_{i:04d}.jpg",
-        "surface": "bed",
-        "taken": f"2026-11-30T10:{i // 60:02d}:{i % 60:02d}" if taken is _DEFAULT else taken,
-        "unit": "in",
-        "cell": 1.0,
-        "spot_count": 10 + i,
-        "density": 2.5 + i,
-        "bearing_percent": 20.0 + i / 10,
-        "cells": [],
-        "spec": {"name": "slideway", "meets": i % 2 == 0, "checks": []},
-        "sha256": f"{i:064x}",
-        "warnings": [],
-        "pad": "x" * pad,
-    }
+    i: int, *, taken: datetime | None = _DEFAULT, photo: str | None = None, pad: int = 0
+) -> PassSummary:
+    """A small pass summary; ``pad`` characters of warning make its JSON as large as wanted."""
+    summary = make_summary(
+        i,
+        2.5 + i,
+        photo=photo,
+        taken=datetime(2026, 11, 30, 10, i // 60 % 60, i % 60) if taken is _DEFAULT else taken,
+        bearing_percent=20.0 + i / 10,
+        verdict=Verdict("slideway", i % 2 == 0, ()),
+        warnings=("x" * pad,) if pad else (),
+    )
+    return replace(summary, spot_count=10 + i, taken=None if taken is None else summary.taken)
 
 
 # ------------------------------------------------------------------ paths
@@ -97,22 +97,80 @@ def test_passes_keep_the_whole_result_and_indexed_columns(tmp_path: Path) -> Non
     with open_history(tmp_path / "h.sqlite") as h:
         h.record(data, surface="bed", spec=spec)
         (p,) = h.passes("bed")
-    assert p["result"] == data
-    assert (p["photo"], p["sha256"], p["taken"]) == (data["photo"], data["sha256"], data["taken"])
-    assert (p["density"], p["bearing_percent"], p["spot_count"]) == (5.5, 20.3, 13)
-    assert p["meets"] is False and p["spec"] == "slideway" and p["pass"] == 1
-    assert p["spec_targets"]["min_density"] == 20.0
-    assert p["spec_targets"]["bearing_min"] == 25.0
+    assert p.summary == data  # read back typed, every figure as recorded
+    assert p.number == 1 and p.spec_name == "slideway" and p.spec == spec
+    con = sqlite3.connect(tmp_path / "h.sqlite")
+    row = con.execute(
+        "SELECT photo, sha256, taken, density, bearing_percent, spot_count, meets, result_json "
+        "FROM passes"
+    ).fetchone()
+    con.close()
+    assert row[:7] == ("IMG_0003.jpg", f"{3:064x}", "2026-11-30T10:00:03", 5.5, 20.3, 13, 0)
+    assert json.loads(row[7]) == summary_to_dict(data)  # the result JSON, as written
+
+
+# A pass as an earlier printcheck stored it (schema 1, before the typed records): the
+# result JSON of result_to_dict, key for key.
+_OLD_RESULT_JSON = """{"format": "printcheck-result/1", "photo": "lathe-bed-front-flat-pass3.jpg",
+"surface": "lathe-bed-front-flat", "taken": "2026-11-30T09:39:12", "unit": "in", "cell": 1.0,
+"calibration": {"method": "layout", "layout": "slideway-station", "markers": [0, 1, 2, 3],
+"px_per_mm": 9.449, "residual_mm": 0.0141, "photo_px_per_mm": 9.463},
+"window": {"width": 7.874, "height": 5.9055, "area": 46.4994}, "spot_count": 57,
+"density": 1.23, "bearing_percent": 2.81, "largest_bare": 2.0567,
+"cells": [{"row": 0, "col": 0, "complete": true, "spot_count": 2, "density": 2.0,
+"bearing_percent": 3.11, "area": 1.0}], "spec": {"name": "slideway-precision", "meets": false,
+"checks": [{"name": "density", "target": ">= 16.5", "value": 1.226, "ok": false,
+"reason": "1.2 points per square inch over the window, below the 16.5 needed"}]},
+"sha256": "ab12", "confidence": {"spot_count_low": 56, "spot_count_high": 58,
+"bearing_percent_low": 2.5, "bearing_percent_high": 3.12, "doubtful": false, "reason": ""},
+"spot_sizes": {"median_area_mm2": 1.2, "p90_area_mm2": null},
+"segmentation": {"compound": "blue", "threshold": 0.2915},
+"guidance": {"high": [{"x": 1.5, "y": 2.25, "size": 0.4, "reason": "large spot"}],
+"bare": [{"x": 6.25, "y": 1.62, "diameter": 2.0567}]}, "warnings": ["glare"]}"""
+
+
+def test_a_history_written_before_the_typed_records_still_reads(tmp_path: Path) -> None:
+    db = tmp_path / "h.sqlite"
+    with open_history(db, migrations=MIGRATIONS[:1]):
+        pass
+    con = sqlite3.connect(db)
+    con.execute("INSERT INTO surfaces (name, created) VALUES ('way', '2026-11-30T10:00:00')")
+    con.execute(
+        "INSERT INTO passes (surface_id, sha256, photo, taken, spec, density, bearing_percent, "
+        "spot_count, meets, recorded, result_json) VALUES (1, 'ab12', "
+        "'lathe-bed-front-flat-pass3.jpg', '2026-11-30T09:39:12', 'slideway-precision', 1.23, "
+        "2.81, 57, 0, '2026-11-30T10:00:00+00:00', ?)",
+        (_OLD_RESULT_JSON,),
+    )
+    con.commit()
+    con.close()
+    with open_history(db, readonly=True) as h:
+        (p,) = h.passes("way")
+    s = p.summary
+    assert (s.photo, s.spot_count, s.density, s.meets) == (
+        "lathe-bed-front-flat-pass3.jpg",
+        57,
+        1.23,
+        False,
+    )
+    reason = "1.2 points per square inch over the window, below the 16.5 needed"
+    check = Check("density", ">= 16.5", 1.226, False, reason)
+    assert s.verdict == Verdict("slideway-precision", False, (check,))
+    assert p.spec is None and p.spec_name == "slideway-precision"
+    # and it writes back to the very text it was read from, key order included
+    old = json.loads(_OLD_RESULT_JSON)
+    assert json.dumps(summary_to_dict(s)) == json.dumps(old)
+    assert summary_from_dict(summary_to_dict(s)) == s
 
 
 def test_passes_in_time_order_then_photo_name(tmp_path: Path) -> None:
     with open_history(tmp_path / "h.sqlite") as h:
-        h.record(_result(1, taken="2026-12-01T09:00:00", photo="b.jpg"), surface="s")
+        h.record(_result(1, taken=datetime(2026, 12, 1, 9), photo="b.jpg"), surface="s")
         h.record(_result(2, taken=None, photo="a.jpg"), surface="s")  # no time: last
-        h.record(_result(3, taken="2026-11-30T09:00:00", photo="z.jpg"), surface="s")
-        h.record(_result(4, taken="2026-12-01T09:00:00", photo="a.jpg"), surface="s")
-        order = [p["photo"] for p in h.passes("s")]
-        numbers = [p["pass"] for p in h.passes("s")]
+        h.record(_result(3, taken=datetime(2026, 11, 30, 9), photo="z.jpg"), surface="s")
+        h.record(_result(4, taken=datetime(2026, 12, 1, 9), photo="a.jpg"), surface="s")
+        order = [p.summary.photo for p in h.passes("s")]
+        numbers = [p.number for p in h.passes("s")]
     assert order == ["z.jpg", "a.jpg", "b.jpg", "a.jpg"]
     assert numbers == [1, 2, 3, 4]
     with open_history(tmp_path / "h.sqlite") as h:
@@ -120,8 +178,7 @@ def test_passes_in_time_order_then_photo_name(tmp_path: Path) -> None:
 
 
 def test_record_refuses_a_result_without_sha256(tmp_path: Path) -> None:
-    data = _result(1)
-    data["sha256"] = None
+    data = replace(_result(1), sha256=None)
     with open_history(tmp_path / "h.sqlite") as h:
         with pytest.raises(HistoryError, match="no sha256"):
             h.record(data, surface="bed")
@@ -150,14 +207,14 @@ def test_old_schema_is_migrated_in_order_and_keeps_its_passes(tmp_path: Path) ->
         assert h.schema_version() == 1
         h.record(_result(1), surface="bed")
     with open_history(db, readonly=True) as h:  # an old schema reads as it is
-        assert h.passes("bed")[0]["spec_targets"] is None
+        assert h.passes("bed")[0].spec is None
     extra = MIGRATIONS + (
         Migration("test: add a note column", ("ALTER TABLE passes ADD COLUMN note TEXT",)),
     )
     with open_history(db, migrations=extra) as h:
         assert h.schema_version() == len(extra)
         (p,) = h.passes("bed")
-        assert p["result"] == _result(1) and p["spec_targets"] is None
+        assert p.summary == _result(1) and p.spec is None
     con = sqlite3.connect(db)
     cols = [r[1] for r in con.execute("PRAGMA table_info(passes)")]
     con.close()
@@ -212,7 +269,7 @@ def test_readonly_open_refuses_to_record(tmp_path: Path) -> None:
     with open_history(db) as h:
         h.record(_result(1), surface="bed")
     with open_history(db, readonly=True) as h:
-        assert [p["photo"] for p in h.passes("bed")] == ["IMG_0001.jpg"]
+        assert [p.summary.photo for p in h.passes("bed")] == ["IMG_0001.jpg"]
         with pytest.raises(HistoryError, match="read-only"):
             h.record(_result(2), surface="bed")
 
@@ -297,7 +354,7 @@ def test_full_disk_gives_history_error_and_keeps_whole_passes(tmp_path: Path) ->
     msg = q.get(timeout=5)
     assert msg.startswith("HistoryError: history ") and "free some space" in msg
     with open_history(db) as h:
-        assert [x["photo"] for x in h.passes("bed")] == ["IMG_0001.jpg"]
+        assert [x.summary.photo for x in h.passes("bed")] == ["IMG_0001.jpg"]
 
 
 def test_database_full_message(tmp_path: Path) -> None:
@@ -339,7 +396,7 @@ def test_two_processes_writing_at_once_lose_nothing(tmp_path: Path) -> None:
         p.join(60)
     assert sorted(q.get(timeout=5) for _ in procs) == ["ok", "ok"]
     with open_history(db) as h:
-        photos = {p["photo"] for p in h.passes("bed")}
+        photos = {p.summary.photo for p in h.passes("bed")}
     assert len(photos) == 120
     # the writes really overlapped: the two writers' rows interleave in commit order
     con = sqlite3.connect(db)
@@ -392,6 +449,6 @@ def test_sigkill_mid_write_leaves_only_whole_passes(tmp_path: Path) -> None:
     for photo, density, spot_count, text in rows:
         data = json.loads(text)  # never half a JSON
         assert (data["photo"], data["density"], data["spot_count"]) == (photo, density, spot_count)
-        assert len(data["pad"]) == 150_000
+        assert len(data["warnings"][0]) == 150_000
     with open_history(db) as h:
         assert len(h.passes("bed")) == len(rows)

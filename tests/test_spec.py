@@ -18,13 +18,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import ndimage
 
+from printcheck.builtin_specs import bare_rule_mm, builtin_specs, describe_specs
 from printcheck.errors import SpecError
 from printcheck.spec import (
     TARGET_KEYS,
     Spec,
-    bare_rule_mm,
-    builtin_specs,
-    describe_specs,
     find_spec,
     parse_spec,
     read_spec,
@@ -337,7 +335,7 @@ def test_target_spec_in_both_units():
 
 @pytest.mark.parametrize("bad", [0, -1, math.nan, math.inf, True, "20"])
 def test_target_spec_rejects(bad):
-    with pytest.raises(SpecError, match=r"^--target: must be a number of points greater than zero"):
+    with pytest.raises(SpecError, match=r"^density must be a number of points greater than zero"):
         target_spec(bad, basis_mm=25.4)  # type: ignore[arg-type]
 
 

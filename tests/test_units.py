@@ -15,8 +15,15 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from printcheck.errors import OptionError
-from printcheck.spec import convert_density, density_words
-from printcheck.units import MM_PER_IN, default_cell, from_mm, parse_length, to_mm
+from printcheck.units import (
+    MM_PER_IN,
+    convert_density,
+    default_cell,
+    from_mm,
+    parse_length,
+    to_mm,
+)
+from printcheck.wording import density_words
 
 lengths = st.floats(min_value=1e-6, max_value=1e6, allow_nan=False, allow_infinity=False)
 

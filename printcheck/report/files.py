@@ -17,11 +17,15 @@ import os
 import tempfile
 from collections.abc import Iterable, Mapping
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from printcheck.errors import ReportError
+from printcheck.records import PassSummary
+
+if TYPE_CHECKING:
+    from printcheck.result import Result
 
 __all__ = [
     "CSV_COLUMNS",
@@ -191,42 +195,40 @@ def write_json(folder: str | os.PathLike[str], name: str, data: Mapping[str, Any
     return write_text(folder, name, text + "\n")
 
 
-def result_row(result: Mapping[str, Any]) -> dict[str, Any]:
-    """One CSV row (the :data:`CSV_COLUMNS`) from a result dict.
+def result_row(summary: PassSummary) -> dict[str, Any]:
+    """One CSV row (the :data:`CSV_COLUMNS`) of a measured photo.
 
     Booleans become ``true``/``false``, missing values the empty string, warnings are
     joined with ``"; "``.  Text that a spreadsheet would take for a formula (starting
     with ``= + - @``, a tab or a carriage return) gets a leading ``'``; numbers are
     left as they are.
     """
-    spec = result.get("spec") if isinstance(result.get("spec"), Mapping) else None
-    raw_conf = result.get("confidence")
-    conf: Mapping[str, Any] = raw_conf if isinstance(raw_conf, Mapping) else {}
+    verdict, conf = summary.verdict, summary.confidence
 
-    def b(v: Any) -> str:
+    def b(v: bool | None) -> str:
         return "" if v is None else ("true" if v else "false")
 
     def v(x: Any) -> Any:
         return "" if x is None else x
 
     row = {
-        "photo": v(result.get("photo")),
-        "surface": v(result.get("surface")),
-        "taken": v(result.get("taken")),
-        "unit": v(result.get("unit")),
-        "cell": v(result.get("cell")),
-        "density": v(result.get("density")),
-        "bearing_percent": v(result.get("bearing_percent")),
-        "spot_count": v(result.get("spot_count")),
-        "largest_bare": v(result.get("largest_bare")),
-        "spec": "" if spec is None else v(spec.get("name")),
-        "meets": "" if spec is None else b(spec.get("meets")),
-        "spot_count_low": v(conf.get("spot_count_low")),
-        "spot_count_high": v(conf.get("spot_count_high")),
-        "bearing_percent_low": v(conf.get("bearing_percent_low")),
-        "bearing_percent_high": v(conf.get("bearing_percent_high")),
-        "doubtful": b(conf.get("doubtful")),
-        "warnings": "; ".join(str(w) for w in result.get("warnings") or ()),
+        "photo": summary.photo,
+        "surface": v(summary.surface),
+        "taken": "" if summary.taken is None else summary.taken.isoformat(timespec="seconds"),
+        "unit": summary.unit,
+        "cell": summary.cell,
+        "density": v(summary.density),
+        "bearing_percent": v(summary.bearing_percent),
+        "spot_count": summary.spot_count,
+        "largest_bare": v(summary.largest_bare),
+        "spec": "" if verdict is None else verdict.name,
+        "meets": "" if verdict is None else b(verdict.meets),
+        "spot_count_low": "" if conf is None else conf.spot_count_low,
+        "spot_count_high": "" if conf is None else conf.spot_count_high,
+        "bearing_percent_low": "" if conf is None else conf.bearing_percent_low,
+        "bearing_percent_high": "" if conf is None else conf.bearing_percent_high,
+        "doubtful": "" if conf is None else b(conf.doubtful),
+        "warnings": "; ".join(summary.warnings),
     }
     return {key: _inert(value) for key, value in row.items()}
 
@@ -246,15 +248,15 @@ def _inert(value: Any) -> Any:
 def write_csv(
     folder: str | os.PathLike[str],
     name: str,
-    results: Iterable[Mapping[str, Any]],
+    summaries: Iterable[PassSummary],
 ) -> Path:
     """Write a CSV (``name`` is usually :data:`CSV_NAME`): a header of :data:`CSV_COLUMNS`,
-    then one row per result dict (:func:`result_row`), atomically."""
+    then one row per measured photo (:func:`result_row`), atomically."""
     buf = io.StringIO(newline="")
     writer = csv.DictWriter(buf, fieldnames=list(CSV_COLUMNS), lineterminator="\r\n")
     writer.writeheader()
-    for res in results:
-        writer.writerow(result_row(res))
+    for summary in summaries:
+        writer.writerow(result_row(summary))
     return write_text(folder, name, buf.getvalue())
 
 
@@ -293,17 +295,14 @@ def write_image(folder: str | os.PathLike[str], name: str, image: np.ndarray) ->
     return write_bytes(folder, name, encode_image(image, suffix))
 
 
-def write_photo_outputs(
-    result: Any, data: Mapping[str, Any], folder: str | os.PathLike[str]
-) -> list[Path]:
+def write_photo_outputs(result: Result, folder: str | os.PathLike[str]) -> list[Path]:
     """Write one photo's ``<stem>.json`` and ``<stem>.overlay.png`` into ``folder``.
 
     Parameters
     ----------
     result : printcheck.result.Result
-        For the overlay (:func:`printcheck.report.overlay.draw_overlay`).
-    data : dict
-        ``result_to_dict(result)``, written as the JSON.
+        The photo's result: its JSON (:func:`printcheck.serde.result_to_dict`) and its
+        overlay (:func:`printcheck.report.overlay.draw_overlay`).
     folder : path
         The output folder (created if missing).
 
@@ -313,10 +312,10 @@ def write_photo_outputs(
         The JSON file, then the overlay image.
     """
     from printcheck.report.overlay import draw_overlay
+    from printcheck.serde import result_to_dict
 
-    photo = str(data.get("photo") or getattr(result, "photo", "photo"))
-    json_path = write_json(folder, output_name(photo, ".json"), data)
+    json_path = write_json(folder, output_name(result.photo, ".json"), result_to_dict(result))
     png_path = write_bytes(
-        folder, output_name(photo, ".overlay.png"), encode_image(draw_overlay(result))
+        folder, output_name(result.photo, ".overlay.png"), encode_image(draw_overlay(result))
     )
     return [json_path, png_path]

@@ -12,15 +12,18 @@ from __future__ import annotations
 import base64
 import html
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 from urllib.parse import quote
 
 from printcheck import __version__
+from printcheck.progress import projection_words
+from printcheck.records import CellSummary, PassSummary, Progress
 from printcheck.report.files import CSV_NAME, output_name, write_text
 from printcheck.spec import Spec
-from printcheck.units import density_label
+from printcheck.units import to_mm
+from printcheck.wording import bearing_words, density_words, fixed, num, target_lines
 
 __all__ = ["render_report", "write_report"]
 
@@ -89,12 +92,6 @@ def _e(value: Any) -> str:
     return html.escape("" if value is None else str(value), quote=True)
 
 
-def _short(value: float) -> str:
-    """At most one decimal, no trailing zero (10.3226 -> "10.3")."""
-    text = f"{float(value):.1f}"
-    return text[:-2] if text.endswith(".0") else text
-
-
 def _data_uri(data: bytes) -> str:
     if data[:8] == b"\x89PNG\r\n\x1a\n":
         mime = "image/png"
@@ -103,16 +100,6 @@ def _data_uri(data: bytes) -> str:
     else:
         mime = "application/octet-stream"
     return f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
-
-
-def _num(value: Any, digits: int = 1) -> str:
-    if value is None:
-        return "–"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, int):
-        return str(value)
-    return f"{float(value):.{digits}f}"
 
 
 def _badge(meets: bool | None) -> str:
@@ -158,93 +145,65 @@ def _bearing_colour(value: float, lo: float | None, hi: float | None) -> str:
     return _mix(_PALE_GREEN, _PALE_GREEN, 0.0)
 
 
-def _cell_target(result: Mapping[str, Any], spec: Spec | None) -> float | None:
-    from printcheck.progress import density_target
-    from printcheck.units import to_mm
-
-    unit, cell = result.get("unit"), result.get("cell")
-    if spec is None or unit not in ("in", "mm") or not cell:
-        return None
-    return density_target(spec, cell_mm=to_mm(float(cell), str(unit)), per_cell=True)
+def _per(summary: PassSummary) -> str:
+    """The density unit of ``summary`` in words, escaped."""
+    return _e(density_words(to_mm(summary.cell, summary.unit), summary.unit))
 
 
-def _heat_tables(result: Mapping[str, Any], spec: Spec | None) -> str:
-    cells = list(result.get("cells") or ())
+def _heat_table(cells: tuple[CellSummary, ...], caption: str, cell_html: Any, colour: Any) -> str:
+    """A table of the cells on their grid: ``cell_html(cell)`` gives (text, small text),
+    ``colour(cell)`` the background."""
+    rows = max(c.row for c in cells) + 1
+    cols = max(c.col for c in cells) + 1
+    grid = {(c.row, c.col): c for c in cells}
+    out = [f'<table class="heat"><caption>{caption}</caption>']
+    for r in range(rows):
+        out.append("<tr>")
+        for c in range(cols):
+            cell = grid.get((r, c))
+            if cell is None:
+                out.append("<td></td>")
+                continue
+            text, small = cell_html(cell)
+            cls = "" if cell.complete else ' class="part"'
+            title = "" if cell.complete else ' title="incomplete cell"'
+            sm = f"<small>{small}</small>" if small else ""
+            out.append(f'<td{cls}{title} style="background:{colour(cell)}">{text}{sm}</td>')
+        out.append("</tr>")
+    out.append("</table>")
+    return "".join(out)
+
+
+def _heat_tables(summary: PassSummary, spec: Spec | None) -> str:
+    """The density and bearing maps of one pass's cells, coloured against ``spec``."""
+    cells = summary.cells
     if not cells:
         return '<p class="key">No cells.</p>'
-    rows = max(int(c["row"]) for c in cells) + 1
-    cols = max(int(c["col"]) for c in cells) + 1
-    grid: dict[tuple[int, int], Mapping[str, Any]] = {
-        (int(c["row"]), int(c["col"])): c for c in cells
-    }
-    target = _cell_target(result, spec)
-    top = max((float(c.get("density") or 0.0) for c in cells), default=0.0)
+    cell_mm = to_mm(summary.cell, summary.unit)
+    target = None if spec is None else spec.density_target(cell_mm, per_cell=True)
+    top = max((c.density for c in cells), default=0.0)
     lo = None if spec is None else spec.bearing_min
     hi = None if spec is None else spec.bearing_max
-    unit_text = _e(density_label(str(result.get("unit") or "in"), float(result.get("cell") or 1.0)))
-
-    def table(key: str, caption: str) -> str:
-        out = [f'<table class="heat"><caption>{caption}</caption>']
-        for r in range(rows):
-            out.append("<tr>")
-            for c in range(cols):
-                cell = grid.get((r, c))
-                if cell is None:
-                    out.append("<td></td>")
-                    continue
-                v = float(cell.get(key) or 0.0)
-                if key == "density":
-                    bg = _density_colour(v, target, top)
-                    text = _num(v, 1)
-                    small = f"{_num(cell.get('spot_count'))} pts"
-                else:
-                    bg = _bearing_colour(v, lo, hi)
-                    text = f"{v:.0f}%"
-                    small = ""
-                cls = "" if cell.get("complete") else ' class="part"'
-                title = "" if cell.get("complete") else ' title="incomplete cell"'
-                sm = f"<small>{small}</small>" if small else ""
-                out.append(f'<td{cls}{title} style="background:{bg}">{text}{sm}</td>')
-            out.append("</tr>")
-        out.append("</table>")
-        return "".join(out)
-
-    dcap = f"Density, {unit_text}" + ("" if target is None else f" (target {_short(target)})")
+    dcap = f"Density, {_per(summary)}" + ("" if target is None else f" (target {num(target, 1)})")
+    bcap = "Bearing"
     if lo is not None or hi is not None:
-        lo_txt = "0" if lo is None else _num(lo, 0)
-        hi_txt = "100" if hi is None else _num(hi, 0)
-        bcap = f"Bearing (target {lo_txt}–{hi_txt} %)"
-    else:
-        bcap = "Bearing"
-    return (
-        '<div class="cols"><div>'
-        + table("density", dcap)
-        + "</div><div>"
-        + table("bearing_percent", bcap)
-        + '</div></div><p class="key">Italic: incomplete cell (cut by the window edge or an '
-        "exclusion). Green: meets the target; amber: close; red: well short.</p>"
+        bcap = f"Bearing (target {_e(bearing_words(lo, hi).span)})"
+    density = _heat_table(
+        cells,
+        dcap,
+        lambda c: (fixed(c.density, 1), f"{fixed(c.spot_count)} pts"),
+        lambda c: _density_colour(c.density, target, top),
     )
-
-
-def _projection_text(progress: Mapping[str, Any], spec: Spec | None) -> str:
-    proj = progress.get("projection")
-    passes = progress.get("passes") or ()
-    target = (progress.get("targets") or {}).get("density")
-    if spec is None or target is None:
-        return "No density target to project against."
-    if proj is None:
-        if len(passes) < 3:
-            return f"Too few passes to project yet ({len(passes)} of 3 needed)."
-        return "The density trend is not approaching the target; no projection."
-    n = proj["passes_to_spec"]
-    if n == 0:
-        return f"The latest pass reaches the density target of {_short(target)}."
-    lo, hi = proj.get("low"), proj.get("high")
-    rng = f"{lo}–{hi}" if hi is not None else f"{lo} or more"
-    word = "pass" if n == 1 else "passes"
+    bearing = _heat_table(
+        cells,
+        bcap,
+        lambda c: (f"{c.bearing_percent:.0f}%", ""),
+        lambda c: _bearing_colour(c.bearing_percent, lo, hi),
+    )
     return (
-        f"About <b>{n} more {word}</b> to reach {_short(target)} points (likely range {rng}), "
-        f"at {proj.get('rate', 0):.1f} points per pass."
+        f'<div class="cols"><div>{density}</div><div>{bearing}</div></div>'
+        '<p class="key">Italic: incomplete cell (cut by the window edge or an '
+        "exclusion). Green: meets the target; amber: close; red: well short.</p>"
     )
 
 
@@ -253,132 +212,125 @@ def _figure(value: str, key: str, rng: str = "") -> str:
     return f'<div class="fig"><div class="v">{value}</div><div class="k">{key}</div>{r}</div>'
 
 
+def _pass_head(number: int, summary: PassSummary, folder: Path | None) -> str:
+    """The pass's title, its time, its scale and links to its files."""
+    taken = summary.taken
+    when = "time unknown"
+    if taken is not None:
+        when = "taken " + _e(taken.isoformat(sep=" ", timespec="seconds"))
+    parts = [
+        f"<h2>Pass {number} · {_e(summary.photo)} {_badge(summary.meets)}</h2>",
+        f'<p class="sub">{when}',
+    ]
+    cal = summary.calibration
+    how = "layout " + _e(cal.layout) if cal.method == "layout" else "given scale"
+    res = cal.residual_mm
+    parts.append(
+        f" · scale from {how}, {fixed(cal.px_per_mm, 1)} px/mm"
+        + ("" if res is None else f", fit residual {fixed(res, 3)} mm")
+    )
+    if folder is not None and summary.photo:
+        for suffix, label in ((".json", "result JSON"), (".overlay.png", "full-size overlay")):
+            name = output_name(summary.photo, suffix)
+            if (folder / name).is_file():
+                parts.append(f' · <a href="{_e(quote(name))}">{label}</a>')
+    parts.append("</p>")
+    return "".join(parts)
+
+
+def _pass_figures(summary: PassSummary) -> str:
+    """The pass's density, bearing, count and largest bare patch, with their ranges."""
+    conf = summary.confidence
+    cnt_rng = bear_rng = ""
+    if conf is not None:
+        cnt_rng = f"range {fixed(conf.spot_count_low)}–{fixed(conf.spot_count_high)}"
+        bear_rng = f"range {fixed(conf.bearing_percent_low)}–{fixed(conf.bearing_percent_high)} %"
+    parts = [
+        '<div class="figures">',
+        _figure(fixed(summary.density), _per(summary)),
+        _figure(fixed(summary.bearing_percent) + " %", "bearing", bear_rng),
+        _figure(fixed(summary.spot_count), "spots in the window", cnt_rng),
+        _figure(fixed(summary.largest_bare, 2) + f" {_e(summary.unit)}", "largest bare patch"),
+        "</div>",
+    ]
+    if conf is not None and conf.doubtful:
+        parts.append(
+            '<ul class="warn"><li>The count is uncertain: '
+            f"{_e(conf.reason or 'the segmentation threshold matters')}</li></ul>"
+        )
+    return "".join(parts)
+
+
+def _checks(summary: PassSummary) -> str:
+    """The table of the spec's checks, or nothing without a spec."""
+    verdict = summary.verdict
+    if verdict is None or not verdict.checks:
+        return ""
+    parts = [
+        f"<h3>Checks against {_e(verdict.name)}</h3>",
+        '<table class="checks"><tr><th>check</th><th>target</th><th>value</th>'
+        "<th></th><th>reason</th></tr>",
+    ]
+    for ch in verdict.checks:
+        parts.append(
+            f"<tr><td>{_e(ch.name)}</td><td>{_e(ch.target)}</td>"
+            f"<td>{fixed(ch.value, 2)}</td>"
+            f'<td class="{"ok" if ch.ok else "bad"}">{"✓ ok" if ch.ok else "✗ short"}</td>'
+            f"<td>{_e(ch.reason)}</td></tr>"
+        )
+    parts.append("</table>")
+    return "".join(parts)
+
+
 def _pass_section(
     number: int,
-    result: Mapping[str, Any],
+    summary: PassSummary,
     overlay: bytes | None,
     spec: Spec | None,
     folder: Path | None,
 ) -> str:
-    spec_block = result.get("spec") if isinstance(result.get("spec"), Mapping) else None
-    meets = None if spec_block is None else spec_block.get("meets")
-    unit = _e(result.get("unit") or "")
-    result.get("cell")
-    conf = result.get("confidence") if isinstance(result.get("confidence"), Mapping) else None
-    taken = result.get("taken")
-    parts = [f'<section class="pass" id="pass-{number}">']
-    parts.append(
-        f"<h2>Pass {number} · {_e(result.get('photo'))} {_badge(meets)}</h2>"
-        f'<p class="sub">{"taken " + _e(str(taken).replace("T", " ")) if taken else "time unknown"}'
-    )
-    cal = result.get("calibration") if isinstance(result.get("calibration"), Mapping) else {}
-    if cal:
-        how = "layout " + _e(cal.get("layout")) if cal.get("method") == "layout" else "given scale"
-        res = cal.get("residual_mm")
-        parts.append(
-            f" · scale from {how}, {_num(cal.get('px_per_mm'), 1)} px/mm"
-            + ("" if res is None else f", fit residual {_num(res, 3)} mm")
-        )
-    if folder is not None and result.get("photo"):
-        for suffix, label in ((".json", "result JSON"), (".overlay.png", "full-size overlay")):
-            name = output_name(str(result["photo"]), suffix)
-            if (folder / name).is_file():
-                parts.append(f' · <a href="{_e(quote(name))}">{label}</a>')
-    parts.append("</p>")
-
-    cnt_rng = den_rng = bear_rng = ""
-    if conf:
-        cnt_rng = f"range {_num(conf.get('spot_count_low'))}–{_num(conf.get('spot_count_high'))}"
-        b_lo, b_hi = conf.get("bearing_percent_low"), conf.get("bearing_percent_high")
-        bear_rng = f"range {_num(b_lo)}–{_num(b_hi)} %"
-    parts.append('<div class="figures">')
-    parts.append(
-        _figure(
-            _num(result.get("density")),
-            _e(density_label(str(result.get("unit") or "in"), float(result.get("cell") or 1.0))),
-            den_rng,
-        )
-    )
-    parts.append(_figure(_num(result.get("bearing_percent")) + " %", "bearing", bear_rng))
-    parts.append(_figure(_num(result.get("spot_count")), "spots in the window", cnt_rng))
-    parts.append(_figure(_num(result.get("largest_bare"), 2) + f" {unit}", "largest bare patch"))
-    parts.append("</div>")
-    if conf and conf.get("doubtful"):
-        parts.append(
-            '<ul class="warn"><li>The count is uncertain: '
-            f"{_e(conf.get('reason') or 'the segmentation threshold matters')}</li></ul>"
-        )
-
-    if spec_block and spec_block.get("checks"):
-        parts.append(f"<h3>Checks against {_e(spec_block.get('name'))}</h3>")
-        parts.append(
-            '<table class="checks"><tr><th>check</th><th>target</th><th>value</th>'
-            "<th></th><th>reason</th></tr>"
-        )
-        for ch in spec_block["checks"]:
-            ok = bool(ch.get("ok"))
-            parts.append(
-                f"<tr><td>{_e(ch.get('name'))}</td><td>{_e(ch.get('target'))}</td>"
-                f"<td>{_num(ch.get('value'), 2)}</td>"
-                f'<td class="{"ok" if ok else "bad"}">{"✓ ok" if ok else "✗ short"}</td>'
-                f"<td>{_e(ch.get('reason'))}</td></tr>"
-            )
-        parts.append("</table>")
-
-    warnings = list(result.get("warnings") or ())
-    if warnings:
+    """One pass: its head, figures, checks, warnings, overlay and cell maps."""
+    parts = [
+        f'<section class="pass" id="pass-{number}">',
+        _pass_head(number, summary, folder),
+        _pass_figures(summary),
+        _checks(summary),
+    ]
+    if summary.warnings:
         parts.append('<h3>Warnings</h3><ul class="warn">')
-        parts.extend(f"<li>{_e(w)}</li>" for w in warnings)
+        parts.extend(f"<li>{_e(w)}</li>" for w in summary.warnings)
         parts.append("</ul>")
-
     if overlay:
         parts.append("<h3>Print</h3>")
         parts.append(
-            f'<img class="overlay" src="{_data_uri(overlay)}" '
-            f'alt="overlay of {_e(result.get("photo"))}">'
+            f'<img class="overlay" src="{_data_uri(overlay)}" alt="overlay of {_e(summary.photo)}">'
         )
     parts.append("<h3>Cells</h3>")
-    parts.append(_heat_tables(result, spec))
+    parts.append(_heat_tables(summary, spec))
     parts.append("</section>")
     return "".join(parts)
 
 
 def _spec_text(spec: Spec | None) -> str:
+    """The spec's title and its targets, in the words of ``printcheck specs``."""
     if spec is None:
         return "No spec: figures only."
-    bits = []
-    basis = "in²" if abs(spec.basis_mm - 25.4) < 1e-9 else f"{spec.basis_mm:g} mm square"
-    if spec.min_density is not None:
-        bits.append(f"at least {spec.min_density:g} points per {basis}")
-    if spec.min_cell_density is not None:
-        share = "every" if spec.cell_share >= 1 else f"{spec.cell_share * 100:.0f} % of"
-        bits.append(f"{share} complete cell at least {spec.min_cell_density:g}")
-    if spec.bearing_min is not None or spec.bearing_max is not None:
-        lo = "0" if spec.bearing_min is None else f"{spec.bearing_min:g}"
-        hi = "100" if spec.bearing_max is None else f"{spec.bearing_max:g}"
-        bits.append(f"bearing {lo}–{hi} %")
-    if spec.max_bare_mm is not None:
-        bits.append(f"no bare patch over {spec.max_bare_mm:g} mm")
+    targets = "; ".join(f"{t.label} {t.words}" for t in target_lines(spec))
     title = spec.title or spec.name
-    return f"<b>{_e(title)}</b> ({_e(spec.name)}): " + _e("; ".join(bits) or "no targets")
+    return f"<b>{_e(title)}</b> ({_e(spec.name)}): " + _e(targets or "no targets")
 
 
-def render_report(
-    *,
+def _header(
     surface: str,
     spec: Spec | None,
-    passes: Sequence[tuple[Mapping[str, Any], bytes | None]],
-    progress: Mapping[str, Any] | None = None,
-    folder: str | os.PathLike[str] | None = None,
-) -> str:
-    """The report's HTML text (see :func:`write_report`); ``folder`` is where it will live."""
+    summaries: Sequence[PassSummary],
+    progress: Progress | None,
+    folder: Path | None,
+) -> list[str]:
+    """The report's head and its header: surface, verdict, spec, figures, projection."""
     from printcheck.report.plots import trend_png
 
-    folder_path = None if folder is None else Path(folder)
-    results = [r for r, _ in passes]
-    latest = results[-1] if results else None
-    latest_spec = latest.get("spec") if latest and isinstance(latest.get("spec"), Mapping) else None
-    meets = None if latest_spec is None else latest_spec.get("meets")
+    latest = summaries[-1] if summaries else None
     head = [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
@@ -386,41 +338,49 @@ def render_report(
         f"<title>{_e(surface)} · print report</title>",
         f"<style>{_CSS}</style></head><body><main>",
         '<header class="surface">',
-        f"<h1>{_e(surface)} {_badge(meets) if latest is not None else ''}</h1>",
-        f'<p class="sub">{len(results)} pass{"es" if len(results) != 1 else ""} in this report'
-        + (f" · latest: {_e(latest.get('photo'))}" if latest is not None else "")
+        f"<h1>{_e(surface)} {_badge(latest.meets) if latest is not None else ''}</h1>",
+        f'<p class="sub">{len(summaries)} pass{"es" if len(summaries) != 1 else ""} in this report'
+        + (f" · latest: {_e(latest.photo)}" if latest is not None else "")
         + "</p>",
         f"<p>Spec: {_spec_text(spec)}</p>",
     ]
     if latest is not None:
         head.append('<div class="figures">')
-        head.append(
-            _figure(
-                _num(latest.get("density")),
-                _e(density_label(str(latest.get("unit") or "in"), float(latest.get("cell") or 1.0)))
-                + ", latest",
-            )
-        )
-        head.append(_figure(_num(latest.get("bearing_percent")) + " %", "bearing, latest"))
+        head.append(_figure(fixed(latest.density), _per(latest) + ", latest"))
+        head.append(_figure(fixed(latest.bearing_percent) + " %", "bearing, latest"))
         head.append("</div>")
     if progress is not None:
-        head.append(f"<p>{_projection_text(progress, spec)}</p>")
-        if progress.get("passes"):
-            png = trend_png(progress)
+        words = projection_words(progress)
+        head.append(f"<p>{_e(words[:1].upper() + words[1:])}.</p>")
+        if progress.passes:
             head.append(
-                f'<img class="trend" src="{_data_uri(png)}" '
+                f'<img class="trend" src="{_data_uri(trend_png(progress))}" '
                 f'alt="density and bearing across the passes of {_e(surface)}">'
             )
-    if folder_path is not None and (folder_path / CSV_NAME).is_file():
+    if folder is not None and (folder / CSV_NAME).is_file():
         head.append(f'<p class="key">All figures: <a href="{quote(CSV_NAME)}">{CSV_NAME}</a></p>')
     head.append("</header>")
+    return head
 
-    body = []
+
+def render_report(
+    *,
+    surface: str,
+    spec: Spec | None,
+    passes: Sequence[tuple[PassSummary, bytes | None]],
+    progress: Progress | None = None,
+    folder: str | os.PathLike[str] | None = None,
+) -> str:
+    """The report's HTML text (see :func:`write_report`); ``folder`` is where it will live."""
+    folder_path = None if folder is None else Path(folder)
+    head = _header(surface, spec, [s for s, _ in passes], progress, folder_path)
     numbers = list(range(1, len(passes) + 1))
-    if progress is not None and len(progress.get("passes") or ()) == len(passes):
-        numbers = [int(p["pass"]) for p in progress["passes"]]
-    for n, (res, overlay) in reversed(list(zip(numbers, passes, strict=True))):
-        body.append(_pass_section(n, res, overlay, spec, folder_path))
+    if progress is not None and len(progress.passes) == len(passes):
+        numbers = [p.number for p in progress.passes]
+    body = [
+        _pass_section(n, summary, overlay, spec, folder_path)
+        for n, (summary, overlay) in reversed(list(zip(numbers, passes, strict=True)))
+    ]
     foot = f"<footer>printcheck {_e(__version__)}</footer></main></body></html>\n"
     return "\n".join(head) + "\n" + "\n".join(body) + "\n" + foot
 
@@ -430,8 +390,8 @@ def write_report(
     *,
     surface: str,
     spec: Spec | None,
-    passes: Sequence[tuple[Mapping[str, Any], bytes | None]],
-    progress: Mapping[str, Any] | None = None,
+    passes: Sequence[tuple[PassSummary, bytes | None]],
+    progress: Progress | None = None,
 ) -> Path:
     """Write the surface's self-contained HTML report atomically.
 
@@ -441,10 +401,10 @@ def write_report(
         The report file, e.g. ``out/report.html``; its folder is the output folder.
     surface : str
     spec : Spec or None
-    passes : sequence of (result dict, overlay image bytes or None)
+    passes : sequence of (PassSummary, overlay image bytes or None)
         In pass order (oldest first); shown newest first.  The overlay is PNG or JPEG
         bytes (``printcheck.report.files.encode_image(draw_overlay(result))``).
-    progress : dict or None
+    progress : Progress or None
         :func:`printcheck.progress.build_progress` output, for the header and trend plot.
 
     Returns

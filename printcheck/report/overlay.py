@@ -20,11 +20,16 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, NamedTuple
 
 import numpy as np
 
-from printcheck.result import Result
-from printcheck.units import density_label
+from printcheck.units import to_mm
+from printcheck.wording import cell_figure, density_words
+
+if TYPE_CHECKING:
+    from printcheck.result import Result
+    from printcheck.serde import OverlayMarks
 
 __all__ = ["OverlayStyle", "COLOURS", "draw_overlay", "spot_boundaries"]
 
@@ -71,18 +76,16 @@ def spot_boundaries(labels: np.ndarray) -> np.ndarray:
     -------
     (M, N) bool ndarray
         True on the spots' edge pixels (also where two spots touch).  The image border
-        counts as outside.
+        counts as outside.  ``skimage.segmentation.find_boundaries`` with
+        ``connectivity=1, mode="inner"``.
     """
-    lab = np.asarray(labels)
-    padded = np.pad(lab, 1, mode="constant", constant_values=0)
-    centre = padded[1:-1, 1:-1]
-    edge = (
-        (padded[:-2, 1:-1] != centre)
-        | (padded[2:, 1:-1] != centre)
-        | (padded[1:-1, :-2] != centre)
-        | (padded[1:-1, 2:] != centre)
-    )
-    return edge & (centre > 0)
+    from skimage.segmentation import find_boundaries
+
+    # a ring of background makes the image border a boundary, as find_boundaries does not
+    # count the border as outside
+    padded = np.pad(np.asarray(labels), 1, mode="constant", constant_values=0)
+    edge = find_boundaries(padded, connectivity=1, mode="inner")  # type: ignore[no-untyped-call]
+    return np.asarray(edge[1:-1, 1:-1])
 
 
 def _crop_box(result: Result) -> tuple[int, int, int, int]:
@@ -114,11 +117,7 @@ def _resample(
         return array[r0:r1, c0:c1]
     ri = r0 + np.minimum(((np.arange(h) + 0.5) * (r1 - r0) / h).astype(np.intp), r1 - r0 - 1)
     ci = c0 + np.minimum(((np.arange(w) + 0.5) * (c1 - c0) / w).astype(np.intp), c1 - c0 - 1)
-    return array[np.ix_(ri, ci)]
-
-
-def _fmt_density(value: float) -> str:
-    return f"{value:.0f}" if abs(value) >= 10 else f"{value:.1f}"
+    return np.asarray(array[np.ix_(ri, ci)])
 
 
 def _put_text(
@@ -136,15 +135,17 @@ def _put_text(
     cv2.putText(img, text, org, cv2.FONT_HERSHEY_SIMPLEX, scale, colour, thickness, cv2.LINE_AA)
 
 
-def _dashed_circle(
-    img: np.ndarray,
-    centre: tuple[int, int],
-    radius: int,
-    colour: tuple[int, int, int],
-    thickness: int,
-) -> None:
+class _Pen(NamedTuple):
+    """A colour (BGR) and a line width in pixels."""
+
+    colour: tuple[int, int, int]
+    thickness: int
+
+
+def _dashed_circle(img: np.ndarray, centre: tuple[int, int], radius: int, pen: _Pen) -> None:
     import cv2
 
+    colour, thickness = pen
     # dashes about 3 line widths long, at least 12 around
     n = max(12, int(2 * math.pi * radius / max(6 * thickness, 8)))
     step = 360.0 / n
@@ -155,15 +156,10 @@ def _dashed_circle(
         )
 
 
-def _hatched_circle(
-    img: np.ndarray,
-    centre: tuple[int, int],
-    radius: int,
-    colour: tuple[int, int, int],
-    thickness: int,
-) -> None:
+def _hatched_circle(img: np.ndarray, centre: tuple[int, int], radius: int, pen: _Pen) -> None:
     import cv2
 
+    colour, thickness = pen
     h, w = img.shape[:2]
     cx, cy = centre
     x0, x1 = max(cx - radius, 0), min(cx + radius + 1, w)
@@ -222,14 +218,153 @@ def _legend(width: int, scale: float, thickness: int, unit_text: str) -> np.ndar
                     band, (x, y_mid - rad), (x + sw, y_mid + rad), COLOURS[key], thickness
                 )
             elif key == "high":
-                _hatched_circle(band, c, rad, COLOURS[key], thickness)
+                _hatched_circle(band, c, rad, _Pen(COLOURS[key], thickness))
             else:
-                _dashed_circle(band, c, rad, COLOURS[key], thickness)
+                _dashed_circle(band, c, rad, _Pen(COLOURS[key], thickness))
             tx = x + sw + pad
         cv2.putText(
             band, label, (tx, y_mid + th // 2), font, scale, COLOURS["text"], thickness, cv2.LINE_AA
         )
     return band
+
+
+@dataclass(frozen=True)
+class _View:
+    """Where layout-frame millimetres land on the drawn image.
+
+    ``origin_mm`` and ``px_per_mm`` are the rectified image's; ``r0``, ``c0`` the top-left
+    of the crop in it; ``sx``, ``sy`` the drawing's scale per axis.
+    """
+
+    origin_mm: tuple[float, float]
+    px_per_mm: float
+    r0: int
+    c0: int
+    sx: float
+    sy: float
+
+    def px(self, x_mm: float, y_mm: float) -> tuple[int, int]:
+        """(x, y) pixel of the drawing at (x_mm, y_mm)."""
+        ox, oy = self.origin_mm
+        return (
+            int(round(((x_mm - ox) * self.px_per_mm - self.c0) * self.sx)),
+            int(round(((y_mm - oy) * self.px_per_mm - self.r0) * self.sy)),
+        )
+
+    def length(self, mm: float) -> int:
+        """A length in drawing pixels (at least 2)."""
+        return max(2, int(round(mm * self.px_per_mm * (self.sx + self.sy) / 2)))
+
+
+def _scale(box: tuple[int, int, int, int], style: OverlayStyle) -> float:
+    """The factor that brings the crop's longer side within the style's range."""
+    r0, r1, c0, c1 = box
+    long_side = max(r1 - r0, c1 - c0)
+    if long_side < style.min_side:
+        return style.min_side / long_side
+    if long_side > style.max_side:
+        return style.max_side / long_side
+    return 1.0
+
+
+def _backdrop(
+    result: Result, box: tuple[int, int, int, int], shape: tuple[int, int], style: OverlayStyle
+) -> np.ndarray:
+    """The crop of the rectified image at the drawing's size ``shape`` (h, w), dimmed
+    outside the analysed area: a new (h, w, 3) uint8 image."""
+    import cv2
+
+    rect = result.rectified
+    r0, r1, c0, c1 = box
+    h, w = shape
+    crop = np.asarray(rect.image)[r0:r1, c0:c1]
+    if crop.ndim == 2:
+        crop = np.repeat(crop[:, :, None], 3, axis=2)
+    if (h, w) == (r1 - r0, c1 - c0):
+        img: np.ndarray = np.array(crop, dtype=np.uint8, copy=True)
+    else:
+        interp = cv2.INTER_AREA if _scale(box, style) < 1 else cv2.INTER_LINEAR
+        img = cv2.resize(np.ascontiguousarray(crop, dtype=np.uint8), (w, h), interpolation=interp)
+    analysed = np.asarray(rect.analysed)
+    if analysed.shape == rect.image.shape[:2]:
+        outside = ~_resample(analysed, box, (h, w))
+        if outside.any():
+            img[outside] = (img[outside] * style.dim).astype(np.uint8)
+    return img
+
+
+def _draw_outlines(
+    img: np.ndarray, marks: OverlayMarks, box: tuple[int, int, int, int], thick: int
+) -> None:
+    """Each spot's outline: yellow when it counts, grey past the window edge."""
+    import cv2
+
+    labels = marks.labels
+    if not labels.any():
+        return
+    lab = _resample(labels, box, img.shape[:2])
+    edge = spot_boundaries(lab)
+    if thick > 1:  # thicken inwards, so each edge pixel keeps its own spot's label
+        k = np.ones((thick, thick), np.uint8)
+        edge = (cv2.dilate(edge.astype(np.uint8), k) > 0) & (lab > 0)
+    n = int(labels.max())
+    counted = np.zeros(n + 1, bool)
+    inw = marks.counted
+    counted[1 : 1 + min(n, inw.size)] = inw[:n]
+    # look up the edge pixels only (a few percent of the image)
+    edge_counted = counted[np.clip(lab[edge], 0, n)]
+    img[edge] = np.where(
+        edge_counted[:, None],
+        np.array(COLOURS["spot"], np.uint8),
+        np.array(COLOURS["spot_outside"], np.uint8),
+    )
+
+
+def _draw_guidance(img: np.ndarray, marks: OverlayMarks, view: _View, thick: int) -> None:
+    """High areas as hatched circles, bare patches over the limit as dashed ones."""
+    for high in marks.high:
+        radius = max(view.length(high.diameter_mm / 2), 3 * thick)
+        _hatched_circle(
+            img, view.px(high.x_mm, high.y_mm), radius, _Pen(COLOURS["high"], thick + 1)
+        )
+    for bare in marks.bare:
+        radius = view.length(bare.diameter_mm / 2)
+        _dashed_circle(img, view.px(bare.x_mm, bare.y_mm), radius, _Pen(COLOURS["bare"], thick + 1))
+
+
+def _draw_grid(img: np.ndarray, marks: OverlayMarks, view: _View, thick: int) -> None:
+    """The counting cells: white lines on a dark halo."""
+    import cv2
+
+    for colour, width in ((COLOURS["halo"], thick + 2), (COLOURS["grid"], thick)):
+        for c in marks.cells:
+            p0 = view.px(c.x_mm, c.y_mm)
+            p1 = view.px(c.x_mm + c.width_mm, c.y_mm + c.height_mm)
+            cv2.rectangle(img, p0, p1, colour, width, cv2.LINE_AA)
+
+
+def _draw_figures(img: np.ndarray, marks: OverlayMarks, view: _View) -> None:
+    """Each cell's density (large) and bearing (small) in its top-left corner."""
+    import cv2
+
+    font = cv2.FONT_HERSHEY_SIMPLEX
+    cell_px = min(view.length(marks.cell_mm), max(img.shape[:2]))
+    big = max(0.45, cell_px / 9 / 22.0)  # Hershey simplex: ~22 px cap height at scale 1
+    for c in marks.cells:
+        x, y = view.px(c.x_mm, c.y_mm)
+        cw = view.px(c.x_mm + c.width_mm, c.y_mm)[0] - x
+        ch = view.px(c.x_mm, c.y_mm + c.height_mm)[1] - y
+        f = big if min(cw, ch) >= cell_px * 0.5 else big * 0.6
+        tb = max(1, int(round(f * 1.8)))
+        (_, th1), _ = cv2.getTextSize("0", font, f, tb)
+        colour = COLOURS["text"] if c.complete else COLOURS["text_partial"]
+        margin = max(4, int(th1 * 0.4))
+        _put_text(img, cell_figure(c.density), (x + margin, y + margin + th1), f, colour, tb)
+        fs = f * 0.62
+        ts = max(1, int(round(fs * 1.8)))
+        (_, th2), _ = cv2.getTextSize("0", font, fs, ts)
+        origin = (x + margin, y + 2 * margin + th1 + th2)
+        _put_text(img, f"{c.bearing_percent:.0f}%", origin, fs, colour, ts)
 
 
 def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.ndarray:
@@ -238,8 +373,9 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
     Parameters
     ----------
     result : Result
-        Uses ``rectified`` (image (M, N, 3) uint8 BGR, frame, visible, analysed),
-        ``measurement`` (labels (M, N), spots, cells, guidance), ``unit`` and ``cell``.
+        Uses ``rectified`` (image (M, N, 3) uint8 BGR, frame, visible, analysed), the
+        spots, cells and guidance of its measurement
+        (:func:`printcheck.serde.overlay_marks`), ``unit`` and ``cell``.
     style : OverlayStyle
 
     Returns
@@ -249,119 +385,26 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
         within ``style.min_side .. style.max_side``, with a legend band appended below.
         The inputs are never modified.
     """
-    import cv2
+    from printcheck.serde import overlay_marks
 
     rect = result.rectified
-    m = result.measurement
-    frame = rect.frame
+    marks = overlay_marks(result)
     box = _crop_box(result)
     r0, r1, c0, c1 = box
-    h0, w0 = r1 - r0, c1 - c0
-    long_side = max(h0, w0)
-    s = 1.0
-    if long_side < style.min_side:
-        s = style.min_side / long_side
-    elif long_side > style.max_side:
-        s = style.max_side / long_side
-    h, w = max(1, int(round(h0 * s))), max(1, int(round(w0 * s)))
-    sy, sx = h / h0, w / w0  # exact per-axis factors after rounding
-
-    crop = np.asarray(rect.image)[r0:r1, c0:c1]
-    if crop.ndim == 2:
-        crop = np.repeat(crop[:, :, None], 3, axis=2)
-    if (h, w) == (h0, w0):
-        img: np.ndarray = np.array(crop, dtype=np.uint8, copy=True)
-    else:
-        interp = cv2.INTER_AREA if s < 1 else cv2.INTER_LINEAR
-        img = cv2.resize(np.ascontiguousarray(crop, dtype=np.uint8), (w, h), interpolation=interp)
-
-    analysed = np.asarray(rect.analysed)
-    if analysed.shape == rect.image.shape[:2]:
-        outside = ~_resample(analysed, box, (h, w))
-        if outside.any():
-            img[outside] = (img[outside] * style.dim).astype(np.uint8)
-
+    s = _scale(box, style)
+    h, w = max(1, int(round((r1 - r0) * s))), max(1, int(round((c1 - c0) * s)))
+    # exact per-axis factors after rounding
+    view = _View(rect.frame.origin_mm, rect.frame.px_per_mm, r0, c0, w / (c1 - c0), h / (r1 - r0))
+    img = _backdrop(result, box, (h, w), style)
     thick = max(1, int(round(min(h, w) / 600)))
-
-    # spot outlines
-    labels = np.asarray(m.labels)
-    if labels.shape == rect.image.shape[:2] and labels.any():
-        lab = _resample(labels, box, (h, w))
-        edge = spot_boundaries(lab)
-        if thick > 1:  # thicken inwards, so each edge pixel keeps its own spot's label
-            k = np.ones((thick, thick), np.uint8)
-            edge = (cv2.dilate(edge.astype(np.uint8), k) > 0) & (lab > 0)
-        n = int(labels.max())
-        counted = np.zeros(n + 1, bool)
-        inw = np.asarray(m.spots.in_window, dtype=bool)
-        counted[1 : 1 + min(n, inw.size)] = inw[:n]
-        # look up the edge pixels only (a few percent of the image)
-        edge_counted = counted[np.clip(lab[edge], 0, n)]
-        img[edge] = np.where(
-            edge_counted[:, None],
-            np.array(COLOURS["spot"], np.uint8),
-            np.array(COLOURS["spot_outside"], np.uint8),
-        )
-
-    ox, oy = frame.origin_mm
-    ppm = frame.px_per_mm
-
-    def px(x_mm: float, y_mm: float) -> tuple[int, int]:
-        return (
-            int(round(((x_mm - ox) * ppm - c0) * sx)),
-            int(round(((y_mm - oy) * ppm - r0) * sy)),
-        )
-
-    def length(mm: float) -> int:
-        return max(2, int(round(mm * ppm * (sx + sy) / 2)))
-
+    if marks.labels.shape == rect.image.shape[:2]:
+        _draw_outlines(img, marks, box, thick)
     # guidance first, so the grid and figures stay on top
-    for x_mm, y_mm, size_mm, _why in m.guidance.high:
-        _hatched_circle(
-            img, px(x_mm, y_mm), max(length(size_mm / 2), 3 * thick), COLOURS["high"], thick + 1
-        )
-    for bare in m.guidance.bare:
-        _dashed_circle(
-            img, px(bare.x_mm, bare.y_mm), length(bare.diameter_mm / 2), COLOURS["bare"], thick + 1
-        )
-
-    # grid
-    for c in m.cells:
-        p0 = px(c.x_mm, c.y_mm)
-        p1 = px(c.x_mm + c.width_mm, c.y_mm + c.height_mm)
-        cv2.rectangle(img, p0, p1, COLOURS["halo"], thick + 2, cv2.LINE_AA)
-    for c in m.cells:
-        p0 = px(c.x_mm, c.y_mm)
-        p1 = px(c.x_mm + c.width_mm, c.y_mm + c.height_mm)
-        cv2.rectangle(img, p0, p1, COLOURS["grid"], thick, cv2.LINE_AA)
-
-    # figures
-    font = cv2.FONT_HERSHEY_SIMPLEX
-    cell_px = min(length(m.cell_mm), max(h, w))
-    big = max(0.45, cell_px / 9 / 22.0)  # Hershey simplex: ~22 px cap height at scale 1
-    for c in m.cells:
-        x, y = px(c.x_mm, c.y_mm)
-        cw = px(c.x_mm + c.width_mm, c.y_mm)[0] - x
-        ch = px(c.x_mm, c.y_mm + c.height_mm)[1] - y
-        f = big if min(cw, ch) >= cell_px * 0.5 else big * 0.6
-        tb = max(1, int(round(f * 1.8)))
-        (_, th1), _ = cv2.getTextSize("0", font, f, tb)
-        colour = COLOURS["text"] if c.complete else COLOURS["text_partial"]
-        margin = max(4, int(th1 * 0.4))
-        _put_text(img, _fmt_density(c.density), (x + margin, y + margin + th1), f, colour, tb)
-        fs = f * 0.62
-        ts = max(1, int(round(fs * 1.8)))
-        (_, th2), _ = cv2.getTextSize("0", font, fs, ts)
-        _put_text(
-            img,
-            f"{c.bearing_percent:.0f}%",
-            (x + margin, y + 2 * margin + th1 + th2),
-            fs,
-            colour,
-            ts,
-        )
-
-    unit_text = f"large: {density_label(result.unit, result.cell)}; small: bearing %"
+    _draw_guidance(img, marks, view, thick)
+    _draw_grid(img, marks, view, thick)
+    _draw_figures(img, marks, view)
+    per = density_words(to_mm(result.cell, result.unit), result.unit)
+    unit_text = f"large: {per}; small: bearing %"
     lscale = max(0.4, min(w / 1500.0, 1.2))
     band = _legend(w, lscale, max(1, int(round(lscale * 1.6))), unit_text)
     return np.concatenate([img, band], axis=0)

@@ -8,10 +8,11 @@ state is touched and command start-up stays fast.
 from __future__ import annotations
 
 import io
-from collections.abc import Mapping
 from typing import Any
 
-from printcheck.units import density_label
+from printcheck.records import Progress, ProgressRow
+from printcheck.units import to_mm
+from printcheck.wording import density_words, num
 
 __all__ = ["trend_png", "warm_up"]
 
@@ -36,20 +37,20 @@ def warm_up() -> None:
         FigureCanvasAgg(fig)
         ax = fig.subplots()
         ax.plot([0, 1], [0, 1], marker="o")
-        ax.set_ylabel(density_label("in", 1.0))
+        ax.set_ylabel(density_words(to_mm(1.0, "in"), "in"))
         fig.savefig(io.BytesIO(), format="png")
     except Exception:  # the report itself will say what is wrong
         pass
 
 
-def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
+def trend_png(progress: Progress, *, dpi: int = 110) -> bytes:
     """Density and bearing of every pass against the spec's targets, as PNG bytes.
 
     Parameters
     ----------
-    progress : dict
-        The progress object of :func:`printcheck.progress.build_progress` (its ``passes``,
-        ``targets``, ``projection``, ``unit`` and ``cell``).
+    progress : Progress
+        A surface's progress (:func:`printcheck.progress.build_progress`): its passes,
+        targets, projection, unit and cell.
     dpi : int
         Resolution of the PNG (the figure is 7.2 x 4.6 in).
 
@@ -62,55 +63,50 @@ def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
-    from matplotlib.ticker import MaxNLocator
-
-    passes = list(progress.get("passes") or ())
-    targets = progress.get("targets") or {}
-    projection = progress.get("projection")
-    unit = progress.get("unit") or "in"
-    cell = progress.get("cell") or 1.0
-    xs = [p["pass"] for p in passes]
 
     fig = Figure(figsize=(7.2, 4.6), dpi=dpi, layout="constrained")
     FigureCanvasAgg(fig)
     ax_d, ax_b = fig.subplots(2, 1, sharex=True)
+    _density_panel(ax_d, progress)
+    _bearing_panel(ax_b, progress)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
+    return buf.getvalue()
 
-    def dots(ax: Any, key: str) -> None:
-        pts = [(p["pass"], p[key], p.get("meets")) for p in passes if p.get(key) is not None]
-        if not pts:
-            return
-        ax.plot([x for x, _, _ in pts], [y for _, y, _ in pts], "-", color=_BLUE, lw=1.6, zorder=2)
-        for x, y, ok in pts:
-            if ok:
-                ax.plot(x, y, "o", ms=7, color=_GREEN, zorder=3)
-            else:
-                ax.plot(
-                    x,
-                    y,
-                    "o",
-                    ms=7,
-                    mfc="white",
-                    mec=_RED if ok is False else _GREY,
-                    mew=1.8,
-                    zorder=3,
-                )
 
-    dots(ax_d, "density")
-    target = targets.get("density")
+def _dots(ax: Any, passes: tuple[ProgressRow, ...], key: str) -> None:
+    """The figure ``key`` of each pass: a line, and a dot per pass by its verdict."""
+    pts = [(p.number, getattr(p, key), p.meets) for p in passes if getattr(p, key) is not None]
+    if not pts:
+        return
+    ax.plot([x for x, _, _ in pts], [y for _, y, _ in pts], "-", color=_BLUE, lw=1.6, zorder=2)
+    for x, y, ok in pts:
+        if ok:
+            ax.plot(x, y, "o", ms=7, color=_GREEN, zorder=3)
+        else:
+            ax.plot(
+                x, y, "o", ms=7, mfc="white", mec=_RED if ok is False else _GREY, mew=1.8, zorder=3
+            )
+
+
+def _density_panel(ax: Any, progress: Progress) -> None:
+    """Density per pass, the target line and the projection."""
+    passes = progress.passes
+    target = progress.targets.density
+    _dots(ax, passes, "density")
     if target is not None:
-        ax_d.axhline(
-            target, color=_RED, ls="--", lw=1.2, label=f"target {target:.1f}".removesuffix(".0")
-        )
-    if projection and target is not None and xs and projection.get("passes_to_spec"):
-        last_x = xs[-1]
-        last_y = passes[-1]["density"]
-        mid = last_x + projection["passes_to_spec"]
-        ax_d.plot([last_x, mid], [last_y, target], ":", color=_BLUE, lw=1.6, label="projection")
-        low = last_x + projection["low"]
-        high = projection.get("high")
-        if high is not None:
-            ax_d.plot(
-                [low, last_x + high],
+        ax.axhline(target, color=_RED, ls="--", lw=1.2, label=f"target {num(target, 1)}")
+    projection = progress.projection
+    if projection and target is not None and passes and projection.passes_to_spec:
+        last_x = passes[-1].number
+        mid = last_x + projection.passes_to_spec
+        last_y = passes[-1].density
+        ax.plot([last_x, mid], [last_y, target], ":", color=_BLUE, lw=1.6, label="projection")
+        low = last_x + projection.low
+        if projection.high is not None:
+            high = last_x + projection.high
+            ax.plot(
+                [low, high],
                 [target, target],
                 "-",
                 color=_BLUE,
@@ -119,7 +115,7 @@ def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
                 solid_capstyle="butt",
             )
         else:
-            ax_d.annotate(
+            ax.annotate(
                 "(open-ended)",
                 (low, target),
                 textcoords="offset points",
@@ -127,42 +123,46 @@ def trend_png(progress: Mapping[str, Any], *, dpi: int = 110) -> bytes:
                 fontsize=8,
                 color=_BLUE,
             )
-        ax_d.plot(mid, target, "D", ms=6, color=_BLUE)
-    ax_d.set_ylabel(density_label(str(unit), float(cell)))
-    ax_d.set_title("Density", loc="left", fontsize=10)
-    tops = [p["density"] for p in passes if p.get("density") is not None]
+        ax.plot(mid, target, "D", ms=6, color=_BLUE)
+    unit = progress.unit or "in"
+    ax.set_ylabel(density_words(to_mm(progress.cell or 1.0, unit), unit))
+    ax.set_title("Density", loc="left", fontsize=10)
+    tops = [p.density for p in passes if p.density is not None]
     if target is not None:
         tops.append(target)
-    ax_d.set_ylim(0, max(tops + [1.0]) * 1.15)
-    if any(p.get("meets") is not None for p in passes):
-        ax_d.plot([], [], "o", ms=7, color=_GREEN, label="meets spec")
-        ax_d.plot([], [], "o", ms=7, mfc="white", mec=_RED, mew=1.8, label="short of spec")
-    ax_d.grid(True, alpha=0.3)
-    if ax_d.get_legend_handles_labels()[0]:
-        ax_d.legend(loc="lower right", fontsize=8, frameon=False)
+    ax.set_ylim(0, max(tops + [1.0]) * 1.15)
+    if any(p.meets is not None for p in passes):
+        ax.plot([], [], "o", ms=7, color=_GREEN, label="meets spec")
+        ax.plot([], [], "o", ms=7, mfc="white", mec=_RED, mew=1.8, label="short of spec")
+    ax.grid(True, alpha=0.3)
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(loc="lower right", fontsize=8, frameon=False)
 
-    dots(ax_b, "bearing_percent")
-    bmin, bmax = targets.get("bearing_min"), targets.get("bearing_max")
+
+def _bearing_panel(ax: Any, progress: Progress) -> None:
+    """Bearing per pass within the target range; the pass axis."""
+    from matplotlib.ticker import MaxNLocator
+
+    passes = progress.passes
+    _dots(ax, passes, "bearing_percent")
+    bmin, bmax = progress.targets.bearing_min, progress.targets.bearing_max
     if bmin is not None or bmax is not None:
         lo = 0.0 if bmin is None else float(bmin)
         hi = 100.0 if bmax is None else float(bmax)
-        ax_b.axhspan(lo, hi, color=_GREEN, alpha=0.12, label="target range")
+        ax.axhspan(lo, hi, color=_GREEN, alpha=0.12, label="target range")
         for v in (bmin, bmax):
             if v is not None:
-                ax_b.axhline(v, color=_GREEN, ls="--", lw=1.0)
-        ax_b.legend(loc="lower right", fontsize=8, frameon=False)
-    ax_b.set_ylabel("bearing %")
-    ax_b.set_title("Bearing", loc="left", fontsize=10)
-    ax_b.set_ylim(0, 100)
-    ax_b.set_xlabel("pass")
-    ax_b.grid(True, alpha=0.3)
-    ax_b.xaxis.set_major_locator(MaxNLocator(integer=True))
-    if xs:
-        right = xs[-1]
-        if projection and projection.get("passes_to_spec"):
-            right += projection.get("high") or projection["passes_to_spec"]
-        ax_b.set_xlim(0.5, right + 0.5)
-
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi)
-    return buf.getvalue()
+                ax.axhline(v, color=_GREEN, ls="--", lw=1.0)
+        ax.legend(loc="lower right", fontsize=8, frameon=False)
+    ax.set_ylabel("bearing %")
+    ax.set_title("Bearing", loc="left", fontsize=10)
+    ax.set_ylim(0, 100)
+    ax.set_xlabel("pass")
+    ax.grid(True, alpha=0.3)
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+    if passes:
+        right = passes[-1].number
+        projection = progress.projection
+        if projection and projection.passes_to_spec:
+            right += projection.high or projection.passes_to_spec
+        ax.set_xlim(0.5, right + 0.5)

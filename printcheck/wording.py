@@ -1,0 +1,204 @@
+"""Wording: how printcheck writes numbers, densities and a spec's targets in text.
+
+Every text that people read (terminal lines, check reasons, the spec list, the HTML
+report, the overlay's figures) formats its numbers and names its densities and targets
+here, so that one thing is said one way everywhere.
+
+Number formats
+--------------
+:func:`num`
+    At most ``digits`` decimals, no trailing zeros: ``10.3226 -> "10.3"``, ``20.0 -> "20"``.
+    For figures in sentences.
+:func:`fixed`
+    Exactly ``digits`` decimals, ``"–"`` for a missing value: for the report's tables and
+    figure boxes, where columns of numbers line up.
+:func:`cell_figure`
+    A cell's density on the overlay: whole points from 10 up, else one decimal.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+from printcheck.units import MM_PER_IN
+
+if TYPE_CHECKING:
+    from printcheck.spec import Spec
+
+__all__ = [
+    "BearingWords",
+    "TargetLine",
+    "num",
+    "fixed",
+    "cell_figure",
+    "density_words",
+    "length_words",
+    "bearing_words",
+    "target_lines",
+]
+
+
+def num(value: float, digits: int = 1) -> str:
+    """``value`` with at most ``digits`` decimals and no trailing zeros.
+
+    Examples
+    --------
+    >>> num(10.3226), num(20.0), num(0.7484, 3), num(-0.01)
+    ('10.3', '20', '0.748', '0')
+    """
+    text = f"{value:.{digits}f}"
+    if "." in text:
+        text = text.rstrip("0").rstrip(".")
+    return "0" if text == "-0" else text
+
+
+def fixed(value: float | int | bool | None, digits: int = 1) -> str:
+    """A figure for a table: ``digits`` decimals for a float, whole for an int.
+
+    ``None`` is ``"–"`` (no value) and a bool ``"yes"``/``"no"``.
+
+    Examples
+    --------
+    >>> fixed(3.3), fixed(3.304, 2), fixed(12), fixed(None), fixed(True)
+    ('3.3', '3.30', '12', '–', 'yes')
+    """
+    if value is None:
+        return "–"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int):
+        return str(value)
+    return f"{float(value):.{digits}f}"
+
+
+def cell_figure(value: float) -> str:
+    """A cell's density as the overlay writes it in the cell's corner: ``"24"``, ``"3.5"``.
+
+    Whole points from 10 up (the decimal would not fit a small cell), one decimal below.
+    """
+    return f"{value:.0f}" if abs(value) >= 10 else f"{value:.1f}"
+
+
+def density_words(cell_mm: float, unit: str = "mm") -> str:
+    """The density unit in words for a counting square of side ``cell_mm``.
+
+    A 25.4 mm square is the trade's ``"points per square inch"`` whatever ``unit``;
+    otherwise ``"points per N in square"`` (``unit`` ``"in"``, N to 3 decimals) or
+    ``"points per N mm square"`` (N to 2 decimals).
+
+    Examples
+    --------
+    >>> density_words(25.4, "in"), density_words(25.0), density_words(50.8, "in")
+    ('points per square inch', 'points per 25 mm square', 'points per 2 in square')
+    """
+    if math.isclose(cell_mm, MM_PER_IN, rel_tol=1e-9):
+        return "points per square inch"
+    if unit == "in":
+        return f"points per {num(cell_mm / MM_PER_IN, 3)} in square"
+    return f"points per {num(cell_mm, 2)} mm square"
+
+
+def length_words(value_mm: float, unit: str) -> str:
+    """A length in ``unit``: ``"0.748 in"`` (3 decimals) or ``"19 mm"`` (1 decimal)."""
+    if unit == "in":
+        return f"{num(value_mm / MM_PER_IN, 3)} in"
+    return f"{num(value_mm, 1)} mm"
+
+
+@dataclass(frozen=True)
+class BearingWords:
+    """A bearing range in words, three ways.
+
+    Attributes
+    ----------
+    target : str
+        Short, for a check's target: ``"20-60%"``, ``">= 20%"``, ``"<= 60%"``.
+    within : str
+        What a bearing that meets it does: ``"is within 20-60%"``, ``"is at least 20%"``.
+    span : str
+        The range in a listing: ``"20% to 60%"``, ``"at least 20%"``, ``"at most 60%"``.
+    """
+
+    target: str
+    within: str
+    span: str
+
+
+def bearing_words(low: float | None, high: float | None) -> BearingWords:
+    """Words for the bearing range ``low`` to ``high`` percent (either may be None).
+
+    Raises
+    ------
+    ValueError
+        When both are None (there is no range to word).
+    """
+    if low is not None and high is not None:
+        lo, hi = num(low, 1), num(high, 1)
+        return BearingWords(f"{lo}-{hi}%", f"is within {lo}-{hi}%", f"{lo}% to {hi}%")
+    if low is not None:
+        lo = num(low, 1)
+        return BearingWords(f">= {lo}%", f"is at least {lo}%", f"at least {lo}%")
+    if high is not None:
+        hi = num(high, 1)
+        return BearingWords(f"<= {hi}%", f"is at most {hi}%", f"at most {hi}%")
+    raise ValueError("bearing_words needs a low or a high bound, got neither")
+
+
+@dataclass(frozen=True)
+class TargetLine:
+    """One target of a spec in words: ``label`` ("density", "cells", "bearing",
+    "bare patch"), ``words`` ("at least 16 points per 25 mm square on average") and
+    ``source`` (where its number comes from, or ``""``)."""
+
+    label: str
+    words: str
+    source: str
+
+
+def target_lines(spec: Spec) -> list[TargetLine]:
+    """Each target ``spec`` sets, in words, in the spec's own units and square."""
+    per = density_words(spec.basis_mm, spec.units)
+    out: list[TargetLine] = []
+    if spec.min_density is not None:
+        out.append(
+            TargetLine(
+                "density",
+                f"at least {num(spec.min_density, 3)} {per} on average",
+                spec.source_of("min_density"),
+            )
+        )
+    if spec.min_cell_density is not None:
+        share = (
+            "every complete cell"
+            if spec.cell_share >= 1.0
+            else f"{num(100 * spec.cell_share, 1)}% of complete cells"
+        )
+        out.append(
+            TargetLine(
+                "cells",
+                f"at least {num(spec.min_cell_density, 3)} {per} in {share}",
+                spec.source_of("min_cell_density"),
+            )
+        )
+    if spec.bearing_min is not None or spec.bearing_max is not None:
+        sources = [
+            f"{bound}: {text}"
+            for bound, text in (
+                ("min", spec.source_of("bearing_min")),
+                ("max", spec.source_of("bearing_max")),
+            )
+            if text
+        ]
+        span = bearing_words(spec.bearing_min, spec.bearing_max).span
+        out.append(TargetLine("bearing", span, "; ".join(sources)))
+    if spec.max_bare_mm is not None:
+        out.append(
+            TargetLine(
+                "bare patch",
+                f"at most {length_words(spec.max_bare_mm, spec.units)} across",
+                spec.source_of("max_bare"),
+            )
+        )
+    return out
