@@ -30,7 +30,14 @@ import math
 import cv2
 import numpy as np
 
-__all__ = ["seeds_and_growth", "separate", "contact_labels", "finish", "fill_small_holes"]
+__all__ = [
+    "seeds_and_growth",
+    "separate",
+    "contact_labels",
+    "finish",
+    "fill_small_holes",
+    "drop_edge_slivers",
+]
 
 
 def _disc(radius: int) -> np.ndarray:
@@ -300,3 +307,38 @@ def fill_small_holes(mask: np.ndarray, max_px: float, glare: np.ndarray | None) 
 def spot_scale_px(px_per_mm: float, mm: float) -> float:
     """A length in mm as pixels (for filters), never below a third of a pixel."""
     return max(mm * px_per_mm, 1.0 / 3.0) if math.isfinite(px_per_mm) else 1.0
+
+
+def drop_edge_slivers(mask: np.ndarray, visible: np.ndarray, px_per_mm: float) -> np.ndarray:
+    """Drop marks lying mostly in a thin band along the edge of ``visible``.
+
+    Such a mark is the edge of a card's cut-out (white paper) or its shadow, shown
+    through a registration error of a fraction of a millimetre: a strip at least 2 mm
+    long and nowhere 0.4 mm wide; a real spot cut by the edge is shorter, wider, or keeps
+    most of its area inside.  The band is ``max(1, 0.1 * px_per_mm)`` pixels
+    wide.
+    """
+    w = max(1, int(round(0.1 * px_per_mm)))
+    inner = cv2.erode(visible.view(np.uint8), np.ones((2 * w + 1, 2 * w + 1), np.uint8),
+                      borderType=cv2.BORDER_CONSTANT, borderValue=0).view(bool)
+    band = mask & ~inner
+    if not band.any():
+        return mask
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(
+        mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
+    )
+    area = stats[:, cv2.CC_STAT_AREA]
+    in_band = np.bincount(lab[band], minlength=n)
+    long_side = np.maximum(stats[:, cv2.CC_STAT_WIDTH], stats[:, cv2.CC_STAT_HEIGHT])
+    # a strip of paper runs along the edge: long, and nowhere 0.4 mm wide; a spot cut by
+    # the edge is shorter, or wider somewhere
+    r = max(1, int(round(0.2 * px_per_mm)))
+    core = cv2.erode(mask.view(np.uint8), cv2.getStructuringElement(
+        cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))).view(bool)
+    wide = np.bincount(lab[core], minlength=n) > 0
+    strip = (long_side >= 2.0 * px_per_mm) & ~wide
+    drop = (in_band > 0.5 * area) & strip
+    drop[0] = False
+    if not drop.any():
+        return mask
+    return mask & ~drop[lab]

@@ -73,8 +73,9 @@ def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> t
 
     With compound on the reference the spots are the strongly coloured tail of the
     evidence; with compound on the work the rubbed-through metal is the tail below the
-    coat.  The colour whose tail stands further from the bulk wins; the ratio of the two
-    tails says how clear the choice was.
+    coat.  The colour whose tail stands further from the bulk wins (or, with a window
+    coloured all over, the colour of the bulk); the ratio of the two says how clear the
+    choice was.
 
     Parameters
     ----------
@@ -94,6 +95,10 @@ def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> t
             continue
         lo, mid, hi = np.quantile(ev, [0.005, 0.5, 0.995])
         tails[name] = float(hi - mid) if compound_on == "reference" else float(mid - lo)
+        if compound_on == "reference" and mid > 0.4:
+            # the window is coloured all over (a surface covered in compound): no white
+            # balance error moves grey metal this far, so the bulk itself tells the colour
+            tails[name] = max(tails[name], float(mid))
     best = max(tails, key=lambda k: tails[k])
     other = tails["red" if best == "blue" else "blue"]
     return best, tails[best] / max(other, 1e-6)

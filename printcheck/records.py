@@ -79,11 +79,13 @@ class CellSummary:
 @dataclass(frozen=True)
 class SegmentationSummary:
     """How the compound stood out: which side it was on, its level and the noise (log-ratio
-    units of the colour evidence; NaN when read from a history that did not record them)."""
+    units of the colour evidence).  A pass recorded by an earlier method holds only its
+    threshold; the fields a record does not hold are None."""
 
-    compound_on: str
-    compound_level: float
-    noise: float
+    compound_on: str | None = None
+    compound_level: float | None = None
+    noise: float | None = None
+    threshold: float | None = None
 
 
 @dataclass(frozen=True)

@@ -237,7 +237,7 @@ def summary_to_dict(s: PassSummary) -> dict[str, Any]:
         "sha256": s.sha256,
         "confidence": None if s.confidence is None else dataclasses.asdict(s.confidence),
         "spot_sizes": dict(s.spot_sizes),
-        "segmentation": {"compound": s.compound, **dataclasses.asdict(s.segmentation)},
+        "segmentation": _segmentation_dict(s),
         "guidance": {
             "high": [dataclasses.asdict(h) for h in s.high],
             "bare": [dataclasses.asdict(b) for b in s.bare],
@@ -283,8 +283,18 @@ def summary_from_dict(data: Mapping[str, Any]) -> PassSummary:
         raise ValueError(f"not a printcheck result object ({type(exc).__name__}: {exc})") from None
 
 
-def _nan_float(value: Any) -> float:
-    return math.nan if value is None else float(value)
+def _segmentation_dict(s: PassSummary) -> dict[str, Any]:
+    """The result JSON's ``segmentation``: the keys the summary holds, in their order."""
+    out: dict[str, Any] = {"compound": s.compound}
+    for key, value in (
+        ("threshold", s.segmentation.threshold),
+        ("compound_on", s.segmentation.compound_on),
+        ("compound_level", s.segmentation.compound_level),
+        ("noise", s.segmentation.noise),
+    ):
+        if value is not None:
+            out[key] = value
+    return out
 
 
 def _summary_from(d: Mapping[str, Any]) -> PassSummary:
@@ -319,9 +329,10 @@ def _summary_from(d: Mapping[str, Any]) -> PassSummary:
         spot_sizes=tuple((str(k), _opt_float(v)) for k, v in (d.get("spot_sizes") or {}).items()),
         compound=str(seg.get("compound", "")),
         segmentation=SegmentationSummary(
-            compound_on=str(seg.get("compound_on", "reference")),
-            compound_level=_nan_float(seg.get("compound_level")),
-            noise=_nan_float(seg.get("noise")),
+            compound_on=None if seg.get("compound_on") is None else str(seg["compound_on"]),
+            compound_level=_opt_float(seg.get("compound_level")),
+            noise=_opt_float(seg.get("noise")),
+            threshold=_opt_float(seg.get("threshold")),
         ),
         high=tuple(HighArea(**h) for h in guidance.get("high") or ()),
         bare=tuple(BareArea(**b) for b in guidance.get("bare") or ()),

@@ -19,7 +19,13 @@ from printcheck.judge import Check, Verdict
 from printcheck.layout import Window
 from printcheck.locate import Calibration, Rectified
 from printcheck.measure import BarePatch, Cell, Confidence, Guidance, Measurement, Spots
-from printcheck.records import CalibrationSummary, CellSummary, PassSummary, WindowSummary
+from printcheck.records import (
+    CalibrationSummary,
+    CellSummary,
+    PassSummary,
+    SegmentationSummary,
+    WindowSummary,
+)
 from printcheck.result import Result
 from printcheck.segment import Segmentation
 
@@ -130,7 +136,11 @@ def make_result(
         guidance=Guidance(high=high, bare=bare),
         size_stats={"median_area_mm2": float(np.median(area)) if k_spots else 0.0},
     )
-    seg = Segmentation(mask, mask.astype(np.float32), 0.5, "blue", 0.05, visible, px_per_mm)
+    seg = Segmentation(
+        mask=mask, alternates=(mask, mask), visible=visible, compound="blue",
+        compound_on="reference", px_per_mm=px_per_mm, compound_level=1.2, noise=0.01,
+        glare_fraction=0.0,
+    )
     cal = Calibration("layout", "card-2in", (0, 1, 2, 3), px_per_mm, 0.03, 20.0)
     rect = Rectified(image, frame, visible, analysed, cal, np.eye(3))
     return Result(
@@ -195,6 +205,6 @@ def make_summary(
         confidence=None,
         spot_sizes=(("median_area_mm2", 1.5),),
         compound="blue",
-        threshold=0.5,
+        segmentation=SegmentationSummary("reference", 1.2, 0.01),
         warnings=warnings,
     )

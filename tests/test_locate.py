@@ -503,7 +503,13 @@ def test_masks_are_exact_to_a_pixel(photos: dict[str, _Photo]) -> None:
         & (y < w.y_mm + w.height_mm + m)
     )
     assert not (rect.visible & ~in_outer).any()
-    assert (rect.visible & ~excluded).sum() >= 0.998 * (in_outer & ~excluded).sum()
+    # the photo shows a paper card round the window: its cut-out edge is found on every
+    # side and the 2 mm margin of the layout is hidden, so what is visible is the window
+    # (up to where the edge is seen, at most 0.6 mm out: a registration error of the card)
+    out_mm = np.maximum.reduce([w.x_mm - x, x - (w.x_mm + w.width_mm), w.y_mm - y,
+                                y - (w.y_mm + w.height_mm)])
+    assert out_mm[rect.visible & ~excluded & ~in_window].max(initial=0.0) <= 0.6
+    assert (rect.visible & ~excluded).sum() >= 0.998 * (in_window & ~excluded).sum()
     assert f.origin_mm == pytest.approx((-m, -m))
     # the window slice holds exactly the pixels whose centres are in the window
     rs, cs = f.window_slices()
@@ -633,7 +639,7 @@ def test_rectify_scale_whole_image_and_window() -> None:
 
 def test_rectify_scale_errors() -> None:
     image = _square_on(10.0, (60.0, 60.0))
-    with pytest.raises(OptionError, match="px-per-mm must be a positive number"):
+    with pytest.raises(OptionError, match="px_per_mm must be a positive number"):
         rectify_scale(image, px_per_mm=0.0)
     with pytest.raises(LocateError, match="runs out of the image|runs out of the photo"):
         rectify_scale(image, px_per_mm=10.0, window=Window(30.0, 10.0, 50.8, 40.0))

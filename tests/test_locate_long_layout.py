@@ -11,8 +11,8 @@ import cv2
 import numpy as np
 import pytest
 
+from printcheck.homography import robust_fit as _robust_fit
 from printcheck.layout import Layout
-from printcheck.locate import _robust_fit
 from printcheck.synth.layouts import slideway_layout
 from printcheck.synth.render import Camera, camera_homography
 
