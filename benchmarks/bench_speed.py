@@ -212,7 +212,7 @@ def time_stages(shot: Shot, repeat: int) -> dict[str, Any]:
     from printcheck.locate import LocateConfig, detect_markers, locate
     from printcheck.measure import MeasureConfig, measure
     from printcheck.pipeline import inspect_photo
-    from printcheck.segment import SegmentConfig, mask_at, segment
+    from printcheck.segment import SegmentConfig, segment
 
     options = _options(shot.layout)
     layout = options.layout
@@ -237,15 +237,11 @@ def time_stages(shot: Shot, repeat: int) -> dict[str, Any]:
             px_per_mm=rect.frame.px_per_mm,
         )
         t["segment"], seg = _median(
-            lambda: segment(rect.image, visible=rect.visible, config=seg_config), repeat
-        )
-        t["confidence masks"], alternates = _median(
-            lambda: (
-                mask_at(seg, seg.threshold - seg.spread),
-                mask_at(seg, seg.threshold + seg.spread),
-            ),
+            lambda: segment(rect.image, visible=rect.visible, analysed=rect.analysed,
+                            config=seg_config),
             repeat,
         )
+        alternates = seg.alternates
         meas_config = MeasureConfig(
             cell_mm=options.cell_mm,
             min_spot_mm2=options.min_spot_mm2,
@@ -357,7 +353,7 @@ def _child_rss(path: str, layout_name: str) -> None:
     from printcheck.locate import LocateConfig, locate
     from printcheck.measure import MeasureConfig, measure
     from printcheck.pipeline import inspect_photo
-    from printcheck.segment import SegmentConfig, mask_at, segment
+    from printcheck.segment import SegmentConfig, segment
 
     options = _options(layout_name)
     assert options.layout is not None and options.spec is not None
@@ -373,14 +369,11 @@ def _child_rss(path: str, layout_name: str) -> None:
         seg = segment(
             rect.image,
             visible=rect.visible,
+            analysed=rect.analysed,
             config=SegmentConfig(px_per_mm=rect.frame.px_per_mm),
         )
         peaks["segment"] = _peak_rss_mb()
-        alternates = (
-            mask_at(seg, seg.threshold - seg.spread),
-            mask_at(seg, seg.threshold + seg.spread),
-        )
-        peaks["confidence masks"] = _peak_rss_mb()
+        alternates = seg.alternates
         meas = measure(
             seg.mask,
             frame=rect.frame,

@@ -34,6 +34,8 @@ __all__ = [
     "seeds_and_growth",
     "separate",
     "contact_labels",
+    "watershed_regions",
+    "merge_regions",
     "finish",
     "fill_small_holes",
     "drop_edge_slivers",
@@ -102,18 +104,45 @@ def separate(
         The contacts, with a one-pixel gap wherever two of them would touch.
     """
     labels = contact_labels(region, height, px_per_mm=px_per_mm, split_share=split_share,
-                            min_dip=min_dip, large_lobes_deeper=large_lobes_deeper)
+                            min_dip=min_dip, large_lobes_deeper=large_lobes_deeper,
+                            seeds=seeds)
     return finish(labels, seeds, height, rim_share=rim_share, score=score)
 
 
 def contact_labels(
     region: np.ndarray, height: np.ndarray, *, px_per_mm: float, split_share: float,
-    min_dip: float, large_lobes_deeper: bool = True,
+    min_dip: float, large_lobes_deeper: bool = True, seeds: np.ndarray | None = None,
 ) -> np.ndarray:
     """Label image of the contacts ``region`` holds (see :func:`separate`), rims uncut."""
     if not region.any():
         return np.zeros(region.shape, np.int32)
-    regions, n = _watershed(region, height, px_per_mm)
+    regions, n = watershed_regions(region, height, px_per_mm=px_per_mm, seeds=seeds)
+    return merge_regions(regions, n, height, split_share=split_share, min_dip=min_dip,
+                         px_per_mm=px_per_mm, large_lobes_deeper=large_lobes_deeper)
+
+
+def watershed_regions(
+    region: np.ndarray, height: np.ndarray, *, px_per_mm: float,
+    seeds: np.ndarray | None = None,
+) -> tuple[np.ndarray, int]:
+    """The watershed regions of ``region`` (labels, largest label); see :func:`separate`.
+
+    Cut once on the loosest of several decisions, they serve the stricter ones too: a
+    stricter decision keeps a subset of the grown components, and its regions are those
+    regions restricted to it (:func:`merge_regions` then joins what its own rule joins).
+    """
+    if not region.any():
+        return np.zeros(region.shape, np.int32), 0
+    return _watershed(region, height, px_per_mm, seeds)
+
+
+def merge_regions(
+    regions: np.ndarray, n: int, height: np.ndarray, *, split_share: float, min_dip: float,
+    px_per_mm: float, large_lobes_deeper: bool = True,
+) -> np.ndarray:
+    """Join neighbouring watershed regions unless the valley between them is deep."""
+    if n == 0:
+        return regions
     return _merge(regions, n, height, split_share=split_share, min_dip=min_dip,
                   px_per_mm=px_per_mm, large_lobes_deeper=large_lobes_deeper)
 
@@ -143,23 +172,31 @@ def finish(
     has_seed[0] = False
     labels = np.where(has_seed[labels], labels, 0)
     mask = _carve(labels, height)
-    # cutting a contact's rim may leave crumbs of its halo apart from it: only the piece
-    # holding the contact's highest point is the contact
+    return _drop_crumbs(mask, labels, height)
+
+
+def _drop_crumbs(mask: np.ndarray, labels: np.ndarray, height: np.ndarray) -> np.ndarray:
+    """Cutting a contact's rim may leave crumbs of its halo apart from it: only the piece
+    holding the contact's highest point is the contact."""
     n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     if n <= 1:
         return mask
-    top = np.zeros(int(labels.max()) + 1, np.int64)
-    best = np.full(top.size, -np.inf)
-    flat = np.flatnonzero(mask.ravel())
+    owner = np.zeros(n, np.int64)
+    owner[pieces[mask]] = labels[mask]
+    per_label = np.bincount(owner[1:], minlength=int(labels.max()) + 1)
+    split = per_label > 1
+    split[0] = False
+    if not split.any():
+        return mask
+    sel = mask & split[labels]
+    flat = np.flatnonzero(sel.ravel())
     lab_f = labels.ravel()[flat]
-    h_f = height.ravel()[flat]
-    order = np.lexsort((h_f, lab_f))
+    order = np.lexsort((height.ravel()[flat], lab_f))
     last = np.r_[lab_f[order][1:] != lab_f[order][:-1], True]
-    top_px = flat[order][last]
-    keep = np.zeros(n, bool)
-    keep[pieces.ravel()[top_px]] = True
+    keep = np.ones(n, bool)
+    keep[np.unique(pieces.ravel()[flat])] = False
+    keep[pieces.ravel()[flat[order][last]]] = True
     keep[0] = False
-    del top, best
     return keep[pieces]
 
 
@@ -171,18 +208,39 @@ def _label_max(labels: np.ndarray, values: np.ndarray) -> np.ndarray:
     return peak
 
 
-def _watershed(region: np.ndarray, height: np.ndarray, px_per_mm: float) -> tuple[np.ndarray, int]:
-    """Watershed regions of ``-height`` in ``region``, one per local peak (0.15 mm apart)."""
+def _watershed(
+    region: np.ndarray, height: np.ndarray, px_per_mm: float, seeds: np.ndarray | None = None
+) -> tuple[np.ndarray, int]:
+    """Watershed regions of ``-height`` in ``region``, one per local peak (0.15 mm apart;
+    with ``seeds``, only peaks on a seed: a contact cannot start anywhere else).
+
+    Only the parts of ``region`` that hold two peaks or more are cut; the rest stay
+    whole.  Returns the labels and the largest label.
+    """
     from skimage.segmentation import watershed
 
     k = max(1, int(round(0.15 * px_per_mm)))
     peaks = (height >= cv2.dilate(height, _disc(k))) & region
-    n, markers = cv2.connectedComponents(peaks.view(np.uint8), connectivity=8,
-                                         ltype=cv2.CV_32S)
-    if n <= 2:
-        return region.astype(np.int32), 1
-    ws = watershed(-height, markers=markers, mask=region, connectivity=2)
-    return ws.astype(np.int32), n - 1
+    if seeds is not None:
+        peaks &= seeds
+    n, comp, stats, _ = cv2.connectedComponentsWithStats(
+        region.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
+    )
+    pn, markers = cv2.connectedComponents(peaks.view(np.uint8), connectivity=8,
+                                          ltype=cv2.CV_32S)
+    comp_of_peak = np.zeros(pn, np.int64)
+    comp_of_peak[markers[peaks]] = comp[peaks]
+    multi = np.bincount(comp_of_peak[1:], minlength=n) >= 2
+    multi[0] = False
+    if not multi.any():
+        return comp, n - 1
+    # one watershed over the parts that hold two peaks or more; markers numbered after
+    # the components so that the labels stay apart
+    cut = multi[comp]
+    ws = watershed(-height, markers=np.where(cut & (markers > 0), markers + n, 0), mask=cut,
+                   connectivity=2)
+    labels = np.where(cut, ws, comp).astype(np.int32)
+    return labels, int(labels.max())
 
 
 def _merge(

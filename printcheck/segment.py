@@ -28,12 +28,13 @@ import cv2
 import numpy as np
 
 from printcheck.contacts import (
-    contact_labels,
     drop_edge_slivers,
     fill_small_holes,
     finish,
+    merge_regions,
     seeds_and_growth,
     separate,
+    watershed_regions,
 )
 from printcheck.errors import OptionError, PhotoError
 from printcheck.evidence import (
@@ -274,8 +275,12 @@ def segment(
         )
     rim = config.rim_share
     fewer, more = _nudged(config)
-    mask = _decide(field, config, s, rim)
-    alternates = (_decide(field, fewer, s, min(1.5 * rim, 0.9)), _decide(field, more, s, rim / 1.5))
+    cut = _regions(field, more, s) if config.compound_on == "reference" else None
+    mask = _decide(field, config, s, rim, cut)
+    alternates = (
+        _decide(field, fewer, s, min(1.5 * rim, 0.9), cut),
+        _decide(field, more, s, rim / 1.5, cut),
+    )
     return result(mask, alternates, level, field.noise)
 
 
@@ -383,10 +388,22 @@ def _coat_depth(
     return np.maximum(metal - coat, 0.05).astype(np.float32)
 
 
-def _decide(field: _Field, config: SegmentConfig, s: float, rim: float) -> np.ndarray:
-    """The contact mask from the field, by ``config``'s thresholds and a rim share."""
+def _decide(
+    field: _Field, config: SegmentConfig, s: float, rim: float,
+    cut: tuple[np.ndarray, int] | None,
+) -> np.ndarray:
+    """The contact mask from the field, by ``config``'s thresholds and a rim share.
+
+    ``cut`` is the watershed of the loosest decision (compound on the reference), shared
+    by the three decisions.
+    """
     if config.compound_on == "reference":
-        labels, seeds = _reference_labels(field, config, s)
+        assert cut is not None
+        seeds, grown = _seeds_and_growth(field, config)
+        regions, n = cut
+        labels = merge_regions(np.where(grown, regions, 0), n, field.smooth,
+                               split_share=config.split_share, min_dip=3.0 * field.noise,
+                               px_per_mm=s)
         mask = finish(labels, seeds, field.smooth, rim_share=rim, score=field.score,
                       min_core_px=config.min_spot_mm2 * s * s)
     else:
@@ -406,15 +423,17 @@ def _decide(field: _Field, config: SegmentConfig, s: float, rim: float) -> np.nd
     return mask
 
 
-def _reference_labels(
-    field: _Field, config: SegmentConfig, s: float
-) -> tuple[np.ndarray, np.ndarray]:
-    """Contacts (labels, rims uncut) and seeds, compound on the reference."""
+def _seeds_and_growth(field: _Field, config: SegmentConfig) -> tuple[np.ndarray, np.ndarray]:
+    """Seeds, and the region grown from them (compound on the reference)."""
     seeds = (field.zs >= config.seed_sigma) & (field.smooth >= config.seed_share * field.local)
     grown = seeds_and_growth(seeds & field.valid, (field.z >= config.grow_sigma) & field.valid)
-    labels = contact_labels(grown, field.smooth, px_per_mm=s, split_share=config.split_share,
-                            min_dip=3.0 * field.noise)
-    return labels, seeds
+    return seeds, grown
+
+
+def _regions(field: _Field, loosest: SegmentConfig, s: float) -> tuple[np.ndarray, int]:
+    """The watershed regions of the loosest decision's grown contacts."""
+    seeds, grown = _seeds_and_growth(field, loosest)
+    return watershed_regions(grown, field.smooth, px_per_mm=s, seeds=seeds)
 
 
 def _nudged(config: SegmentConfig) -> tuple[SegmentConfig, SegmentConfig]:
