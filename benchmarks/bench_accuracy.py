@@ -3,7 +3,7 @@
 Renders 44 photos of prints with printcheck.synth (seeds 5000 and up and settings that
 tests/test_accuracy.py does not use), runs them through locate (or, should locate
 refuse a photo, a rectification by the renderer's known homography, reported as such),
-segment and measure, and compares with the renderer's truth counted by the DESIGN.md
+segment and measure, and compares with the renderer's truth counted by the docs/formats.md
 grid rules:
 
 - spot-count error, % of the truth count (targets: median <= 4 %, 90th pct <= 8 %)

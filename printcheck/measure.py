@@ -54,9 +54,14 @@ class MeasureConfig:
         Specks smaller than this are not spots (default 0.1 mm², docs/formats.md).
     max_bare_mm : float or None
         Bare patches larger than this are flagged in the guidance (from the spec).
+    count_spread : float
+        The count's range is at least one point, and this share of the count, either
+        way: how far the count of a well-resolved photo strays from the rendered truth
+        (spots whose pieces at the window edge or whose necks are borderline), which no
+        nudge of the thresholds shows.
     doubtful_change : float
         The result is flagged doubtful when the count's range reaches further than this
-        share from the count ...
+        share from the count (beyond the ``count_spread``) ...
     doubtful_bearing : float
         ... or the bearing's range further than this many percentage points.
     resolution_px : float
@@ -74,6 +79,7 @@ class MeasureConfig:
     cell_mm: float = 25.4
     min_spot_mm2: float = 0.1
     max_bare_mm: float | None = None
+    count_spread: float = 0.02
     doubtful_change: float = 0.15
     doubtful_bearing: float = 5.0
     resolution_px: float = 6.0
@@ -87,8 +93,15 @@ class MeasureConfig:
             raise OptionError(f"min_spot_mm2 must be zero or more, got {self.min_spot_mm2!r}")
         if self.max_bare_mm is not None and not self.max_bare_mm > 0:
             raise OptionError(f"max_bare_mm must be greater than zero, got {self.max_bare_mm!r}")
-        for name in ("doubtful_change", "doubtful_bearing", "resolution_px",
-                     "oversize_factor", "heavy_bearing_factor"):
+        if not (math.isfinite(self.count_spread) and self.count_spread >= 0):
+            raise OptionError(f"count_spread must be zero or more, got {self.count_spread!r}")
+        for name in (
+            "doubtful_change",
+            "doubtful_bearing",
+            "resolution_px",
+            "oversize_factor",
+            "heavy_bearing_factor",
+        ):
             value = getattr(self, name)
             if not (math.isfinite(value) and value > 0):
                 raise OptionError(f"{name} must be greater than zero, got {value!r}")
@@ -225,7 +238,6 @@ def _in_window(frame: Frame, analysed: np.ndarray) -> np.ndarray:
     return analysed & (row_idx[:, None] >= 0) & (col_idx[None, :] >= 0)
 
 
-
 # --------------------------------------------------------------------------- measure
 
 
@@ -271,8 +283,7 @@ def measure(
     grid = _Grid.of(frame, mask.shape, config.cell_mm)
     in_an = _in_window(frame, analysed)
     cell_area_px = _cell_sums(in_an, grid.row_idx, grid.col_idx, grid.rows, grid.cols)
-    cell_contact_px = _cell_sums(in_an & contact, grid.row_idx, grid.col_idx, grid.rows,
-                                 grid.cols)
+    cell_contact_px = _cell_sums(in_an & contact, grid.row_idx, grid.col_idx, grid.rows, grid.cols)
     spots = _spot_columns(frame, grid, analysed, area_px * px_area, centroid)
     analysed_px = int(in_an.sum())
     window_area = analysed_px * px_area
@@ -285,8 +296,13 @@ def measure(
     largest, bare_radius = largest_bare(in_an & ~contact, frame)
     alts = tuple(_count_and_bearing(a, frame, in_an, config) for a in alternates)
     confidence = _confidence(
-        spot_count, bearing, alts, _marginal(mask, in_an, frame, config),
-        spots, photo_px_per_mm, config,
+        spot_count,
+        bearing,
+        alts,
+        _marginal(mask, in_an, frame, config),
+        spots,
+        photo_px_per_mm,
+        config,
     )
     return Measurement(
         spots=spots,
@@ -302,9 +318,15 @@ def measure(
         cell_mm=c_mm,
         confidence=confidence,
         guidance=guidance(
-            spots=spots, contact=contact, in_an=in_an, frame=frame, bare_edt=bare_radius,
-            bearing=bearing, oversize_factor=config.oversize_factor,
-            heavy_bearing_factor=config.heavy_bearing_factor, cell_mm=c_mm,
+            spots=spots,
+            contact=contact,
+            in_an=in_an,
+            frame=frame,
+            bare_edt=bare_radius,
+            bearing=bearing,
+            oversize_factor=config.oversize_factor,
+            heavy_bearing_factor=config.heavy_bearing_factor,
+            cell_mm=c_mm,
             max_bare_mm=config.max_bare_mm,
         ),
         size_stats=_size_stats(spots),
@@ -345,10 +367,12 @@ class _Grid:
     def of(cls, frame: Frame, shape: tuple[int, int], cell_mm: float) -> _Grid:
         s = float(frame.px_per_mm)
         win = frame.window
-        row_idx, rows = _axis_cells(shape[0], frame.origin_mm[1], s, win.y_mm, win.height_mm,
-                                    cell_mm)
-        col_idx, cols = _axis_cells(shape[1], frame.origin_mm[0], s, win.x_mm, win.width_mm,
-                                    cell_mm)
+        row_idx, rows = _axis_cells(
+            shape[0], frame.origin_mm[1], s, win.y_mm, win.height_mm, cell_mm
+        )
+        col_idx, cols = _axis_cells(
+            shape[1], frame.origin_mm[0], s, win.x_mm, win.width_mm, cell_mm
+        )
         return cls(row_idx, col_idx, rows, cols)
 
     def cell_of(self, spots: Spots) -> np.ndarray:
@@ -414,13 +438,20 @@ def _cells(
             n_here = int(cell_count[k])
             cells.append(
                 Cell(
-                    row=r, col=c, x_mm=float(x0), y_mm=float(y0), width_mm=float(x1 - x0),
-                    height_mm=float(y1 - y0), area_mm2=a_mm2, complete=bool(complete),
+                    row=r,
+                    col=c,
+                    x_mm=float(x0),
+                    y_mm=float(y0),
+                    width_mm=float(x1 - x0),
+                    height_mm=float(y1 - y0),
+                    area_mm2=a_mm2,
+                    complete=bool(complete),
                     spot_count=n_here,
                     density=n_here * c_mm**2 / a_mm2 if a_mm2 > 0 else 0.0,
                     bearing_percent=(
                         100.0 * float(cell_contact_px[k]) / float(cell_area_px[k])
-                        if cell_area_px[k] else 0.0
+                        if cell_area_px[k]
+                        else 0.0
                     ),
                 )
             )
@@ -433,8 +464,13 @@ def _size_stats(spots: Spots) -> dict[str, float]:
     d_in = spots.diameter_mm[spots.in_window]
     if not a_in.size:
         return dict.fromkeys(
-            ("median_area_mm2", "p90_area_mm2", "mean_area_mm2", "median_diameter_mm",
-             "p90_diameter_mm"),
+            (
+                "median_area_mm2",
+                "p90_area_mm2",
+                "mean_area_mm2",
+                "median_diameter_mm",
+                "p90_diameter_mm",
+            ),
             0.0,
         )
     return {
@@ -455,8 +491,9 @@ def _count_and_bearing(
     """Spot count and bearing of another mask, by the same rules as the main one."""
     s = float(frame.px_per_mm)
     rows_px, cols_px = mask.shape
-    n, lab, stats, cent, keep = components(np.asarray(mask, dtype=bool),
-                                           config.min_spot_mm2 * s * s)
+    n, lab, stats, cent, keep = components(
+        np.asarray(mask, dtype=bool), config.min_spot_mm2 * s * s
+    )
     pr = np.clip(np.floor(cent[:, 1] + 0.5).astype(np.int64), 0, rows_px - 1)
     pc = np.clip(np.floor(cent[:, 0] + 0.5).astype(np.int64), 0, cols_px - 1)
     counted = keep & in_an[pr, pc]
@@ -498,8 +535,9 @@ def _confidence(
     """The range and the doubtful flag (see the module docstring)."""
     counts = [count] + [a for a, _ in alts]
     bears = [bearing] + [b for _, b in alts]
-    lo = min(counts) - marginal[0]
-    hi = max(counts) + marginal[1]
+    spread = max(1, int(round(config.count_spread * count))) if count else 0
+    lo = min(min(counts) - marginal[0], count - spread)
+    hi = max(max(counts) + marginal[1], count + spread)
     reasons = []
     d_in = spots.diameter_mm[spots.in_window]
     if photo_px_per_mm is not None and d_in.size >= 5:
@@ -511,8 +549,9 @@ def _confidence(
                 f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this photo has "
                 f"{photo_px_per_mm:.0f}: move closer"
             )
-    change = max(count - lo, hi - count) / max(count, 1)
-    if change > config.doubtful_change and max(count - lo, hi - count) > 1 and not reasons:
+    # how far the range reaches beyond the count's own spread
+    excess = max(count - lo, hi - count) - spread
+    if excess >= 1 and excess / max(count, 1) > config.doubtful_change and not reasons:
         reasons.append(f"the count could be anything from {lo} to {hi}")
     blo, bhi = min(bears), max(bears)
     if max(bearing - blo, bhi - bearing) > config.doubtful_bearing:

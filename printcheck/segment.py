@@ -98,6 +98,10 @@ class SegmentConfig:
         the coat to bare metal is worn through ...
     coat_seed : float
         ... and it holds a point worn through at least this share.
+    nudge : float
+        How far the alternates move every threshold (1: the seed by 1.5 noise levels up
+        and 1 down, the shares by half again, the split share and the coat shares by
+        0.1; the default 1.5 times that); they bound the range the measure stage reports.
     """
 
     compound: Compound = "auto"
@@ -114,6 +118,7 @@ class SegmentConfig:
     local_mm: float = 8.0
     coat_share: float = 0.5
     coat_seed: float = 0.6
+    nudge: float = 1.5
 
     def __post_init__(self) -> None:
         if self.compound not in ("auto", "blue", "red"):
@@ -123,7 +128,7 @@ class SegmentConfig:
                 f"compound_on must be reference or work, got {self.compound_on!r}"
             )
         for name in ("px_per_mm", "background_mm", "spot_mm", "seed_sigma", "grow_sigma",
-                     "local_mm"):
+                     "local_mm", "nudge"):
             value = getattr(self, name)
             if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
                 raise OptionError(f"{name} must be a number greater than zero, got {value!r}")
@@ -277,9 +282,10 @@ def segment(
     fewer, more = _nudged(config)
     cut = _regions(field, more, s) if config.compound_on == "reference" else None
     mask = _decide(field, config, s, rim, cut)
+    rim_step = 1.0 + 0.5 * config.nudge
     alternates = (
-        _decide(field, fewer, s, min(1.5 * rim, 0.9), cut),
-        _decide(field, more, s, rim / 1.5, cut),
+        _decide(field, fewer, s, min(rim_step * rim, 0.9), cut),
+        _decide(field, more, s, rim / rim_step, cut),
     )
     return result(mask, alternates, level, field.noise)
 
@@ -437,21 +443,27 @@ def _regions(field: _Field, loosest: SegmentConfig, s: float) -> tuple[np.ndarra
 
 
 def _nudged(config: SegmentConfig) -> tuple[SegmentConfig, SegmentConfig]:
-    """The same decision with every threshold moved toward less, and toward more contact."""
+    """The same decision with every threshold moved toward less, and toward more contact.
+
+    By ``config.nudge`` (1: the seed by 1.5 noise levels up and 1 down and its share by
+    half again either way, the split share by 0.1, the coat shares by 0.1).
+    """
+    k = config.nudge
+    grow = 1.0 + 0.5 * k
     fewer = replace(
         config,
-        seed_sigma=config.seed_sigma + 1.5,
-        seed_share=min(1.5 * config.seed_share, 0.95),
-        split_share=max(config.split_share - 0.1, 0.0),
-        coat_share=min(config.coat_share + 0.1, 0.95),
-        coat_seed=min(config.coat_seed + 0.1, 0.95),
+        seed_sigma=config.seed_sigma + 1.5 * k,
+        seed_share=min(grow * config.seed_share, 0.95),
+        split_share=max(config.split_share - 0.1 * k, 0.0),
+        coat_share=min(config.coat_share + 0.1 * k, 0.95),
+        coat_seed=min(config.coat_seed + 0.1 * k, 0.95),
     )
     more = replace(
         config,
-        seed_sigma=max(config.seed_sigma - 1.0, 1.0),
-        seed_share=config.seed_share / 1.5,
-        split_share=min(config.split_share + 0.1, 0.95),
-        coat_share=max(config.coat_share - 0.1, 0.05),
-        coat_seed=max(config.coat_seed - 0.1, 0.05),
+        seed_sigma=max(config.seed_sigma - 1.0 * k, 1.0),
+        seed_share=config.seed_share / grow,
+        split_share=min(config.split_share + 0.1 * k, 0.95),
+        coat_share=max(config.coat_share - 0.1 * k, 0.05),
+        coat_seed=max(config.coat_seed - 0.1 * k, 0.05),
     )
     return fewer, more

@@ -320,8 +320,11 @@ def test_confidence_range_from_alternates():
     assert c.doubtful and "count could be anything from 1 to 4" in c.reason
     steady = measure(base, frame=frame, analysed=an, alternates=(base, base))
     assert not steady.confidence.doubtful
+    # with nothing else uncertain the range is the count's own spread: one point either way
     alone = measure(base, frame=frame, analysed=an).confidence
-    assert (alone.count_low, alone.count_high) == (2, 2) and not alone.doubtful
+    assert (alone.count_low, alone.count_high) == (1, 3) and not alone.doubtful
+    exact = measure(base, frame=frame, analysed=an, config=MeasureConfig(count_spread=0.0))
+    assert (exact.confidence.count_low, exact.confidence.count_high) == (1, 3)
 
 
 def test_alternates_counted_by_scipy_rules():

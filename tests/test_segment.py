@@ -20,7 +20,7 @@ from printcheck.segment import SegmentConfig, compound_evidence, segment
 
 S = 8.0  # px per mm of the test photos
 SHAPE = (440, 440)  # 55 x 55 mm
-MIN_PX = 0.1 * S * S  # the 0.1 mm² minimum spot (DESIGN.md)
+MIN_PX = 0.1 * S * S  # the 0.1 mm² minimum spot (docs/formats.md)
 
 # Reflectance of the compounds, (B, G, R): a Prussian-blue-like and a red-oxide-like
 # colour (from memory: blue absorbs red light, red oxide absorbs green and blue).
@@ -260,7 +260,7 @@ def test_errors():
 def test_card_edge_sliver_is_not_a_spot():
     # Compound on the work, seen through a card cut-out registered a pixel off: a ring
     # of white paper along the edge of what is shown.  Truth (how the photo was made):
-    # the rubbed-through spots only; the ring is no spot (DESIGN.md: a spot is a
+    # the rubbed-through spots only; the ring is no spot (docs/formats.md: a spot is a
     # contact mark on the surface), counted with scipy.ndimage.label.
     spots = _blobs(seed=5, count=20)
     img = _render(spots, seed=5, on="work")

@@ -124,7 +124,7 @@ def test_make_surface_is_seeded_and_crosshatched(small_surface):
 
 def test_truth_counts_agree_with_skimage_labelling(job):
     # Independent recount with skimage.measure.label/regionprops (8-connected) by the
-    # DESIGN.md rules: specks under 0.1 mm^2 dropped, a spot counts in the window that
+    # docs/formats.md rules: specks under 0.1 mm^2 dropped, a spot counts in the window that
     # holds its centroid, bearing on the window area.
     layout = job.layout
     w = layout.window

@@ -23,7 +23,7 @@ Example
 >>> photos = write_job("demo-job", seed=3, passes=6, surface_name="bed-front-way")  # doctest: +SKIP
 
 Modules: :mod:`.surface` (height fields, contact, scraping), :mod:`.truth` (independent
-counts by the DESIGN.md grid rules), :mod:`.render` (photos), :mod:`.job` (jobs, EXIF).
+counts by the grid rules of docs/formats.md), :mod:`.render` (photos), :mod:`.job` (jobs, EXIF).
 """
 
 from printcheck.synth.job import (
