@@ -1,4 +1,4 @@
-"""Truth statistics of a known contact mask, counted by the grid and counting rules (docs/formats.md).
+"""Truth statistics of a known contact mask, by the counting rules of docs/formats.md.
 
 This code is deliberately independent of :mod:`printcheck.measure` (it is what the
 measure stage is checked against): plain ``scipy.ndimage.label`` (8-connected) and
