@@ -65,10 +65,11 @@ class MeasureConfig:
     doubtful_bearing : float
         ... or the bearing's range further than this many percentage points.
     resolution_px : float
-        Pixels the photo must give across its smaller contacts (the 10th percentile of
-        their diameters) for them to be seen apart; fewer make the photo doubtful.  Six:
-        a JPEG keeps colour at half the resolution of brightness, so that is three colour
-        samples across.
+        Pixels the photo must give across its smaller contacts (the lower quartile of
+        their diameters as measured) for them to be seen apart; fewer make the photo
+        doubtful.  Eight: a JPEG keeps colour at half the resolution of brightness, so
+        that is four colour samples across a contact, and contacts a photo cannot part
+        come out merged, larger than they are.
     oversize_factor : float
         Spots larger than this many times the median spot area are high areas.
     heavy_bearing_factor : float
@@ -82,7 +83,7 @@ class MeasureConfig:
     count_spread: float = 0.02
     doubtful_change: float = 0.15
     doubtful_bearing: float = 5.0
-    resolution_px: float = 6.0
+    resolution_px: float = 8.0
     oversize_factor: float = 4.0
     heavy_bearing_factor: float = 1.5
 
@@ -541,10 +542,12 @@ def _confidence(
     reasons = []
     d_in = spots.diameter_mm[spots.in_window]
     if photo_px_per_mm is not None and d_in.size >= 5:
-        small = float(np.percentile(d_in, 10))
+        small = float(np.percentile(d_in, 25))
         needed = config.resolution_px / max(small, 1e-6)
         if photo_px_per_mm < needed:
-            hi = max(hi, int(math.ceil(count * needed / photo_px_per_mm)))
+            # contacts the photo cannot part come out merged: how many there really are
+            # cannot be read from it, and the range says so (up to twice the count)
+            hi = max(hi, 2 * count)
             reasons.append(
                 f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this photo has "
                 f"{photo_px_per_mm:.0f}: move closer"

@@ -55,7 +55,11 @@ CompoundOn = Literal["reference", "work"]
 # Evidence of a surface that is compound nearly everywhere: bare metal reads near 0
 # (about +-0.2 under a white-balance error), a compound mark 0.7-1.8.
 _COVERED_EVIDENCE = 0.4
-_BROAD_MM2 = 64.0  # no contact island is larger (an 8 mm square)
+_BROAD_MM2 = 64.0
+# The compound's typical level in noise units below which no compound is there at all:
+# bare scraped metal photographed without compound gives 2-3, the palest prints in the
+# development photos 11 and more.
+_NO_COMPOUND_CONTRAST = 5.0  # no contact island is larger (an 8 mm square)
 
 
 @dataclass(frozen=True)
@@ -273,6 +277,11 @@ def segment(
                           level=2.0 * t, noise=EVIDENCE_FLOOR)
     field = _field(evidence, valid, stat, glare, s, config)
     level = float(np.median(field.local[stat]))
+    if level / field.noise < _NO_COMPOUND_CONTRAST:
+        # the strongest marks are no stronger than the metal's own colour noise: there is
+        # no compound to find (a print that was not spotted, or a photo without colour)
+        empty = np.zeros(visible.shape, bool)
+        return result(empty, (empty, empty), level, field.noise)
     if level / field.noise < 10.0:
         warnings.append(
             f"the compound barely stands out from the bare metal (contrast "

@@ -353,8 +353,8 @@ def test_alternates_counted_by_scipy_rules():
 
 
 def test_too_coarse_a_photo_is_doubtful_and_widens_the_range():
-    # 1 mm spots photographed at 4 px/mm: four pixels across, under the six the check
-    # asks for (three colour samples with JPEG's halved colour resolution)
+    # 1 mm spots photographed at 4 px/mm: four pixels across, under the eight the check
+    # asks for (four colour samples with JPEG's halved colour resolution)
     s = 10.0
     shape = (300, 300)
     frame = _frame(shape, s=s)
@@ -366,9 +366,8 @@ def test_too_coarse_a_photo_is_doubtful_and_widens_the_range():
     coarse = measure(mask, frame=frame, analysed=_window_mask(frame), photo_px_per_mm=4.0)
     assert not fine.confidence.doubtful
     c = coarse.confidence
-    assert c.doubtful and "need at least 6 px/mm; this photo has 4: move closer" in c.reason
-    needed = 6.0 / coarse.spots.diameter_mm[0]  # 6 px across the 1.02 mm spots
-    assert c.count_high == math.ceil(coarse.spot_count * needed / 4.0)
+    assert c.doubtful and "need at least 8 px/mm; this photo has 4: move closer" in c.reason
+    assert c.count_high == 2 * coarse.spot_count  # merged contacts: up to twice as many
 
 
 def test_guidance_flags_oversized_spots_and_large_bare_patches():

@@ -17,7 +17,7 @@ from __future__ import annotations
 import io
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Literal
 
 import cv2
@@ -116,6 +116,19 @@ class Lighting:
         Glare radius as a fraction of the photo width.
     haze : float
         Strength (0 to 1) of the faint compound haze over bare metal.
+    haze_wide : float
+        Strength (0 to 1) of a thin smear of compound wiped over broad areas of bare
+        metal, patches 10-30 mm across (wider than any local level is read over).
+    facet_gloss : float
+        Extra brightness (0 to 1.5) of the glossiest scrape facets: broad bright facets
+        of bare metal, up to burnt out, that are not glare.
+    rim_film : float
+        Thickness of the compound at the rim of a contact, where it is 1.5 at the
+        contact's top (0.4: a film with a distinct edge; 0.05: a film that thins to
+        nothing at the rim, pale rims).
+    ring : float
+        Compound on the work: strength (0 to 1) of the ring of compound the reference
+        pushes up round each worn-through contact.
     compound_strength : float
         Compound thickness factor: 1 a normal film, 0.4 a thin pale one.
     white_balance : (float, float, float)
@@ -138,6 +151,10 @@ class Lighting:
     glare_radius: float = 0.18
     haze: float = 0.3
     compound_strength: float = 1.0
+    haze_wide: float = 0.0
+    facet_gloss: float = 0.0
+    rim_film: float = 0.4
+    ring: float = 0.0
     white_balance: tuple[float, float, float] = (1.0, 1.0, 1.0)
     blur_sigma_px: float = 0.7
     noise_sigma: float = 2.0
@@ -179,6 +196,10 @@ class Scene:
     lighting : Lighting
     truth_px_per_mm : float
         Resolution of the surface grid (and of the truth mask) for a made surface.
+    card : bool or None
+        Draw a paper card with a cut-out window (True) or stick each marker on the
+        surface (False); None: a card when the layout's margin is 0.  A card with a
+        margin in its layout is what a user's own layout for the printed card gives.
     """
 
     layout: Layout = card_layout()
@@ -194,6 +215,7 @@ class Scene:
     border_mm: float = 0.0
     lighting: Lighting = Lighting()
     truth_px_per_mm: float = 20.0
+    card: bool | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -337,6 +359,9 @@ def _appearance(
     scraped = np.isfinite(lay)
     direction = np.where(scraped, np.cos(2 * (np.nan_to_num(lay) - light)), 0.0)
     shade = 1.0 + 0.08 * field.facet + 0.07 * direction
+    if lighting.facet_gloss > 0:
+        # the glossiest facets catch the light broadly: bright bare metal, not glare
+        shade = shade * (1.0 + lighting.facet_gloss * np.clip(3.0 * field.facet, 0.0, 1.0))
     # The scoops' slopes read faintly as shading.
     hs = _blur(h.astype(np.float32), 0.08 * s)
     gx = cv2.Sobel(hs, cv2.CV_32F, 1, 0, ksize=1) * (s / 2.0)
@@ -352,9 +377,13 @@ def _appearance(
     if compound_on == "reference":
         # Spots carry compound, thickest where the surface stood highest (dark centres,
         # pale rims); a faint haze of compound smeared over the bare metal around them.
-        thick = np.where(contact, 0.4 + 1.1 * q**0.8, 0.0)
+        rim = float(np.clip(lighting.rim_film, 0.0, 1.5))
+        thick = np.where(contact, rim + (1.5 - rim) * q**0.8, 0.0)
         near = _blur(contact.astype(np.float32), 0.8 * s)
         haze = lighting.haze * (0.02 + 0.015 * smooth + 0.12 * near)
+        if lighting.haze_wide > 0:
+            broad = _smooth_noise(rng, h.shape, 8.0 * s)
+            haze = haze + 0.12 * lighting.haze_wide * np.clip(broad - 0.3, 0.0, None)
         thick = strength * (thick + np.clip(haze, 0.0, None))
         brighten = np.ones_like(q)
     else:
@@ -363,6 +392,10 @@ def _appearance(
         coat = 0.85 + 0.12 * smooth
         worn = np.clip(1.0 - q / 0.25, 0.0, 1.0) ** 1.5
         thick = strength * np.clip(np.where(contact, coat * 0.6 * worn, coat), 0.0, None)
+        if lighting.ring > 0:
+            # compound pushed up round each contact: a thicker ring just outside it
+            band = _blur(contact.astype(np.float32), 0.12 * s) * (~contact)
+            thick = thick * (1.0 + lighting.ring * np.clip(2.0 * band, 0.0, 1.0))
         brighten = np.where(contact, 1.0 + 0.15 * np.clip(q / 0.25, 0.0, 1.0), 1.0)
     thick = thick.astype(np.float32)
     trans = np.exp(-2.0 * thick[..., None] * absorb[None, None, :])  # down and back up
@@ -504,7 +537,7 @@ def _bits_inside(bits: np.ndarray) -> Callable[[np.ndarray, np.ndarray], np.ndar
 
 
 def _paper_and_ink(
-    layout: Layout, hom: np.ndarray, size: tuple[int, int]
+    layout: Layout, hom: np.ndarray, size: tuple[int, int], *, card: bool
 ) -> tuple[np.ndarray, np.ndarray, dict[int, np.ndarray]]:
     """Coverage of paper and of ink in the photo, and the markers' corners in the photo."""
     width, height = size
@@ -512,7 +545,6 @@ def _paper_and_ink(
     ink = np.zeros((height, width), dtype=np.float32)
     corners_px: dict[int, np.ndarray] = {}
     photo_to_mm = np.linalg.inv(hom)
-    card = layout.margin_mm == 0
     if card:
         pts = np.array([c for m in layout.markers for c in m.corners_mm])
         w = layout.window
@@ -586,7 +618,10 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
         )
     else:
         fld = scene.field
-    truth = truth_for(fld, layout, film)
+    card = layout.margin_mm == 0 if scene.card is None else bool(scene.card)
+    # under a card the paper hides the surface past the window: the truth counts the
+    # pieces the photo shows, whatever margin the layout states
+    truth = truth_for(fld, replace(layout, margin_mm=0.0) if card else layout, film)
     rng = np.random.default_rng(seed + 7919)
 
     if scene.camera is None:
@@ -627,7 +662,7 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
     )
 
     # Card or labels, and ink, drawn straight in the photo.
-    paper, ink, corners_px = _paper_and_ink(layout, hom, size)
+    paper, ink, corners_px = _paper_and_ink(layout, hom, size, card=card)
     f32 = np.float32
     paper_bgr = _PAPER_BGR.astype(f32)
     ink_delta = (_INK_BGR - _PAPER_BGR).astype(f32)
