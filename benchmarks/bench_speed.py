@@ -12,10 +12,10 @@ as JPEG under ``--cache``, default ``/tmp/printcheck-bench``):
    a bare ``python -c pass``, and the slowest imports of ``printcheck.cli`` (-X importtime);
 2. stages, in one warmed process, on a 12 MP and a 24 MP JPEG of the 2 in card: decode
    (``cv2.imread`` and printcheck's ``load_photo``), locate (marker detection), rectify
-   (fit, warp and masks: locate less detection), segment, the two confidence masks,
-   measure, judge, report (result JSON, overlay PNG, preview JPEG, as batch writes them)
-   and the whole inspect (load to verdict; it overlaps the confidence masks with measure
-   on a second thread) and inspect plus report; the ratio of the whole
+   (fit, warp and masks: locate less detection), segment (with its two alternates for
+   the range), measure, judge, report (result JSON, overlay PNG, preview JPEG, as batch
+   writes them) and the whole inspect (load to verdict) and inspect plus report; the
+   ratio of the whole
    to ``cv2.imread`` of the same file;
 3. peak memory (RSS) per photo, each inspected (and reported) in a fresh child process:
    the child's peak, and that less its RSS after the imports;
@@ -295,7 +295,6 @@ STAGE_ROWS = [
     ("detect", "locate: find markers"),
     ("rectify", "rectify: fit, warp, masks"),
     ("segment", "segment"),
-    ("confidence masks", "segment: 2 confidence masks"),
     ("measure", "measure"),
     ("judge", "judge"),
     ("report", "report: JSON, PNG, preview"),
@@ -315,15 +314,10 @@ def print_stages(named: list[tuple[str, dict[str, Any]]]) -> None:
             ratio = v / r["times"]["imread"]
             cells.append(f"{v:8.3f} s {ratio:5.1f}x")
         print(f"{label:32s}" + "".join(f"{c:>18s}" for c in cells))
-    stage_sum = ("decode", "locate", "segment", "confidence masks", "measure", "judge")
+    stage_sum = ("decode", "locate", "segment", "measure", "judge")
     print(
         f"{'(stages one after another)':32s}"
         + "".join(f"{sum(r['times'][k] for k in stage_sum):8.3f} s{'':7s}" for _, r in named)
-    )
-    print(
-        "  (whole inspect computes the 2 confidence masks, their counts and the bare patch on "
-        "a second thread\n   beside measure, so on 2 cores it takes less than the stages one "
-        "after another)"
     )
     for name, r in named:
         rows, cols = r["rect_shape"]
@@ -590,7 +584,7 @@ def main() -> None:
     if "memory" in parts:
         print("\n== peak memory (RSS) per photo, fresh process each (MB)")
         shots = cards + ([] if args.quick else [way_shot(cache, 300, 900, log)])
-        stages = ("decode", "locate", "segment", "confidence masks", "measure")
+        stages = ("decode", "locate", "segment", "measure")
         print(
             f"{'photo':28s}{'imports':>8s}{'inspect':>8s}{'+report':>8s}{'added':>7s}  target"
             "   peak after each stage (stage by stage): " + ", ".join(stages)
