@@ -103,8 +103,18 @@ def score_scene(truth_path: Path) -> Row:
     truth = json.loads(truth_path.read_text())
     folder = truth_path.parent.name
     photo = truth_path.parent / truth["photo"]
-    row = Row(truth["scene"], folder, int(truth["spot_count"]), None,
-              float(truth["bearing_percent"]), None, None, None, [], 0.0)
+    row = Row(
+        truth["scene"],
+        folder,
+        int(truth["spot_count"]),
+        None,
+        float(truth["bearing_percent"]),
+        None,
+        None,
+        None,
+        [],
+        0.0,
+    )
     t0 = time.perf_counter()
     try:
         result = inspect_photo(photo, options=_options(truth, truth_path.parent / truth["layout"]))
@@ -123,8 +133,11 @@ def score_scene(truth_path: Path) -> Row:
     for tc in truth["cells"]:
         if tc["complete"]:
             g = got.get((tc["row"], tc["col"]))
-            err = 1.0 if g is None else abs(g.spot_count - tc["spot_count"]) / max(
-                tc["spot_count"], 1)
+            err = (
+                1.0
+                if g is None
+                else abs(g.spot_count - tc["spot_count"]) / max(tc["spot_count"], 1)
+            )
             row.cell_errors.append(100.0 * err)
     return row
 
@@ -143,8 +156,10 @@ def summarise(name: str, rows: list[Row]) -> str:
         r.bearing_range[0] - 1e-9 <= r.true_bearing <= r.bearing_range[1] + 1e-9  # type: ignore[index]
         for r in ranged
     )
-    c_w = [100.0 * (r.count_range[1] - r.count_range[0]) / max(r.count, 1)  # type: ignore[index,operator]
-           for r in ranged]
+    c_w = [
+        100.0 * (r.count_range[1] - r.count_range[0]) / max(r.count, 1)  # type: ignore[index,operator]
+        for r in ranged
+    ]
     b_w = [r.bearing_range[1] - r.bearing_range[0] for r in ranged]  # type: ignore[index]
     failed = sum(r.count is None for r in rows)
     return (
@@ -167,13 +182,33 @@ def score_progress(folder: Path) -> str:
         db = Path(tmp) / "history.sqlite"
         cmd = [sys.executable, "-m", "printcheck"]
         subprocess.run(
-            cmd + ["batch", str(photos), "--layout", str(folder / truth["layout"]),
-                   "--unit", truth["unit"], "--cell", f"{truth['cell']:g}", "--surface",
-                   truth["surface"], "--db", str(db), "--out", str(Path(tmp) / "out")],
-            capture_output=True, text=True, check=False,
+            cmd
+            + [
+                "batch",
+                str(photos),
+                "--layout",
+                str(folder / truth["layout"]),
+                "--unit",
+                truth["unit"],
+                "--cell",
+                f"{truth['cell']:g}",
+                "--surface",
+                truth["surface"],
+                "--db",
+                str(db),
+                "--out",
+                str(Path(tmp) / "out"),
+            ],
+            capture_output=True,
+            text=True,
+            check=False,
         )
-        out = subprocess.run(cmd + ["progress", truth["surface"], "--db", str(db), "--json"],
-                             capture_output=True, text=True, check=False).stdout
+        out = subprocess.run(
+            cmd + ["progress", truth["surface"], "--db", str(db), "--json"],
+            capture_output=True,
+            text=True,
+            check=False,
+        ).stdout
     passes = json.loads(out)["passes"] if out.strip() else []
     area = truth["passes"][0]["window"]["area"]
     cell = truth["cell"]
@@ -183,8 +218,10 @@ def score_progress(folder: Path) -> str:
         tol = max(COUNT_REL_TOL * want["density"], COUNT_ABS_TOL / area * cell * cell)
         ok += abs(got["density"] - want["density"]) <= tol
         names_ok &= Path(got["photo"]).stem == Path(want["photo"]).stem
-    return (f"progress: {len(passes)} passes, order {'right' if names_ok else 'WRONG'}, "
-            f"{ok}/{len(truth['passes'])} densities within tolerance")
+    return (
+        f"progress: {len(passes)} passes, order {'right' if names_ok else 'WRONG'}, "
+        f"{ok}/{len(truth['passes'])} densities within tolerance"
+    )
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -200,8 +237,10 @@ def main(argv: list[str] | None = None) -> int:
     folders = sorted(p for p in args.devset.iterdir() if p.is_dir() and p.name != "progress")
     if args.only:
         folders = [f for f in folders if f.name in args.only]
-    print(f"{'folder':10s} {'ok':5s} {'cnt%':>6s} {'p90':>6s} {'bear':>6s} {'p90':>6s} "
-          f"{'cell%':>6s} {'in range c/b':>14s}{'wid%':>6s} {'widpp':>6s} {'s':>6s}")
+    print(
+        f"{'folder':10s} {'ok':5s} {'cnt%':>6s} {'p90':>6s} {'bear':>6s} {'p90':>6s} "
+        f"{'cell%':>6s} {'in range c/b':>14s}{'wid%':>6s} {'widpp':>6s} {'s':>6s}"
+    )
     everything: list[Row] = []
     for folder in folders:
         rows = [score_scene(t) for t in sorted(folder.glob("*.truth.json"))]
@@ -211,9 +250,11 @@ def main(argv: list[str] | None = None) -> int:
         if args.rows:
             for r in rows:
                 rng = "" if r.count_range is None else f"{r.count_range[0]}-{r.count_range[1]}"
-                print(f"  {r.scene:14s} {r.count}/{r.true_count} ({rng}) bearing "
-                      f"{r.bearing if r.bearing is None else round(r.bearing, 2)}/"
-                      f"{r.true_bearing:.2f} {'ok' if r.ok else 'NO'} {r.note}")
+                print(
+                    f"  {r.scene:14s} {r.count}/{r.true_count} ({rng}) bearing "
+                    f"{r.bearing if r.bearing is None else round(r.bearing, 2)}/"
+                    f"{r.true_bearing:.2f} {'ok' if r.ok else 'NO'} {r.note}"
+                )
         print(summarise(folder.name, rows), flush=True)
     if everything:
         print(summarise("all", everything))

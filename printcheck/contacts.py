@@ -46,9 +46,7 @@ def _disc(radius: int) -> np.ndarray:
     return cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * radius + 1, 2 * radius + 1))
 
 
-def seeds_and_growth(
-    seeds: np.ndarray, grow: np.ndarray
-) -> np.ndarray:
+def seeds_and_growth(seeds: np.ndarray, grow: np.ndarray) -> np.ndarray:
     """The pixels of ``grow`` 8-connected to a pixel of ``seeds`` (hysteresis)."""
     n, lab = cv2.connectedComponents(grow.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     if n <= 1:
@@ -56,7 +54,7 @@ def seeds_and_growth(
     keep = np.zeros(n, bool)
     keep[lab[seeds & grow]] = True
     keep[0] = False
-    return keep[lab]
+    return np.asarray(keep[lab], dtype=bool)
 
 
 def separate(
@@ -103,26 +101,48 @@ def separate(
     (M, N) bool ndarray
         The contacts, with a one-pixel gap wherever two of them would touch.
     """
-    labels = contact_labels(region, height, px_per_mm=px_per_mm, split_share=split_share,
-                            min_dip=min_dip, large_lobes_deeper=large_lobes_deeper,
-                            seeds=seeds)
+    labels = contact_labels(
+        region,
+        height,
+        px_per_mm=px_per_mm,
+        split_share=split_share,
+        min_dip=min_dip,
+        large_lobes_deeper=large_lobes_deeper,
+        seeds=seeds,
+    )
     return finish(labels, seeds, height, rim_share=rim_share, score=score)
 
 
 def contact_labels(
-    region: np.ndarray, height: np.ndarray, *, px_per_mm: float, split_share: float,
-    min_dip: float, large_lobes_deeper: bool = True, seeds: np.ndarray | None = None,
+    region: np.ndarray,
+    height: np.ndarray,
+    *,
+    px_per_mm: float,
+    split_share: float,
+    min_dip: float,
+    large_lobes_deeper: bool = True,
+    seeds: np.ndarray | None = None,
 ) -> np.ndarray:
     """Label image of the contacts ``region`` holds (see :func:`separate`), rims uncut."""
     if not region.any():
         return np.zeros(region.shape, np.int32)
     regions, n = watershed_regions(region, height, px_per_mm=px_per_mm, seeds=seeds)
-    return merge_regions(regions, n, height, split_share=split_share, min_dip=min_dip,
-                         px_per_mm=px_per_mm, large_lobes_deeper=large_lobes_deeper)
+    return merge_regions(
+        regions,
+        n,
+        height,
+        split_share=split_share,
+        min_dip=min_dip,
+        px_per_mm=px_per_mm,
+        large_lobes_deeper=large_lobes_deeper,
+    )
 
 
 def watershed_regions(
-    region: np.ndarray, height: np.ndarray, *, px_per_mm: float,
+    region: np.ndarray,
+    height: np.ndarray,
+    *,
+    px_per_mm: float,
     seeds: np.ndarray | None = None,
 ) -> tuple[np.ndarray, int]:
     """The watershed regions of ``region`` (labels, largest label); see :func:`separate`.
@@ -137,14 +157,27 @@ def watershed_regions(
 
 
 def merge_regions(
-    regions: np.ndarray, n: int, height: np.ndarray, *, split_share: float, min_dip: float,
-    px_per_mm: float, large_lobes_deeper: bool = True,
+    regions: np.ndarray,
+    n: int,
+    height: np.ndarray,
+    *,
+    split_share: float,
+    min_dip: float,
+    px_per_mm: float,
+    large_lobes_deeper: bool = True,
 ) -> np.ndarray:
     """Join neighbouring watershed regions unless the valley between them is deep."""
     if n == 0:
         return regions
-    return _merge(regions, n, height, split_share=split_share, min_dip=min_dip,
-                  px_per_mm=px_per_mm, large_lobes_deeper=large_lobes_deeper)
+    return _merge(
+        regions,
+        n,
+        height,
+        split_share=split_share,
+        min_dip=min_dip,
+        px_per_mm=px_per_mm,
+        large_lobes_deeper=large_lobes_deeper,
+    )
 
 
 def finish(
@@ -197,7 +230,7 @@ def _drop_crumbs(mask: np.ndarray, labels: np.ndarray, height: np.ndarray) -> np
     keep[np.unique(pieces.ravel()[flat])] = False
     keep[pieces.ravel()[flat[order][last]]] = True
     keep[0] = False
-    return keep[pieces]
+    return np.asarray(keep[pieces], dtype=bool)
 
 
 def _label_max(labels: np.ndarray, values: np.ndarray) -> np.ndarray:
@@ -226,8 +259,7 @@ def _watershed(
     n, comp, stats, _ = cv2.connectedComponentsWithStats(
         region.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
     )
-    pn, markers = cv2.connectedComponents(peaks.view(np.uint8), connectivity=8,
-                                          ltype=cv2.CV_32S)
+    pn, markers = cv2.connectedComponents(peaks.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     comp_of_peak = np.zeros(pn, np.int64)
     comp_of_peak[markers[peaks]] = comp[peaks]
     multi = np.bincount(comp_of_peak[1:], minlength=n) >= 2
@@ -237,15 +269,22 @@ def _watershed(
     # one watershed over the parts that hold two peaks or more; markers numbered after
     # the components so that the labels stay apart
     cut = multi[comp]
-    ws = watershed(-height, markers=np.where(cut & (markers > 0), markers + n, 0), mask=cut,
-                   connectivity=2)
+    ws = watershed(  # type: ignore[no-untyped-call]
+        -height, markers=np.where(cut & (markers > 0), markers + n, 0), mask=cut, connectivity=2
+    )
     labels = np.where(cut, ws, comp).astype(np.int32)
     return labels, int(labels.max())
 
 
 def _merge(
-    regions: np.ndarray, n: int, height: np.ndarray, *, split_share: float, min_dip: float,
-    px_per_mm: float, large_lobes_deeper: bool,
+    regions: np.ndarray,
+    n: int,
+    height: np.ndarray,
+    *,
+    split_share: float,
+    min_dip: float,
+    px_per_mm: float,
+    large_lobes_deeper: bool,
 ) -> np.ndarray:
     """Merge neighbouring watershed regions unless the valley between them is deep.
 
@@ -289,7 +328,7 @@ def _merge(
         top[a] = max(top[a], top[b])
         area[a] += area[b]
     roots = np.array([find(i) for i in range(n + 1)], dtype=np.int32)
-    return roots[regions]
+    return np.asarray(roots[regions], dtype=np.int32)
 
 
 def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -359,7 +398,7 @@ def fill_small_holes(mask: np.ndarray, max_px: float, glare: np.ndarray | None) 
     fill[0] = False
     if not fill.any():
         return mask
-    return mask | fill[lab]
+    return np.asarray(mask | fill[lab], dtype=bool)
 
 
 def spot_scale_px(px_per_mm: float, mm: float) -> float:
@@ -377,8 +416,12 @@ def drop_edge_slivers(mask: np.ndarray, visible: np.ndarray, px_per_mm: float) -
     wide.
     """
     w = max(1, int(round(0.1 * px_per_mm)))
-    inner = cv2.erode(visible.view(np.uint8), np.ones((2 * w + 1, 2 * w + 1), np.uint8),
-                      borderType=cv2.BORDER_CONSTANT, borderValue=0).view(bool)
+    inner = cv2.erode(
+        visible.view(np.uint8),
+        np.ones((2 * w + 1, 2 * w + 1), np.uint8),
+        borderType=cv2.BORDER_CONSTANT,
+        borderValue=0,
+    ).view(bool)
     band = mask & ~inner
     if not band.any():
         return mask
@@ -391,12 +434,13 @@ def drop_edge_slivers(mask: np.ndarray, visible: np.ndarray, px_per_mm: float) -
     # a strip of paper runs along the edge: long, and nowhere 0.4 mm wide; a spot cut by
     # the edge is shorter, or wider somewhere
     r = max(1, int(round(0.2 * px_per_mm)))
-    core = cv2.erode(mask.view(np.uint8), cv2.getStructuringElement(
-        cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))).view(bool)
+    core = cv2.erode(
+        mask.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
+    ).view(bool)
     wide = np.bincount(lab[core], minlength=n) > 0
     strip = (long_side >= 2.0 * px_per_mm) & ~wide
     drop = (in_band > 0.5 * area) & strip
     drop[0] = False
     if not drop.any():
         return mask
-    return mask & ~drop[lab]
+    return np.asarray(mask & ~drop[lab], dtype=bool)

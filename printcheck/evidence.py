@@ -165,8 +165,9 @@ def fill_and_smooth(grid: np.ndarray, weight: np.ndarray, sigma: float) -> np.nd
 def upsample(grid: np.ndarray, block: int, shape: tuple[int, int]) -> np.ndarray:
     """Bilinear map of a block grid to pixels (block centres at block centres)."""
     by, bx = grid.shape
-    big = cv2.resize(grid.astype(np.float32), (bx * block, by * block),
-                     interpolation=cv2.INTER_LINEAR)
+    big = cv2.resize(
+        grid.astype(np.float32), (bx * block, by * block), interpolation=cv2.INTER_LINEAR
+    )
     return np.ascontiguousarray(big[: shape[0], : shape[1]])
 
 
@@ -213,8 +214,9 @@ def level_maps(
     weight = ok.astype(np.float32)
     level = fill_and_smooth(q[1], weight, 1.5)
     sigma = _noise_grid(q[1] - q[0], ok)
-    qs, count_s = block_quantiles(smoothed - upsample(level, block, evidence.shape), bare,
-                                  block, (0.05, 0.5))
+    qs, count_s = block_quantiles(
+        smoothed - upsample(level, block, evidence.shape), bare, block, (0.05, 0.5)
+    )
     ok_s = count_s >= 0.25 * block * block
     if not ok_s.any():
         ok_s = count_s > 0
@@ -222,8 +224,9 @@ def level_maps(
     shape = evidence.shape
     return LevelMaps(
         bare=upsample(level, block, shape),
-        sigma=np.maximum(upsample(fill_and_smooth(sigma, weight, 1.5), block, shape),
-                         EVIDENCE_FLOOR),
+        sigma=np.maximum(
+            upsample(fill_and_smooth(sigma, weight, 1.5), block, shape), EVIDENCE_FLOOR
+        ),
         sigma_spot=np.maximum(
             upsample(fill_and_smooth(sigma_s, ok_s.astype(np.float32), 1.5), block, shape),
             EVIDENCE_FLOOR,

@@ -88,8 +88,13 @@ def guidance(
     if in_an.any() and bearing > 0:
         k = max(3, int(round(0.5 * cell_mm * s)) | 1)
         an_f = in_an.astype(np.float32)
-        num = cv2.boxFilter((contact & in_an).astype(np.float32), -1, (k, k), normalize=False,
-                            borderType=cv2.BORDER_CONSTANT)
+        num = cv2.boxFilter(
+            (contact & in_an).astype(np.float32),
+            -1,
+            (k, k),
+            normalize=False,
+            borderType=cv2.BORDER_CONSTANT,
+        )
         den = cv2.boxFilter(an_f, -1, (k, k), normalize=False, borderType=cv2.BORDER_CONSTANT)
         with np.errstate(invalid="ignore", divide="ignore"):
             local = np.where(den > 0.5 * k * k, 100.0 * num / np.maximum(den, 1.0), 0.0)

@@ -53,12 +53,12 @@ def fit_homography(photo_px: np.ndarray, layout_mm: np.ndarray) -> np.ndarray:
     h, _ = cv2.findHomography(src, dst, 0)
     if h is None or not np.all(np.isfinite(h)) or abs(h[2, 2]) < 1e-12:
         raise LocateError("the marker corners are degenerate (collinear); no homography fits them")
-    return h / h[2, 2]
+    return np.asarray(h / h[2, 2], dtype=np.float64)
 
 
 def _apply(h: np.ndarray, pts: np.ndarray) -> np.ndarray:
     p = np.c_[pts, np.ones(len(pts))] @ h.T
-    return p[:, :2] / p[:, 2:3]
+    return np.asarray(p[:, :2] / p[:, 2:3], dtype=np.float64)
 
 
 def local_px_per_mm(h_layout_to_photo: np.ndarray, x_mm: float, y_mm: float) -> tuple[float, float]:
@@ -88,9 +88,7 @@ def rms(h: np.ndarray, photo: np.ndarray, layout: np.ndarray) -> float:
     return float(np.sqrt(np.mean(np.sum(d * d, axis=1))))
 
 
-def _fits_all(
-    cands: list[Candidate], tolerance_mm: float
-) -> np.ndarray | None:
+def _fits_all(cands: list[Candidate], tolerance_mm: float) -> np.ndarray | None:
     """The homography of all candidates when every one is within ``tolerance_mm`` (RMS)."""
     try:
         h = fit_homography(
@@ -133,8 +131,9 @@ def robust_fit(
 
 
 def _fit_all_of(cands: list[Candidate]) -> np.ndarray:
-    return fit_homography(np.concatenate([c[1] for c in cands]),
-                          np.concatenate([c[2] for c in cands]))
+    return fit_homography(
+        np.concatenate([c[1] for c in cands]), np.concatenate([c[2] for c in cands])
+    )
 
 
 def _consensus(kept: list[Candidate]) -> tuple[list[Candidate], list[tuple[int, float]]]:
@@ -143,7 +142,9 @@ def _consensus(kept: list[Candidate]) -> tuple[list[Candidate], list[tuple[int, 
     best_set = list(range(len(kept)))
     seeds: list[tuple[int, ...]] = [(j,) for j in range(len(kept))]
     seeds += [
-        (i, j) for i in range(len(kept)) for j in range(i + 1, len(kept))
+        (i, j)
+        for i in range(len(kept))
+        for j in range(i + 1, len(kept))
         if kept[i][0] != kept[j][0]
     ]
     for seed in seeds:

@@ -130,8 +130,6 @@ class Rectified:
     warnings: tuple[str, ...] = ()
 
 
-
-
 def _as_bgr(image: np.ndarray) -> np.ndarray:
     arr = np.asarray(image)
     if arr.dtype != np.uint8:
@@ -177,13 +175,22 @@ def locate(
     warnings: list[str] = []
     h, used, residual = _fit_markers(photo, layout, config, warnings)
     win = layout.window
-    photo_ppm, _ = local_px_per_mm(np.linalg.inv(h), win.x_mm + win.width_mm / 2,
-                                   win.y_mm + win.height_mm / 2)
+    photo_ppm, _ = local_px_per_mm(
+        np.linalg.inv(h), win.x_mm + win.width_mm / 2, win.y_mm + win.height_mm / 2
+    )
     margin = layout.margin_mm
     area = (win.width_mm + 2 * margin) * (win.height_mm + 2 * margin)
     s = choose_px_per_mm(photo_ppm, area, config, warnings)
     rect, frame, visible, analysed = rectify_window(
-        photo, h, win, margin, layout.exclusions, s, photo_ppm, config, warnings,
+        photo,
+        h,
+        win,
+        margin,
+        layout.exclusions,
+        s,
+        photo_ppm,
+        config,
+        warnings,
         f"the window of layout {layout.name}",
     )
     if margin > 0:
@@ -239,8 +246,9 @@ def _fit_markers(
     photo: np.ndarray, layout: Layout, config: LocateConfig, warnings: list[str]
 ) -> tuple[np.ndarray, tuple[int, ...], float]:
     """Homography (photo px -> layout mm), the marker ids it uses, and its RMS residual."""
-    h, kept, dropped = robust_fit(_candidates(photo, layout, warnings),
-                                  0.5 * config.max_residual_mm)
+    h, kept, dropped = robust_fit(
+        _candidates(photo, layout, warnings), 0.5 * config.max_residual_mm
+    )
     kept_ids = {c[0] for c in kept}
     for marker_id, miss in dropped:
         if marker_id in kept_ids:

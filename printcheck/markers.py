@@ -46,7 +46,6 @@ class Detection:
     refined: bool = field(default=True)
 
 
-
 def _grey(image: np.ndarray) -> np.ndarray:
     return image if image.ndim == 2 else cv2.cvtColor(image, cv2.COLOR_BGR2GRAY)
 
@@ -153,7 +152,7 @@ def _intersect(
     if abs(np.linalg.det(m)) < 1e-6:
         return None
     s = np.linalg.solve(m, p2 - p1)
-    return p1 + s[0] * d1
+    return np.asarray(p1 + s[0] * d1, dtype=np.float64)
 
 
 def _refine_corners(

@@ -4,7 +4,8 @@ One entry, :func:`segment`: the rectified photo and what it shows in, the contac
 out, with two alternates from the same decision nudged toward fewer and toward more
 contact (the measure stage turns them into the count's and the bearing's range).
 
-The steps (see :mod:`printcheck.evidence` and :mod:`printcheck.contacts` for each):
+The steps (see :mod:`printcheck.evidence`, :mod:`printcheck.field` and
+:mod:`printcheck.contacts`):
 
 1. the compound's colour, from ``config.compound`` or, with "auto", from the photo;
 2. the colour evidence of every pixel, lightly smoothed; burnt-out highlights carry no
@@ -39,13 +40,10 @@ from printcheck.contacts import (
 from printcheck.errors import OptionError, PhotoError
 from printcheck.evidence import (
     EVIDENCE_FLOOR,
-    block_quantiles,
     choose_compound,
     compound_evidence,
-    fill_and_smooth,
-    level_maps,
-    upsample,
 )
+from printcheck.field import Field, contact_field
 
 __all__ = ["SegmentConfig", "Segmentation", "segment", "compound_evidence"]
 
@@ -55,11 +53,10 @@ CompoundOn = Literal["reference", "work"]
 # Evidence of a surface that is compound nearly everywhere: bare metal reads near 0
 # (about +-0.2 under a white-balance error), a compound mark 0.7-1.8.
 _COVERED_EVIDENCE = 0.4
-_BROAD_MM2 = 64.0
 # The compound's typical level in noise units below which no compound is there at all:
 # bare scraped metal photographed without compound gives 2-3, the palest prints in the
 # development photos 11 and more.
-_NO_COMPOUND_CONTRAST = 5.0  # no contact island is larger (an 8 mm square)
+_NO_COMPOUND_CONTRAST = 5.0
 
 
 @dataclass(frozen=True)
@@ -128,11 +125,16 @@ class SegmentConfig:
         if self.compound not in ("auto", "blue", "red"):
             raise OptionError(f"compound must be auto, blue or red, got {self.compound!r}")
         if self.compound_on not in ("reference", "work"):
-            raise OptionError(
-                f"compound_on must be reference or work, got {self.compound_on!r}"
-            )
-        for name in ("px_per_mm", "background_mm", "spot_mm", "seed_sigma", "grow_sigma",
-                     "local_mm", "nudge"):
+            raise OptionError(f"compound_on must be reference or work, got {self.compound_on!r}")
+        for name in (
+            "px_per_mm",
+            "background_mm",
+            "spot_mm",
+            "seed_sigma",
+            "grow_sigma",
+            "local_mm",
+            "nudge",
+        ):
             value = getattr(self, name)
             if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
                 raise OptionError(f"{name} must be a number greater than zero, got {value!r}")
@@ -182,21 +184,6 @@ class Segmentation:
     warnings: tuple[str, ...] = ()
 
 
-@dataclass(frozen=True, eq=False)
-class _Field:
-    """The evidence and its local levels, shared by the main and the nudged decisions."""
-
-    score: np.ndarray  # evidence above the local bare level
-    smooth: np.ndarray  # the same, smoothed at spot scale
-    z: np.ndarray  # score in noise units
-    zs: np.ndarray  # smooth in spot-scale noise units
-    local: np.ndarray  # the compound's local level (reference) or the coat's depth (work)
-    valid: np.ndarray  # visible and not burnt out
-    visible: np.ndarray
-    glare: np.ndarray  # burnt out
-    noise: float  # median spot-scale noise
-
-
 def segment(
     image: np.ndarray,
     *,
@@ -220,25 +207,10 @@ def segment(
     -------
     Segmentation
     """
-    image = np.asarray(image)
-    if image.ndim != 3 or image.shape[2] != 3 or image.dtype != np.uint8:
-        raise PhotoError(
-            f"segment needs an (M, N, 3) uint8 BGR image, got shape {image.shape} "
-            f"dtype {image.dtype}; decode the photo with printcheck.load first"
-        )
-    visible = np.asarray(visible, dtype=bool)
-    analysed = visible if analysed is None else np.asarray(analysed, dtype=bool) & visible
-    if visible.shape != image.shape[:2]:
-        raise OptionError(f"visible mask {visible.shape} must match the image {image.shape[:2]}")
+    image, visible, analysed = _checked(image, visible, analysed)
     s = float(config.px_per_mm)
     warnings: list[str] = []
-    compound = config.compound
-    if compound == "auto":
-        compound, clarity = choose_compound(image, analysed, config.compound_on)
-        if clarity < 1.5:
-            warnings.append(
-                f"the compound's colour is uncertain (chose {compound}); name it: blue or red"
-            )
+    compound = _colour(image, analysed, config, warnings)
     glare = (np.count_nonzero(image >= 250, axis=2) >= 2) & visible
     valid = visible & ~glare
     stat = analysed & valid
@@ -253,12 +225,19 @@ def segment(
         evidence = -evidence
     evidence = cv2.GaussianBlur(evidence, (0, 0), 0.4)  # pixel noise; an edge moves < 0.4 px
 
-    def result(mask: np.ndarray, alternates: tuple[np.ndarray, ...], level: float,
-               noise: float) -> Segmentation:
+    def result(
+        mask: np.ndarray, alternates: tuple[np.ndarray, ...], level: float, noise: float
+    ) -> Segmentation:
         return Segmentation(
-            mask=mask & visible, alternates=tuple(a & visible for a in alternates),
-            visible=visible, compound=compound, compound_on=config.compound_on,
-            px_per_mm=s, compound_level=level, noise=noise, glare_fraction=glare_fraction,
+            mask=mask & visible,
+            alternates=tuple(a & visible for a in alternates),
+            visible=visible,
+            compound=compound,
+            compound_on=config.compound_on,
+            px_per_mm=s,
+            compound_level=level,
+            noise=noise,
+            glare_fraction=glare_fraction,
             warnings=tuple(warnings),
         )
 
@@ -273,9 +252,24 @@ def segment(
                 "or the work was coated (compound on the work)"
             )
             t, t_fewer, t_more = covered
-            return result(evidence > t, (evidence > t_fewer, evidence > t_more),
-                          level=2.0 * t, noise=EVIDENCE_FLOOR)
-    field = _field(evidence, valid, stat, glare, s, config)
+            return result(
+                evidence > t,
+                (evidence > t_fewer, evidence > t_more),
+                level=2.0 * t,
+                noise=EVIDENCE_FLOOR,
+            )
+    field = contact_field(
+        evidence,
+        valid,
+        stat,
+        glare,
+        px_per_mm=s,
+        spot_mm=config.spot_mm,
+        background_mm=config.background_mm,
+        seed_sigma=config.seed_sigma,
+        local_mm=config.local_mm,
+        compound_on=config.compound_on,
+    )
     level = float(np.median(field.local[stat]))
     if level / field.noise < _NO_COMPOUND_CONTRAST:
         # the strongest marks are no stronger than the metal's own colour noise: there is
@@ -299,6 +293,37 @@ def segment(
     return result(mask, alternates, level, field.noise)
 
 
+def _checked(
+    image: np.ndarray, visible: np.ndarray, analysed: np.ndarray | None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The inputs as arrays of the right kinds, or a one-line error."""
+    image = np.asarray(image)
+    if image.ndim != 3 or image.shape[2] != 3 or image.dtype != np.uint8:
+        raise PhotoError(
+            f"segment needs an (M, N, 3) uint8 BGR image, got shape {image.shape} "
+            f"dtype {image.dtype}; decode the photo with printcheck.load first"
+        )
+    visible = np.asarray(visible, dtype=bool)
+    if visible.shape != image.shape[:2]:
+        raise OptionError(f"visible mask {visible.shape} must match the image {image.shape[:2]}")
+    analysed = visible if analysed is None else np.asarray(analysed, dtype=bool) & visible
+    return image, visible, analysed
+
+
+def _colour(
+    image: np.ndarray, analysed: np.ndarray, config: SegmentConfig, warnings: list[str]
+) -> str:
+    """The compound's colour: as configured, or read from the photo ("auto")."""
+    if config.compound != "auto":
+        return config.compound
+    compound, clarity = choose_compound(image, analysed, config.compound_on)
+    if clarity < 1.5:
+        warnings.append(
+            f"the compound's colour is uncertain (chose {compound}); name it: blue or red"
+        )
+    return compound
+
+
 def _covered(evidence: np.ndarray, stat: np.ndarray) -> tuple[float, float, float] | None:
     """Thresholds (main, fewer, more) when compound covers the window, else None."""
     v = evidence[stat]
@@ -311,100 +336,11 @@ def _covered(evidence: np.ndarray, stat: np.ndarray) -> tuple[float, float, floa
     return t, 1.15 * t, 0.85 * t
 
 
-def _field(
-    evidence: np.ndarray,
-    valid: np.ndarray,
-    stat: np.ndarray,
-    glare: np.ndarray,
-    s: float,
-    config: SegmentConfig,
-) -> _Field:
-    """Local levels of the evidence (see the module docstring, steps 3 and 4)."""
-    shape = evidence.shape
-    coarse = max(8, int(round(5.0 * s)))
-    q, count = block_quantiles(evidence, stat, coarse, (0.05, 0.5))
-    ok = count >= 0.25 * coarse * coarse
-    if not ok.any():
-        ok = count > 0
-    first = upsample(fill_and_smooth(q[1], ok.astype(np.float32), 1.0), coarse, shape)
-    noise0 = max(float(np.median((q[1] - q[0])[ok])) / 1.645, EVIDENCE_FLOOR)
-    marked = (evidence - first) > 5.0 * noise0
-    # a mark wider than any contact island (64 mm², an 8 mm square) is a broad change of
-    # the light or a smear, which the fine bare level must follow, not leave out
-    n, lab, stats, _ = cv2.connectedComponentsWithStats(marked.view(np.uint8), connectivity=8)
-    broad = stats[:, cv2.CC_STAT_AREA] > _BROAD_MM2 * s * s
-    broad[0] = False
-    if broad.any():
-        marked &= ~broad[lab]
-    r = max(1, int(round(0.3 * s)))
-    near = cv2.dilate(marked.view(np.uint8),
-                      cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1)))
-    smoothed = cv2.GaussianBlur(evidence, (0, 0), max(config.spot_mm * s, 0.35))
-    block = max(4, int(round(config.background_mm * s)))
-    maps = level_maps(evidence, smoothed, stat & ~near.view(bool), block=block)
-    score = evidence - maps.bare
-    smooth = smoothed - maps.bare
-    noise = float(np.median(maps.sigma_spot[stat]))
-    zs = (smooth / maps.sigma_spot).astype(np.float32)
-    if config.compound_on == "reference":
-        strong = zs >= 2.0 * config.seed_sigma
-        local = _compound_level(smooth, valid, stat, strong, s, config.local_mm)
-    else:
-        local = _coat_depth(score, smooth, maps.bare, stat, evidence)
-    return _Field(
-        score=score.astype(np.float32),
-        smooth=smooth.astype(np.float32),
-        z=(score / maps.sigma).astype(np.float32),
-        zs=zs,
-        local=local,
-        valid=valid,
-        visible=valid | glare,
-        glare=glare,
-        noise=noise,
-    )
-
-
-def _compound_level(
-    smooth: np.ndarray, valid: np.ndarray, stat: np.ndarray, strong: np.ndarray, s: float,
-    local_mm: float,
-) -> np.ndarray:
-    """The compound's local level: the strongest marks (98th percentile) of each block.
-
-    Blocks without a mark of at least 0.3 of the photo's typical level take their
-    neighbours' level, so a block of bare metal does not lower the bar for its haze.
-    """
-    v = smooth[stat]
-    # the top 2 % of the window, or on a sparse print the share that is clearly marked
-    # (ten noise levels up), so that a print of a few spots is not judged by its noise
-    top = min(max(float(np.count_nonzero(strong[stat])) / max(v.size, 1), 0.002), 0.02)
-    typical = float(np.median(v[v >= np.quantile(v, 1.0 - top)])) if v.size else 0.0
-    block = max(8, int(round(local_mm * s)))
-    q, count = block_quantiles(smooth, valid, block, (0.98,))
-    has = (count > 0) & (np.nan_to_num(q[0]) > 0.3 * typical)
-    if not has.any():
-        return np.full(smooth.shape, max(typical, EVIDENCE_FLOOR), np.float32)
-    grid = fill_and_smooth(q[0], has.astype(np.float32), 1.0)
-    return np.maximum(upsample(grid, block, smooth.shape), EVIDENCE_FLOOR)
-
-
-def _coat_depth(
-    score: np.ndarray, smooth: np.ndarray, coat: np.ndarray, stat: np.ndarray,
-    evidence: np.ndarray,
-) -> np.ndarray:
-    """Compound on the work: how far the evidence falls from the coat to bare metal.
-
-    The bare metal's level is that of the clearest worn-through pixels (over half of the
-    deepest); the depth is the local coat level less it.
-    """
-    v = smooth[stat]
-    top = float(np.median(v[v >= np.quantile(v, 0.98)])) if v.size else 0.0
-    clear = stat & (smooth >= 0.5 * top)
-    metal = float(np.median(evidence[clear])) if clear.any() else float(np.max(evidence[stat]))
-    return np.maximum(metal - coat, 0.05).astype(np.float32)
-
-
 def _decide(
-    field: _Field, config: SegmentConfig, s: float, rim: float,
+    field: Field,
+    config: SegmentConfig,
+    s: float,
+    rim: float,
     cut: tuple[np.ndarray, int] | None,
 ) -> np.ndarray:
     """The contact mask from the field, by ``config``'s thresholds and a rim share.
@@ -416,20 +352,36 @@ def _decide(
         assert cut is not None
         seeds, grown = _seeds_and_growth(field, config)
         regions, n = cut
-        labels = merge_regions(np.where(grown, regions, 0), n, field.smooth,
-                               split_share=config.split_share, min_dip=3.0 * field.noise,
-                               px_per_mm=s)
-        mask = finish(labels, seeds, field.smooth, rim_share=rim, score=field.score,
-                      min_core_px=config.min_spot_mm2 * s * s)
+        labels = merge_regions(
+            np.where(grown, regions, 0),
+            n,
+            field.smooth,
+            split_share=config.split_share,
+            min_dip=3.0 * field.noise,
+            px_per_mm=s,
+        )
+        mask = finish(
+            labels,
+            seeds,
+            field.smooth,
+            rim_share=rim,
+            score=field.score,
+            min_core_px=config.min_spot_mm2 * s * s,
+        )
     else:
         worn = field.score / field.local
         worn_s = (field.smooth / field.local).astype(np.float32)
         seeds = (worn_s >= config.coat_seed) & (field.zs >= config.seed_sigma - 1.0)
         grown = seeds_and_growth(seeds & field.valid, (worn >= config.coat_share) & field.valid)
         mask = separate(
-            grown, seeds, worn_s, px_per_mm=s, split_share=config.split_share,
+            grown,
+            seeds,
+            worn_s,
+            px_per_mm=s,
+            split_share=config.split_share,
             min_dip=3.0 * float(np.median(field.noise / field.local[field.valid])),
-            rim_share=None, large_lobes_deeper=False,
+            rim_share=None,
+            large_lobes_deeper=False,
         )
     mask = fill_small_holes(mask, 0.05 * s * s, field.glare)
     if config.compound_on == "work":
@@ -438,14 +390,14 @@ def _decide(
     return mask
 
 
-def _seeds_and_growth(field: _Field, config: SegmentConfig) -> tuple[np.ndarray, np.ndarray]:
+def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, np.ndarray]:
     """Seeds, and the region grown from them (compound on the reference)."""
     seeds = (field.zs >= config.seed_sigma) & (field.smooth >= config.seed_share * field.local)
     grown = seeds_and_growth(seeds & field.valid, (field.z >= config.grow_sigma) & field.valid)
     return seeds, grown
 
 
-def _regions(field: _Field, loosest: SegmentConfig, s: float) -> tuple[np.ndarray, int]:
+def _regions(field: Field, loosest: SegmentConfig, s: float) -> tuple[np.ndarray, int]:
     """The watershed regions of the loosest decision's grown contacts."""
     seeds, grown = _seeds_and_growth(field, loosest)
     return watershed_regions(grown, field.smooth, px_per_mm=s, seeds=seeds)

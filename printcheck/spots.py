@@ -62,7 +62,8 @@ def components(
     background).
     """
     n, lab, stats, cent = cv2.connectedComponentsWithStats(
-        np.ascontiguousarray(mask, dtype=bool).view(np.uint8), connectivity=8,
+        np.ascontiguousarray(mask, dtype=bool).view(np.uint8),
+        connectivity=8,
         ltype=cv2.CV_32S,
     )
     keep = stats[:, cv2.CC_STAT_AREA] >= min_px - 1e-9

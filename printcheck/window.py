@@ -23,8 +23,14 @@ from printcheck.layout import Window
 if TYPE_CHECKING:
     from printcheck.locate import LocateConfig
 
-__all__ = ["choose_px_per_mm", "frame_for", "rectify_window", "masks", "check_partial",
-           "hide_beyond_card"]
+__all__ = [
+    "choose_px_per_mm",
+    "frame_for",
+    "rectify_window",
+    "masks",
+    "check_partial",
+    "hide_beyond_card",
+]
 
 _PARTIAL_TOLERANCE = 1e-3  # share of the window that may fall outside before it counts
 
@@ -98,7 +104,7 @@ def _inside_photo(
         u = (m[0, 0] * c + m[0, 1] * r + m[0, 2]) / w
         v = (m[1, 0] * c + m[1, 1] * r + m[1, 2]) / w
         inside = (w > 0) & (u >= -0.5) & (u <= pw - 0.5) & (v >= -0.5) & (v <= ph - 0.5)
-    return inside
+    return np.asarray(inside, dtype=bool)
 
 
 def _warp(image: np.ndarray, m: np.ndarray, shape: tuple[int, int], ratio: float) -> np.ndarray:
@@ -167,7 +173,7 @@ def masks(
         xs = np.array([p[0] for p in poly])
         ys = np.array([p[1] for p in poly])
         pr, pc = frame.to_px(xs, ys)
-        rr, cc = _draw_polygon(pr, pc, shape=frame.shape)
+        rr, cc = _draw_polygon(pr, pc, shape=frame.shape)  # type: ignore[no-untyped-call]
         excluded[rr, cc] = True
     window = np.zeros(frame.shape, dtype=bool)
     window[win_rows, win_cols] = True

@@ -21,21 +21,31 @@ from printcheck.synth.truth import layout_masks
 
 PHOTOS = {
     "blue-reference-14ppi": (
-        Scene(density=14, camera=None, px_per_mm=10.0, truth_px_per_mm=14.0), 11
+        Scene(density=14, camera=None, px_per_mm=10.0, truth_px_per_mm=14.0),
+        11,
     ),
     "red-reference-30ppi-haze-jpeg": (
-        Scene(density=30, compound="red", camera=None, px_per_mm=14.0, truth_px_per_mm=16.0,
-              lighting=Lighting(haze=0.7, jpeg_quality=70)),
+        Scene(
+            density=30,
+            compound="red",
+            camera=None,
+            px_per_mm=14.0,
+            truth_px_per_mm=16.0,
+            lighting=Lighting(haze=0.7, jpeg_quality=70),
+        ),
         12,
     ),
     "blue-work-10ppi": (
-        Scene(density=10, compound_on="work", camera=None, px_per_mm=12.0,
-              truth_px_per_mm=14.0),
+        Scene(density=10, compound_on="work", camera=None, px_per_mm=12.0, truth_px_per_mm=14.0),
         13,
     ),
     "blue-reference-22ppi-tilted": (
-        Scene(density=22, camera=Camera(tilt_deg=22.0, rotation_deg=35.0, window_fraction=0.4),
-              image_size=(1200, 900), truth_px_per_mm=14.0),
+        Scene(
+            density=22,
+            camera=Camera(tilt_deg=22.0, rotation_deg=35.0, window_fraction=0.4),
+            image_size=(1200, 900),
+            truth_px_per_mm=14.0,
+        ),
         14,
     ),
 }
@@ -49,8 +59,12 @@ def outcomes():
         layout = scene.layout
         if scene.camera is None:
             w = layout.window
-            frame = Frame(px_per_mm=scene.px_per_mm, origin_mm=(w.x_mm, w.y_mm),
-                          shape=shot.image.shape[:2], window=w)
+            frame = Frame(
+                px_per_mm=scene.px_per_mm,
+                origin_mm=(w.x_mm, w.y_mm),
+                shape=shot.image.shape[:2],
+                window=w,
+            )
             visible, analysed = layout_masks(layout, frame)
             img = shot.image
         else:
@@ -60,11 +74,21 @@ def outcomes():
             rect = locate(shot.image, layout=layout)
             img, frame, visible, analysed = rect.image, rect.frame, rect.visible, rect.analysed
         s = frame.px_per_mm
-        seg = segment(img, visible=visible, analysed=analysed,
-                      config=SegmentConfig(compound=scene.compound,
-                                           compound_on=scene.compound_on, px_per_mm=s))
-        meas = measure(seg.mask, frame=frame, analysed=analysed,
-                       config=MeasureConfig(cell_mm=25.4), alternates=seg.alternates)
+        seg = segment(
+            img,
+            visible=visible,
+            analysed=analysed,
+            config=SegmentConfig(
+                compound=scene.compound, compound_on=scene.compound_on, px_per_mm=s
+            ),
+        )
+        meas = measure(
+            seg.mask,
+            frame=frame,
+            analysed=analysed,
+            config=MeasureConfig(cell_mm=25.4),
+            alternates=seg.alternates,
+        )
         out[name] = (shot.truth, meas, seg)
     return out
 
@@ -75,13 +99,16 @@ def test_count_and_bearing_match_truth(name, outcomes):
     assert truth.spot_count > 10  # the photo really holds a print
     # issue targets, 90th-percentile bounds, per photo
     assert abs(meas.spot_count - truth.spot_count) <= 0.08 * truth.spot_count, (
-        meas.spot_count, truth.spot_count)
+        meas.spot_count,
+        truth.spot_count,
+    )
     assert abs(meas.bearing_percent - truth.bearing_percent) <= 3.0, (
-        meas.bearing_percent, truth.bearing_percent)
+        meas.bearing_percent,
+        truth.bearing_percent,
+    )
     # the window's analysed area is the truth's (the same window, by pixel centres)
     assert meas.area_mm2 == pytest.approx(truth.area_mm2, rel=0.01)
-    assert meas.density == pytest.approx(
-        meas.spot_count * 25.4**2 / meas.area_mm2)
+    assert meas.density == pytest.approx(meas.spot_count * 25.4**2 / meas.area_mm2)
     c = meas.confidence
     assert c is not None and c.count_low <= meas.spot_count <= c.count_high
 

@@ -41,20 +41,33 @@ def _measure(scene: Scene, seed: int, **segment_options):  # type: ignore[no-unt
     shot = render_photo(scene, seed=seed)
     rect = locate(shot.image, layout=scene.layout)
     options = {"compound_on": scene.compound_on, **segment_options}
-    seg = segment(rect.image, visible=rect.visible, analysed=rect.analysed,
-                  config=SegmentConfig(px_per_mm=rect.frame.px_per_mm, **options))
-    meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed,
-                   config=MeasureConfig(cell_mm=25.4), alternates=seg.alternates,
-                   photo_px_per_mm=rect.calibration.photo_px_per_mm)
+    seg = segment(
+        rect.image,
+        visible=rect.visible,
+        analysed=rect.analysed,
+        config=SegmentConfig(px_per_mm=rect.frame.px_per_mm, **options),
+    )
+    meas = measure(
+        seg.mask,
+        frame=rect.frame,
+        analysed=rect.analysed,
+        config=MeasureConfig(cell_mm=25.4),
+        alternates=seg.alternates,
+        photo_px_per_mm=rect.calibration.photo_px_per_mm,
+    )
     return shot.truth, meas, seg
 
 
 def _within(truth, meas) -> None:  # type: ignore[no-untyped-def]
     assert truth.spot_count > 10  # the photo really holds a print
     assert abs(meas.spot_count - truth.spot_count) <= max(2, 0.08 * truth.spot_count), (
-        meas.spot_count, truth.spot_count)
+        meas.spot_count,
+        truth.spot_count,
+    )
     assert abs(meas.bearing_percent - truth.bearing_percent) <= 3.0, (
-        meas.bearing_percent, truth.bearing_percent)
+        meas.bearing_percent,
+        truth.bearing_percent,
+    )
 
 
 def test_pieces_at_the_card_edge_are_counted_with_a_layout_that_states_a_margin() -> None:
@@ -66,32 +79,47 @@ def test_pieces_at_the_card_edge_are_counted_with_a_layout_that_states_a_margin(
     truth, meas, _ = _measure(scene, seed=31)
     _within(truth, meas)
     edge = meas.spots.in_window & (
-        (meas.spots.x_mm < 1.0) | (meas.spots.x_mm > 49.8)
-        | (meas.spots.y_mm < 1.0) | (meas.spots.y_mm > 49.8)
+        (meas.spots.x_mm < 1.0)
+        | (meas.spots.x_mm > 49.8)
+        | (meas.spots.y_mm < 1.0)
+        | (meas.spots.y_mm > 49.8)
     )
     assert edge.sum() >= 2  # pieces at the edge were found and counted
 
 
 def test_a_wide_smear_of_compound_is_not_contact() -> None:
-    scene = Scene(density=14, camera=CAMERA, image_size=(1400, 1050),
-                  lighting=Lighting(haze=0.5, haze_wide=1.0))
+    scene = Scene(
+        density=14,
+        camera=CAMERA,
+        image_size=(1400, 1050),
+        lighting=Lighting(haze=0.5, haze_wide=1.0),
+    )
     truth, meas, _ = _measure(scene, seed=32)
     _within(truth, meas)
 
 
 def test_broad_bright_facets_are_metal_not_glare() -> None:
-    scene = Scene(density=16, camera=CAMERA, image_size=(1400, 1050),
-                  lighting=Lighting(facet_gloss=0.6))
+    scene = Scene(
+        density=16, camera=CAMERA, image_size=(1400, 1050), lighting=Lighting(facet_gloss=0.6)
+    )
     truth, meas, seg = _measure(scene, seed=33)
     _within(truth, meas)
     assert seg.glare_fraction < 0.05
 
 
-@pytest.mark.xfail(strict=True, reason="compound on the work: this renderer's small contacts "
-                   "wear only part of the coat through and are missed (about 15 % under)")
+@pytest.mark.xfail(
+    strict=True,
+    reason="compound on the work: this renderer's small contacts "
+    "wear only part of the coat through and are missed (about 15 % under)",
+)
 def test_compound_on_the_work_through_a_card_with_a_pushed_up_ring() -> None:
-    scene = Scene(density=12, compound_on="work", camera=CAMERA, image_size=(1400, 1050),
-                  lighting=Lighting(ring=0.8))
+    scene = Scene(
+        density=12,
+        compound_on="work",
+        camera=CAMERA,
+        image_size=(1400, 1050),
+        lighting=Lighting(ring=0.8),
+    )
     truth, meas, seg = _measure(scene, seed=34)
     _within(truth, meas)
     assert seg.compound == "blue"
@@ -104,12 +132,16 @@ def test_red_compound_is_found_by_default() -> None:
     _within(truth, meas)
 
 
-@pytest.mark.xfail(strict=True, reason="a contact whose lobes join through a neck of thin "
-                   "film is counted as two (about 13 % over): the evidence cannot tell such "
-                   "a neck from a gap the blur has filled in")
+@pytest.mark.xfail(
+    strict=True,
+    reason="a contact whose lobes join through a neck of thin "
+    "film is counted as two (about 13 % over): the evidence cannot tell such "
+    "a neck from a gap the blur has filled in",
+)
 def test_pale_rims_are_kept() -> None:
-    scene = Scene(density=20, camera=CAMERA, image_size=(1400, 1050),
-                  lighting=Lighting(rim_film=0.15))
+    scene = Scene(
+        density=20, camera=CAMERA, image_size=(1400, 1050), lighting=Lighting(rim_film=0.15)
+    )
     truth, meas, _ = _measure(scene, seed=36)
     _within(truth, meas)
 
@@ -122,9 +154,12 @@ def fine_field():  # type: ignore[no-untyped-def]
 @pytest.mark.parametrize("px_per_mm", [12.0, 18.0])
 def test_a_fine_print_at_phone_resolution(fine_field, px_per_mm: float) -> None:  # type: ignore[no-untyped-def]
     # a fine print square-on (a rig) at the photo's own resolution; thin, pale film
-    scene = Scene(field=fine_field, camera=None, px_per_mm=px_per_mm,
-                  lighting=Lighting(compound_strength=0.5, rim_film=0.1, blur_sigma_px=0.8,
-                                    jpeg_quality=85))
+    scene = Scene(
+        field=fine_field,
+        camera=None,
+        px_per_mm=px_per_mm,
+        lighting=Lighting(compound_strength=0.5, rim_film=0.1, blur_sigma_px=0.8, jpeg_quality=85),
+    )
     shot = render_photo(scene, seed=37)
     truth = shot.truth
     assert 40 <= truth.density <= 60
@@ -132,26 +167,48 @@ def test_a_fine_print_at_phone_resolution(fine_field, px_per_mm: float) -> None:
 
     w = card_layout().window
     rect = rectify_scale(shot.image, px_per_mm=px_per_mm)
-    seg = segment(rect.image, visible=rect.visible, analysed=rect.analysed,
-                  config=SegmentConfig(px_per_mm=rect.frame.px_per_mm))
-    meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed,
-                   config=MeasureConfig(cell_mm=25.4), alternates=seg.alternates)
+    seg = segment(
+        rect.image,
+        visible=rect.visible,
+        analysed=rect.analysed,
+        config=SegmentConfig(px_per_mm=rect.frame.px_per_mm),
+    )
+    meas = measure(
+        seg.mask,
+        frame=rect.frame,
+        analysed=rect.analysed,
+        config=MeasureConfig(cell_mm=25.4),
+        alternates=seg.alternates,
+    )
     assert rect.frame.window.width_mm == pytest.approx(w.width_mm, abs=0.1)
     _within(truth, meas)
 
 
 def test_a_photo_too_far_away_for_its_contacts_is_flagged(fine_field) -> None:  # type: ignore[no-untyped-def]
-    scene = Scene(field=fine_field, camera=None, px_per_mm=5.0,
-                  lighting=Lighting(compound_strength=0.5, blur_sigma_px=0.6, jpeg_quality=85))
+    scene = Scene(
+        field=fine_field,
+        camera=None,
+        px_per_mm=5.0,
+        lighting=Lighting(compound_strength=0.5, blur_sigma_px=0.6, jpeg_quality=85),
+    )
     shot = render_photo(scene, seed=38)
     from printcheck.locate import rectify_scale
 
     rect = rectify_scale(shot.image, px_per_mm=5.0)
-    seg = segment(rect.image, visible=rect.visible, analysed=rect.analysed,
-                  config=SegmentConfig(px_per_mm=5.0))
-    meas = measure(seg.mask, frame=rect.frame, analysed=rect.analysed,
-                   config=MeasureConfig(cell_mm=25.4), alternates=seg.alternates,
-                   photo_px_per_mm=5.0)
+    seg = segment(
+        rect.image,
+        visible=rect.visible,
+        analysed=rect.analysed,
+        config=SegmentConfig(px_per_mm=5.0),
+    )
+    meas = measure(
+        seg.mask,
+        frame=rect.frame,
+        analysed=rect.analysed,
+        config=MeasureConfig(cell_mm=25.4),
+        alternates=seg.alternates,
+        photo_px_per_mm=5.0,
+    )
     c = meas.confidence
     assert c is not None and c.doubtful
     assert "px/mm; this photo has 5: move closer" in c.reason
@@ -171,24 +228,52 @@ def test_a_photo_without_compound_is_refused_and_nothing_of_it_is_recorded(tmp_p
     folder.mkdir()
     cam = Camera(tilt_deg=8.0, window_fraction=0.35)
     good = render_photo(Scene(density=12, camera=cam, image_size=(1200, 900)), seed=40)
-    bare = render_photo(Scene(density=12, camera=cam, image_size=(1200, 900),
-                              lighting=Lighting(compound_strength=0.0, haze=0.0)), seed=41)
+    bare = render_photo(
+        Scene(
+            density=12,
+            camera=cam,
+            image_size=(1200, 900),
+            lighting=Lighting(compound_strength=0.0, haze=0.0),
+        ),
+        seed=41,
+    )
     assert good.jpeg is not None and bare.jpeg is not None
     (folder / "a-good.jpg").write_bytes(good.jpeg)
     (folder / "b-bare.jpg").write_bytes(bare.jpeg)
     cmd = [sys.executable, "-m", "printcheck"]
-    one = subprocess.run(cmd + ["inspect", str(folder / "b-bare.jpg"), "--json"],
-                         capture_output=True, text=True, check=False)
+    one = subprocess.run(
+        cmd + ["inspect", str(folder / "b-bare.jpg"), "--json"],
+        capture_output=True,
+        text=True,
+        check=False,
+    )
     assert one.returncode == 2 and one.stdout == ""
     assert "marking compound found in the window" in one.stderr
     assert len(one.stderr.strip().splitlines()) == 1
     db = tmp_path / "history.sqlite"
-    run = subprocess.run(cmd + ["batch", str(folder), "--db", str(db), "--surface", "way",
-                                "--out", str(tmp_path / "out")],
-                         capture_output=True, text=True, check=False)
+    run = subprocess.run(
+        cmd
+        + [
+            "batch",
+            str(folder),
+            "--db",
+            str(db),
+            "--surface",
+            "way",
+            "--out",
+            str(tmp_path / "out"),
+        ],
+        capture_output=True,
+        text=True,
+        check=False,
+    )
     assert run.returncode in (0, 1), run.stderr  # the good photo is a measurement
     assert "b-bare.jpg" in run.stderr and "Traceback" not in run.stderr
-    prog = subprocess.run(cmd + ["progress", "way", "--db", str(db), "--json"],
-                          capture_output=True, text=True, check=True)
+    prog = subprocess.run(
+        cmd + ["progress", "way", "--db", str(db), "--json"],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
     passes = json.loads(prog.stdout)["passes"]
     assert [p["photo"] for p in passes] == ["a-good.jpg"]

@@ -173,8 +173,11 @@ def test_auto_picks_the_compound_colour(colour, on, spots, visible):
     assert seg.compound == colour
 
 
-@pytest.mark.xfail(strict=True, reason="compound on the work under glare that washes the coat "
-                   "out to grey: by colour it reads as worn-through metal; not solved yet")
+@pytest.mark.xfail(
+    strict=True,
+    reason="compound on the work under glare that washes the coat "
+    "out to grey: by colour it reads as worn-through metal; not solved yet",
+)
 def test_glare_is_not_contact_with_compound_on_work(visible):
     none = np.zeros(SHAPE, bool)
     img = _render(none, seed=2, on="work", glare=1.5)
@@ -222,8 +225,12 @@ def test_touching_contacts_are_counted_apart(visible):
     img = _render(mask, seed=8, blur_mm=0.12, haze=0.02)
     seg = segment(img, visible=visible, config=SegmentConfig(compound="blue", px_per_mm=S))
     assert n_true == 10
-    assert ndimage.label(ndimage.gaussian_filter(mask.astype(float), 0.12 * S) > 0.1,
-                         structure=np.ones((3, 3)))[1] == 5  # blurred, each pair is one blob
+    assert (
+        ndimage.label(
+            ndimage.gaussian_filter(mask.astype(float), 0.12 * S) > 0.1, structure=np.ones((3, 3))
+        )[1]
+        == 5
+    )  # blurred, each pair is one blob
     for k in range(5):
         cy = 60 + 75 * k
         box = seg.mask[cy - 20 : cy + 20, 80:160]
@@ -265,13 +272,15 @@ def test_card_edge_sliver_is_not_a_spot():
     spots = _blobs(seed=5, count=20)
     img = _render(spots, seed=5, on="work")
     img[:1, :] = img[-1:, :] = img[:, :1] = img[:, -1:] = 235  # paper, nearly white
-    seg = segment(img, visible=np.ones(SHAPE, bool),
-                  config=SegmentConfig(compound="blue", compound_on="work", px_per_mm=S))
+    seg = segment(
+        img,
+        visible=np.ones(SHAPE, bool),
+        config=SegmentConfig(compound="blue", compound_on="work", px_per_mm=S),
+    )
     inner = np.zeros(SHAPE, bool)
     inner[1:-1, 1:-1] = True
     assert _count(seg.mask) == pytest.approx(_truth(spots & inner)[0], abs=1)
     assert not seg.mask[0, SHAPE[1] // 2 - 20 : SHAPE[1] // 2 + 20].all()
-
 
 
 def test_block_quantiles_equal_numpy_nanquantile() -> None:

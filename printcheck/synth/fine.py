@@ -65,8 +65,12 @@ def fine_surface(
     s = px_per_mm
     top = 0.0
     height = np.full((rows, cols), top - 3.0 * film_um, np.float64)
-    height += 0.3 * film_um * (base.height_um - base.height_um.max()) / max(
-        float(np.ptp(base.height_um)), 1e-9)
+    height += (
+        0.3
+        * film_um
+        * (base.height_um - base.height_um.max())
+        / max(float(np.ptp(base.height_um)), 1e-9)
+    )
     w = layout.window
     area_in2 = w.width_mm * w.height_mm / 25.4**2
     want = int(round(density * area_in2 * 1.15))  # a few fall outside or merge
@@ -108,12 +112,12 @@ def fine_surface(
     excluded = base.excluded
     if excluded is not None:
         height[excluded] = top - 5.0 * film_um
-    return HeightField(height, base.px_per_mm, base.origin_mm, base.lay_rad, base.facet,
-                       excluded)
+    return HeightField(height, base.px_per_mm, base.origin_mm, base.lay_rad, base.facet, excluded)
 
 
-def _clear(c: tuple[float, float, float], placed: list[tuple[float, float, float]],
-           margin: float) -> bool:
+def _clear(
+    c: tuple[float, float, float], placed: list[tuple[float, float, float]], margin: float
+) -> bool:
     """Whether contact ``c`` keeps ``margin`` mm of bare metal from every placed one."""
     x, y, d = c
     for px_, py_, pd in placed:

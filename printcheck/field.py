@@ -1,0 +1,166 @@
+"""The contact field: a photo's compound evidence against its local levels.
+
+Steps 3 and 4 of the segment stage (see :mod:`printcheck.segment`): the local bare level
+and noise of the evidence, over the pixels that are not contact (what stands clearly
+above a coarse first estimate is left out of the fine one, unless it is broader than any
+contact island: a broad change of the light or a smear, which the bare level must
+follow); then the compound's local level (with compound on the reference) or the depth
+from the coat to bare metal (with compound on the work).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from printcheck.evidence import (
+    EVIDENCE_FLOOR,
+    block_quantiles,
+    fill_and_smooth,
+    level_maps,
+    upsample,
+)
+
+__all__ = ["Field", "contact_field"]
+
+_BROAD_MM2 = 64.0  # no contact island is larger (an 8 mm square)
+
+
+@dataclass(frozen=True, eq=False)
+class Field:
+    """The evidence of a photo and its local levels, each (M, N) but ``noise``.
+
+    Shared by the segment stage's main and nudged decisions.
+    """
+
+    score: np.ndarray  # evidence above the local bare level
+    smooth: np.ndarray  # the same, smoothed at spot scale
+    z: np.ndarray  # score in noise units
+    zs: np.ndarray  # smooth in spot-scale noise units
+    local: np.ndarray  # the compound's local level (reference) or the coat's depth (work)
+    valid: np.ndarray  # visible and not burnt out
+    visible: np.ndarray
+    glare: np.ndarray  # burnt out
+    noise: float  # median spot-scale noise
+
+
+def contact_field(
+    evidence: np.ndarray,
+    valid: np.ndarray,
+    stat: np.ndarray,
+    glare: np.ndarray,
+    *,
+    px_per_mm: float,
+    spot_mm: float,
+    background_mm: float,
+    seed_sigma: float,
+    local_mm: float,
+    compound_on: str,
+) -> Field:
+    """The evidence's local levels (see the module docstring).
+
+    Parameters
+    ----------
+    evidence : (M, N) float32 ndarray
+        Colour evidence (negated with compound on the work).
+    valid : (M, N) bool ndarray
+        Visible and not burnt out.
+    stat : (M, N) bool ndarray
+        Where the photo's statistics are read (the analysed window, valid).
+    glare : (M, N) bool ndarray
+        Burnt out.
+    px_per_mm, spot_mm, background_mm, seed_sigma, local_mm, compound_on
+        As :class:`printcheck.segment.SegmentConfig` has them.
+    """
+    s = px_per_mm
+    shape = evidence.shape
+    coarse = max(8, int(round(5.0 * s)))
+    q, count = block_quantiles(evidence, stat, coarse, (0.05, 0.5))
+    ok = count >= 0.25 * coarse * coarse
+    if not ok.any():
+        ok = count > 0
+    first = upsample(fill_and_smooth(q[1], ok.astype(np.float32), 1.0), coarse, shape)
+    noise0 = max(float(np.median((q[1] - q[0])[ok])) / 1.645, EVIDENCE_FLOOR)
+    marked = (evidence - first) > 5.0 * noise0
+    # a mark wider than any contact island (64 mm², an 8 mm square) is a broad change of
+    # the light or a smear, which the fine bare level must follow, not leave out
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(marked.view(np.uint8), connectivity=8)
+    broad = stats[:, cv2.CC_STAT_AREA] > _BROAD_MM2 * s * s
+    broad[0] = False
+    if broad.any():
+        marked &= ~broad[lab]
+    r = max(1, int(round(0.3 * s)))
+    near = cv2.dilate(
+        marked.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
+    )
+    smoothed = cv2.GaussianBlur(evidence, (0, 0), max(spot_mm * s, 0.35))
+    block = max(4, int(round(background_mm * s)))
+    maps = level_maps(evidence, smoothed, stat & ~near.view(bool), block=block)
+    score = evidence - maps.bare
+    smooth = smoothed - maps.bare
+    noise = float(np.median(maps.sigma_spot[stat]))
+    zs = (smooth / maps.sigma_spot).astype(np.float32)
+    if compound_on == "reference":
+        strong = zs >= 2.0 * seed_sigma
+        local = _compound_level(smooth, valid, stat, strong, s, local_mm)
+    else:
+        local = _coat_depth(score, smooth, maps.bare, stat, evidence)
+    return Field(
+        score=score.astype(np.float32),
+        smooth=smooth.astype(np.float32),
+        z=(score / maps.sigma).astype(np.float32),
+        zs=zs,
+        local=local,
+        valid=valid,
+        visible=valid | glare,
+        glare=glare,
+        noise=noise,
+    )
+
+
+def _compound_level(
+    smooth: np.ndarray,
+    valid: np.ndarray,
+    stat: np.ndarray,
+    strong: np.ndarray,
+    s: float,
+    local_mm: float,
+) -> np.ndarray:
+    """The compound's local level: the strongest marks (98th percentile) of each block.
+
+    Blocks without a mark of at least 0.3 of the photo's typical level take their
+    neighbours' level, so a block of bare metal does not lower the bar for its haze.
+    """
+    v = smooth[stat]
+    # the top 2 % of the window, or on a sparse print the share that is clearly marked
+    # (ten noise levels up), so that a print of a few spots is not judged by its noise
+    top = min(max(float(np.count_nonzero(strong[stat])) / max(v.size, 1), 0.002), 0.02)
+    typical = float(np.median(v[v >= np.quantile(v, 1.0 - top)])) if v.size else 0.0
+    block = max(8, int(round(local_mm * s)))
+    q, count = block_quantiles(smooth, valid, block, (0.98,))
+    has = (count > 0) & (np.nan_to_num(q[0]) > 0.3 * typical)
+    if not has.any():
+        return np.full(smooth.shape, max(typical, EVIDENCE_FLOOR), np.float32)
+    grid = fill_and_smooth(q[0], has.astype(np.float32), 1.0)
+    return np.asarray(np.maximum(upsample(grid, block, smooth.shape), EVIDENCE_FLOOR), np.float32)
+
+
+def _coat_depth(
+    score: np.ndarray,
+    smooth: np.ndarray,
+    coat: np.ndarray,
+    stat: np.ndarray,
+    evidence: np.ndarray,
+) -> np.ndarray:
+    """Compound on the work: how far the evidence falls from the coat to bare metal.
+
+    The bare metal's level is that of the clearest worn-through pixels (over half of the
+    deepest); the depth is the local coat level less it.
+    """
+    v = smooth[stat]
+    top = float(np.median(v[v >= np.quantile(v, 0.98)])) if v.size else 0.0
+    clear = stat & (smooth >= 0.5 * top)
+    metal = float(np.median(evidence[clear])) if clear.any() else float(np.max(evidence[stat]))
+    return np.maximum(metal - coat, 0.05).astype(np.float32)
