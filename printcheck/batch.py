@@ -3,26 +3,49 @@
 One bad photo is reported and skipped; the rest go on.  Each photo's pass is recorded in
 the history in one transaction as soon as it is measured, so an interrupted batch leaves
 only whole passes, and re-running it records nothing twice.
+
+Only regular files named like photos are photos: folders, links to nothing, named pipes
+and devices so named are reported and skipped without being opened, and printcheck's own
+overlays are never taken for photos.
+
+The worker processes belong to the batch: they ignore Ctrl-C (the batch alone answers
+it), and they end as soon as the batch process ends, however it ends (``kill -9`` too).
+A worker killed from outside (as the out-of-memory killer does) costs only the photo it
+was measuring: that photo is reported as not measured, a new pool measures the rest, and
+the exit status is :data:`EXIT_INCOMPLETE`.
 """
 
 from __future__ import annotations
 
+import contextlib
+import os
+import signal
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ProcessPoolExecutor
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 from typing import Any
 
-from printcheck.errors import OptionError, PrintcheckError, ReportError
+from printcheck.errors import Interrupted, OptionError, PrintcheckError, ReportError
 from printcheck.options import InspectOptions
 from printcheck.pipeline import cores_available
 from printcheck.records import PassSummary, Progress
 from printcheck.spec import Spec
 
-__all__ = ["BatchItem", "Measured", "Skipped", "list_photos", "run_batch"]
+__all__ = [
+    "EXIT_INCOMPLETE",
+    "BatchItem",
+    "Measured",
+    "Skipped",
+    "list_photos",
+    "run_batch",
+]
 
 EXIT_MEETS, EXIT_FAILS, EXIT_UNUSABLE = 0, 1, 2
+#: Some photos were not measured for a reason that is not theirs (a worker process was
+#: killed); the others were measured, recorded and reported.
+EXIT_INCOMPLETE = 3
 
 _WORKER_MODULES = (
     "printcheck.pipeline",
@@ -36,6 +59,9 @@ _WORKER_MODULES = (
     "scipy.ndimage",
 )
 
+# A photo's state in the pool, shared with the workers (one int64 per photo):
+_WAITING, _DONE = 0, -1  # ... and a worker's pid while that worker measures it
+
 
 @dataclass(frozen=True)
 class Measured:
@@ -48,10 +74,21 @@ class Measured:
 
 @dataclass(frozen=True)
 class Skipped:
-    """A photo a worker could not measure, and the one-line reason."""
+    """A photo that was not measured, and the one-line reason (which names it).
+
+    ``killed``: the process measuring it was killed from outside; the photo itself may
+    be fine.
+    """
 
     path: Path
     error: str
+    killed: bool = False
+
+    @property
+    def reason(self) -> str:
+        """The reason without the leading ``photo <path>: ``."""
+        head = f"photo {self.path}: "
+        return self.error[len(head) :] if self.error.startswith(head) else self.error
 
 
 Outcome = Measured | Skipped
@@ -70,44 +107,70 @@ class BatchItem:
         return (self.taken or self.file_time, self.file_time, self.path.name)
 
 
-def list_photos(folder: Path) -> tuple[list[BatchItem], list[str]]:
-    """The photos in ``folder`` in the order taken, and one-line notes on what was skipped.
+def list_photos(folder: Path) -> tuple[list[BatchItem], list[Skipped]]:
+    """The photos in ``folder`` in the order taken, and the files named like photos that
+    are not photos, each with its one-line reason.
 
-    Order: EXIF DateTimeOriginal, then the file time, then the name.  Folders named like
-    photos and hidden files are skipped with a note.
+    Order: EXIF DateTimeOriginal, then the file time, then the name.  Only regular files
+    (or links to them) are photos; a folder, a link to nothing, a named pipe, a socket or a
+    device named like a photo is skipped without being opened.  Hidden files and
+    printcheck's own overlays (``*.overlay.png``, when ``--out`` is the photo folder) are
+    not looked at.
+
+    Raises
+    ------
+    ReportError
+        The folder cannot be listed.
     """
-    from printcheck.load import is_photo_name, photo_taken
+    import stat
+
+    from printcheck.load import is_photo_name, not_a_photo_file, photo_taken
+    from printcheck.report.files import is_output_name
 
     items: list[BatchItem] = []
-    notes: list[str] = []
+    skipped: list[Skipped] = []
     try:
-        entries = sorted(folder.iterdir(), key=lambda p: p.name)
+        names = sorted(os.listdir(folder))
     except OSError as exc:
         raise ReportError(f"batch {folder}: cannot list the folder ({exc.strerror})") from None
-    for path in entries:
-        if path.name.startswith(".") or not is_photo_name(path):
+    for name in names:
+        if name.startswith(".") or not is_photo_name(name) or is_output_name(name):
             continue
-        if path.is_dir():
-            notes.append(f"photo {path}: is a folder, not a photo; skipped")
-            continue
+        path = folder / name
         try:
-            mtime = datetime.fromtimestamp(path.stat().st_mtime).replace(microsecond=0)
-        except OSError as exc:
-            notes.append(f"photo {path}: cannot be read ({exc.strerror}); skipped")
+            info = path.stat()  # follows a link to the file it names
+        except FileNotFoundError:
+            why = "is a link to a file that does not exist" if path.is_symlink() else "is gone"
+            skipped.append(Skipped(path, f"photo {path}: {why}"))
             continue
+        except OSError as exc:
+            skipped.append(Skipped(path, f"photo {path}: cannot be read ({exc.strerror})"))
+            continue
+        why_not = not_a_photo_file(info.st_mode)
+        if why_not is not None:
+            skipped.append(Skipped(path, f"photo {path}: {why_not}"))
+            continue
+        assert stat.S_ISREG(info.st_mode)
+        mtime = datetime.fromtimestamp(info.st_mtime).replace(microsecond=0)
         items.append(BatchItem(path, photo_taken(path), mtime))
     items.sort(key=lambda item: item.sort_key)
-    return items, notes
+    return items, skipped
 
 
 def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -> Outcome:
-    """Inspect one photo and write its JSON and overlay (runs in a worker process)."""
+    """Inspect one photo and write its JSON and overlay."""
     if single_thread:  # one worker per core: the cores are busy
         import cv2
 
         cv2.setNumThreads(1)
     from printcheck.pipeline import inspect_photo
-    from printcheck.report.files import encode_image, output_name, write_bytes, write_json
+    from printcheck.report.files import (
+        OVERLAY_SUFFIX,
+        encode_image,
+        output_name,
+        write_bytes,
+        write_json,
+    )
     from printcheck.report.overlay import draw_overlay
     from printcheck.serde import summarize, summary_to_dict
 
@@ -116,7 +179,7 @@ def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -
         summary = summarize(result)
         overlay = draw_overlay(result)
         write_json(out, output_name(result.photo, ".json"), summary_to_dict(summary))
-        write_bytes(out, output_name(result.photo, ".overlay.png"), encode_image(overlay, ".png"))
+        write_bytes(out, output_name(result.photo, OVERLAY_SUFFIX), encode_image(overlay, ".png"))
         preview = encode_image(_shrink(overlay, 1400), ".jpg", jpeg_quality=85)
     except PrintcheckError as exc:
         return Skipped(path, str(exc))
@@ -135,6 +198,16 @@ def _shrink(image: Any, longest: int) -> Any:
     return cv2.resize(image, (round(w * scale), round(h * scale)), interpolation=cv2.INTER_AREA)
 
 
+@dataclass
+class _Tally:
+    """What a batch has done so far, for its closing lines (and an interrupted one's)."""
+
+    total: int
+    measured: list[Measured] = field(default_factory=list)
+    skipped: list[Skipped] = field(default_factory=list)
+    in_history: int | None = None  # photos of this batch whose pass is in the history
+
+
 def run_batch(
     folder: Path,
     *,
@@ -147,7 +220,11 @@ def run_batch(
     warn: Callable[[str], None] = print,
     show_progress: bool | None = None,
 ) -> int:
-    """Process ``folder``; return the exit status (0 meets, 1 does not, 2 nothing usable).
+    """Process ``folder``; return the exit status.
+
+    0 the latest measured pass meets the spec (or no spec), 1 it does not, 2 no photo
+    could be measured, :data:`EXIT_INCOMPLETE` (3) a worker process was killed and the
+    photo it measured was not measured (the rest were, and the report names it).
 
     Writes ``<stem>.json`` and ``<stem>.overlay.png`` per photo, ``results.csv`` and
     ``report.html`` to ``out``, and records every pass in the history at ``db``.
@@ -158,49 +235,95 @@ def run_batch(
         ``jobs`` is less than 1.
     ReportError
         The folder holds no photos, or ``out`` cannot be created.
+    HistoryError
+        The history cannot be opened or written.
+    Interrupted
+        Ctrl-C (SIGINT) or SIGTERM: its message says how many photos are in the history
+        and how to finish.
     """
     if jobs is not None and jobs < 1:
         raise OptionError(
             f"jobs must be 1 or more, got {jobs}; leave it out to use every core",
             parameter="jobs",
         )
-    items, notes = list_photos(folder)
-    for note in notes:
-        warn(note)
-    if not items:
-        raise ReportError(f"batch {folder}: no photos found (JPEG, PNG, TIFF, HEIC)")
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise ReportError(f"output folder {out}: cannot be created ({exc.strerror})") from None
     surface = options.surface or folder.resolve().name
-    workers = max(1, min(jobs or cores_available(), len(items)))
-    if show_progress is None:
-        show_progress = _stderr_is_terminal()
-    done, progress = _measure_and_record(
-        items,
-        options,
-        out,
-        db,
-        surface=surface,
-        workers=workers,
-        json_lines=json_lines,
-        echo=echo,
-        warn=warn,
-        show_progress=show_progress,
-    )
-    if not done:
-        warn(f"batch {folder}: none of the {len(items)} photos could be measured")
-        return EXIT_UNUSABLE
-    _write_outputs(out, surface=surface, spec=options.spec, done=done, progress=progress)
+    tally: _Tally | None = None
+    try:
+        items, not_photos = list_photos(folder)
+        for note in not_photos:
+            warn(f"{note.error}; skipped")
+        if not items:
+            raise ReportError(f"batch {folder}: no photos found (JPEG, PNG, TIFF, HEIC)")
+        tally = _Tally(total=len(items) + len(not_photos), skipped=list(not_photos))
+        workers = max(1, min(jobs or cores_available(), len(items)))
+        if show_progress is None:
+            show_progress = _stderr_is_terminal()
+        progress = _measure_and_record(
+            items,
+            options,
+            out,
+            db,
+            tally=tally,
+            surface=surface,
+            workers=workers,
+            json_lines=json_lines,
+            echo=echo,
+            warn=warn,
+            show_progress=show_progress,
+        )
+        done = tally.measured
+        if not done:
+            warn(f"batch {folder}: none of the {tally.total} photos could be measured")
+            return EXIT_UNUSABLE
+        _write_outputs(out, surface=surface, spec=options.spec, tally=tally, progress=progress)
+    except KeyboardInterrupt as exc:
+        raise Interrupted(
+            _interrupted_words(tally, db, surface), signum=getattr(exc, "signum", signal.SIGINT)
+        ) from None
+    killed = [s for s in tally.skipped if s.killed]
     if not json_lines:
         from printcheck.progress import progress_text
 
         echo(progress_text(progress))
-        failed = len(items) - len(done)
-        extra = f", {failed} skipped" if failed else ""
-        echo(f"{len(done)} photos measured{extra}; report: {out / 'report.html'}")
+        echo(_summary_words(tally, out))
+    if killed:
+        return EXIT_INCOMPLETE
     return EXIT_FAILS if done[-1].summary.meets is False else EXIT_MEETS
+
+
+def _summary_words(tally: _Tally, out: Path) -> str:
+    """The closing line: photos measured, skipped (and why, briefly), the report."""
+    parts = [f"{len(tally.measured)} of {tally.total} photos measured"]
+    killed = sum(s.killed for s in tally.skipped)
+    if killed:
+        its, was, it = ("its", "was", "it") if killed == 1 else ("their", "were", "them")
+        parts.append(
+            f"{killed} not measured because {its} worker process {was} killed "
+            f"(out of memory?); run the batch again to measure {it}"
+        )
+    if len(tally.skipped) > killed:
+        parts.append(f"{len(tally.skipped) - killed} skipped")
+    return ", ".join(parts) + f"; report: {out / 'report.html'}"
+
+
+def _interrupted_words(tally: _Tally | None, db: Path, surface: str) -> str:
+    """The one line an interrupted batch leaves: what the history holds, how to go on."""
+    if tally is None or (tally.in_history is None and not tally.measured):
+        return (
+            "interrupted before any photo was measured; the history is as it was; "
+            "run the same command again to start"
+        )
+    kept = len(tally.measured) if tally.in_history is None else tally.in_history
+    if kept == 0:
+        return (
+            f"interrupted; none of the {tally.total} photos is in the history yet; "
+            "run the same command again to start over"
+        )
+    return (
+        f"interrupted; {kept} of the {tally.total} photos are in the history {db} as "
+        f"passes of {surface!r}, each whole; run the same command again to finish "
+        "(passes already recorded are not recorded twice)"
+    )
 
 
 def _measure_and_record(
@@ -209,57 +332,127 @@ def _measure_and_record(
     out: Path,
     db: Path,
     *,
+    tally: _Tally,
     surface: str,
     workers: int,
     json_lines: bool,
     echo: Callable[[str], None],
     warn: Callable[[str], None],
     show_progress: bool,
-) -> tuple[list[Measured], Progress]:
-    """Measure every photo, record each pass as it comes; the measured photos in the
-    order taken, and the surface's progress over its whole history."""
+) -> Progress:
+    """Measure every photo and record each pass as it comes (into ``tally``, in the order
+    taken); the surface's progress over its whole history."""
     import json
-    import threading
 
     from printcheck.history import open_history
     from printcheck.progress import build_progress, surface_spec
-    from printcheck.report.plots import warm_up
     from printcheck.serde import summary_to_dict
 
-    # matplotlib's import and first drawing (~1 s) are needed only for the report at the
-    # end: a thread does them while the photos are measured (from the first result on,
-    # so that it does not hold up the start)
-    warming = threading.Thread(target=warm_up, name="printcheck-plots", daemon=True)
-    outcomes: dict[int, Outcome] = {}
-    with open_history(db) as history, _Runner(items, options, out, workers) as finished:
-        with _Progress(len(items), enabled=show_progress) as bar:
-            for index, outcome in finished:
-                outcomes[index] = outcome
-                if warming.ident is None and cores_available() > 1:
-                    warming.start()
-                if isinstance(outcome, Skipped):
-                    warn(f"{outcome.error}; skipped")
-                else:
-                    history.record(outcome.summary, surface=surface, spec=options.spec)
-                    if json_lines:
-                        echo(json.dumps(summary_to_dict(outcome.summary), ensure_ascii=False))
-                bar.advance(items[index].path.name)
+    # the history first: a file that is not a history is refused before any work is done
+    # or any folder made
+    with open_history(db) as history:
+        try:
+            out.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise ReportError(f"output folder {out}: cannot be created ({exc.strerror})") from None
+        # matplotlib's import and first drawing (~1 s) are needed only for the report at
+        # the end: a thread does them while the photos are measured (from the first
+        # result on, so that it does not hold up the start)
+        warming = _Warming()
+        outcomes: dict[int, Outcome] = {}
+        try:
+            with _Runner(items, options, out, workers) as finished:
+                with _Progress(len(items), enabled=show_progress) as bar:
+                    for index, outcome in finished:
+                        outcomes[index] = outcome
+                        if cores_available() > 1:
+                            warming.start()
+                        if isinstance(outcome, Skipped):
+                            warn(outcome.error if outcome.killed else f"{outcome.error}; skipped")
+                            tally.skipped.append(outcome)
+                        else:
+                            history.record(outcome.summary, surface=surface, spec=options.spec)
+                            tally.measured.append(outcome)
+                            if json_lines:
+                                echo(
+                                    json.dumps(summary_to_dict(outcome.summary), ensure_ascii=False)
+                                )
+                        bar.advance(items[index].path.name)
+        except KeyboardInterrupt:
+            tally.in_history = _photos_in_history(history, surface, items)
+            raise
+        finally:
+            warming.wait()
         stored = history.passes(surface)
-    if warming.ident is not None:
-        warming.join()
-    done = [o for _, o in sorted(outcomes.items()) if isinstance(o, Measured)]
+    tally.measured[:] = [o for _, o in sorted(outcomes.items()) if isinstance(o, Measured)]
     spec = options.spec if options.spec is not None else surface_spec(stored)
-    progress = build_progress(surface, [p.summary for p in stored], spec=spec)
-    return done, progress
+    return build_progress(surface, [p.summary for p in stored], spec=spec)
+
+
+class _Warming:
+    """:func:`printcheck.report.plots.warm_up` on a thread of its own, waited for however
+    the batch ends.
+
+    The thread must have ended before the interpreter does: one still inside matplotlib's
+    C++ code when Python exits is torn down there, and the process aborts ("terminate
+    called without an active exception", SIGABRT).  So it is no daemon, and it is waited
+    for on an event rather than by ``Thread.join`` alone: a Ctrl-C that lands inside
+    ``join`` makes Python (3.11) mark the thread as ended while it still runs, and the
+    interpreter would then exit under it.
+    """
+
+    def __init__(self) -> None:
+        import threading
+
+        self._done = threading.Event()
+        self._thread = threading.Thread(target=self._run, name="printcheck-plots")
+
+    def _run(self) -> None:
+        from printcheck.report.plots import warm_up
+
+        try:
+            warm_up()
+        finally:
+            self._done.set()
+
+    def start(self) -> None:
+        """Start the warm-up (once; later calls do nothing)."""
+        if self._thread.ident is None:
+            self._thread.start()
+
+    def wait(self) -> None:
+        """Wait until the warm-up has ended (at once if it never started); an interrupt
+        meanwhile is raised once it has."""
+        if self._thread.ident is None:
+            return
+        interrupt: BaseException | None = None
+        while not self._done.is_set():
+            try:
+                self._done.wait()
+            except KeyboardInterrupt as exc:
+                interrupt = exc
+        self._thread.join()
+        if interrupt is not None:
+            raise interrupt
+
+
+def _photos_in_history(history: Any, surface: str, items: Sequence[BatchItem]) -> int | None:
+    """How many photos of the batch (by name) have a pass of ``surface`` in the history."""
+    try:
+        names = {p.summary.photo for p in history.passes(surface)}
+    except (PrintcheckError, KeyboardInterrupt):
+        return None
+    return sum(item.path.name in names for item in items)
 
 
 def _write_outputs(
-    out: Path, *, surface: str, spec: Spec | None, done: Sequence[Measured], progress: Progress
+    out: Path, *, surface: str, spec: Spec | None, tally: _Tally, progress: Progress
 ) -> None:
-    """``results.csv`` and ``report.html`` of the measured photos."""
+    """``results.csv`` and ``report.html`` of the measured photos (naming the skipped)."""
     from printcheck.report.files import CSV_NAME, write_csv
     from printcheck.report.html import write_report
 
+    done = tally.measured
     write_csv(out, CSV_NAME, [m.summary for m in done])
     write_report(
         out / "report.html",
@@ -267,15 +460,91 @@ def _write_outputs(
         spec=spec,
         passes=[(m.summary, m.preview) for m in done],
         progress=progress,
+        skipped=[(s.path.name, s.reason) for s in tally.skipped],
     )
+
+
+# ---------------------------------------------------------------- the worker processes
+
+
+class _InWorker:
+    """What a worker process knows of its batch; set once per worker by :func:`_start_worker`.
+
+    Lives only in the worker processes (a process pool hands its initializer's results to
+    the tasks through the worker's module state); the batch process never sets it.
+    """
+
+    slots: Any = None  # the shared per-photo states (see _WAITING, _DONE)
+
+
+def _start_worker(batch_pid: int, slots: Any) -> None:
+    """Initializer of each worker process: ignore Ctrl-C, end with the batch process."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the batch alone answers Ctrl-C
+    _InWorker.slots = slots
+    _end_with(batch_pid)
+
+
+def _end_with(batch_pid: int) -> None:
+    """End this process as soon as process ``batch_pid`` ends, however it ends.
+
+    A worker's parent is the fork server, not the batch, so a parent-death signal would
+    not fire; a thread waits on a pidfd of the batch process instead (Linux), or looks
+    twice a second where there is none.
+    """
+    import threading
+
+    try:
+        fd: int | None = os.pidfd_open(batch_pid)
+    except ProcessLookupError:
+        os._exit(1)  # the batch is already gone
+    except (AttributeError, OSError):
+        fd = None
+
+    def watch() -> None:
+        import select
+        import time
+
+        if fd is not None:
+            select.select([fd], [], [])  # readable when the process has ended
+        else:
+            while _alive(batch_pid):
+                time.sleep(0.5)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="printcheck-batch-watch", daemon=True).start()
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _work_in_pool(index: int, path: Path, options: InspectOptions, out: Path) -> Outcome:
+    """:func:`_work` in a worker process, its photo marked as being measured by this one."""
+    slots = _InWorker.slots
+    slots[index] = os.getpid()
+    try:
+        return _work(path, options, out, True)
+    finally:
+        slots[index] = _DONE
 
 
 class _Runner:
     """Runs ``_work`` over the photos; iterate it for (index, outcome) as photos finish.
 
     With more than one worker the process pool is started and every photo submitted on
-    entry, before the progress bar starts its thread.
+    entry, before the progress bar starts its thread.  If a worker is killed, the photo
+    it was measuring comes out as a :class:`Skipped` with ``killed`` set, and a new pool
+    measures the photos still to do.  On leaving with an exception (Ctrl-C, a history
+    that cannot be written), the workers are stopped at once.
     """
+
+    _MAX_FRUITLESS_RESTARTS = 2
 
     def __init__(
         self, items: list[BatchItem], options: InspectOptions, out: Path, workers: int
@@ -284,27 +553,47 @@ class _Runner:
         self._options = options
         self._out = out
         self._workers = workers
+        self._context: Any = None
+        self._slots: Any = None
         self._pool: ProcessPoolExecutor | None = None
         self._futures: dict[Future[Outcome], int] = {}
+        self._processes: set[Any] = set()  # every worker process any pool of this run had
+        self._others: set[Any] = set()  # child processes that are not the pools'
 
     def __enter__(self) -> _Runner:
         if self._workers > 1:
             import multiprocessing as mp
 
-            # Not "fork": a forked child inherits OpenCV's thread pool in an unusable
-            # state and can hang; the fork server starts clean children cheaply.
-            methods = mp.get_all_start_methods()
-            context = mp.get_context("forkserver" if "forkserver" in methods else "spawn")
-            if context.get_start_method() == "forkserver":
-                # the server imports the stages once; each worker forks from it ready to
-                # run (OpenCV starts no threads on import, so forking it is safe)
-                context.set_forkserver_preload(list(_WORKER_MODULES))
-            self._pool = ProcessPoolExecutor(max_workers=self._workers, mp_context=context)
-            self._futures = {
-                self._pool.submit(_work, item.path, self._options, self._out, True): index
-                for index, item in enumerate(self._items)
-            }
+            self._others = set(mp.active_children())
+            self._context = _pool_context()
+            self._slots = self._context.RawArray("q", len(self._items))
+            self._start(list(range(len(self._items))))
         return self
+
+    def _start(self, indices: list[int]) -> None:
+        """A new pool, measuring the photos at ``indices``."""
+        _start_helpers(self._context)
+        for index in indices:
+            self._slots[index] = _WAITING
+        self._pool = ProcessPoolExecutor(
+            max_workers=max(1, min(self._workers, len(indices))),
+            mp_context=self._context,
+            initializer=_start_worker,
+            initargs=(os.getpid(), self._slots),
+        )
+        self._futures = {
+            self._pool.submit(
+                _work_in_pool, index, self._items[index].path, self._options, self._out
+            ): index
+            for index in indices
+        }
+        self._note_processes()
+
+    def _note_processes(self) -> None:
+        """Remember the pool's worker processes (it starts them as photos are submitted)."""
+        import multiprocessing as mp
+
+        self._processes |= set(mp.active_children()) - self._others
 
     def __iter__(self) -> Iterator[tuple[int, Outcome]]:
         if self._pool is None:
@@ -312,13 +601,151 @@ class _Runner:
                 yield index, _work(item.path, self._options, self._out, False)
             return
         from concurrent.futures import as_completed
+        from concurrent.futures.process import BrokenProcessPool
 
-        for future in as_completed(self._futures):
-            yield self._futures[future], future.result()
+        fruitless = 0
+        while self._futures:
+            broken: list[int] = []
+            delivered = 0
+            for future in as_completed(self._futures):
+                index = self._futures[future]
+                try:
+                    outcome = future.result()
+                except BrokenProcessPool:
+                    broken.append(index)
+                    continue
+                delivered += 1
+                self._note_processes()
+                yield index, outcome
+            self._futures = {}
+            if not broken:
+                return
+            killed = self._killed(broken)
+            for index in killed:
+                yield index, _killed_photo(self._items[index].path)
+            rest = sorted(set(broken) - set(killed))
+            fruitless = 0 if (killed or delivered) else fruitless + 1
+            if fruitless > self._MAX_FRUITLESS_RESTARTS:  # workers die whatever they do
+                for index in rest:
+                    yield index, _killed_photo(self._items[index].path)
+                return
+            if rest:
+                self._start(rest)
 
-    def __exit__(self, *exc: object) -> None:
-        if self._pool is not None:
-            self._pool.shutdown(wait=True, cancel_futures=True)
+    def _killed(self, broken: list[int]) -> list[int]:
+        """Of the photos a broken pool did not finish, those whose worker was killed.
+
+        The pool ends every worker it has left with SIGTERM once one dies; a worker that
+        died otherwise (SIGKILL from the out-of-memory killer, a crash) while its photo
+        was marked as being measured by it, was killed measuring that photo.
+        """
+        assert self._pool is not None
+        self._pool.shutdown(wait=True)  # the broken pool's own end: its workers joined
+        died = {
+            p.pid
+            for p in self._processes
+            if p.exitcode is not None and p.exitcode not in (0, -signal.SIGTERM)
+        }
+        return [index for index in broken if self._slots[index] in died]
+
+    def __exit__(self, exc_type: object, *exc: object) -> None:
+        if self._pool is None:
+            return
+        if exc_type is None:
+            self._pool.shutdown(wait=True)
+            return
+        # Ctrl-C or an error: stop now, without waiting for the photos being measured
+        for future in self._futures:
+            future.cancel()
+        for process in self._processes:
+            with contextlib.suppress(OSError):
+                process.kill()  # a no-op for one already ended
+        self._pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _killed_photo(path: Path) -> Skipped:
+    return Skipped(
+        path,
+        f"photo {path}: not measured: the worker process measuring it was killed (out of "
+        "memory?); run the batch again, or measure it alone with 'printcheck inspect'",
+        killed=True,
+    )
+
+
+def _pool_context() -> Any:
+    """The multiprocessing context of the pools.
+
+    Not "fork": a forked child inherits OpenCV's thread pool in an unusable state and can
+    hang; the fork server starts clean children cheaply.
+    """
+    import multiprocessing as mp
+
+    methods = mp.get_all_start_methods()
+    context = mp.get_context("forkserver" if "forkserver" in methods else "spawn")
+    if context.get_start_method() == "forkserver":
+        # the server imports the stages once; each worker forks from it ready to run
+        # (OpenCV starts no threads on import, so forking it is safe)
+        context.set_forkserver_preload(list(_WORKER_MODULES))
+    return context
+
+
+def _start_helpers(context: Any) -> None:
+    """Start (or start again) the pool's helper processes so that they stay out of the
+    way: with Ctrl-C blocked, and stderr on the null device.
+
+    - The fork server: it and every worker forked from it never see the terminal's
+      SIGINT, which the batch alone answers.  Nothing a worker might print reaches the
+      terminal (a worker still being started when the batch stops would print a
+      traceback from deep inside multiprocessing); a worker's errors come back to the
+      batch as results, and a worker that dies is reported by the batch.
+    - The resource tracker: after a ``kill -9`` of the batch it cleans up the pool's
+      semaphores, and would otherwise print a warning about them into the terminal.
+
+    Both are left running if they are (they serve every pool of the process).
+    """
+    from multiprocessing import resource_tracker
+
+    with _stderr_to_null(), _signals_blocked(signal.SIGINT):
+        resource_tracker.ensure_running()
+        if context.get_start_method() == "forkserver":
+            from multiprocessing import forkserver
+
+            forkserver.ensure_running()
+
+
+@contextlib.contextmanager
+def _signals_blocked(*signums: int) -> Iterator[None]:
+    """Block ``signums`` in this thread (and so in processes started meanwhile); a signal
+    that arrives meanwhile is delivered when they are unblocked, not lost."""
+    if not hasattr(signal, "pthread_sigmask"):  # pragma: no cover - not POSIX
+        yield
+        return
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, signums)
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
+@contextlib.contextmanager
+def _stderr_to_null() -> Iterator[None]:
+    """File descriptor 2 on the null device for the moment (for a helper process to inherit)."""
+    import sys
+
+    try:
+        sys.stderr.flush()
+        saved = os.dup(2)
+    except (OSError, ValueError, AttributeError):  # no stderr at all: nothing to hide
+        yield
+        return
+    null = os.open(os.devnull, os.O_WRONLY)
+    try:
+        os.dup2(null, 2)
+        yield
+    finally:
+        os.dup2(saved, 2)
+        os.close(saved)
+        os.close(null)
 
 
 def _stderr_is_terminal() -> bool:

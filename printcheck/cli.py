@@ -5,13 +5,16 @@ Heavy modules (cv2, skimage, matplotlib) are imported inside the commands that u
 so ``printcheck --help`` is instant.
 
 Exit status: 0 the surface meets its spec (or no spec was asked for), 1 it does not,
-2 the input could not be used (one line on stderr, never a traceback).
+2 the input could not be used (one line on stderr, never a traceback); ``batch`` only: 3
+some photos were not measured because their worker process was killed (the rest were).
+Ctrl-C: 130 (SIGTERM: 143), with one line saying what was kept.
 """
 
 from __future__ import annotations
 
 import json
 import os
+import signal
 import sys
 from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
@@ -437,6 +440,70 @@ def demo(
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; return the exit status (also the console-script entry)."""
+    # as this process's own entry point, the run's end is its end: once its work is done
+    # and its status decided, a late Ctrl-C no longer matters; a caller in the same
+    # process (argv given) gets its own handlers back
+    with _InterruptsOnce(last_word=argv is None):
+        return _main(argv)
+
+
+class _InterruptsOnce:
+    """Ctrl-C (SIGINT) and SIGTERM raise KeyboardInterrupt once; further ones are ignored
+    while the run cleans up (stops its workers, closes the history) and says what it kept.
+
+    Only in the main thread (where Python runs signal handlers).  On leaving, the previous
+    handlers come back; with ``last_word`` the signals stay ignored instead, so that the
+    process, its work done, exits with the status it chose (without, Python's exit would
+    put the default handlers back and a late Ctrl-C would kill it by the signal).
+    """
+
+    _SIGNALS = (signal.SIGINT, signal.SIGTERM)
+
+    def __init__(self, *, last_word: bool) -> None:
+        self._old: dict[int, Any] = {}
+        self._old_hook: Any = None
+        self._last_word = last_word
+
+    def _handler(self, signum: int, frame: object) -> None:
+        for sig in self._SIGNALS:
+            signal.signal(sig, signal.SIG_IGN)
+        from printcheck.errors import Interrupted
+
+        raise Interrupted(signum=signum)
+
+    def _unraisable(self, unraisable: Any) -> None:
+        """An interrupt that landed in a finalizer (a semaphore's clean-up, say) would be
+        printed as "Exception ignored" and lost: deliver it again, to the code that runs
+        next.  Anything else goes to the previous hook."""
+        from printcheck.errors import Interrupted
+
+        value = unraisable.exc_value
+        if isinstance(value, Interrupted) and value.signum in self._old:
+            signal.signal(value.signum, self._handler)
+            signal.raise_signal(value.signum)
+            return
+        self._old_hook(unraisable)
+
+    def __enter__(self) -> None:
+        import threading
+
+        if threading.current_thread() is not threading.main_thread():
+            return
+        for sig in self._SIGNALS:
+            if signal.getsignal(sig) is signal.SIG_IGN:
+                continue  # started with it ignored (nohup, a background job): keep it so
+            self._old[sig] = signal.signal(sig, self._handler)
+        self._old_hook = sys.unraisablehook
+        sys.unraisablehook = self._unraisable
+
+    def __exit__(self, *exc: object) -> None:
+        for sig, old in self._old.items():
+            signal.signal(sig, signal.SIG_IGN if self._last_word else old)
+        if self._old_hook is not None:
+            sys.unraisablehook = self._old_hook
+
+
+def _main(argv: Sequence[str] | None) -> int:
     try:  # recent typer versions carry their own copy of click
         from typer._click import exceptions as click_errors
     except ImportError:  # pragma: no cover - older typer uses click itself
@@ -444,7 +511,11 @@ def main(argv: Sequence[str] | None = None) -> int:
 
     args = list(sys.argv[1:] if argv is None else argv)
     try:
-        code = app(args=args, prog_name="printcheck", standalone_mode=False)
+        # the command is made and run here rather than by ``app(...)``: the CLI library
+        # turns Ctrl-C into a silent exit 130 before printcheck could say what was kept
+        cli = typer.main.get_command(app)
+        with cli.make_context("printcheck", args) as ctx:
+            code = cli.invoke(ctx)
     except typer.Exit as exc:
         return _exit(int(exc.exit_code or 0), argv)
     except typer.Abort:
@@ -460,9 +531,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except PrintcheckError as exc:
         _fail(_in_flags(exc))
         return _exit(EXIT_UNUSABLE, argv)
-    except KeyboardInterrupt:
-        _fail("interrupted; the history holds only whole passes")
-        return _exit(130, argv)
+    except KeyboardInterrupt as exc:
+        _fail(str(exc) or "interrupted; nothing was left half-written; run the same command again")
+        return _exit(128 + getattr(exc, "signum", signal.SIGINT), argv)
     except BrokenPipeError:
         return _exit(EXIT_UNUSABLE, argv)
     except Exception as exc:  # a bug: still one line, but say how to see more

@@ -16,6 +16,7 @@ __all__ = [
     "OptionError",
     "HistoryError",
     "ReportError",
+    "Interrupted",
 ]
 
 
@@ -61,3 +62,16 @@ class HistoryError(PrintcheckError, OSError):
 
 class ReportError(PrintcheckError, OSError):
     """An output file could not be written."""
+
+
+class Interrupted(KeyboardInterrupt):
+    """A run stopped by Ctrl-C (SIGINT) or ``kill`` (SIGTERM), with a one-line account.
+
+    Not a :class:`PrintcheckError`: nothing was wrong with the input.  The message says
+    what was kept and how to go on; ``signum`` is the signal that stopped the run (the CLI
+    exits with 128 + ``signum``, 130 for Ctrl-C).
+    """
+
+    def __init__(self, message: str = "", *, signum: int = 2) -> None:
+        super().__init__(message)
+        self.signum = signum

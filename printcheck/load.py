@@ -8,17 +8,27 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import os
+import stat
 import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
+from typing import BinaryIO
 
 import numpy as np
 
 from printcheck.errors import PhotoError
 
-__all__ = ["MAX_PIXELS", "PHOTO_SUFFIXES", "Photo", "load_photo", "photo_taken", "is_photo_name"]
+__all__ = [
+    "MAX_PIXELS",
+    "PHOTO_SUFFIXES",
+    "Photo",
+    "load_photo",
+    "photo_taken",
+    "is_photo_name",
+    "not_a_photo_file",
+]
 
 MAX_PIXELS = 150_000_000  # 150 MP: well above any phone; refuses decompression bombs
 PHOTO_SUFFIXES = (".jpg", ".jpeg", ".png", ".tif", ".tiff", ".heic", ".heif", ".webp", ".bmp")
@@ -69,10 +79,58 @@ def _register_heif() -> None:
         pass
 
 
+def not_a_photo_file(mode: int) -> str | None:
+    """Why a file of ``mode`` (``os.stat(...).st_mode``) cannot be a photo, or None.
+
+    Only regular files are photos: a folder, a named pipe, a socket or a device named
+    like a photo is not one (reading a named pipe would wait for a writer for ever).
+
+    Examples
+    --------
+    >>> import stat
+    >>> not_a_photo_file(stat.S_IFIFO | 0o644)
+    'is a named pipe, not a photo'
+    >>> not_a_photo_file(stat.S_IFREG | 0o644) is None
+    True
+    """
+    if stat.S_ISREG(mode):
+        return None
+    if stat.S_ISDIR(mode):
+        return "is a folder, not a photo"
+    if stat.S_ISFIFO(mode):
+        return "is a named pipe, not a photo"
+    if stat.S_ISSOCK(mode):
+        return "is a socket, not a photo"
+    if stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        return "is a device, not a photo"
+    return "is not a regular file"
+
+
+def _open_regular(path: Path) -> BinaryIO:
+    """Open ``path`` for reading if it is a regular file; else raise PhotoError at once.
+
+    The file is opened without blocking (a named pipe would otherwise wait for a writer)
+    and checked on the open descriptor, so it cannot be swapped between check and read.
+    """
+    fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0))
+    try:
+        why = not_a_photo_file(os.fstat(fd).st_mode)
+        if why is not None:
+            raise PhotoError(f"photo {path}: {why}")
+        if hasattr(os, "set_blocking"):
+            os.set_blocking(fd, True)
+        return os.fdopen(fd, "rb")
+    except BaseException:
+        os.close(fd)
+        raise
+
+
 def _read_bytes(path: Path) -> bytes:
     try:
-        with open(path, "rb") as fh:
+        with _open_regular(path) as fh:
             return fh.read()
+    except PhotoError:
+        raise
     except FileNotFoundError:
         raise PhotoError(f"photo {path}: file not found") from None
     except IsADirectoryError:
@@ -300,7 +358,8 @@ def photo_taken(path: str | Path) -> datetime | None:
 
     _register_heif()
     try:
-        with Image.open(path) as im:  # lazy: reads the header, not the pixels
+        # only a regular file is opened: a named pipe named like a photo would block
+        with _open_regular(Path(path)) as fh, Image.open(fh) as im:  # lazy: the header only
             return _exif_taken(im)
     except Exception:  # any unreadable file simply has no EXIF time; load_photo says why
         return None

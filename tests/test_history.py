@@ -452,3 +452,36 @@ def test_sigkill_mid_write_leaves_only_whole_passes(tmp_path: Path) -> None:
         assert len(data["warnings"][0]) == 150_000
     with open_history(db) as h:
         assert len(h.passes("bed")) == len(rows)
+
+
+def test_a_database_of_another_program_is_not_touched(tmp_path: Path) -> None:
+    """Refused before anything could write: the same bytes, no file made beside it."""
+    import hashlib
+
+    files = []
+    for name, mode in (("inventory.sqlite", "DELETE"), ("notes.db", "WAL")):
+        other = tmp_path / name
+        con = sqlite3.connect(other)
+        con.execute(f"PRAGMA journal_mode = {mode}")
+        con.execute("CREATE TABLE parts (id INTEGER PRIMARY KEY, name TEXT)")
+        con.execute("INSERT INTO parts (name) VALUES ('gib')")
+        con.execute("PRAGMA user_version = 7")
+        con.commit()
+        con.close()
+        files.append(other)
+    newer = tmp_path / "newer.sqlite"  # our tables, a printcheck from the future
+    con = sqlite3.connect(newer)
+    for table in ("surfaces", "passes", "migrations"):
+        con.execute(f"CREATE TABLE {table} (id INTEGER PRIMARY KEY)")
+    con.execute("PRAGMA user_version = 99")
+    con.commit()
+    con.close()
+    files.append(newer)
+    before = {p: hashlib.sha256(p.read_bytes()).hexdigest() for p in files}
+    listing = sorted(os.listdir(tmp_path))
+    for path in files:
+        for readonly in (False, True):
+            with pytest.raises(HistoryError, match="another program|newer"):
+                open_history(path, readonly=readonly)
+    assert {p: hashlib.sha256(p.read_bytes()).hexdigest() for p in files} == before
+    assert sorted(os.listdir(tmp_path)) == listing

@@ -183,3 +183,40 @@ def test_jpeg_fast_path_equals_pillow_and_opencv(tmp_path: Path) -> None:
     ocv = cv2.imread(str(path), cv2.IMREAD_COLOR)
     assert np.abs(got.astype(int) - pil.astype(int)).max() <= 1
     assert np.abs(got.astype(int) - ocv.astype(int)).max() <= 1
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="named pipes are POSIX")
+def test_a_named_pipe_is_refused_without_waiting_for_a_writer(tmp_path: Path) -> None:
+    """Only regular files are photos: a named pipe is refused at once (opening it to read
+    would wait for a writer for ever); a folder or a device named like a photo too."""
+    import threading
+    import time
+
+    pipe = tmp_path / "IMG_0001.jpg"
+    os.mkfifo(pipe)
+    got: dict[str, object] = {}
+
+    def read() -> None:
+        got["taken"] = photo_taken(pipe)
+        try:
+            load_photo(pipe)
+        except PhotoError as exc:
+            got["error"] = str(exc)
+
+    reader = threading.Thread(target=read, daemon=True)
+    start = time.monotonic()
+    reader.start()
+    reader.join(5.0)
+    if reader.is_alive():  # blocked: a writer lets it go, and the test fails
+        with open(pipe, "wb"):
+            pass
+        pytest.fail("reading a named pipe blocked")
+    assert time.monotonic() - start < 1.0
+    assert got == {"taken": None, "error": f"photo {pipe}: is a named pipe, not a photo"}
+    with pytest.raises(PhotoError, match=r"is a folder, not a photo"):
+        load_photo(tmp_path)
+    if os.path.exists("/dev/zero"):
+        link = tmp_path / "zero.jpg"
+        link.symlink_to("/dev/zero")  # would read for ever
+        with pytest.raises(PhotoError, match=r"zero\.jpg: is a device, not a photo"):
+            load_photo(link)

@@ -35,7 +35,9 @@ from printcheck.records import Progress, Targets
 from printcheck.report.files import (
     CSV_COLUMNS,
     CSV_NAME,
+    OVERLAY_SUFFIX,
     encode_image,
+    is_output_name,
     output_name,
     result_row,
     write_bytes,
@@ -412,6 +414,30 @@ def test_report_without_spec_or_progress(tmp_path: Path) -> None:
     assert "no spec" in text and "<img" not in text
     buf = io.StringIO(text)
     assert buf.read(15) == "<!DOCTYPE html>"
+
+
+def test_report_lists_the_photos_not_measured(tmp_path: Path) -> None:
+    d = summarize(make_result(verdict=None))
+    skipped = [("IMG_0002 <i>.jpg", "file is empty"), ("IMG_0003.jpg", "is a named pipe")]
+    path = write_report(
+        tmp_path / "r.html", surface="s", spec=None, passes=[(d, None)], skipped=skipped
+    )
+    text = path.read_text(encoding="utf-8")
+    assert "<i>.jpg" not in text  # outside text is escaped
+    parser = _Collect()
+    parser.feed(text)
+    joined = "".join(parser.text)
+    assert "Not measured: 2 photos" in joined
+    for name, reason in skipped:
+        assert f"{name}: {reason}" in joined
+    alone = write_report(tmp_path / "a.html", surface="s", spec=None, passes=[(d, None)])
+    assert "Not measured" not in alone.read_text(encoding="utf-8")
+
+
+def test_overlays_are_known_by_name() -> None:
+    name = output_name("IMG_0042.JPG", OVERLAY_SUFFIX)
+    assert name == "IMG_0042.overlay.png" and is_output_name(name)
+    assert not is_output_name("IMG_0042.png") and not is_output_name("overlay.jpg")
 
 
 @pytest.mark.parametrize(

@@ -6,6 +6,10 @@ photo for the same surface twice stores it once (re-running a batch records noth
 
 Data safety
 -----------
+- A file that is not a printcheck history (another program's database, a history of a
+  newer printcheck, not a database at all) is refused before anything could write to it:
+  its schema is first read through a read-only connection, so it comes out byte for byte
+  as it went in.
 - The database runs in WAL mode with ``synchronous=FULL``: a committed pass survives a crash
   of the program (and of the machine), and readers never block the writer.
 - Each pass is written in ONE transaction (``BEGIN IMMEDIATE`` ... ``COMMIT``), so a

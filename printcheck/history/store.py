@@ -293,6 +293,9 @@ def open_history(
     db = Path(path).expanduser() if path is not None else default_db_path()
     if db.is_dir():
         raise HistoryError(f"history {db}: is a folder; give the path of a .sqlite file")
+    # before anything that could write (a journal mode, a migration): a file that is not
+    # a printcheck history must come out byte for byte as it went in
+    _refuse_if_not_ours(db, known=len(migrations), max_wait_s=max_wait_s)
     if readonly:
         return _open_readonly(db, timeout_s=timeout_s, max_wait_s=max_wait_s, known=len(migrations))
     try:
@@ -313,6 +316,76 @@ def open_history(
         db, str(db), uri=False, timeout_s=timeout_s, max_wait_s=max_wait_s, prepare=prepare
     )
     return History(con, db, max_wait_s=max_wait_s, version=version)
+
+
+#: The tables every printcheck history has from its first migration on.
+_OUR_TABLES = frozenset({"surfaces", "passes", "migrations"})
+
+
+def _refuse_if_not_ours(db: Path, *, known: int, max_wait_s: float) -> None:
+    """Refuse ``db`` unless it is missing, empty, or a history this printcheck can open.
+
+    The schema is read through a read-only connection, so the file is never changed: no
+    journal mode is set and nothing is written.  When no other connection has the file
+    open (no ``-wal`` or ``-journal`` file beside it) the connection is also
+    ``immutable``, so that reading a file in WAL mode leaves no ``-wal``/``-shm`` files
+    behind either.
+
+    Raises
+    ------
+    HistoryError
+        ``db`` is not a regular file, not an SQLite database, a database of another
+        program, or a history of a newer schema than ``known``.
+    """
+    import stat
+
+    try:
+        info = db.stat()
+    except FileNotFoundError:
+        return
+    except OSError as exc:
+        raise explain(db, exc) from None
+    if not stat.S_ISREG(info.st_mode):
+        raise HistoryError(f"history {db}: is not a regular file; give the path of a .sqlite file")
+    if info.st_size == 0:
+        return  # SQLite's empty database: a new history
+    from urllib.parse import quote
+
+    ro = "file:" + quote(str(db.resolve())) + "?mode=ro"
+    in_use = any(db.with_name(db.name + side).exists() for side in ("-wal", "-journal"))
+
+    def read(immutable: bool) -> tuple[int, set[str]]:
+        con = sqlite3.connect(ro + ("&immutable=1" if immutable else ""), uri=True)
+        try:
+            version = int(con.execute("PRAGMA user_version").fetchone()[0])
+            names = {
+                str(r[0])
+                for r in con.execute(
+                    "SELECT name FROM sqlite_master "
+                    "WHERE type = 'table' AND name NOT LIKE 'sqlite_%'"
+                )
+            }
+        finally:
+            con.close()
+        return version, names
+
+    try:
+        version, names = retrying(db, max_wait_s, lambda: read(not in_use))
+    except HistoryError:
+        if in_use:
+            raise
+        # an immutable read takes no lock: a run that began writing meanwhile can make it
+        # fail; the ordinary read-only connection then has the last word
+        version, names = retrying(db, max_wait_s, lambda: read(False))
+    if version == 0 and not names:
+        return  # a database with nothing in it yet: a new history
+    if version < 1 or not _OUR_TABLES <= names:
+        raise HistoryError(
+            f"history {db}: is an SQLite database of another program (no printcheck "
+            "schema); give another --db path"
+        )
+    if version > known:
+        raise too_new(db, version, known)
 
 
 def _open_readonly(db: Path, *, timeout_s: float, max_wait_s: float, known: int) -> History:

@@ -30,6 +30,8 @@ if TYPE_CHECKING:
 __all__ = [
     "CSV_COLUMNS",
     "CSV_NAME",
+    "OVERLAY_SUFFIX",
+    "is_output_name",
     "output_name",
     "result_row",
     "write_bytes",
@@ -42,6 +44,9 @@ __all__ = [
 ]
 
 CSV_NAME = "results.csv"
+
+#: The end of every overlay image's name: ``<photo stem>.overlay.png``.
+OVERLAY_SUFFIX = ".overlay.png"
 
 CSV_COLUMNS: tuple[str, ...] = (
     "photo",
@@ -86,6 +91,20 @@ def output_name(photo: str, suffix: str) -> str:
     if not clean.strip("."):
         clean = "_"
     return clean + suffix
+
+
+def is_output_name(name: str) -> bool:
+    """True when a file called ``name`` is one printcheck writes that looks like a photo.
+
+    The overlays (``<stem>.overlay.png``) are PNG images: with ``--out`` set to the photo
+    folder, a second batch must not take them for photos.
+
+    Examples
+    --------
+    >>> is_output_name("IMG_0042.overlay.png"), is_output_name("IMG_0042.png")
+    (True, False)
+    """
+    return name.lower().endswith(OVERLAY_SUFFIX)
 
 
 def _target(folder: str | os.PathLike[str], name: str) -> Path:
@@ -316,6 +335,6 @@ def write_photo_outputs(result: Result, folder: str | os.PathLike[str]) -> list[
 
     json_path = write_json(folder, output_name(result.photo, ".json"), result_to_dict(result))
     png_path = write_bytes(
-        folder, output_name(result.photo, ".overlay.png"), encode_image(draw_overlay(result))
+        folder, output_name(result.photo, OVERLAY_SUFFIX), encode_image(draw_overlay(result))
     )
     return [json_path, png_path]

@@ -363,6 +363,19 @@ def _header(
     return head
 
 
+def _skipped_section(skipped: Sequence[tuple[str, str]]) -> str:
+    """The photos of the batch that were not measured, each with its reason; or nothing."""
+    if not skipped:
+        return ""
+    n = len(skipped)
+    rows = "".join(f"<li><b>{_e(name)}</b>: {_e(reason)}</li>" for name, reason in skipped)
+    return (
+        '<section class="pass" id="skipped">'
+        f"<h2>Not measured: {n} photo{'s' if n != 1 else ''}</h2>"
+        f'<ul class="warn">{rows}</ul></section>'
+    )
+
+
 def render_report(
     *,
     surface: str,
@@ -370,10 +383,12 @@ def render_report(
     passes: Sequence[tuple[PassSummary, bytes | None]],
     progress: Progress | None = None,
     folder: str | os.PathLike[str] | None = None,
+    skipped: Sequence[tuple[str, str]] = (),
 ) -> str:
     """The report's HTML text (see :func:`write_report`); ``folder`` is where it will live."""
     folder_path = None if folder is None else Path(folder)
     head = _header(surface, spec, [s for s, _ in passes], progress, folder_path)
+    head.append(_skipped_section(skipped))
     numbers = list(range(1, len(passes) + 1))
     if progress is not None and len(progress.passes) == len(passes):
         numbers = [p.number for p in progress.passes]
@@ -392,6 +407,7 @@ def write_report(
     spec: Spec | None,
     passes: Sequence[tuple[PassSummary, bytes | None]],
     progress: Progress | None = None,
+    skipped: Sequence[tuple[str, str]] = (),
 ) -> Path:
     """Write the surface's self-contained HTML report atomically.
 
@@ -406,6 +422,8 @@ def write_report(
         bytes (``printcheck.report.files.encode_image(draw_overlay(result))``).
     progress : Progress or None
         :func:`printcheck.progress.build_progress` output, for the header and trend plot.
+    skipped : sequence of (photo name, reason)
+        The photos of the batch that were not measured, listed under the header.
 
     Returns
     -------
@@ -419,6 +437,11 @@ def write_report(
     """
     p = Path(path)
     text = render_report(
-        surface=surface, spec=spec, passes=passes, progress=progress, folder=p.parent
+        surface=surface,
+        spec=spec,
+        passes=passes,
+        progress=progress,
+        folder=p.parent,
+        skipped=skipped,
     )
     return write_text(p.parent, p.name, text)
