@@ -127,15 +127,8 @@ def contact_labels(
     if not region.any():
         return np.zeros(region.shape, np.int32)
     regions, n = watershed_regions(region, height, px_per_mm=px_per_mm, seeds=seeds)
-    return merge_regions(
-        regions,
-        n,
-        height,
-        split_share=split_share,
-        min_dip=min_dip,
-        px_per_mm=px_per_mm,
-        large_lobes_deeper=large_lobes_deeper,
-    )
+    rule = {"split_share": split_share, "min_dip": min_dip, "px_per_mm": px_per_mm}
+    return merge_regions(regions, n, height, large_lobes_deeper=large_lobes_deeper, **rule)
 
 
 def watershed_regions(
@@ -154,30 +147,6 @@ def watershed_regions(
     if not region.any():
         return np.zeros(region.shape, np.int32), 0
     return _watershed(region, height, px_per_mm, seeds)
-
-
-def merge_regions(
-    regions: np.ndarray,
-    n: int,
-    height: np.ndarray,
-    *,
-    split_share: float,
-    min_dip: float,
-    px_per_mm: float,
-    large_lobes_deeper: bool = True,
-) -> np.ndarray:
-    """Join neighbouring watershed regions unless the valley between them is deep."""
-    if n == 0:
-        return regions
-    return _merge(
-        regions,
-        n,
-        height,
-        split_share=split_share,
-        min_dip=min_dip,
-        px_per_mm=px_per_mm,
-        large_lobes_deeper=large_lobes_deeper,
-    )
 
 
 def finish(
@@ -276,7 +245,7 @@ def _watershed(
     return labels, int(labels.max())
 
 
-def _merge(
+def merge_regions(
     regions: np.ndarray,
     n: int,
     height: np.ndarray,
@@ -284,9 +253,9 @@ def _merge(
     split_share: float,
     min_dip: float,
     px_per_mm: float,
-    large_lobes_deeper: bool,
+    large_lobes_deeper: bool = True,
 ) -> np.ndarray:
-    """Merge neighbouring watershed regions unless the valley between them is deep.
+    """Join neighbouring watershed regions unless the valley between them is deep.
 
     Regions are merged in order of their highest shared boundary point (the saddle), as
     water rising from the peaks would join them; two stay apart when the saddle is below
