@@ -17,6 +17,7 @@ import numpy as np
 
 from printcheck.evidence import (
     EVIDENCE_FLOOR,
+    LevelMaps,
     block_quantiles,
     fill_and_smooth,
     level_maps,
@@ -26,6 +27,10 @@ from printcheck.evidence import (
 __all__ = ["Field", "contact_field"]
 
 _BROAD_MM2 = 64.0  # no contact island is larger (an 8 mm square)
+# A faint film: a mark under this share of the compound's level nearby ...
+_FILM_SHARE = 0.3
+# ... spread wider than this (a 3 mm square: two background tiles across), mm²
+_FILM_MM2 = 9.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -83,21 +88,24 @@ def contact_field(
         ok = count > 0
     first = upsample(fill_and_smooth(q[1], ok.astype(np.float32), 1.0), coarse, shape)
     noise0 = max(float(np.median((q[1] - q[0])[ok])) / 1.645, EVIDENCE_FLOOR)
-    marked = (evidence - first) > 5.0 * noise0
-    # a mark wider than any contact island (64 mm², an 8 mm square) is a broad change of
-    # the light or a smear, which the fine bare level must follow, not leave out
-    n, lab, stats, _ = cv2.connectedComponentsWithStats(marked.view(np.uint8), connectivity=8)
-    broad = stats[:, cv2.CC_STAT_AREA] > _BROAD_MM2 * s * s
-    broad[0] = False
-    if broad.any():
-        marked &= ~broad[lab]
+    smoothed = cv2.GaussianBlur(evidence, (0, 0), max(spot_mm * s, 0.35))
+    marked, film = _marks(evidence, smoothed, first, noise0, valid, stat, s, spot_mm, local_mm)
     r = max(1, int(round(0.3 * s)))
     near = cv2.dilate(
         marked.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
     )
-    smoothed = cv2.GaussianBlur(evidence, (0, 0), max(spot_mm * s, 0.35))
     block = max(4, int(round(background_mm * s)))
-    maps = level_maps(evidence, smoothed, stat & ~near.view(bool), block=block)
+    bare = stat & ~near.view(bool)
+    maps = level_maps(evidence, smoothed, bare & ~film, block=block)
+    if film.any():
+        # a film of compound has an edge as sharp as a contact's, which no smooth level
+        # follows: its own bare level, read over the film alone, holds inside it
+        inside = level_maps(evidence, smoothed, bare & film, block=block)
+        maps = LevelMaps(
+            bare=np.where(film, inside.bare, maps.bare),
+            sigma=np.where(film, inside.sigma, maps.sigma),
+            sigma_spot=np.where(film, inside.sigma_spot, maps.sigma_spot),
+        )
     score = evidence - maps.bare
     smooth = smoothed - maps.bare
     noise = float(np.median(maps.sigma_spot[stat]))
@@ -118,6 +126,57 @@ def contact_field(
         glare=glare,
         noise=noise,
     )
+
+
+def _marks(
+    evidence: np.ndarray,
+    smoothed: np.ndarray,
+    first: np.ndarray,
+    noise0: float,
+    valid: np.ndarray,
+    stat: np.ndarray,
+    s: float,
+    spot_mm: float,
+    local_mm: float,
+) -> tuple[np.ndarray, np.ndarray]:
+    """The marks the fine bare level leaves out: what stands clearly above the coarse one.
+
+    Not left out, because the bare level must follow them: a mark wider than any contact
+    island (64 mm², an 8 mm square), which is a broad change of the light; and a faint
+    film (under :data:`_FILM_SHARE` of the compound's level nearby, away from any strong
+    mark) spread wider than :data:`_FILM_MM2`, which is a smear of compound over bare
+    metal (haze), not contact.
+
+    Returns the marks, and the films' regions (holes filled: a pale contact inside a
+    film belongs to its region), where the bare level is read over the film alone, so
+    that a contact there stands out from the film around it, as it does on a real print.
+    """
+    above = evidence - first
+    marked = above > 5.0 * noise0
+    rel = smoothed - first
+    strong = rel >= 10.0 * noise0
+    level = _compound_level(rel, valid, stat, strong, s, local_mm)
+    firm = (rel >= _FILM_SHARE * level) & marked
+    r = max(1, int(round(0.3 * s)))
+    near = cv2.dilate(
+        firm.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
+    ).view(bool)
+    film = marked & ~near
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(film.view(np.uint8), connectivity=8)
+    wide = stats[:, cv2.CC_STAT_AREA] > _FILM_MM2 * s * s
+    wide[0] = False
+    region = np.zeros(marked.shape, bool)
+    if wide.any():
+        from scipy import ndimage
+
+        region = np.asarray(ndimage.binary_fill_holes(wide[lab]), bool)
+        marked = marked & ~wide[lab]
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(marked.view(np.uint8), connectivity=8)
+    broad = stats[:, cv2.CC_STAT_AREA] > _BROAD_MM2 * s * s
+    broad[0] = False
+    if broad.any():
+        marked &= ~broad[lab]
+    return marked, region
 
 
 def _compound_level(

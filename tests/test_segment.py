@@ -300,3 +300,52 @@ def test_block_quantiles_equal_numpy_nanquantile() -> None:
                 ok = valid[r * tile : (r + 1) * tile, c * tile : (c + 1) * tile]
                 assert count[r, c] == ok.sum()
                 assert grids[k, r, c] == pytest.approx(np.quantile(block[ok], q), abs=1e-5)
+
+
+def _film_scene() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """A hand-built print at 10 px/mm: strong 1.6 mm contacts on a 6 mm pitch, and in
+    the middle a 6.4 mm square of thin film (a quarter of the compound's colour) holding
+    one pale 1.2 mm contact.  Returns the image, the true contacts and the film."""
+    rng = np.random.default_rng(0)
+    n = 400
+    yy, xx = np.mgrid[0:n, 0:n]
+    img = np.full((n, n, 3), 128.0) + rng.normal(0.0, 2.0, (n, n, 1))
+    truth = np.zeros((n, n), bool)
+
+    def tint(where: np.ndarray, log_ratio: float) -> None:
+        grey = img[where, 1]
+        img[where, 0] = grey * np.exp(log_ratio / 2)
+        img[where, 2] = grey * np.exp(-log_ratio / 2)
+
+    for cy in range(30, n, 60):
+        for cx in range(30, n, 60):
+            if 150 < cy < 330 and 150 < cx < 330:
+                continue
+            disc = np.hypot(yy - cy, xx - cx) < 8
+            truth |= disc
+            tint(disc, 0.8)
+    film = (abs(yy - 240) < 32) & (abs(xx - 240) < 32)
+    tint(film, 0.2)
+    pale = np.hypot(yy - 240, xx - 240) < 6
+    tint(pale, 0.45)
+    truth |= pale
+    image = cv2.GaussianBlur(np.clip(img, 0, 255).astype(np.uint8), (0, 0), 0.8)
+    return image, truth, film & ~truth
+
+
+def test_a_film_narrower_than_a_broad_change_is_not_contact_but_its_pale_contact_is() -> None:
+    # a smear of compound a few mm wide has edges as sharp as a contact's; it is haze,
+    # not contact (the contract counts contacts only), while a pale contact inside it
+    # is a contact (common practice: a light touch shows as a paler mark)
+    image, truth, film = _film_scene()
+    seg = segment(
+        image,
+        visible=np.ones(image.shape[:2], bool),
+        config=SegmentConfig(px_per_mm=10.0, compound="blue"),
+    )
+    assert np.count_nonzero(seg.mask & film) < 0.02 * np.count_nonzero(film)
+    _, n = ndimage.label(seg.mask[225:256, 225:256], np.ones((3, 3)))
+    assert n == 1  # the pale contact, found once
+    pale = truth[225:256, 225:256]
+    found = seg.mask[225:256, 225:256]
+    assert abs(int(found.sum()) - int(pale.sum())) < 0.35 * pale.sum()
