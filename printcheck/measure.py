@@ -71,6 +71,16 @@ class MeasureConfig:
         doubtful.  Eight: a JPEG keeps colour at half the resolution of brightness, so
         that is four colour samples across a contact, and contacts a photo cannot part
         come out merged, larger than they are.
+    part_px : float
+        Photo pixels of bare metal two neighbouring contacts need between them to be
+        seen apart.  Three: a photo keeps colour at half the resolution of brightness
+        (JPEG and HEIC 4:2:0), so a gap of three pixels is one and a half colour samples
+        wide, the least in which the colour can come back to bare metal between them.
+        A contact closer than that to a neighbour may hide another one merged into it:
+        the count's range reaches up by one for each such contact ...
+    crowded_share : float
+        ... and when more than this share of the contacts lie so close, the photo is
+        doubtful: too far away for a print this fine.
     oversize_factor : float
         Spots larger than this many times the median spot area are high areas.
     heavy_bearing_factor : float
@@ -85,6 +95,8 @@ class MeasureConfig:
     doubtful_change: float = 0.15
     doubtful_bearing: float = 5.0
     resolution_px: float = 8.0
+    part_px: float = 3.0
+    crowded_share: float = 0.1
     oversize_factor: float = 4.0
     heavy_bearing_factor: float = 1.5
 
@@ -101,6 +113,8 @@ class MeasureConfig:
             "doubtful_change",
             "doubtful_bearing",
             "resolution_px",
+            "part_px",
+            "crowded_share",
             "oversize_factor",
             "heavy_bearing_factor",
         ):
@@ -231,6 +245,7 @@ def measure(
         spots,
         photo_px_per_mm,
         config,
+        crowded=_crowded(labels, spots, s, photo_px_per_mm, config),
     )
     return Measurement(
         spots=spots,
@@ -372,6 +387,38 @@ def _marginal(
     return int(just_in.sum()), int(just_out.sum())
 
 
+def _crowded(
+    labels: np.ndarray,
+    spots: Spots,
+    px_per_mm: float,
+    photo_px_per_mm: float | None,
+    config: MeasureConfig,
+) -> int:
+    """How many counted spots lie within ``config.part_px`` photo pixels of another spot.
+
+    ``labels`` (M, N) int: the spots, numbered as ``spots`` has them (0 is no spot).
+    Without the photo's own resolution (an explicit scale) there is nothing to say: 0.
+    """
+    if photo_px_per_mm is None or not spots.in_window.any():
+        return 0
+    # a neighbour k pixels away (centre to centre) leaves a gap of k - 1 pixels
+    k = max(2, int(round(config.part_px * px_per_mm / photo_px_per_mm)))
+    box = np.ones((2 * k + 1, 2 * k + 1), np.uint8)
+    lab = labels.astype(np.float32)  # exact for fewer than 2**24 spots
+    high = cv2.dilate(lab, box, borderType=cv2.BORDER_CONSTANT, borderValue=0)
+    low = cv2.erode(
+        np.where(labels > 0, lab, np.float32(2**24)),
+        box,
+        borderType=cv2.BORDER_CONSTANT,
+        borderValue=2**24,
+    )
+    own = labels > 0
+    touched = own & ((high != lab) | (low != lab))
+    near = np.zeros(int(labels.max()) + 1, bool)
+    near[labels[touched]] = True
+    return int(np.count_nonzero(near[1:][spots.in_window]))
+
+
 def _confidence(
     count: int,
     bearing: float,
@@ -380,6 +427,8 @@ def _confidence(
     spots: Spots,
     photo_px_per_mm: float | None,
     config: MeasureConfig,
+    *,
+    crowded: int = 0,
 ) -> Confidence:
     """The range and the doubtful flag (see the module docstring)."""
     counts = [count] + [a for a, _ in alts]
@@ -399,6 +448,16 @@ def _confidence(
             reasons.append(
                 f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this photo has "
                 f"{photo_px_per_mm:.0f}: move closer"
+            )
+    if crowded:
+        # each contact closer to a neighbour than the photo can part may hide another
+        hi = max(hi, count + crowded)
+        if crowded > config.crowded_share * count and photo_px_per_mm is not None:
+            gap_mm = config.part_px / photo_px_per_mm
+            reasons.append(
+                f"{crowded} of {count} contacts lie within {gap_mm:.2f} mm of a neighbour, "
+                f"closer than this photo can part ({config.part_px:g} px at "
+                f"{photo_px_per_mm:.0f} px/mm): move closer"
             )
     # how far the range reaches beyond the count's own spread
     excess = max(count - lo, hi - count) - spread

@@ -99,6 +99,7 @@ def _measure_result(config: MeasureConfig, *, coarse: bool = False) -> tuple[obj
     rng = np.random.default_rng(5)
     discs = [(rng.uniform(10, 140), rng.uniform(10, 290), rng.uniform(3, 6)) for _ in range(30)]
     discs += [(200.0, 150.0, 30.0)]  # one large mark: a high area
+    discs += [(280.0, 200.0, 4.0), (280.0, 208.0, 4.0)]  # a pixel apart: crowded
     discs += [(250.0, 40.0, 1.5), (250.0, 60.0, 2.0)]  # specks near a minimum area
     mask = _discs(shape, discs)
     fewer = mask & ~_discs(shape, discs[:6])
@@ -130,6 +131,8 @@ MEASURE_CHANGES = {
     "doubtful_change": 0.01,
     "doubtful_bearing": 0.1,
     "resolution_px": 1.0,
+    "part_px": 30.0,
+    "crowded_share": 0.1,
     "oversize_factor": 100.0,
     "heavy_bearing_factor": 30.0,
 }
@@ -142,7 +145,8 @@ def test_every_measure_field_is_covered() -> None:
 @pytest.mark.parametrize("name", sorted(MEASURE_CHANGES))
 def test_measure_field_changes_the_result(name: str) -> None:
     coarse = name == "resolution_px"  # the check needs a photo coarser than its contacts
-    base = MeasureConfig(cell_mm=10.0)
+    # the base photo's contacts are crowded, but not so many as to make it doubtful
+    base = MeasureConfig(cell_mm=10.0, crowded_share=0.9)
     changed = dataclasses.replace(base, **{name: MEASURE_CHANGES[name]})
     assert _measure_result(changed, coarse=coarse) != _measure_result(base, coarse=coarse)
 
