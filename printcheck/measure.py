@@ -76,11 +76,13 @@ class MeasureConfig:
         seen apart.  Three: a photo keeps colour at half the resolution of brightness
         (JPEG and HEIC 4:2:0), so a gap of three pixels is one and a half colour samples
         wide, the least in which the colour can come back to bare metal between them.
-        A contact closer than that to a neighbour may hide another one merged into it:
-        the count's range reaches up by one for each such contact ...
     crowded_share : float
-        ... and when more than this share of the contacts lie so close, the photo is
-        doubtful: too far away for a print this fine.
+        When more than this share of the contacts lie closer than ``part_px`` to a
+        neighbour, the print is as fine as the photo's pixels: each such contact may
+        hide another merged into it, so the count's range reaches up by one for each,
+        and the photo is doubtful (too far away for a print this fine).  A quarter: in
+        a print of evenly spread contacts a few pairs always lie close, and contacts
+        the segment stage parted at a valley touch their neighbours.
     oversize_factor : float
         Spots larger than this many times the median spot area are high areas.
     heavy_bearing_factor : float
@@ -96,7 +98,7 @@ class MeasureConfig:
     doubtful_bearing: float = 5.0
     resolution_px: float = 8.0
     part_px: float = 3.0
-    crowded_share: float = 0.1
+    crowded_share: float = 0.25
     oversize_factor: float = 4.0
     heavy_bearing_factor: float = 1.5
 
@@ -191,6 +193,7 @@ def measure(
     config: MeasureConfig = MeasureConfig(),
     alternates: tuple[np.ndarray, ...] = (),
     photo_px_per_mm: float | None = None,
+    unseen: np.ndarray | None = None,
 ) -> Measurement:
     """Measure the contact ``mask`` (M, N) bool on rectified ``frame``.
 
@@ -208,6 +211,10 @@ def measure(
         only what the mask itself says.
     photo_px_per_mm : float, optional
         What the photo itself resolves at the window, for the resolution check.
+    unseen : (M, N) bool ndarray, optional
+        Pixels where the photo shows nothing of the print (burnt-out highlights): the
+        contacts they hide are not counted, and the range reaches up by what they
+        would hold at the print's density and bearing elsewhere.
 
     Returns
     -------
@@ -246,6 +253,7 @@ def measure(
         photo_px_per_mm,
         config,
         crowded=_crowded(labels, spots, s, photo_px_per_mm, config),
+        unseen_share=_unseen_share(unseen, in_an & ~contact, analysed_px),
     )
     return Measurement(
         spots=spots,
@@ -387,6 +395,14 @@ def _marginal(
     return int(just_in.sum()), int(just_out.sum())
 
 
+def _unseen_share(unseen: np.ndarray | None, bare: np.ndarray, analysed_px: int) -> float:
+    """Share of the analysed window that is ``unseen`` and not found to be contact."""
+    if unseen is None or not analysed_px:
+        return 0.0
+    hidden = int(np.count_nonzero(np.asarray(unseen, dtype=bool) & bare))
+    return min(hidden / analysed_px, 0.9)
+
+
 def _crowded(
     labels: np.ndarray,
     spots: Spots,
@@ -429,6 +445,7 @@ def _confidence(
     config: MeasureConfig,
     *,
     crowded: int = 0,
+    unseen_share: float = 0.0,
 ) -> Confidence:
     """The range and the doubtful flag (see the module docstring)."""
     counts = [count] + [a for a, _ in alts]
@@ -449,21 +466,26 @@ def _confidence(
                 f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this photo has "
                 f"{photo_px_per_mm:.0f}: move closer"
             )
-    if crowded:
-        # each contact closer to a neighbour than the photo can part may hide another
+    if crowded > config.crowded_share * count and photo_px_per_mm is not None:
+        # a print as fine as the photo's pixels: each contact closer to a neighbour than
+        # the photo can part may hide another merged into it
         hi = max(hi, count + crowded)
-        if crowded > config.crowded_share * count and photo_px_per_mm is not None:
-            gap_mm = config.part_px / photo_px_per_mm
-            reasons.append(
-                f"{crowded} of {count} contacts lie within {gap_mm:.2f} mm of a neighbour, "
-                f"closer than this photo can part ({config.part_px:g} px at "
-                f"{photo_px_per_mm:.0f} px/mm): move closer"
-            )
+        gap_mm = config.part_px / photo_px_per_mm
+        reasons.append(
+            f"{crowded} of {count} contacts lie within {gap_mm:.2f} mm of a neighbour, "
+            f"closer than this photo can part ({config.part_px:g} px at "
+            f"{photo_px_per_mm:.0f} px/mm): move closer"
+        )
+    if unseen_share > 0:
+        # what the burnt-out share of the window would hold at the density seen elsewhere
+        hi = max(hi, count + math.ceil(count * unseen_share / (1.0 - unseen_share)))
     # how far the range reaches beyond the count's own spread
     excess = max(count - lo, hi - count) - spread
     if excess >= 1 and excess / max(count, 1) > config.doubtful_change and not reasons:
         reasons.append(f"the count could be anything from {lo} to {hi}")
     blo, bhi = min(bears), max(bears)
+    if unseen_share > 0:
+        bhi = max(bhi, bearing / (1.0 - unseen_share))
     if max(bearing - blo, bhi - bearing) > config.doubtful_bearing:
         reasons.append(f"the bearing could be anything from {blo:.1f} to {bhi:.1f}%")
     reason = "; ".join(reasons)

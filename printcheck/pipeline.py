@@ -106,6 +106,7 @@ def _measure_rectified(
         ),
         alternates=seg.alternates,
         photo_px_per_mm=rect.calibration.photo_px_per_mm,
+        unseen=seg.glare,
     )
     if meas.spot_count == 0:
         raise NoCompoundError(_no_compound(options, seg.compound))

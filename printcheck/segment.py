@@ -170,6 +170,8 @@ class Segmentation:
     glare_fraction : float
         Share of the visible surface burnt out (no colour).
     warnings : tuple of str
+    glare : (M, N) bool ndarray or None
+        The burnt-out pixels (no colour: what they hide cannot be seen).
     """
 
     mask: np.ndarray
@@ -182,6 +184,7 @@ class Segmentation:
     noise: float
     glare_fraction: float
     warnings: tuple[str, ...] = ()
+    glare: np.ndarray | None = None
 
 
 def segment(
@@ -239,6 +242,7 @@ def segment(
             noise=noise,
             glare_fraction=glare_fraction,
             warnings=tuple(warnings),
+            glare=glare,
         )
 
     if np.count_nonzero(stat) < 64:

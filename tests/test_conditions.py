@@ -54,6 +54,7 @@ def _measure(scene: Scene, seed: int, **segment_options):  # type: ignore[no-unt
         config=MeasureConfig(cell_mm=25.4),
         alternates=seg.alternates,
         photo_px_per_mm=rect.calibration.photo_px_per_mm,
+        unseen=seg.glare,
     )
     return shot.truth, meas, seg
 
@@ -123,6 +124,25 @@ def test_compound_on_the_work_through_a_card_with_a_pushed_up_ring() -> None:
     truth, meas, seg = _measure(scene, seed=34)
     _within(truth, meas)
     assert seg.compound == "blue"
+
+
+def test_contacts_under_burnt_out_glare_are_in_the_range() -> None:
+    # a broad patch of burnt-out glare over the window hides the contacts under it: they
+    # cannot be counted, but the range must reach up to them (at the density and bearing
+    # seen elsewhere), and the photo carries the glare warning
+    scene = Scene(
+        density=24,
+        camera=CAMERA,
+        image_size=(1400, 1050),
+        lighting=Lighting(glare=3.0, glare_radius=0.12),
+    )
+    truth, meas, seg = _measure(scene, seed=40)
+    assert seg.glare_fraction > 0.05
+    assert any("burnt out" in w for w in seg.warnings)
+    c = meas.confidence
+    assert meas.spot_count < truth.spot_count  # the glare did hide contacts
+    assert c is not None and c.count_low <= truth.spot_count <= c.count_high, (c, truth)
+    assert c.bearing_low <= truth.bearing_percent <= c.bearing_high + 0.5, (c, truth)
 
 
 def test_red_compound_is_found_by_default() -> None:

@@ -131,7 +131,7 @@ MEASURE_CHANGES = {
     "doubtful_change": 0.01,
     "doubtful_bearing": 0.1,
     "resolution_px": 1.0,
-    "part_px": 30.0,
+    "part_px": 300.0,
     "crowded_share": 0.1,
     "oversize_factor": 100.0,
     "heavy_bearing_factor": 30.0,
