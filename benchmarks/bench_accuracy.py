@@ -258,7 +258,7 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
         frame = Frame(px_per_mm=s, origin_mm=(w.x_mm - b, w.y_mm - b),
                       shape=image.shape[:2], window=w)
         visible, analysed = layout_masks(layout, frame)
-        rect_img, method = image, "square-on"
+        rect_img, method, photo_ppm = image, "square-on", s
     else:
         from printcheck.locate import locate
 
@@ -266,6 +266,7 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
             rect = locate(image, layout=layout)
             rect_img, frame, visible, analysed = rect.image, rect.frame, rect.visible, rect.analysed
             method = "locate"
+            photo_ppm = rect.calibration.photo_px_per_mm
             warnings.extend(rect.warnings)
         except (PrintcheckError, NotImplementedError) as exc:
             s = min(_photo_px_per_mm(rendered["homography"], layout), 20.0)
@@ -273,15 +274,18 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
                 image, rendered["homography"], layout, s
             )
             method = f"homography ({type(exc).__name__})"
+            photo_ppm = _photo_px_per_mm(rendered["homography"], layout)
     s = frame.px_per_mm
     seg = segment(rect_img, visible=visible, analysed=analysed,
                   config=SegmentConfig(compound=scene.compound, compound_on=scene.compound_on,
                                        px_per_mm=s))
     meas = measure(
         seg.mask, frame=frame, analysed=analysed, config=MeasureConfig(cell_mm=25.4),
-        alternates=seg.alternates,
+        alternates=seg.alternates, photo_px_per_mm=photo_ppm, unseen=seg.glare,
     )
     warnings.extend(seg.warnings)
+    if meas.confidence is not None and meas.confidence.doubtful:
+        warnings.append(f"doubtful: {meas.confidence.reason}")
     return Outcome(case, rendered["truth"], meas, method, s, time.perf_counter() - t0,
                    tuple(warnings))
 
@@ -345,6 +349,20 @@ def main(argv: list[str] | None = None) -> int:
         unit = "points" if key.startswith("bearing") else "%"
         print(f"  {key:15s} {value:6.2f} {unit:6s} target <= {TARGETS[key]:g}  "
               f"{'ok' if ok else 'MISSED'}")
+    held = [o for o in outcomes if o.measurement.confidence is not None]
+    c_in = sum(
+        o.measurement.confidence.count_low <= o.truth.spot_count <= o.measurement.confidence.count_high
+        for o in held
+    )
+    b_in = sum(
+        o.measurement.confidence.bearing_low - 1e-9
+        <= o.truth.bearing_percent
+        <= o.measurement.confidence.bearing_high + 1e-9
+        for o in held
+    )
+    doubtful = sum(o.measurement.confidence.doubtful for o in held)
+    print(f"  ranges holding the truth: count {c_in}/{len(held)}, bearing {b_in}/{len(held)}; "
+          f"doubtful photos: {doubtful}")
     methods = sorted({o.method for o in outcomes})
     print(f"  rectification: {', '.join(methods)}")
     print(f"  seconds per photo (segment + measure, incl. locate): median "
