@@ -333,37 +333,39 @@ def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarra
 def _carve(labels: np.ndarray, height: np.ndarray) -> np.ndarray:
     """Contact mask with a gap wherever two contacts touch (the lower side is removed)."""
     mask = labels > 0
-    lab = np.pad(labels, 1)
-    hp = np.pad(height, 1, constant_values=-np.inf)
-    rows, cols = labels.shape
-    drop = np.zeros(labels.shape, bool)
-    for dy in (-1, 0, 1):
-        for dx in (-1, 0, 1):
-            if dy == 0 and dx == 0:
-                continue
-            nb = lab[1 + dy : 1 + dy + rows, 1 + dx : 1 + dx + cols]
-            nh = hp[1 + dy : 1 + dy + rows, 1 + dx : 1 + dx + cols]
-            touch = mask & (nb > 0) & (nb != labels)
-            if touch.any():
-                drop |= touch & ((height < nh) | ((height == nh) & (labels < nb)))
-    return mask & ~drop
+    # only contact pixels can touch another contact: work on their flat indices
+    lab = np.pad(labels, 1).ravel()
+    hp = np.pad(height, 1, constant_values=-np.inf).ravel()
+    width = labels.shape[1] + 2
+    idx = np.flatnonzero(lab)
+    here, h = lab[idx], hp[idx]
+    drop = np.zeros(idx.size, bool)
+    for off in (-width - 1, -width, -width + 1, -1, 1, width - 1, width, width + 1):
+        nb = lab[idx + off]
+        nh = hp[idx + off]
+        drop |= (nb > 0) & (nb != here) & ((h < nh) | ((h == nh) & (here < nb)))
+    if not drop.any():
+        return mask
+    out = np.zeros(lab.size, bool)
+    out[idx[~drop]] = True
+    return np.ascontiguousarray(out.reshape(labels.shape[0] + 2, width)[1:-1, 1:-1])
 
 
 def fill_small_holes(mask: np.ndarray, max_px: float, glare: np.ndarray | None) -> np.ndarray:
     """Fill holes of ``mask`` up to ``max_px`` pixels (20 times that when mostly glare)."""
-    inv = ~mask
-    n, lab, stats, _ = cv2.connectedComponentsWithStats(inv.view(np.uint8), connectivity=4)
-    if n <= 1:
+    # the holes: what is not contact and not joined to the image's edge (4-connected),
+    # found by flooding from a frame of background around the image
+    framed = np.pad(~mask, 1, constant_values=True).view(np.uint8) * np.uint8(255)
+    cv2.floodFill(framed, None, (0, 0), 0, flags=4)
+    holes = framed[1:-1, 1:-1]
+    if not holes.any():
         return mask
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(holes, connectivity=4)
     area = stats[:, cv2.CC_STAT_AREA]
-    x, y = stats[:, cv2.CC_STAT_LEFT], stats[:, cv2.CC_STAT_TOP]
-    w, h = stats[:, cv2.CC_STAT_WIDTH], stats[:, cv2.CC_STAT_HEIGHT]
-    rows, cols = mask.shape
-    border = (x == 0) | (y == 0) | (x + w == cols) | (y + h == rows)
-    fill = (area <= max_px) & ~border
+    fill = area <= max_px
     if glare is not None and glare.any():
         glare_px = np.bincount(lab[glare], minlength=n)
-        fill |= (area <= 20 * max_px) & ~border & (glare_px >= 0.5 * area)
+        fill |= (area <= 20 * max_px) & (glare_px >= 0.5 * area)
     fill[0] = False
     if not fill.any():
         return mask
