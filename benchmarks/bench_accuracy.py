@@ -350,17 +350,13 @@ def main(argv: list[str] | None = None) -> int:
         print(f"  {key:15s} {value:6.2f} {unit:6s} target <= {TARGETS[key]:g}  "
               f"{'ok' if ok else 'MISSED'}")
     held = [o for o in outcomes if o.measurement.confidence is not None]
-    c_in = sum(
-        o.measurement.confidence.count_low <= o.truth.spot_count <= o.measurement.confidence.count_high
-        for o in held
-    )
+    confs = [(o, o.measurement.confidence) for o in held]
+    c_in = sum(c.count_low <= o.truth.spot_count <= c.count_high for o, c in confs)  # type: ignore[union-attr]
     b_in = sum(
-        o.measurement.confidence.bearing_low - 1e-9
-        <= o.truth.bearing_percent
-        <= o.measurement.confidence.bearing_high + 1e-9
-        for o in held
+        c.bearing_low - 1e-9 <= o.truth.bearing_percent <= c.bearing_high + 1e-9  # type: ignore[union-attr]
+        for o, c in confs
     )
-    doubtful = sum(o.measurement.confidence.doubtful for o in held)
+    doubtful = sum(c.doubtful for _, c in confs)  # type: ignore[union-attr]
     print(f"  ranges holding the truth: count {c_in}/{len(held)}, bearing {b_in}/{len(held)}; "
           f"doubtful photos: {doubtful}")
     methods = sorted({o.method for o in outcomes})

@@ -251,7 +251,10 @@ def test_contacts_closer_than_the_photo_can_part_widen_the_range(fine_field) -> 
 
     rect = rectify_scale(shot.image, px_per_mm=9.0)
     seg = segment(
-        rect.image, visible=rect.visible, analysed=rect.analysed, config=SegmentConfig(px_per_mm=9.0)
+        rect.image,
+        visible=rect.visible,
+        analysed=rect.analysed,
+        config=SegmentConfig(px_per_mm=9.0),
     )
     meas = measure(
         seg.mask,
