@@ -101,8 +101,9 @@ class SegmentConfig:
         ... and it holds a point worn through at least this share.
     nudge : float
         How far the alternates move every threshold (1: the seed by 1.5 noise levels up
-        and 1 down, the shares by half again, the split share and the coat shares by
-        0.1; the default 1.5 times that); they bound the range the measure stage reports.
+        and 1 down, the seed share by half again, the rim share by 0.4 times again, the
+        split share and the coat shares by 0.1; the default 1.5 times that); they bound
+        the range the measure stage reports.
     """
 
     compound: Compound = "auto"
@@ -113,7 +114,7 @@ class SegmentConfig:
     seed_sigma: float = 5.0
     seed_share: float = 0.2
     grow_sigma: float = 3.0
-    rim_share: float = 0.15
+    rim_share: float = 0.175
     min_spot_mm2: float = 0.1
     split_share: float = 0.5
     local_mm: float = 8.0
@@ -289,7 +290,8 @@ def segment(
     fewer, more = _nudged(config)
     cut = _regions(field, more, s) if config.compound_on == "reference" else None
     mask = _decide(field, config, s, rim, cut)
-    rim_step = 1.0 + 0.5 * config.nudge
+    # the rim share decides the bearing: its step sets how wide the bearing's range is
+    rim_step = 1.0 + 0.4 * config.nudge
     alternates = (
         _decide(field, fewer, s, min(rim_step * rim, 0.9), cut),
         _decide(field, more, s, rim / rim_step, cut),
