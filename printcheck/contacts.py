@@ -157,14 +157,25 @@ def finish(
     rim_share: float | None,
     score: np.ndarray | None = None,
     min_core_px: float = 0.0,
+    level: np.ndarray | None = None,
 ) -> np.ndarray:
     """Cut each contact at ``rim_share`` of its peak, keep those with a seed (and, with
-    ``min_core_px``, at least that many pixels above half their peak), carve gaps."""
+    ``min_core_px``, at least that many pixels above half their peak, or with ``level``
+    as much evidence in all as that many pixels at the compound's full level), carve
+    gaps.
+
+    The half-height footprint of a speck smaller than the blur does not grow past the
+    blur's; but a small contact whose film thins to its rim (a dome) keeps only a part
+    of its area above half its peak.  Its evidence in all, over the compound's level
+    where it lies (``level``, (M, N)), is its area whatever the blur: blur spreads the
+    evidence but keeps its sum."""
     if rim_share is not None:
         sc = height if score is None else score
         peak = _label_max(labels, sc)
         if min_core_px > 0:
             core = np.bincount(labels[sc > (0.5 * peak)[labels]], minlength=peak.size)
+            if level is not None:
+                core = np.maximum(core, _mass_px(labels, sc, level, peak.size))
             small = core < min_core_px
             small[0] = False
             labels = np.where(small[labels], 0, labels)
@@ -175,6 +186,16 @@ def finish(
     labels = np.where(has_seed[labels], labels, 0)
     mask = _carve(labels, height)
     return _drop_crumbs(mask, labels, height)
+
+
+def _mass_px(labels: np.ndarray, score: np.ndarray, level: np.ndarray, n: int) -> np.ndarray:
+    """Each label's evidence in all (above zero) over ``level`` at its peak, in pixels."""
+    sel = labels > 0
+    lab = labels[sel]
+    mass = np.bincount(lab, weights=np.maximum(score[sel], 0.0), minlength=n)
+    at = np.zeros(n, np.float64)
+    at[lab] = level[sel]  # the compound's level varies slowly: any pixel of the label
+    return np.asarray(mass / np.maximum(at, 1e-6))
 
 
 def _drop_crumbs(mask: np.ndarray, labels: np.ndarray, height: np.ndarray) -> np.ndarray:

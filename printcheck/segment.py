@@ -373,6 +373,7 @@ def _decide(
             rim_share=rim,
             score=field.score,
             min_core_px=config.min_spot_mm2 * s * s,
+            level=field.local,
         )
     else:
         worn = field.score / field.local
