@@ -79,6 +79,9 @@ MIGRATIONS: tuple[Migration, ...] = (
             "ALTER TABLE passes ADD COLUMN method INTEGER",
             # when the photo was taken out of the surface's passes (kept, not deleted)
             "ALTER TABLE passes ADD COLUMN removed TEXT",
+            # the time the history orders the photo by, when the batch ordered it
+            # otherwise than by its own time (by name, say)
+            "ALTER TABLE passes ADD COLUMN sort_time TEXT",
             """CREATE TABLE earlier_results (
                 id INTEGER PRIMARY KEY,
                 pass_id INTEGER NOT NULL REFERENCES passes(id),

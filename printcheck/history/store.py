@@ -178,6 +178,7 @@ class History:
         method: int | None = None,
         replace: bool = True,
         why: str = "re-measured",
+        sort_time: str | None = None,
     ) -> PutOutcome:
         """Record a photo's result; with ``replace``, re-measured figures replace the
         recorded ones and the recorded ones go to the record of earlier results.
@@ -220,8 +221,8 @@ class History:
                 columns.append("spec_json")
                 values.append(row[-1])
             if v3:
-                columns += ["station", "pass_key", "settings", "method"]
-                values += [station, pass_key, settings, method]
+                columns += ["station", "pass_key", "settings", "method", "sort_time"]
+                values += [station, pass_key, settings, method, sort_time]
             old = con.execute(
                 f"""SELECT id, result_json, recorded
                     {", settings, method, removed" if v3 else ""}
@@ -359,12 +360,13 @@ class History:
             else ""
         )
         where = "AND p.removed IS NULL" if self._version >= 3 else ""
+        order = "COALESCE(p.sort_time, p.taken)" if self._version >= 3 else "p.taken"
         rows = self._read(
             f"""SELECT p.photo, p.sha256, p.taken, p.spec, p.recorded, p.result_json,
                    {spec_col} AS spec_json, {extra}
                FROM passes p JOIN surfaces s ON s.id = p.surface_id {join}
                WHERE s.name = ? {where}
-               ORDER BY p.taken IS NULL, p.taken, p.photo, p.id""",
+               ORDER BY {order} IS NULL, {order}, p.photo, p.id""",
             (name,),
         )
         groups: dict[str, list[sqlite3.Row]] = {}
@@ -430,6 +432,31 @@ class History:
             )
             for r in rows
         }
+
+    def place(
+        self,
+        surface: str,
+        sha256: str,
+        *,
+        station: str | None,
+        pass_key: str | None,
+        sort_time: str | None,
+    ) -> bool:
+        """Put a recorded photo at its pass and station (as a batch now groups it);
+        True when that changed anything.  Its figures stay as they are."""
+        self._need_v3("regroup a photo")
+        name = self._surface_name(surface)
+
+        def work(con: sqlite3.Connection) -> bool:
+            cur = con.execute(
+                """UPDATE passes SET station = ?, pass_key = ?, sort_time = ?
+                   WHERE sha256 = ? AND surface_id = (SELECT id FROM surfaces WHERE name = ?)
+                   AND (station IS NOT ? OR pass_key IS NOT ? OR sort_time IS NOT ?)""",
+                (station, pass_key, sort_time, sha256, name, station, pass_key, sort_time),
+            )
+            return cur.rowcount > 0
+
+        return self._retry(work)
 
     def surface_folder(self, surface: str) -> str | None:
         """The folder whose batch first recorded ``surface`` (None: unknown or not kept)."""
