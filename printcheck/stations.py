@@ -204,7 +204,7 @@ def plan_passes(
     else:
         for item in sorted(top, key=key):
             passes.append((None, [(item, None)]))
-        for name, items in used:
+        for _name, items in used:
             for item in sorted(items, key=key):
                 passes.append((None, [(item, None)]))
         if used and top:  # photos of both kinds: one order over all of them
