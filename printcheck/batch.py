@@ -448,6 +448,7 @@ def _measure_and_record(
     from printcheck.history import open_history
     from printcheck.method import METHOD_VERSION
     from printcheck.progress import history_progress, surface_spec
+    from printcheck.report.history_report import stored_preview
     from printcheck.serde import summary_to_dict
     from printcheck.stations import settings_changes, settings_key
 
@@ -569,7 +570,7 @@ def _measure_and_record(
             shown.append((fresh[p.path].summary, fresh[p.path].preview))
         elif hashes[p.path] in by_sha:
             summary = by_sha[hashes[p.path]]
-            shown.append((summary, _stored_preview(out, summary.photo)))
+            shown.append((summary, stored_preview(out, summary.photo)))
     return progress, shown
 
 
@@ -621,27 +622,6 @@ def _remeasured_words(new: PassSummary, old: PassSummary, why: str) -> str:
         f"bearing {fig(old.bearing_percent)} -> {fig(new.bearing_percent)} % "
         "(the earlier figures stay in the history)"
     )
-
-
-def _stored_preview(out: Path, photo: str) -> bytes | None:
-    """A JPEG preview of the overlay an earlier run wrote to ``out`` for ``photo``."""
-    from printcheck.report.files import OVERLAY_SUFFIX, output_name
-
-    path = out / output_name(photo, OVERLAY_SUFFIX)
-    if not path.is_file():
-        return None
-    try:
-        import cv2
-        import numpy as np
-
-        image = cv2.imdecode(np.fromfile(path, dtype=np.uint8), cv2.IMREAD_COLOR)
-        if image is None:
-            return None
-        from printcheck.report.files import encode_image
-
-        return bytes(encode_image(_shrink(image, 1400), ".jpg", jpeg_quality=85))
-    except (OSError, ValueError):
-        return None
 
 
 class _Warming:
