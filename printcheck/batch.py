@@ -468,7 +468,7 @@ def _measure_and_record(
         for p in planned:
             sha = hashes[p.path]
             seen = known.get(sha) if sha is not None else None
-            if seen is None:
+            if seen is None or sha is None:
                 to_measure.append(p)
                 continue
             was_settings, was_method, removed = seen

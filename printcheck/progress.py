@@ -433,11 +433,11 @@ def history_progress(
         base = build_progress(
             surface, [p.summary for p in ordered], spec=spec, fit_passes=fit_passes
         )
-        rows = tuple(
+        noted = tuple(
             row if notes[p.number] is None else _replace(row, note=notes[p.number])
             for row, p in zip(base.passes, ordered, strict=True)
         )
-        return _replace(base, passes=rows)
+        return _replace(base, passes=noted)
     last = stored[-1].summary if stored else None
     basis_mm = _cell_mm(last)
     names: list[str] = []

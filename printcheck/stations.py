@@ -30,7 +30,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -105,7 +105,7 @@ def _name_key(item: Any) -> tuple[Any, ...]:
 
 def plan_passes(
     top: Sequence[Any],
-    sub: dict[str, Sequence[Any]],
+    sub: Mapping[str, Sequence[Any]],
     *,
     group: str = "auto",
     order: str = "time",
@@ -117,7 +117,7 @@ def plan_passes(
     ----------
     top : sequence of BatchItem
         The photos directly in the batch folder.
-    sub : dict of str to sequence of BatchItem
+    sub : mapping of str to sequence of BatchItem
         The photos of each subfolder, by subfolder name.
     group : {"auto", "folder", "name", "stations", "photo"}
     order : {"time", "name"}
