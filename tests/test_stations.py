@@ -163,6 +163,8 @@ def test_three_passes_of_three_stations(
     assert html.count('<tr data-pass="') == 3
     assert html.count('class="station" data-station="tailstock"') == 3
     assert "worst station tailstock" in html
+    # the badge is the latest pass's verdict (every station), not its last photo's
+    assert '<span class="badge bad">does not meet spec</span>' in html
 
 
 def row_station(row: dict[str, Any], name: str) -> dict[str, Any]:
@@ -548,3 +550,26 @@ def test_pass_verdict_needs_every_station() -> None:
     # every station meets: the pass meets
     both = [_stored(1, "a", 20.0, True), _stored(1, "b", 19.0, True)]
     assert history_progress("bed", both, spec=spec).passes[0].meets is True
+
+
+def test_report_badge_and_strip_follow_the_pass_not_its_last_photo() -> None:
+    from printcheck.progress import history_progress
+    from printcheck.report.html import render_report
+    from printcheck.report.stations import stations_section
+    from printcheck.spec import find_spec
+
+    spec = find_spec("slideway-precision")
+    # station b fails; station a, photographed last, meets
+    stored = [_stored(1, "b", 6.0, False), _stored(1, "a", 20.0, True)]
+    progress = history_progress("bed", stored, spec=spec)
+    assert progress.passes[0].meets is False and progress.passes[0].worst_station == "b"
+    html = render_report(
+        surface="bed",
+        spec=spec,
+        passes=[(p.summary, None) for p in stored],
+        progress=progress,
+        extra_html=stations_section(progress),
+    )
+    assert '<span class="badge bad">does not meet spec</span>' in html.split("</h1>")[0]
+    assert "worst station b" in html
+    assert html.count('class="station" data-station=') == 2

@@ -331,6 +331,10 @@ def _header(
     from printcheck.report.plots import trend_png
 
     latest = summaries[-1] if summaries else None
+    # the badge is the surface's latest pass (all its stations), as the history holds it
+    verdict = progress.passes[-1].meets if progress is not None and progress.passes else None
+    if verdict is None and latest is not None:
+        verdict = latest.meets
     head = [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
@@ -338,7 +342,7 @@ def _header(
         f"<title>{_e(surface)} · print report</title>",
         f"<style>{_CSS}</style></head><body><main>",
         '<header class="surface">',
-        f"<h1>{_e(surface)} {_badge(latest.meets) if latest is not None else ''}</h1>",
+        f"<h1>{_e(surface)} {_badge(verdict) if latest is not None else ''}</h1>",
         f'<p class="sub">{len(summaries)} pass{"es" if len(summaries) != 1 else ""} in this report'
         + (f" · latest: {_e(latest.photo)}" if latest is not None else "")
         + "</p>",
