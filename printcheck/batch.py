@@ -294,6 +294,7 @@ def run_batch(
             warn=warn,
             show_progress=show_progress,
             announce=lambda skipped: _say_order(planned, rule, order, skipped, warn=warn, say=say),
+            announce_groups=lambda: _say_groups(planned, rule, order, say=say),
             same_surface=same_surface,
             remeasure=remeasure,
             note=note,
@@ -348,6 +349,20 @@ def _list_job(
     return top, sub, skipped
 
 
+def _say_groups(
+    planned: Sequence[Any], rule: str, order: str, *, say: Callable[[str], None]
+) -> None:
+    """Say how the photos were grouped, when passes hold stations."""
+    if rule != "photo":
+        passes = len({p.pass_key for p in planned})
+        what = {
+            "folder": "a subfolder per pass",
+            "name": "pass and station in the photo names",
+            "stations": "the job file's stations, in order",
+        }[rule]
+        say(f"{len(planned)} photos in {passes} passes ({what}); order by {order}")
+
+
 def _say_order(
     planned: Sequence[Any],
     rule: str,
@@ -357,8 +372,7 @@ def _say_order(
     warn: Callable[[str], None],
     say: Callable[[str], None],
 ) -> None:
-    """Name the photos without a camera time and the order used; say how passes were
-    grouped when they hold stations."""
+    """Name the photos without a camera time (not the skipped ones) and the order used."""
     untimed = [p.path.name for p in planned if p.taken is None and p.path not in skipped]
     if untimed and order == "time":
         shown = ", ".join(untimed[:12]) + (
@@ -371,14 +385,6 @@ def _say_order(
         )
         plural = "s" if len(untimed) != 1 else ""
         warn(f"{len(untimed)} photo{plural} without a camera time (EXIF): {shown}; {how}")
-    if rule != "photo":
-        passes = len({p.pass_key for p in planned})
-        what = {
-            "folder": "a subfolder per pass",
-            "name": "pass and station in the photo names",
-            "stations": "the job file's stations, in order",
-        }[rule]
-        say(f"{len(planned)} photos in {passes} passes ({what}); order by {order}")
 
 
 def _summary_words(tally: _Tally, out: Path) -> str:
@@ -436,6 +442,7 @@ def _measure_and_record(
     warn: Callable[[str], None],
     show_progress: bool,
     announce: Callable[[set[Path]], None],
+    announce_groups: Callable[[], None],
     same_surface: bool,
     remeasure: bool,
     note: str | None,
@@ -462,6 +469,7 @@ def _measure_and_record(
             out.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise ReportError(f"output folder {out}: cannot be created ({exc.strerror})") from None
+        announce_groups()
         known = history.known(surface)
         to_measure: list[Any] = []
         reasons: dict[Path, str] = {}
