@@ -293,7 +293,7 @@ def run_batch(
             say=say,
             warn=warn,
             show_progress=show_progress,
-            announce=lambda skipped: _say_order(planned, rule, order, skipped, warn=warn, say=say),
+            announce=lambda skipped: _say_order(planned, order, skipped, warn=warn),
             announce_groups=lambda: _say_groups(planned, rule, order, say=say),
             same_surface=same_surface,
             remeasure=remeasure,
@@ -364,13 +364,7 @@ def _say_groups(
 
 
 def _say_order(
-    planned: Sequence[Any],
-    rule: str,
-    order: str,
-    skipped: set[Path],
-    *,
-    warn: Callable[[str], None],
-    say: Callable[[str], None],
+    planned: Sequence[Any], order: str, skipped: set[Path], *, warn: Callable[[str], None]
 ) -> None:
     """Name the photos without a camera time (not the skipped ones) and the order used."""
     untimed = [p.path.name for p in planned if p.taken is None and p.path not in skipped]
