@@ -450,7 +450,7 @@ surface_app = typer.Typer(
     help="List, rename and remove the surfaces in the history.", no_args_is_help=True
 )
 pass_app = typer.Typer(
-    help="Remove a pass or a photo, or keep a note with a pass.", no_args_is_help=True
+    help="Remove or restore a pass or a photo, or keep a note with a pass.", no_args_is_help=True
 )
 app.add_typer(surface_app, name="surface")
 app.add_typer(pass_app, name="pass")
@@ -551,6 +551,22 @@ def pass_remove(
         photos = history.remove_pass(surface, number=number, photo=photo)
     what = f"pass {number}" if number is not None else f"photo {photo}"
     typer.echo(f"removed {what} of {surface!r}: {', '.join(photos)}")
+
+
+@pass_app.command("restore")
+def pass_restore(
+    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    photo: Annotated[
+        str | None, typer.Option("--photo", help="One removed photo (default: every one).")
+    ] = None,
+    db: DbOpt = None,
+) -> None:
+    """Put removed photos back among a surface's passes (undoes 'pass remove')."""
+    from printcheck.history import open_history
+
+    with open_history(_existing_history(db)) as history:
+        photos = history.restore(surface, photo)
+    typer.echo(f"restored to {surface!r}: {', '.join(photos)}")
 
 
 @pass_app.command("note")

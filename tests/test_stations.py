@@ -259,6 +259,11 @@ def test_removed_pass_is_gone_from_progress_and_report(
     ]
     # the record is kept: the rows are marked, not deleted
     assert len(_rows(db, "passes")) == 9
+    # ... so it can be put back
+    code, stdout, err = _run(capsys, "pass", "restore", "bed-front-way", "--db", db)
+    assert code == 0 and stdout.count("station-") == 3, err
+    assert _progress(capsys, "bed-front-way", db)["passes"] == before["passes"]
+    _run(capsys, "pass", "remove", "bed-front-way", "--pass", "2", "--db", db)
     # a note can be set and cleared per pass
     _run(capsys, "pass", "note", "bed-front-way", "2", "blue, 12 in straight edge", "--db", db)
     code, stdout, _ = _run(capsys, "progress", "bed-front-way", "--db", db)

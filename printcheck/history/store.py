@@ -595,6 +595,36 @@ class History:
         self._retry(work)
         return photos
 
+    def restore(self, surface: str, photo: str | None = None) -> list[str]:
+        """Put removed photos of ``surface`` back among its passes (one ``photo``, or
+        every removed one); returns the photos restored.
+
+        Raises
+        ------
+        HistoryError
+            Nothing removed matches.
+        """
+        self._need_v3("restore a pass")
+        name = self._surface_name(surface)
+
+        def work(con: sqlite3.Connection) -> list[str]:
+            rows = con.execute(
+                """SELECT p.id, p.photo FROM passes p JOIN surfaces s ON s.id = p.surface_id
+                   WHERE s.name = ? AND p.removed IS NOT NULL AND (? IS NULL OR p.photo = ?)
+                   ORDER BY p.id""",
+                (name, photo, photo),
+            ).fetchall()
+            if not rows:
+                what = f"photo {photo!r}" if photo is not None else "photo"
+                raise HistoryError(
+                    f"history {self.path}: surface {name!r} has no removed {what} to restore"
+                )
+            for r in rows:
+                con.execute("UPDATE passes SET removed = NULL WHERE id = ?", (r["id"],))
+            return [str(r["photo"]) for r in rows]
+
+        return self._retry(work)
+
     def set_note(self, surface: str, number: int, note: str) -> None:
         """Keep ``note`` (who scraped, compound, reference) with pass ``number``."""
         self._need_v3("keep a note")
