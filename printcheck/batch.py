@@ -206,6 +206,8 @@ class _Tally:
     measured: list[Measured] = field(default_factory=list)
     skipped: list[Skipped] = field(default_factory=list)
     in_history: int | None = None  # photos of this batch whose pass is in the history
+    unchanged: int = 0  # photos recorded before with the same settings: not measured
+    remeasured: int = 0
 
 
 def run_batch(
@@ -219,6 +221,12 @@ def run_batch(
     echo: Callable[[str], None] = print,
     warn: Callable[[str], None] = print,
     show_progress: bool | None = None,
+    group: str = "auto",
+    order: str = "time",
+    stations: Sequence[str] = (),
+    same_surface: bool = False,
+    remeasure: bool = False,
+    note: str | None = None,
 ) -> int:
     """Process ``folder``; return the exit status.
 
@@ -228,6 +236,15 @@ def run_batch(
 
     Writes ``<stem>.json`` and ``<stem>.overlay.png`` per photo, ``results.csv`` and
     ``report.html`` to ``out``, and records every pass in the history at ``db``.
+
+    Photos are grouped into passes of stations by :func:`printcheck.stations.plan_passes`
+    (``group``, ``order``, ``stations``).  Only what is new or changed is measured: a
+    photo already recorded for the surface (same SHA-256) with the same settings and
+    measuring method is not measured again; one recorded with other settings or an
+    older method (or any, with ``remeasure``) is measured again, its new figures become
+    the pass's and the old ones stay in the history's record, one line per photo saying
+    so.  A surface whose passes came from another folder is refused unless
+    ``same_surface``.  ``note`` is kept with each pass this batch records.
 
     Raises
     ------
@@ -246,36 +263,49 @@ def run_batch(
             f"jobs must be 1 or more, got {jobs}; leave it out to use every core",
             parameter="jobs",
         )
+    from printcheck.stations import plan_passes
+
     surface = options.surface or folder.resolve().name
     tally: _Tally | None = None
+    say = warn if json_lines else echo  # lines for people stay off a JSON stdout
     try:
-        items, not_photos = list_photos(folder)
-        for note in not_photos:
-            warn(f"{note.error}; skipped")
-        if not items:
+        top, sub, not_photos = _list_job(folder, out, group)
+        for skipped_note in not_photos:
+            warn(f"{skipped_note.error}; skipped")
+        if not top and not any(sub.values()):
             raise ReportError(f"batch {folder}: no photos found (JPEG, PNG, TIFF, HEIC)")
-        tally = _Tally(total=len(items) + len(not_photos), skipped=list(not_photos))
-        workers = max(1, min(jobs or cores_available(), len(items)))
+        rule, planned = plan_passes(top, sub, group=group, order=order, stations=stations)
+        count = len(planned)
+        tally = _Tally(total=count + len(not_photos), skipped=list(not_photos))
         if show_progress is None:
             show_progress = _stderr_is_terminal()
-        progress = _measure_and_record(
-            items,
+        progress, shown = _measure_and_record(
+            planned,
             options,
             out,
             db,
+            folder=folder,
             tally=tally,
             surface=surface,
-            workers=workers,
+            jobs=jobs,
             json_lines=json_lines,
             echo=echo,
+            say=say,
             warn=warn,
             show_progress=show_progress,
+            announce=lambda skipped: _say_order(planned, order, skipped, warn=warn),
+            announce_groups=lambda: _say_groups(planned, rule, order, say=say),
+            same_surface=same_surface,
+            remeasure=remeasure,
+            note=note,
         )
         done = tally.measured
-        if not done:
+        if not done and not tally.unchanged:
             warn(f"batch {folder}: none of the {tally.total} photos could be measured")
             return EXIT_UNUSABLE
-        _write_outputs(out, surface=surface, spec=options.spec, tally=tally, progress=progress)
+        _write_outputs(
+            out, surface=surface, spec=options.spec, tally=tally, progress=progress, shown=shown
+        )
     except KeyboardInterrupt as exc:
         raise Interrupted(
             _interrupted_words(tally, db, surface), signum=getattr(exc, "signum", signal.SIGINT)
@@ -288,12 +318,76 @@ def run_batch(
         echo(_summary_words(tally, out))
     if killed:
         return EXIT_INCOMPLETE
-    return EXIT_FAILS if done[-1].summary.meets is False else EXIT_MEETS
+    latest = progress.passes[-1].meets if progress.passes else None
+    return EXIT_FAILS if latest is False else EXIT_MEETS
+
+
+def _list_job(
+    folder: Path, out: Path, group: str
+) -> tuple[list[BatchItem], dict[str, list[BatchItem]], list[Skipped]]:
+    """The photos of the folder and, where passes may be subfolders, of its subfolders.
+
+    Subfolders are looked into when ``group`` is ``folder``, or ``auto`` and the folder
+    holds no photos of its own; hidden ones and the output folder are not.
+    """
+    top, skipped = list_photos(folder)
+    sub: dict[str, list[BatchItem]] = {}
+    if group == "folder" or (group == "auto" and not top):
+        try:
+            names = sorted(os.listdir(folder))
+        except OSError:
+            names = []
+        out_resolved = out.resolve()
+        for name in names:
+            path = folder / name
+            if name.startswith(".") or not path.is_dir() or path.resolve() == out_resolved:
+                continue
+            items, not_photos = list_photos(path)
+            if items:
+                sub[name] = items
+            skipped += not_photos
+    return top, sub, skipped
+
+
+def _say_groups(
+    planned: Sequence[Any], rule: str, order: str, *, say: Callable[[str], None]
+) -> None:
+    """Say how the photos were grouped, when passes hold stations."""
+    if rule != "photo":
+        passes = len({p.pass_key for p in planned})
+        what = {
+            "folder": "a subfolder per pass",
+            "name": "pass and station in the photo names",
+            "stations": "the job file's stations, in order",
+        }[rule]
+        say(f"{len(planned)} photos in {passes} passes ({what}); order by {order}")
+
+
+def _say_order(
+    planned: Sequence[Any], order: str, skipped: set[Path], *, warn: Callable[[str], None]
+) -> None:
+    """Name the photos without a camera time (not the skipped ones) and the order used."""
+    untimed = [p.path.name for p in planned if p.taken is None and p.path not in skipped]
+    if untimed and order == "time":
+        shown = ", ".join(untimed[:12]) + (
+            f" and {len(untimed) - 12} more" if len(untimed) > 12 else ""
+        )
+        how = (
+            "ordered by file time, then name (a copy or a sync may have changed the file "
+            "times: if the order is wrong, give --order name, or put the pass number in "
+            "the names, p1, p2 ...)"
+        )
+        plural = "s" if len(untimed) != 1 else ""
+        warn(f"{len(untimed)} photo{plural} without a camera time (EXIF): {shown}; {how}")
 
 
 def _summary_words(tally: _Tally, out: Path) -> str:
     """The closing line: photos measured, skipped (and why, briefly), the report."""
     parts = [f"{len(tally.measured)} of {tally.total} photos measured"]
+    if tally.unchanged:
+        parts.append(f"{tally.unchanged} unchanged (recorded before with the same settings)")
+    if tally.remeasured:
+        parts.append(f"{tally.remeasured} re-measured")
     killed = sum(s.killed for s in tally.skipped)
     if killed:
         its, was, it = ("its", "was", "it") if killed == 1 else ("their", "were", "them")
@@ -308,12 +402,12 @@ def _summary_words(tally: _Tally, out: Path) -> str:
 
 def _interrupted_words(tally: _Tally | None, db: Path, surface: str) -> str:
     """The one line an interrupted batch leaves: what the history holds, how to go on."""
-    if tally is None or (tally.in_history is None and not tally.measured):
+    if tally is None or (tally.in_history is None and not tally.measured and not tally.unchanged):
         return (
             "interrupted before any photo was measured; the history is as it was; "
             "run the same command again to start"
         )
-    kept = len(tally.measured) if tally.in_history is None else tally.in_history
+    kept = len(tally.measured) + tally.unchanged if tally.in_history is None else tally.in_history
     if kept == 0:
         return (
             f"interrupted; none of the {tally.total} photos is in the history yet; "
@@ -327,66 +421,209 @@ def _interrupted_words(tally: _Tally | None, db: Path, surface: str) -> str:
 
 
 def _measure_and_record(
-    items: list[BatchItem],
+    planned: list[Any],
     options: InspectOptions,
     out: Path,
     db: Path,
     *,
+    folder: Path,
     tally: _Tally,
     surface: str,
-    workers: int,
+    jobs: int | None,
     json_lines: bool,
     echo: Callable[[str], None],
+    say: Callable[[str], None],
     warn: Callable[[str], None],
     show_progress: bool,
-) -> Progress:
-    """Measure every photo and record each pass as it comes (into ``tally``, in the order
-    taken); the surface's progress over its whole history."""
+    announce: Callable[[set[Path]], None],
+    announce_groups: Callable[[], None],
+    same_surface: bool,
+    remeasure: bool,
+    note: str | None,
+) -> tuple[Progress, list[tuple[PassSummary, bytes | None]]]:
+    """Measure what is new or changed, record each pass as it comes (into ``tally``, in
+    the batch's order); the surface's progress over its whole history and the batch's
+    photos for the report (their current figures, and the overlay where there is one)."""
     import json
 
     from printcheck.history import open_history
-    from printcheck.progress import build_progress, surface_spec
+    from printcheck.method import METHOD_VERSION
+    from printcheck.progress import history_progress, surface_spec
+    from printcheck.report.history_report import stored_preview
     from printcheck.serde import summary_to_dict
+    from printcheck.stations import settings_changes, settings_key
 
+    settings = settings_key(options)
+    hashes = {p.path: _sha256(p.path) for p in planned}
     # the history first: a file that is not a history is refused before any work is done
     # or any folder made
     with open_history(db) as history:
+        _check_folder(history, surface, folder, set(hashes.values()), same_surface=same_surface)
         try:
             out.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise ReportError(f"output folder {out}: cannot be created ({exc.strerror})") from None
-        # matplotlib's import and first drawing (~1 s) are needed only for the report at
-        # the end: a thread does them while the photos are measured (from the first
-        # result on, so that it does not hold up the start)
+        announce_groups()
+        known = history.known(surface)
+        to_measure: list[Any] = []
+        reasons: dict[Path, str] = {}
+        for p in planned:
+            sha = hashes[p.path]
+            seen = known.get(sha) if sha is not None else None
+            if seen is None or sha is None:
+                to_measure.append(p)
+                continue
+            was_settings, was_method, removed = seen
+            if removed:
+                say(f"{p.path.name}: removed from {surface!r} earlier; not recorded again")
+                continue
+            changes = settings_changes(was_settings, settings)
+            if was_method < METHOD_VERSION:
+                reasons[p.path] = f"measured by an older method ({was_method} < {METHOD_VERSION})"
+            elif was_settings is None:
+                reasons[p.path] = "its settings were not recorded"
+            elif changes:
+                reasons[p.path] = "settings changed: " + ", ".join(changes)
+            elif remeasure:
+                reasons[p.path] = "asked to re-measure (--remeasure)"
+            else:
+                tally.unchanged += 1
+                history.place(
+                    surface, sha, station=p.station, pass_key=p.pass_key, sort_time=_iso(p)
+                )
+                continue
+            to_measure.append(p)
+        if not to_measure:
+            say(
+                f"nothing new or changed in {folder}: all {tally.unchanged} photos are "
+                "recorded with the same settings and method; nothing measured "
+                "(--remeasure measures them again)"
+            )
+        elif tally.unchanged:
+            say(f"{tally.unchanged} photos unchanged since recorded; not measured again")
+        items = [BatchItem(p.path, p.taken, p.file_time) for p in to_measure]
+        workers = max(1, min(jobs or cores_available(), max(1, len(items))))
         warming = _Warming()
         outcomes: dict[int, Outcome] = {}
         try:
-            with _Runner(items, options, out, workers) as finished:
-                with _Progress(len(items), enabled=show_progress) as bar:
-                    for index, outcome in finished:
-                        outcomes[index] = outcome
-                        if cores_available() > 1:
-                            warming.start()
-                        if isinstance(outcome, Skipped):
-                            warn(outcome.error if outcome.killed else f"{outcome.error}; skipped")
-                            tally.skipped.append(outcome)
-                        else:
-                            history.record(outcome.summary, surface=surface, spec=options.spec)
-                            tally.measured.append(outcome)
-                            if json_lines:
-                                echo(
-                                    json.dumps(summary_to_dict(outcome.summary), ensure_ascii=False)
+            if items:
+                with _Runner(items, options, out, workers) as finished:
+                    with _Progress(len(items), enabled=show_progress) as bar:
+                        for index, outcome in finished:
+                            outcomes[index] = outcome
+                            if cores_available() > 1:
+                                warming.start()
+                            if isinstance(outcome, Skipped):
+                                warn(
+                                    outcome.error if outcome.killed else f"{outcome.error}; skipped"
                                 )
-                        bar.advance(items[index].path.name)
+                                tally.skipped.append(outcome)
+                            else:
+                                plan = to_measure[index]
+                                done = history.put(
+                                    outcome.summary,
+                                    surface=surface,
+                                    spec=options.spec,
+                                    station=plan.station,
+                                    pass_key=plan.pass_key,
+                                    settings=settings,
+                                    method=METHOD_VERSION,
+                                    sort_time=_iso(plan),
+                                    replace=plan.path in reasons,
+                                    why=reasons.get(plan.path, "re-measured"),
+                                )
+                                if done.state == "replaced" and done.earlier is not None:
+                                    tally.remeasured += 1
+                                    say(
+                                        _remeasured_words(
+                                            outcome.summary, done.earlier, reasons[plan.path]
+                                        )
+                                    )
+                                tally.measured.append(outcome)
+                                if json_lines:
+                                    echo(
+                                        json.dumps(
+                                            summary_to_dict(outcome.summary), ensure_ascii=False
+                                        )
+                                    )
+                            bar.advance(items[index].path.name)
         except KeyboardInterrupt:
-            tally.in_history = _photos_in_history(history, surface, items)
+            tally.in_history = _photos_in_history(history, surface, planned)
             raise
         finally:
             warming.wait()
+        announce({o.path for o in outcomes.values() if isinstance(o, Skipped)})
+        if tally.measured and history.schema_version() >= 3:
+            history.claim_folder(surface, str(folder.resolve()))
+        if note:
+            fresh_shas = {o.summary.sha256 for o in outcomes.values() if isinstance(o, Measured)}
+            numbers = {p.number for p in history.passes(surface) if p.summary.sha256 in fresh_shas}
+            for number in sorted(numbers):
+                history.set_note(surface, number, note)
         stored = history.passes(surface)
     tally.measured[:] = [o for _, o in sorted(outcomes.items()) if isinstance(o, Measured)]
     spec = options.spec if options.spec is not None else surface_spec(stored)
-    return build_progress(surface, [p.summary for p in stored], spec=spec)
+    progress = history_progress(surface, stored, spec=spec)
+    fresh = {m.path: m for m in tally.measured}
+    by_sha = {p.summary.sha256: p.summary for p in stored}
+    shown: list[tuple[PassSummary, bytes | None]] = []
+    for p in planned:
+        if p.path in fresh:
+            shown.append((fresh[p.path].summary, fresh[p.path].preview))
+        elif hashes[p.path] in by_sha:
+            summary = by_sha[hashes[p.path]]
+            shown.append((summary, stored_preview(out, summary.photo)))
+    return progress, shown
+
+
+def _iso(plan: Any) -> str:
+    return str(plan.sort_time.isoformat(timespec="seconds"))
+
+
+def _sha256(path: Path) -> str | None:
+    """SHA-256 of the file's bytes (the history's identity of a photo), or None."""
+    import hashlib
+
+    try:
+        with open(path, "rb") as fh:
+            return hashlib.file_digest(fh, "sha256").hexdigest()
+    except OSError:
+        return None  # the worker says what is wrong with it
+
+
+def _check_folder(
+    history: Any, surface: str, folder: Path, shas: set[str | None], *, same_surface: bool
+) -> None:
+    """Refuse to add to a surface whose passes came from another folder (unless asked);
+    note this folder as the surface's when it has none.
+
+    A folder that holds any photo already recorded for the surface is the same job (moved,
+    or copied from the phone again); one that holds none of them is another job.
+    """
+    here = str(folder.resolve())
+    if history.schema_version() < 3:
+        return
+    there = history.surface_folder(surface)
+    ours = any(sha in history.known(surface) for sha in shas if sha is not None)
+    if there is not None and there != here and not same_surface and not ours:
+        count = len({p.number for p in history.passes(surface)})
+        if count:
+            raise OptionError(
+                f"batch {folder}: surface {surface!r} already has {count} passes from "
+                f"another folder ({there}); give this job its own name (--surface NAME, or "
+                f'machine = "..." in printcheck.toml), or --same-surface to add to it'
+            )
+
+
+def _remeasured_words(new: PassSummary, old: PassSummary, why: str) -> str:
+    def fig(value: float | None) -> str:
+        return "-" if value is None else f"{value:.1f}"
+
+    return (
+        f"re-measured {new.photo}: {why}; density {fig(old.density)} -> {fig(new.density)}, "
+        f"bearing {fig(old.bearing_percent)} -> {fig(new.bearing_percent)} % "
+        "(the earlier figures stay in the history)"
+    )
 
 
 class _Warming:
@@ -436,7 +673,7 @@ class _Warming:
             raise interrupt
 
 
-def _photos_in_history(history: Any, surface: str, items: Sequence[BatchItem]) -> int | None:
+def _photos_in_history(history: Any, surface: str, items: Sequence[Any]) -> int | None:
     """How many photos of the batch (by name) have a pass of ``surface`` in the history."""
     try:
         names = {p.summary.photo for p in history.passes(surface)}
@@ -446,21 +683,29 @@ def _photos_in_history(history: Any, surface: str, items: Sequence[BatchItem]) -
 
 
 def _write_outputs(
-    out: Path, *, surface: str, spec: Spec | None, tally: _Tally, progress: Progress
+    out: Path,
+    *,
+    surface: str,
+    spec: Spec | None,
+    tally: _Tally,
+    progress: Progress,
+    shown: Sequence[tuple[PassSummary, bytes | None]],
 ) -> None:
-    """``results.csv`` and ``report.html`` of the measured photos (naming the skipped)."""
+    """``results.csv`` and ``report.html`` of the batch's photos with their current
+    figures (naming the skipped), the surface's stations and notes under the header."""
     from printcheck.report.files import CSV_NAME, write_csv
     from printcheck.report.html import write_report
+    from printcheck.report.stations import stations_section
 
-    done = tally.measured
-    write_csv(out, CSV_NAME, [m.summary for m in done])
+    write_csv(out, CSV_NAME, [summary for summary, _ in shown])
     write_report(
         out / "report.html",
         surface=surface,
         spec=spec,
-        passes=[(m.summary, m.preview) for m in done],
+        passes=list(shown),
         progress=progress,
         skipped=[(s.path.name, s.reason) for s in tally.skipped],
+        extra_html=stations_section(progress),
     )
 
 

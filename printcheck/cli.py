@@ -312,28 +312,91 @@ def batch(
     ],
     db: DbOpt = None,
     jobs: JobsOpt = None,
+    group: Annotated[
+        str | None,
+        typer.Option(
+            "--group",
+            help="How photos form passes: auto (default), folder (a subfolder per pass), "
+            "name (p2-st1.jpg), stations (the job file's list, in order), photo (one each).",
+        ),
+    ] = None,
+    order: Annotated[
+        str | None,
+        typer.Option("--order", help="Order of the photos: time (camera time, default) or name."),
+    ] = None,
+    machine: Annotated[
+        str | None,
+        typer.Option("--machine", help="Machine the surface belongs to: MACHINE/SURFACE."),
+    ] = None,
+    same_surface: Annotated[
+        bool,
+        typer.Option(
+            "--same-surface", help="Add to a surface whose passes came from another folder."
+        ),
+    ] = False,
+    remeasure: Annotated[
+        bool,
+        typer.Option("--remeasure", help="Measure every photo again, even unchanged ones."),
+    ] = False,
+    note: Annotated[
+        str | None,
+        typer.Option(
+            "--note", help="Note kept with the passes measured now (who scraped, compound...)."
+        ),
+    ] = None,
     **given: Any,
 ) -> None:
     """Process every photo in FOLDER in the order taken: results, history and one report."""
     from printcheck.batch import run_batch
+    from printcheck.stations import GROUPS, ORDERS
 
     if not folder.is_dir():
         raise OptionError(f"batch {folder}: not a folder; give the folder that holds the photos")
     options = _inspect_options(ctx.params, folder)
+    job = _job_settings(ctx.params["config"], folder)
     if options.surface is None:
         options = _with_surface(options, folder)
+    group = group or job.group or "auto"
+    order = order or job.order or "time"
+    if group not in GROUPS:
+        raise OptionError(f"--group must be one of {', '.join(GROUPS)}, got {group!r}")
+    if order not in ORDERS:
+        raise OptionError(f"--order must be one of {', '.join(ORDERS)}, got {order!r}")
+    machine = machine if machine is not None else job.machine
+    if machine is not None:
+        options = _on_machine(options, machine)
     out: Path | None = ctx.params["out"]
+    history = db if db is not None else (Path(job.history) if job.history else None)
     outcome = run_batch(
         folder,
         options=options,
         out=out if out is not None else folder / "printcheck-out",
-        db=_db_path(db),
+        db=_db_path(history),
         jobs=jobs,
         json_lines=ctx.params["json_out"],
         echo=typer.echo,
         warn=_fail,
+        group=group,
+        order=order,
+        stations=job.stations or (),
+        same_surface=same_surface,
+        remeasure=remeasure,
+        note=note,
     )
     raise typer.Exit(outcome)
+
+
+def _on_machine(options: InspectOptions, machine: str) -> InspectOptions:
+    """The options with the surface named ``MACHINE/SURFACE`` (unless it names one)."""
+    from dataclasses import replace
+
+    name = machine.strip().strip("/")
+    if not name or any(ord(ch) < 32 for ch in name):
+        raise OptionError(f"--machine must be a name on one line, got {machine!r}")
+    surface = options.surface or "surface"
+    if "/" in surface:
+        return options
+    return replace(options, surface=f"{name}/{surface}")
 
 
 def _with_surface(options: InspectOptions, folder: Path) -> InspectOptions:
@@ -360,7 +423,7 @@ def progress(
 ) -> None:
     """Show a surface's passes so far, the trend, and how many passes it may still need."""
     from printcheck.history import open_history
-    from printcheck.progress import build_progress, progress_text, surface_spec
+    from printcheck.progress import history_progress, progress_text, surface_spec
     from printcheck.serde import progress_to_dict
 
     path = _db_path(db)
@@ -373,12 +436,190 @@ def progress(
             raise OptionError(
                 f"progress: no passes recorded for surface {surface!r} (recorded: {known})"
             )
-    report = build_progress(surface, [p.summary for p in stored], spec=surface_spec(stored))
+    report = history_progress(surface, stored, spec=surface_spec(stored))
     if json_out:
         typer.echo(json.dumps(progress_to_dict(report), ensure_ascii=False, indent=2))
     else:
         typer.echo(progress_text(report))
     raise typer.Exit(EXIT_FAILS if report.passes[-1].meets is False else EXIT_MEETS)
+
+
+# ---------------------------------------------------------------- surfaces and passes
+
+surface_app = typer.Typer(
+    help="List, rename and remove the surfaces in the history.", no_args_is_help=True
+)
+pass_app = typer.Typer(
+    help="Remove or restore a pass or a photo, or keep a note with a pass.", no_args_is_help=True
+)
+app.add_typer(surface_app, name="surface")
+app.add_typer(pass_app, name="pass")
+
+
+def _existing_history(db: Path | None) -> Path:
+    path = _db_path(db)
+    if not path.exists():
+        raise OptionError(f"history {path}: no history yet; run 'printcheck batch' first")
+    return path
+
+
+@surface_app.command("list")
+def surface_list(db: DbOpt = None, json_out: JsonOpt = False) -> None:
+    """List the surfaces: passes, photos, the folder they came from, the latest photo."""
+    from printcheck.history import open_history
+
+    with open_history(_existing_history(db), readonly=True) as history:
+        rows = history.surface_list()
+    if json_out:
+        import dataclasses
+
+        typer.echo(json.dumps([dataclasses.asdict(r) for r in rows], ensure_ascii=False, indent=2))
+        return
+    if not rows:
+        typer.echo("no surfaces recorded")
+        return
+    for r in rows:
+        typer.echo(
+            f"{r.name}: {r.passes} pass{'es' if r.passes != 1 else ''}, {r.photos} photo"
+            f"{'s' if r.photos != 1 else ''}, latest {r.latest or '-'}"
+            + (f", from {r.folder}" if r.folder else "")
+        )
+
+
+@surface_app.command("rename")
+def surface_rename(
+    old: Annotated[str, typer.Argument(help="The surface's name now.", show_default=False)],
+    new: Annotated[str, typer.Argument(help="Its new name.", show_default=False)],
+    db: DbOpt = None,
+) -> None:
+    """Rename a surface (its passes go with it)."""
+    from printcheck.history import open_history
+
+    with open_history(_existing_history(db)) as history:
+        history.rename_surface(old, new)
+    typer.echo(f"renamed {old!r} to {new!r}")
+
+
+@surface_app.command("remove")
+def surface_remove(
+    surface: Annotated[str, typer.Argument(help="The surface to remove.", show_default=False)],
+    yes: Annotated[
+        bool, typer.Option("--yes", help="Really remove it and all its passes.")
+    ] = False,
+    db: DbOpt = None,
+) -> None:
+    """Remove a surface and all its passes from the history (asks for --yes)."""
+    from printcheck.history import open_history
+
+    with open_history(_existing_history(db)) as history:
+        known = {r.name: r for r in history.surface_list()}
+        if surface.strip() not in known:
+            raise OptionError(
+                f"surface remove: no surface {surface!r} (recorded: {', '.join(known) or 'none'})"
+            )
+        info = known[surface.strip()]
+        if not yes:
+            raise OptionError(
+                f"surface remove: {surface!r} has {info.passes} passes ({info.photos} photos); "
+                "give --yes to remove them from the history (the photos stay on disk)"
+            )
+        count = history.remove_surface(surface)
+    typer.echo(f"removed {surface!r} and its {count} photo records")
+
+
+@pass_app.command("remove")
+def pass_remove(
+    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    number: Annotated[
+        int | None, typer.Option("--pass", help="Pass number (as progress shows it).")
+    ] = None,
+    photo: Annotated[
+        str | None, typer.Option("--photo", help="A photo's file name (one station).")
+    ] = None,
+    db: DbOpt = None,
+) -> None:
+    """Take a pass (all its stations) or one photo out of a surface's passes.
+
+    The record is kept, marked removed: it no longer counts in progress or reports, and
+    a batch of the folder does not record it again.
+    """
+    from printcheck.history import open_history
+
+    if (number is None) == (photo is None):
+        raise OptionError("pass remove: give either --pass N or --photo NAME")
+    with open_history(_existing_history(db)) as history:
+        photos = history.remove_pass(surface, number=number, photo=photo)
+    what = f"pass {number}" if number is not None else f"photo {photo}"
+    typer.echo(f"removed {what} of {surface!r}: {', '.join(photos)}")
+
+
+@pass_app.command("restore")
+def pass_restore(
+    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    photo: Annotated[
+        str | None, typer.Option("--photo", help="One removed photo (default: every one).")
+    ] = None,
+    db: DbOpt = None,
+) -> None:
+    """Put removed photos back among a surface's passes (undoes 'pass remove')."""
+    from printcheck.history import open_history
+
+    with open_history(_existing_history(db)) as history:
+        photos = history.restore(surface, photo)
+    typer.echo(f"restored to {surface!r}: {', '.join(photos)}")
+
+
+@pass_app.command("note")
+def pass_note(
+    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    number: Annotated[int, typer.Argument(help="Pass number.", show_default=False)],
+    text: Annotated[
+        str,
+        typer.Argument(
+            help="Who scraped, compound, reference; empty to clear.", show_default=False
+        ),
+    ],
+    db: DbOpt = None,
+) -> None:
+    """Keep a short note with a pass (shown by progress and in the report)."""
+    from printcheck.history import open_history
+
+    with open_history(_existing_history(db)) as history:
+        history.set_note(surface, number, text)
+    typer.echo(f"note kept with pass {number} of {surface!r}")
+
+
+@app.command()
+def report(
+    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    out: Annotated[
+        Path, typer.Option("--out", help="Folder for report.html (overlays found there are shown).")
+    ] = Path("printcheck-out"),
+    db: DbOpt = None,
+) -> None:
+    """Write a surface's report from the history alone (after a pass was removed, say)."""
+    from printcheck.report.history_report import write_history_report
+
+    path = write_history_report(_existing_history(db), surface, out)
+    typer.echo(f"report: {path}")
+
+
+@app.command()
+def overview(
+    machine: Annotated[
+        str,
+        typer.Argument(help="Machine: its surfaces are named MACHINE/SURFACE.", show_default=False),
+    ],
+    out: Annotated[Path, typer.Option("--out", help="Folder for overview.html.")] = Path(
+        "printcheck-out"
+    ),
+    db: DbOpt = None,
+) -> None:
+    """One page of all surfaces of a machine: latest state, verdict and projection."""
+    from printcheck.report.overview import write_overview
+
+    path = write_overview(_existing_history(db), machine, out)
+    typer.echo(f"overview: {path}")
 
 
 # ---------------------------------------------------------------- card, specs, demo

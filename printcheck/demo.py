@@ -22,6 +22,8 @@ surface = "{DEMO_SURFACE}"
 layout = "layout.toml"
 spec = "{DEMO_SPEC}"
 unit = "in"
+# the demo keeps its own history beside its photos' folder, never the user's own
+history = "../history.sqlite"
 """
 
 

@@ -45,6 +45,12 @@ class JobSettings:
     compound_on: str | None = None
     min_spot: float | None = None
     source: str | None = None
+    # how a batch groups and orders its photos, and where its history is (docs/guide.md)
+    machine: str | None = None
+    stations: tuple[str, ...] | None = None
+    group: str | None = None
+    order: str | None = None
+    history: str | None = None  # absolute path, resolved against the job file's folder
 
 
 _TYPES: dict[str, tuple[type, ...]] = {
@@ -58,12 +64,19 @@ _TYPES: dict[str, tuple[type, ...]] = {
     "compound": (str,),
     "compound_on": (str,),
     "min_spot": (int, float),
+    "machine": (str,),
+    "stations": (list,),
+    "group": (str,),
+    "order": (str,),
+    "history": (str,),
 }
 _ZERO_OK = {"min_spot"}  # as on the command line: --min-spot 0 keeps every speck
 _CHOICES = {
     "unit": ("in", "mm"),
     "compound": ("blue", "red", "auto"),
     "compound_on": ("reference", "work"),
+    "group": ("auto", "folder", "name", "stations", "photo"),
+    "order": ("time", "name"),
 }
 
 
@@ -91,6 +104,9 @@ def read_job_settings(path: str | Path) -> JobSettings:
                 f"job settings {path}: {shown_key(key)}: unknown key; "
                 f"expected one of {sorted(_TYPES)}"
             )
+        if key == "stations":
+            values[key] = _station_names(path, value)
+            continue
         if isinstance(value, bool) or not isinstance(value, _TYPES[key]):
             kind = "text" if _TYPES[key] == (str,) else "a number"
             raise OptionError(f"job settings {path}: {key}: must be {kind}, got {value!r}")
@@ -126,10 +142,36 @@ def read_job_settings(path: str | Path) -> JobSettings:
     base = path.parent
     if "layout" in values:
         values["layout"] = str((base / values["layout"]).resolve())
+    if "history" in values:
+        values["history"] = str((base / values["history"]).resolve())
     if "spec" in values and values["spec"].endswith(".toml"):
         values["spec"] = str((base / values["spec"]).resolve())
     names = {f.name for f in fields(JobSettings)}
     return JobSettings(**{k: v for k, v in values.items() if k in names}, source=str(path))
+
+
+def _station_names(path: Path, value: Any) -> tuple[str, ...]:
+    """The ``stations`` list: names on one line each, none twice."""
+    if not isinstance(value, list) or not value:
+        raise OptionError(
+            f"job settings {path}: stations: must be a list of names, "
+            f'e.g. ["headstock", "middle", "tailstock"], got {value!r}'
+        )
+    names: list[str] = []
+    for item in value:
+        if (
+            not isinstance(item, str)
+            or not item.strip()
+            or any(ord(ch) < 32 or ord(ch) == 127 or ch == "/" for ch in item)
+        ):
+            raise OptionError(
+                f"job settings {path}: stations: each must be a name on one line "
+                f"(no '/'), got {item!r}"
+            )
+        if item.strip() in names:
+            raise OptionError(f"job settings {path}: stations: {item.strip()!r} is listed twice")
+        names.append(item.strip())
+    return tuple(names)
 
 
 def resolve_settings(given: JobSettings, job: JobSettings) -> JobSettings:

@@ -36,12 +36,15 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 from printcheck.records import (
     PassSummary,
     Progress,
     ProgressRow,
     Projection,
+    StationFigure,
+    StationProgress,
     StoredPass,
     Targets,
 )
@@ -53,6 +56,7 @@ __all__ = [
     "MIN_PASSES",
     "LineFit",
     "build_progress",
+    "history_progress",
     "progress_text",
     "projection_words",
     "surface_spec",
@@ -311,6 +315,11 @@ def projection_words(progress: Progress) -> str:
     n = len(progress.passes)
     if target is None:
         return "no density target to project against"
+    if proj is None and progress.slowest_station is not None:
+        return (
+            f"station {progress.slowest_station}'s density is not yet approaching the "
+            f"target of {num(target, 1)} (too few passes, or no rise)"
+        )
     if proj is None:
         if n < MIN_PASSES:
             return f"too few passes yet ({n} of {MIN_PASSES} needed)"
@@ -320,10 +329,40 @@ def projection_words(progress: Progress) -> str:
     rng = f"{proj.low} to {proj.high}" if proj.high is not None else f"{proj.low} or more"
     more = proj.passes_to_spec
     rate = 0.0 if proj.rate is None else proj.rate
+    led = (
+        f"; led by station {progress.slowest_station}"
+        if progress.slowest_station is not None
+        else ""
+    )
     return (
         f"about {more} more pass{'es' if more != 1 else ''} to {num(target, 1)} "
-        f"{_per(progress)} (likely {rng}; {rate:+.1f} per pass)"
+        f"{_per(progress)} (likely {rng}; {rate:+.1f} per pass{led})"
     )
+
+
+def _station_words(row: ProgressRow) -> str:
+    parts = []
+    for f in row.stations:
+        d = "-" if f.density is None else f"{f.density:.1f}"
+        b = "-" if f.bearing_percent is None else f"{f.bearing_percent:.0f} %"
+        worst = " (worst)" if f.station == row.worst_station and len(row.stations) > 1 else ""
+        parts.append(f"{f.station} {d} / {b}{worst}")
+    return ", ".join(parts)
+
+
+def _station_projection_words(progress: Progress, station: StationProgress) -> str:
+    known = [d for d in station.densities if d is not None]
+    latest = "-" if not known else f"{known[-1]:.1f}"
+    one = Progress(
+        surface=progress.surface,
+        spec=progress.spec,
+        unit=progress.unit,
+        cell=progress.cell,
+        targets=progress.targets,
+        passes=progress.passes[: len(known)],
+        projection=station.projection,
+    )
+    return f"latest {latest} {_per(progress)}; {projection_words(one)}"
 
 
 def progress_text(progress: Progress) -> str:
@@ -347,5 +386,200 @@ def progress_text(progress: Progress) -> str:
             f"bearing {'-' if b is None else f'{b:4.1f}'} %, "
             f"uniformity {'-' if u is None else f'{u:3.0f}'} %  {mark}".rstrip()
         )
+        if p.stations:
+            lines.append(f"           stations: {_station_words(p)}")
+        if p.note:
+            lines.append(f"           note: {p.note}")
     lines.append(f"projection: {projection_words(progress)}")
+    for s in progress.stations:
+        lines.append(f"  station {s.station}: {_station_projection_words(progress, s)}")
     return "\n".join(lines)
+
+
+# ---------------------------------------------------------------- passes of stations
+
+
+def history_progress(
+    surface: str,
+    stored: Sequence[StoredPass],
+    *,
+    spec: Spec | None,
+    fit_passes: int = 5,
+) -> Progress:
+    """The progress of a surface as the history holds it: passes of one photo each, or
+    passes of several stations.
+
+    A pass of stations is judged as a whole: it meets only when every station meets,
+    its density and bearing are the lowest of its stations' (the worst station is
+    named), and each station's density is followed on its own.  The surface's
+    projection is the slowest station's: the most passes any station still needs (and
+    none when any station's trend does not approach the target).
+
+    Parameters
+    ----------
+    surface : str
+    stored : sequence of StoredPass
+        As :meth:`printcheck.history.History.passes` gives them (pass by pass).
+    spec : Spec or None
+    fit_passes : int
+    """
+    groups: dict[int, list[StoredPass]] = {}
+    for p in stored:
+        groups.setdefault(p.number, []).append(p)
+    notes = {n: next((p.note for p in ps if p.note), None) for n, ps in groups.items()}
+    plain = all(len(ps) == 1 and ps[0].station is None for ps in groups.values())
+    if plain:
+        ordered = [ps[0] for _, ps in sorted(groups.items())]
+        base = build_progress(
+            surface, [p.summary for p in ordered], spec=spec, fit_passes=fit_passes
+        )
+        noted = tuple(
+            row if notes[p.number] is None else _replace(row, note=notes[p.number])
+            for row, p in zip(base.passes, ordered, strict=True)
+        )
+        return _replace(base, passes=noted)
+    last = stored[-1].summary if stored else None
+    basis_mm = _cell_mm(last)
+    names: list[str] = []
+    for p in stored:
+        label = p.station or "1"
+        if label not in names:
+            names.append(label)
+    numbers = sorted(groups)
+    rows: list[ProgressRow] = []
+    per_station: dict[str, list[float | None]] = {name: [] for name in names}
+    per_bearing: dict[str, list[float | None]] = {name: [] for name in names}
+    for n in numbers:
+        members = groups[n]
+        figures: list[StationFigure] = []
+        singles: list[ProgressRow] = []
+        for p in members:
+            r = _row(n, p.summary, basis_mm, spec)
+            singles.append(r)
+            figures.append(
+                StationFigure(
+                    station=p.station or "1",
+                    photo=p.summary.photo,
+                    density=r.density,
+                    bearing_percent=r.bearing_percent,
+                    meets=r.meets,
+                    spot_count=r.spot_count,
+                )
+            )
+        by_name = {f.station: f for f in figures}
+        for name in names:
+            f = by_name.get(name)
+            per_station[name].append(None if f is None else f.density)
+            per_bearing[name].append(None if f is None else f.bearing_percent)
+        rows.append(_combined_row(n, members, figures, singles, notes[n]))
+    targets_progress = build_progress(
+        surface, [last] if last is not None else [], spec=spec, fit_passes=fit_passes
+    )
+    target = targets_progress.targets.density
+    station_progress = []
+    for name in names:
+        known = [float(d) for d in per_station[name] if d is not None]
+        station_progress.append(
+            StationProgress(
+                station=name,
+                densities=tuple(per_station[name]),
+                bearings=tuple(per_bearing[name]),
+                projection=project(known, target, fit_passes=fit_passes),
+            )
+        )
+    projection, slowest = _slowest(station_progress, target)
+    return Progress(
+        surface=surface,
+        spec=targets_progress.spec,
+        unit=targets_progress.unit,
+        cell=targets_progress.cell,
+        targets=targets_progress.targets,
+        passes=tuple(rows),
+        projection=projection,
+        stations=tuple(station_progress),
+        slowest_station=slowest,
+    )
+
+
+def _replace(obj: Any, **changes: Any) -> Any:
+    from dataclasses import replace
+
+    return replace(obj, **changes)
+
+
+def _worst(figures: Sequence[StationFigure]) -> StationFigure:
+    """The station that decides the pass: a failing one before a meeting one, then the
+    lowest density, then the lowest bearing."""
+
+    def key(f: StationFigure) -> tuple[int, float, float]:
+        return (
+            0 if f.meets is False else 1,
+            math.inf if f.density is None else f.density,
+            math.inf if f.bearing_percent is None else f.bearing_percent,
+        )
+
+    return min(figures, key=key)
+
+
+def _combined_row(
+    number: int,
+    members: Sequence[StoredPass],
+    figures: Sequence[StationFigure],
+    singles: Sequence[ProgressRow],
+    note: str | None,
+) -> ProgressRow:
+    """A pass of stations as one row: every station must meet; the lowest figures."""
+    verdicts = [f.meets for f in figures]
+    meets: bool | None
+    if any(v is False for v in verdicts):
+        meets = False
+    elif verdicts and all(v is True for v in verdicts):
+        meets = True
+    else:
+        meets = None
+    dens = [f.density for f in figures]
+    bear = [f.bearing_percent for f in figures]
+    unif = [r.uniformity for r in singles]
+    share = [r.cells_meeting_percent for r in singles]
+
+    def lowest(values: Sequence[float | None]) -> float | None:
+        return None if not values or any(v is None for v in values) else min(values)  # type: ignore[type-var]
+
+    first = members[0]
+    return ProgressRow(
+        number=number,
+        photo=first.pass_key or first.summary.photo,
+        taken=min((p.summary.taken for p in members if p.summary.taken), default=None),
+        density=lowest(dens),
+        bearing_percent=lowest(bear),
+        meets=meets,
+        spot_count=sum(f.spot_count for f in figures),
+        uniformity=lowest(unif),
+        cells_meeting_percent=lowest(share),
+        stations=tuple(figures),
+        worst_station=_worst(figures).station,
+        note=note,
+    )
+
+
+def _slowest(
+    stations: Sequence[StationProgress], target: float | None
+) -> tuple[Projection | None, str | None]:
+    """The surface's projection, led by the station that needs the most passes."""
+    if target is None or not stations:
+        return None, None
+    stuck = [s for s in stations if s.projection is None]
+    if stuck:
+        return None, stuck[0].station
+    lead = max(stations, key=lambda s: (s.projection.passes_to_spec, s.projection.high or 10**9))  # type: ignore[union-attr]
+    proj = lead.projection
+    assert proj is not None
+    highs = [s.projection.high for s in stations]  # type: ignore[union-attr]
+    return (
+        _replace(
+            proj,
+            low=max(s.projection.low for s in stations),  # type: ignore[union-attr]
+            high=None if any(h is None for h in highs) else max(highs),  # type: ignore[type-var]
+        ),
+        lead.station,
+    )

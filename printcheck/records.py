@@ -30,6 +30,11 @@ __all__ = [
     "BareArea",
     "PassSummary",
     "StoredPass",
+    "PutOutcome",
+    "SurfaceInfo",
+    "EarlierResult",
+    "StationFigure",
+    "StationProgress",
     "Targets",
     "Projection",
     "ProgressRow",
@@ -200,6 +205,17 @@ class StoredPass:
         That spec's targets, when the history kept them (schema 2 on).
     recorded : str
         When the pass was recorded (UTC, ISO 8601).
+    station : str or None
+        The photo's station within its pass (schema 3 on); None: the pass's only photo.
+    pass_key : str or None
+        What groups the photos of one pass (a subfolder's name, a pass number); None:
+        the photo is a pass of its own.
+    note : str or None
+        The pass's note (who scraped, compound, reference), when one was given.
+    settings : str or None
+        The measuring settings the figures were measured with (None before schema 3).
+    method : int
+        The measuring method's version (0: recorded before it was recorded).
     """
 
     number: int
@@ -207,6 +223,44 @@ class StoredPass:
     spec_name: str | None
     spec: Spec | None
     recorded: str
+    station: str | None = None
+    pass_key: str | None = None
+    note: str | None = None
+    settings: str | None = None
+    method: int = 0
+
+
+@dataclass(frozen=True)
+class PutOutcome:
+    """What recording a photo did: ``state`` is ``"new"``, ``"same"``, ``"replaced"``
+    or ``"removed"``; ``earlier`` is the replaced figures' summary."""
+
+    state: str
+    earlier: PassSummary | None = None
+
+
+@dataclass(frozen=True)
+class SurfaceInfo:
+    """One surface of the history: its name, passes, photos, first folder, latest time."""
+
+    name: str
+    passes: int
+    photos: int
+    folder: str | None
+    latest: str | None
+
+
+@dataclass(frozen=True)
+class EarlierResult:
+    """Figures a pass had before it was re-measured (or removed), kept in the record."""
+
+    photo: str
+    summary: PassSummary
+    settings: str | None
+    method: int
+    recorded: str
+    replaced: str
+    why: str
 
 
 @dataclass(frozen=True)
@@ -250,6 +304,32 @@ class ProgressRow:
     spot_count: int
     uniformity: float | None
     cells_meeting_percent: float | None
+    stations: tuple[StationFigure, ...] = ()
+    worst_station: str | None = None
+    note: str | None = None
+
+
+@dataclass(frozen=True)
+class StationFigure:
+    """One station of a pass: its photo and figures (density per the progress's cell)."""
+
+    station: str
+    photo: str
+    density: float | None
+    bearing_percent: float | None
+    meets: bool | None
+    spot_count: int
+
+
+@dataclass(frozen=True)
+class StationProgress:
+    """One station over the passes: its density per pass (None where it has no photo)
+    and its own projection."""
+
+    station: str
+    densities: tuple[float | None, ...]
+    bearings: tuple[float | None, ...]
+    projection: Projection | None
 
 
 @dataclass(frozen=True)
@@ -267,3 +347,5 @@ class Progress:
     targets: Targets
     passes: tuple[ProgressRow, ...]
     projection: Projection | None
+    stations: tuple[StationProgress, ...] = ()
+    slowest_station: str | None = None

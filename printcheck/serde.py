@@ -368,8 +368,9 @@ def spec_from_dict(data: Mapping[str, Any]) -> Spec | None:
 
 def progress_to_dict(p: Progress) -> dict[str, Any]:
     """The progress JSON object (docs/formats.md, ``printcheck-progress/1``)."""
-    passes = [
-        {
+    passes = []
+    for row in p.passes:
+        entry: dict[str, Any] = {
             "pass": row.number,
             "photo": row.photo,
             "taken": _iso(row.taken),
@@ -380,9 +381,14 @@ def progress_to_dict(p: Progress) -> dict[str, Any]:
             "uniformity": row.uniformity,
             "cells_meeting_percent": row.cells_meeting_percent,
         }
-        for row in p.passes
-    ]
-    return {
+        # added keys (a surface of stations, a pass with a note); absent otherwise
+        if row.stations:
+            entry["stations"] = [dataclasses.asdict(f) for f in row.stations]
+            entry["worst_station"] = row.worst_station
+        if row.note:
+            entry["note"] = row.note
+        passes.append(entry)
+    data: dict[str, Any] = {
         "format": PROGRESS_FORMAT,
         "surface": p.surface,
         "spec": p.spec,
@@ -392,6 +398,18 @@ def progress_to_dict(p: Progress) -> dict[str, Any]:
         "passes": passes,
         "projection": None if p.projection is None else dataclasses.asdict(p.projection),
     }
+    if p.stations:
+        data["stations"] = [
+            {
+                "station": s.station,
+                "densities": list(s.densities),
+                "bearings": list(s.bearings),
+                "projection": None if s.projection is None else dataclasses.asdict(s.projection),
+            }
+            for s in p.stations
+        ]
+        data["slowest_station"] = p.slowest_station
+    return data
 
 
 # --------------------------------------------------------------------------- overlay

@@ -77,13 +77,21 @@ def _card_photo(seed: int) -> np.ndarray:
 
 
 def _write_photos(folder: Path, count: int, *, first_seed: int = 0) -> list[str]:
-    """``count`` photos IMG_0000.jpg ... in ``folder``, one hour apart by file time."""
+    """``count`` photos IMG_0000.jpg ... in ``folder``, one hour apart by camera time
+    (EXIF, as a phone writes it) and by file time."""
+    from datetime import datetime, timedelta
+
+    from printcheck.synth.job import add_exif_time
+
     folder.mkdir(parents=True, exist_ok=True)
     names = []
     for i in range(count):
         name = f"IMG_{first_seed + i:04d}.jpg"
         path = folder / name
-        cv2.imwrite(str(path), _card_photo(first_seed + i), [cv2.IMWRITE_JPEG_QUALITY, 92])
+        ok, jpeg = cv2.imencode(".jpg", _card_photo(first_seed + i), [cv2.IMWRITE_JPEG_QUALITY, 92])
+        assert ok
+        taken = datetime(2027, 1, 15, 8, 0) + timedelta(hours=first_seed + i)
+        path.write_bytes(add_exif_time(jpeg.tobytes(), taken))
         os.utime(path, (1_800_000_000 + i * 3600, 1_800_000_000 + i * 3600))
         names.append(name)
     return names
@@ -713,7 +721,8 @@ def test_out_in_the_photo_folder_is_not_taken_for_photos(
     second = _batch(photos, db, photos, jobs=1)
     assert _ended_cleanly(second.returncode, second.stderr) == []
     assert second.returncode == 0
-    assert "3 of 3 photos measured; report:" in second.stdout
+    # the 3 photos and no overlay; unchanged since the first run, so none measured again
+    assert "0 of 3 photos measured, 3 unchanged" in second.stdout
     assert [photo for photo, _ in _integrity(db)] == names[:3]
     csv = (photos / "results.csv").read_text(encoding="utf-8").splitlines()
     assert [row.split(",")[0] for row in csv[1:]] == names[:3]

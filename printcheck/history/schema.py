@@ -63,6 +63,45 @@ MIGRATIONS: tuple[Migration, ...] = (
         "keep each pass's spec targets",
         ("ALTER TABLE passes ADD COLUMN spec_json TEXT",),
     ),
+    Migration(
+        "stations in passes, re-measures, pass notes and surface folders",
+        (
+            # the folder whose batch first recorded the surface (NULL: recorded before
+            # folders were kept)
+            "ALTER TABLE surfaces ADD COLUMN folder TEXT",
+            # the pass a photo belongs to (NULL: the photo is a pass of its own) and its
+            # station within that pass (NULL: the only one)
+            "ALTER TABLE passes ADD COLUMN pass_key TEXT",
+            "ALTER TABLE passes ADD COLUMN station TEXT",
+            # what measured it: the settings (JSON) and the method version (NULL: before
+            # either was recorded, i.e. method 0)
+            "ALTER TABLE passes ADD COLUMN settings TEXT",
+            "ALTER TABLE passes ADD COLUMN method INTEGER",
+            # when the photo was taken out of the surface's passes (kept, not deleted)
+            "ALTER TABLE passes ADD COLUMN removed TEXT",
+            # the time the history orders the photo by, when the batch ordered it
+            # otherwise than by its own time (by name, say)
+            "ALTER TABLE passes ADD COLUMN sort_time TEXT",
+            """CREATE TABLE earlier_results (
+                id INTEGER PRIMARY KEY,
+                pass_id INTEGER NOT NULL REFERENCES passes(id),
+                result_json TEXT NOT NULL,
+                settings TEXT,
+                method INTEGER,
+                recorded TEXT NOT NULL,
+                replaced TEXT NOT NULL,
+                why TEXT NOT NULL
+            )""",
+            "CREATE INDEX earlier_by_pass ON earlier_results (pass_id)",
+            """CREATE TABLE pass_notes (
+                surface_id INTEGER NOT NULL REFERENCES surfaces(id),
+                pass_key TEXT NOT NULL,
+                note TEXT NOT NULL,
+                updated TEXT NOT NULL,
+                PRIMARY KEY (surface_id, pass_key)
+            )""",
+        ),
+    ),
 )
 
 SCHEMA_VERSION = len(MIGRATIONS)

@@ -331,6 +331,10 @@ def _header(
     from printcheck.report.plots import trend_png
 
     latest = summaries[-1] if summaries else None
+    # the badge is the surface's latest pass (all its stations), as the history holds it
+    verdict = progress.passes[-1].meets if progress is not None and progress.passes else None
+    if verdict is None and latest is not None:
+        verdict = latest.meets
     head = [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
@@ -338,7 +342,7 @@ def _header(
         f"<title>{_e(surface)} · print report</title>",
         f"<style>{_CSS}</style></head><body><main>",
         '<header class="surface">',
-        f"<h1>{_e(surface)} {_badge(latest.meets) if latest is not None else ''}</h1>",
+        f"<h1>{_e(surface)} {_badge(verdict) if latest is not None else ''}</h1>",
         f'<p class="sub">{len(summaries)} pass{"es" if len(summaries) != 1 else ""} in this report'
         + (f" · latest: {_e(latest.photo)}" if latest is not None else "")
         + "</p>",
@@ -384,11 +388,13 @@ def render_report(
     progress: Progress | None = None,
     folder: str | os.PathLike[str] | None = None,
     skipped: Sequence[tuple[str, str]] = (),
+    extra_html: str = "",
 ) -> str:
     """The report's HTML text (see :func:`write_report`); ``folder`` is where it will live."""
     folder_path = None if folder is None else Path(folder)
     head = _header(surface, spec, [s for s, _ in passes], progress, folder_path)
     head.append(_skipped_section(skipped))
+    head.append(extra_html)  # e.g. printcheck.report.stations.stations_section
     numbers = list(range(1, len(passes) + 1))
     if progress is not None and len(progress.passes) == len(passes):
         numbers = [p.number for p in progress.passes]
@@ -408,6 +414,7 @@ def write_report(
     passes: Sequence[tuple[PassSummary, bytes | None]],
     progress: Progress | None = None,
     skipped: Sequence[tuple[str, str]] = (),
+    extra_html: str = "",
 ) -> Path:
     """Write the surface's self-contained HTML report atomically.
 
@@ -424,6 +431,9 @@ def write_report(
         :func:`printcheck.progress.build_progress` output, for the header and trend plot.
     skipped : sequence of (photo name, reason)
         The photos of the batch that were not measured, listed under the header.
+    extra_html : str
+        A section placed under the header (the stations and notes of a surface's
+        passes, :func:`printcheck.report.stations.stations_section`).
 
     Returns
     -------
@@ -443,5 +453,6 @@ def write_report(
         progress=progress,
         folder=p.parent,
         skipped=skipped,
+        extra_html=extra_html,
     )
     return write_text(p.parent, p.name, text)
