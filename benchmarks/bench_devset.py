@@ -257,6 +257,9 @@ def main(argv: list[str] | None = None) -> int:
                 )
         print(summarise(folder.name, rows), flush=True)
     if everything:
+        coarse = [r for r in everything if r.folder != "dense"]
+        if coarse and len(coarse) < len(everything):
+            print(summarise("not dense", coarse))
         print(summarise("all", everything))
     if args.progress and (args.devset / "progress" / "truth.json").is_file():
         print(score_progress(args.devset / "progress"))
