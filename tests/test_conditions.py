@@ -171,21 +171,13 @@ def fine_field():  # type: ignore[no-untyped-def]
     return fine_surface(card_layout(), 50, seed=7)
 
 
-@pytest.mark.parametrize("px_per_mm", [12.0, 18.0])
-def test_a_fine_print_at_phone_resolution(fine_field, px_per_mm: float) -> None:  # type: ignore[no-untyped-def]
-    # a fine print square-on (a rig) at the photo's own resolution; thin, pale film
-    scene = Scene(
-        field=fine_field,
-        camera=None,
-        px_per_mm=px_per_mm,
-        lighting=Lighting(compound_strength=0.5, rim_film=0.1, blur_sigma_px=0.8, jpeg_quality=85),
-    )
-    shot = render_photo(scene, seed=37)
-    truth = shot.truth
-    assert 40 <= truth.density <= 60
+def _square_on(field, px_per_mm: float, seed: int, **lighting):  # type: ignore[no-untyped-def]
+    """A print photographed square-on (a rig) at ``px_per_mm``, measured as inspect does
+    with an explicit scale: (truth, measurement, rectified)."""
     from printcheck.locate import rectify_scale
 
-    w = card_layout().window
+    scene = Scene(field=field, camera=None, px_per_mm=px_per_mm, lighting=Lighting(**lighting))
+    shot = render_photo(scene, seed=seed)
     rect = rectify_scale(shot.image, px_per_mm=px_per_mm)
     seg = segment(
         rect.image,
@@ -199,8 +191,21 @@ def test_a_fine_print_at_phone_resolution(fine_field, px_per_mm: float) -> None:
         analysed=rect.analysed,
         config=MeasureConfig(cell_mm=25.4),
         alternates=seg.alternates,
+        photo_px_per_mm=px_per_mm,
     )
-    assert rect.frame.window.width_mm == pytest.approx(w.width_mm, abs=0.1)
+    return shot.truth, meas, rect
+
+
+PALE_THIN = {"compound_strength": 0.5, "rim_film": 0.1}  # a fine print's thin, pale film
+
+
+@pytest.mark.parametrize("px_per_mm", [12.0, 18.0])
+def test_a_fine_print_at_phone_resolution(fine_field, px_per_mm: float) -> None:  # type: ignore[no-untyped-def]
+    truth, meas, rect = _square_on(
+        fine_field, px_per_mm, 37, blur_sigma_px=0.8, jpeg_quality=85, **PALE_THIN
+    )
+    assert 40 <= truth.density <= 60
+    assert rect.frame.window.width_mm == pytest.approx(card_layout().window.width_mm, abs=0.1)
     _within(truth, meas)
 
 
@@ -213,31 +218,7 @@ def test_small_domed_contacts_of_a_fine_print_are_counted(
     # contact itself is twice that; a 20 px/mm photo, rectified at 16 px/mm.  Bounds:
     # the fine-print targets (count within 4 %, bearing within 1.5 points)
     field = fine_surface(card_layout(), density, seed=seed)
-    scene = Scene(
-        field=field,
-        camera=None,
-        px_per_mm=20.0,
-        lighting=Lighting(compound_strength=0.5, rim_film=0.1, blur_sigma_px=blur, jpeg_quality=80),
-    )
-    shot = render_photo(scene, seed=41)
-    from printcheck.locate import rectify_scale
-
-    rect = rectify_scale(shot.image, px_per_mm=20.0)
-    seg = segment(
-        rect.image,
-        visible=rect.visible,
-        analysed=rect.analysed,
-        config=SegmentConfig(px_per_mm=rect.frame.px_per_mm),
-    )
-    meas = measure(
-        seg.mask,
-        frame=rect.frame,
-        analysed=rect.analysed,
-        config=MeasureConfig(cell_mm=25.4),
-        alternates=seg.alternates,
-        photo_px_per_mm=20.0,
-    )
-    truth = shot.truth
+    truth, meas, _ = _square_on(field, 20.0, 41, blur_sigma_px=blur, jpeg_quality=80, **PALE_THIN)
     assert 45 <= truth.density <= 60
     assert abs(meas.spot_count - truth.spot_count) <= 0.04 * truth.spot_count, (
         meas.spot_count,
@@ -247,34 +228,13 @@ def test_small_domed_contacts_of_a_fine_print_are_counted(
 
 
 def test_a_photo_too_far_away_for_its_contacts_is_flagged(fine_field) -> None:  # type: ignore[no-untyped-def]
-    scene = Scene(
-        field=fine_field,
-        camera=None,
-        px_per_mm=5.0,
-        lighting=Lighting(compound_strength=0.5, blur_sigma_px=0.6, jpeg_quality=85),
-    )
-    shot = render_photo(scene, seed=38)
-    from printcheck.locate import rectify_scale
-
-    rect = rectify_scale(shot.image, px_per_mm=5.0)
-    seg = segment(
-        rect.image,
-        visible=rect.visible,
-        analysed=rect.analysed,
-        config=SegmentConfig(px_per_mm=5.0),
-    )
-    meas = measure(
-        seg.mask,
-        frame=rect.frame,
-        analysed=rect.analysed,
-        config=MeasureConfig(cell_mm=25.4),
-        alternates=seg.alternates,
-        photo_px_per_mm=5.0,
+    truth, meas, _ = _square_on(
+        fine_field, 5.0, 38, compound_strength=0.5, blur_sigma_px=0.6, jpeg_quality=85
     )
     c = meas.confidence
     assert c is not None and c.doubtful
     assert "px/mm; this photo has 5: move closer" in c.reason
-    assert c.count_low <= shot.truth.spot_count <= c.count_high, (c, shot.truth.spot_count)
+    assert c.count_low <= truth.spot_count <= c.count_high, (c, truth.spot_count)
     assert np.isfinite(meas.bearing_percent)
 
 
@@ -282,36 +242,15 @@ def test_contacts_closer_than_the_photo_can_part_widen_the_range(fine_field) -> 
     # the fine print from a little too far (9 px/mm): its 0.2-0.35 mm gaps are 2-3 photo
     # pixels, under the 3 that colour at half resolution needs; neighbours merge and the
     # count falls short, so the range must reach up to the truth and the photo be doubtful
-    scene = Scene(
-        field=fine_field,
-        camera=None,
-        px_per_mm=9.0,
-        lighting=Lighting(compound_strength=0.5, rim_film=0.1, blur_sigma_px=1.0, jpeg_quality=80),
-    )
-    shot = render_photo(scene, seed=39)
-    from printcheck.locate import rectify_scale
-
-    rect = rectify_scale(shot.image, px_per_mm=9.0)
-    seg = segment(
-        rect.image,
-        visible=rect.visible,
-        analysed=rect.analysed,
-        config=SegmentConfig(px_per_mm=9.0),
-    )
-    meas = measure(
-        seg.mask,
-        frame=rect.frame,
-        analysed=rect.analysed,
-        config=MeasureConfig(cell_mm=25.4),
-        alternates=seg.alternates,
-        photo_px_per_mm=9.0,
+    truth, meas, _ = _square_on(
+        fine_field, 9.0, 39, blur_sigma_px=1.0, jpeg_quality=80, **PALE_THIN
     )
     c = meas.confidence
-    truth = shot.truth.spot_count
-    assert meas.spot_count < 0.95 * truth  # the merges this test is about do happen
+    n = truth.spot_count
+    assert meas.spot_count < 0.95 * n  # the merges this test is about do happen
     assert c is not None and c.doubtful
     assert "closer than this photo can part (3 px at 9 px/mm): move closer" in c.reason
-    assert c.count_low <= truth <= c.count_high, (c, truth)
+    assert c.count_low <= n <= c.count_high, (c, n)
 
 
 def test_a_photo_without_compound_is_refused_and_nothing_of_it_is_recorded(tmp_path) -> None:  # type: ignore[no-untyped-def]
