@@ -33,10 +33,10 @@ target, however few passes there are.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
 
 from printcheck.records import (
     PassSummary,
@@ -59,6 +59,7 @@ __all__ = [
     "history_progress",
     "progress_text",
     "projection_words",
+    "station_progress",
     "surface_spec",
     "fit_line",
     "project",
@@ -350,10 +351,10 @@ def _station_words(row: ProgressRow) -> str:
     return ", ".join(parts)
 
 
-def _station_projection_words(progress: Progress, station: StationProgress) -> str:
+def station_progress(progress: Progress, station: StationProgress) -> Progress:
+    """The surface's progress as one station sees it: its passes so far, its projection."""
     known = [d for d in station.densities if d is not None]
-    latest = "-" if not known else f"{known[-1]:.1f}"
-    one = Progress(
+    return Progress(
         surface=progress.surface,
         spec=progress.spec,
         unit=progress.unit,
@@ -362,6 +363,12 @@ def _station_projection_words(progress: Progress, station: StationProgress) -> s
         passes=progress.passes[: len(known)],
         projection=station.projection,
     )
+
+
+def _station_projection_words(progress: Progress, station: StationProgress) -> str:
+    known = [d for d in station.densities if d is not None]
+    latest = "-" if not known else f"{known[-1]:.1f}"
+    one = station_progress(progress, station)
     return f"latest {latest} {_per(progress)}; {projection_words(one)}"
 
 
@@ -434,10 +441,10 @@ def history_progress(
             surface, [p.summary for p in ordered], spec=spec, fit_passes=fit_passes
         )
         noted = tuple(
-            row if notes[p.number] is None else _replace(row, note=notes[p.number])
+            row if notes[p.number] is None else dataclasses.replace(row, note=notes[p.number])
             for row, p in zip(base.passes, ordered, strict=True)
         )
-        return _replace(base, passes=noted)
+        return dataclasses.replace(base, passes=noted)
     last = stored[-1].summary if stored else None
     basis_mm = _cell_mm(last)
     names: list[str] = []
@@ -499,12 +506,6 @@ def history_progress(
         stations=tuple(station_progress),
         slowest_station=slowest,
     )
-
-
-def _replace(obj: Any, **changes: Any) -> Any:
-    from dataclasses import replace
-
-    return replace(obj, **changes)
 
 
 def _worst(figures: Sequence[StationFigure]) -> StationFigure:
@@ -576,7 +577,7 @@ def _slowest(
     assert proj is not None
     highs = [s.projection.high for s in stations]  # type: ignore[union-attr]
     return (
-        _replace(
+        dataclasses.replace(
             proj,
             low=max(s.projection.low for s in stations),  # type: ignore[union-attr]
             high=None if any(h is None for h in highs) else max(highs),  # type: ignore[type-var]

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from html import escape
 
-from printcheck.progress import MIN_PASSES, projection_words
+from printcheck.progress import MIN_PASSES, projection_words, station_progress
 from printcheck.records import Progress, ProgressRow, StationProgress
 
 __all__ = ["stations_section"]
@@ -48,15 +48,7 @@ def _verdict(meets: bool | None) -> str:
 
 def _station_projection(progress: Progress, s: StationProgress) -> str:
     known = [d for d in s.densities if d is not None]
-    one = Progress(
-        surface=progress.surface,
-        spec=progress.spec,
-        unit=progress.unit,
-        cell=progress.cell,
-        targets=progress.targets,
-        passes=progress.passes[: max(len(known), 0)],
-        projection=s.projection,
-    )
+    one = station_progress(progress, s)
     if s.projection is None and len(known) < MIN_PASSES and progress.targets.density is not None:
         return f"too few passes yet ({len(known)} of {MIN_PASSES} needed)"
     return projection_words(one)
