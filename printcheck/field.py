@@ -89,7 +89,7 @@ def contact_field(
     first = upsample(fill_and_smooth(q[1], ok.astype(np.float32), 1.0), coarse, shape)
     noise0 = max(float(np.median((q[1] - q[0])[ok])) / 1.645, EVIDENCE_FLOOR)
     smoothed = cv2.GaussianBlur(evidence, (0, 0), max(spot_mm * s, 0.35))
-    marked, film = _marks(evidence, smoothed, first, noise0, valid, stat, s, spot_mm, local_mm)
+    marked, film = _marks(evidence, smoothed, first, noise0, valid, stat, s, local_mm)
     r = max(1, int(round(0.3 * s)))
     near = cv2.dilate(
         marked.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
@@ -136,7 +136,6 @@ def _marks(
     valid: np.ndarray,
     stat: np.ndarray,
     s: float,
-    spot_mm: float,
     local_mm: float,
 ) -> tuple[np.ndarray, np.ndarray]:
     """The marks the fine bare level leaves out: what stands clearly above the coarse one.
@@ -151,8 +150,7 @@ def _marks(
     film belongs to its region), where the bare level is read over the film alone, so
     that a contact there stands out from the film around it, as it does on a real print.
     """
-    above = evidence - first
-    marked = above > 5.0 * noise0
+    marked = (evidence - first) > 5.0 * noise0
     rel = smoothed - first
     strong = rel >= 10.0 * noise0
     level = _compound_level(rel, valid, stat, strong, s, local_mm)
