@@ -138,8 +138,8 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
         view = await run_in_threadpool(_read, config.db, lambda h: _surface_view(h, name))
         if view is None:
             return problem(request, f"No passes recorded for the surface {name!r}.", 404)
-        stations = await run_in_threadpool(index.stations, name)
-        return page(request, "surface.html", view=view, stations=stations)
+        uploads = await run_in_threadpool(index.rows, name)
+        return page(request, "surface.html", view=view, uploads=uploads)
 
     async def trend(request: Request) -> Response:
         from printcheck.report.plots import trend_png
@@ -167,14 +167,14 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
         if found is None:
             return problem(request, "No such pass in the history.", 404)
         view, stored = found
-        stations = await run_in_threadpool(index.stations, name)
+        uploads = await run_in_threadpool(index.rows, name)
         return page(
             request,
             "pass.html",
             view=view,
             stored=stored,
             s=stored.summary,
-            station=stations.get(sha),
+            upload=uploads.get(sha, {}),
             fresh=request.query_params.get("new") == "1",
             grid=_grid(stored.summary.cells),
         )

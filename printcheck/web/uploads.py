@@ -111,9 +111,10 @@ class UploadIndex:
             with open(self._path, "a", encoding="utf-8") as fh:
                 fh.write(line + "\n")
 
-    def stations(self, surface: str) -> dict[str, str]:
-        """Each uploaded photo's station (by hash) for ``surface``: the latest given."""
-        found: dict[str, str] = {}
+    def rows(self, surface: str) -> dict[str, dict[str, str | None]]:
+        """Each photo uploaded for ``surface`` (by hash): its station and the name it
+        was sent with (the latest upload's)."""
+        found: dict[str, dict[str, str | None]] = {}
         with self._lock:
             try:
                 text = self._path.read_text(encoding="utf-8")
@@ -124,6 +125,9 @@ class UploadIndex:
                 row = json.loads(line)
             except ValueError:
                 continue  # a line cut by a crash: the others still count
-            if isinstance(row, dict) and row.get("surface") == surface and row.get("station"):
-                found[str(row.get("sha256"))] = str(row["station"])
+            if isinstance(row, dict) and row.get("surface") == surface:
+                found[str(row.get("sha256"))] = {
+                    "station": row.get("station") or None,
+                    "sent_name": row.get("sent_name") or None,
+                }
         return found
