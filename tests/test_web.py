@@ -336,7 +336,12 @@ def test_phone_sized_browser_sends_a_photo_and_sees_the_count(
         browser = pw.chromium.launch(executable_path=CHROMIUM, args=["--no-sandbox"])
         try:
             page = browser.new_page(viewport={"width": 390, "height": 844}, device_scale_factor=2)
-            page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
+
+            def on_dialog(dialog: Any) -> None:
+                dialogs.append(dialog.message)
+                dialog.dismiss()
+
+            page.on("dialog", on_dialog)
             page.goto(server.base + "/upload")
             assert page.get_attribute("#photo", "capture") == "environment"
             page.fill("#new_surface", "cross-slide")
