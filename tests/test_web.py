@@ -320,6 +320,18 @@ def test_beyond_localhost_nothing_without_the_access_code(tmp_path: Path) -> Non
         lan.stop()
 
 
+def test_serve_refuses_bad_options_with_one_line(capsys: pytest.CaptureFixture[str]) -> None:
+    from printcheck.cli import main
+
+    assert main(["serve", "--lan", "--host", "10.0.0.5"]) == 2
+    assert main(["serve", "--port", "0"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == [
+        "printcheck: give --lan or --host, not both",
+        "printcheck: --port must be between 1 and 65535, got 0",
+    ]
+
+
 # ---------------------------------------------------------------- a real browser
 
 

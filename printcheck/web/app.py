@@ -211,7 +211,11 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
     async def upload(request: Request) -> Response:
         length = request.headers.get("content-length")
         limit = config.max_upload_bytes
-        if length is not None and length.isdigit() and int(length) > limit + 64 * 1024:
+        if length is None or not length.isdigit():
+            # every browser sends the length of a form; without it the size is unknown
+            # until the whole body has been read
+            return problem(request, "The upload did not say its size; send it again.", 411)
+        if int(length) > limit + 64 * 1024:
             return problem(request, _too_big(limit), 413)
         try:
             form = await request.form(max_files=1, max_fields=8, max_part_size=64 * 1024)
