@@ -320,6 +320,27 @@ def test_beyond_localhost_nothing_without_the_access_code(tmp_path: Path) -> Non
         lan.stop()
 
 
+def test_heic_from_a_phone_is_measured(server: Server, small_job: Any) -> None:
+    pillow_heif = pytest.importorskip("pillow_heif")
+    from PIL import Image
+
+    folder, photos = small_job
+    truth = photos[0]
+    pillow_heif.register_heif_opener()
+    buffer = io.BytesIO()
+    with Image.open(folder / truth.file) as im:
+        im.convert("RGB").save(buffer, "HEIF", quality=90)
+    data = buffer.getvalue()
+    with server.client() as client:
+        sent = _send(client, data, surface="heic-way", name="IMG_0001.HEIC")
+        assert sent.status_code == 303, sent.text
+        status = _wait(client, sent.headers["location"])
+        assert status["state"] == "done", status
+        assert status["spot_count"] == pytest.approx(truth.spot_count, rel=COUNT_TOLERANCE, abs=4)
+    sha = hashlib.sha256(data).hexdigest()
+    assert (server.out / "uploads" / f"{sha}.heic").read_bytes() == data
+
+
 def test_serve_refuses_bad_options_with_one_line(capsys: pytest.CaptureFixture[str]) -> None:
     from printcheck.cli import main
 
