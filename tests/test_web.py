@@ -287,6 +287,22 @@ def test_truncated_photo_is_refused(server: Server, small_job: Any) -> None:
         assert sent.status_code == 415 and "truncated" in sent.text
 
 
+def test_photo_without_the_card_says_why_on_the_page(server: Server) -> None:
+    from PIL import Image
+
+    buffer = io.BytesIO()
+    Image.new("RGB", (640, 480), (150, 160, 170)).save(buffer, "JPEG")
+    with server.client() as client:
+        sent = _send(client, buffer.getvalue(), surface="no-card-way")
+        assert sent.status_code == 303  # a whole image: accepted, then measured
+        status = _wait(client, sent.headers["location"])
+        assert status["state"] == "failed" and status["message"].startswith("the photo ")
+        page = client.get(sent.headers["location"])
+        assert page.status_code == 422 and 'id="message"' in page.text
+        assert "uploads" not in status["message"]  # the stored file's path is not shown
+    assert server.passes("no-card-way") == []
+
+
 def test_form_without_its_csrf_token_is_refused(server: Server, small_job: Any) -> None:
     folder, photos = small_job
     with server.client() as client:
