@@ -112,3 +112,28 @@ def test_slow_copies_are_read_only_when_complete_and_recorded_once(
         time.sleep(0.5)
     assert sorted(photo for _, photo in _rows(measurer.db)) == ["a.jpg", "b.jpg"]
     assert sources[0].read_bytes() == (inbox / "a.jpg").read_bytes()  # photos not modified
+
+
+def test_a_killed_worker_costs_only_its_photo(measurer: Measurer, small_job: Any) -> None:
+    """The out-of-memory killer takes a worker: its photo is reported, the next is measured."""
+    import signal
+
+    folder, photos = small_job
+    path = folder / photos[0].file
+    first = measurer.submit(
+        path, surface="killed-way", sha256="a" * 64, sent_name="a", station=None
+    )
+    deadline = time.monotonic() + 30
+    pool = measurer._pool
+    assert pool is not None
+    while not pool._processes and time.monotonic() < deadline:  # the pool starts its workers
+        time.sleep(0.01)
+    for pid in list(pool._processes):
+        os.kill(pid, signal.SIGKILL)
+    _wait_done([first])
+    assert first.state == "failed" and "worker process stopped" in (first.message or "")
+    second = measurer.submit(
+        folder / photos[1].file, surface="killed-way", sha256="b" * 64, sent_name="b", station=None
+    )
+    _wait_done([second])
+    assert second.state == DONE, second.message

@@ -19,6 +19,7 @@ import threading
 import time
 from concurrent.futures import Future, ProcessPoolExecutor
 from dataclasses import dataclass, field, replace
+from functools import partial
 from pathlib import Path
 from typing import Any
 
@@ -149,35 +150,44 @@ class Measurer:
     def _run(self, job: Job) -> None:
         from concurrent.futures.process import BrokenProcessPool
 
-        if self._pool is None:
-            raise RuntimeError("the measurer is not started")
         options = replace(self.options, surface=job.surface)
-        try:
-            future = self._pool.submit(_measure, job.path, options, self.out)
-        except BrokenProcessPool:
-            self._restart()
-            assert self._pool is not None
-            future = self._pool.submit(_measure, job.path, options, self.out)
-        future.add_done_callback(lambda f: self._finish(job, options, f))
+        for _ in range(2):
+            pool = self._pool
+            if pool is None:
+                raise RuntimeError("the measurer is not started")
+            try:
+                future = pool.submit(_measure, job.path, options, self.out)
+            except BrokenProcessPool:  # a worker was killed: a fresh pool, then again
+                self._restart(pool)
+                continue
+            future.add_done_callback(partial(self._finish, job, options, pool=pool))
+            return
+        self._fail(job, "not measured: the worker processes could not be started again")
 
-    def _restart(self) -> None:
-        """A worker was killed (out of memory?): a fresh pool for the photos to come."""
+    def _restart(self, broken: ProcessPoolExecutor) -> None:
+        """A worker was killed (out of memory?): a fresh pool for the photos to come.
+
+        Only the broken pool is replaced, once, however many of its photos report it.
+        """
         with self._lock:
-            if self._pool is not None:
-                with contextlib.suppress(Exception):
-                    self._pool.shutdown(wait=False, cancel_futures=True)
+            if self._pool is not broken:
+                return
+            with contextlib.suppress(Exception):
+                broken.shutdown(wait=False, cancel_futures=True)
             self._pool = None
             self.start()
 
-    def _finish(self, job: Job, options: InspectOptions, future: Future[Any]) -> None:
+    def _finish(
+        self, job: Job, options: InspectOptions, future: Future[Any], *, pool: ProcessPoolExecutor
+    ) -> None:
         from printcheck.batch import Measured
 
         try:
             outcome = future.result()
         except Exception as exc:  # the worker died, or the pool was shut down
             self._fail(job, f"not measured: the worker process stopped ({type(exc).__name__})")
-            if self._pool is not None and getattr(self._pool, "_broken", False):
-                threading.Thread(target=self._restart, daemon=True).start()
+            if getattr(pool, "_broken", False):
+                threading.Thread(target=self._restart, args=(pool,), daemon=True).start()
             return
         if not isinstance(outcome, Measured):
             self._fail(job, _without_path(outcome.error, job.path))
