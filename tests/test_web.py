@@ -188,12 +188,13 @@ def test_four_clients_ten_photos_each_all_recorded_once(server: Server, small_jo
     def fitter(share: list[bytes]) -> None:
         try:
             with server.client() as client:
-                for body in share:
-                    sent = _send(client, body, surface="load-way")
-                    status = _wait(client, sent.headers["location"], limit_s=300)
-                    page = client.get(sent.headers["location"], follow_redirects=True)
+                # all ten sent without waiting (a queue builds up), then each result read
+                sent = [_send(client, body, surface="load-way") for body in share]
+                for answer in sent:
+                    status = _wait(client, answer.headers["location"], limit_s=300)
+                    page = client.get(answer.headers["location"], follow_redirects=True)
                     with lock:
-                        results.append((sent.status_code, status, page.status_code))
+                        results.append((answer.status_code, status, page.status_code))
         except BaseException as exc:  # reported below, not lost in the thread
             errors.append(exc)
 
