@@ -622,6 +622,113 @@ def overview(
     typer.echo(f"overview: {path}")
 
 
+# ---------------------------------------------------------------- serve, watch
+
+
+def _serve_paths(ctx: typer.Context, db: Path | None, folder: Path | None) -> tuple[Path, Path]:
+    out: Path | None = ctx.params["out"]
+    if out is None:
+        out = (folder if folder is not None else Path.cwd()) / "printcheck-out"
+    return _db_path(db), out
+
+
+@app.command()
+@_with_inspect_options
+def serve(
+    ctx: typer.Context,
+    db: DbOpt = None,
+    jobs: JobsOpt = None,
+    lan: Annotated[
+        bool, typer.Option("--lan", help="Listen on the shop network (needs the access code).")
+    ] = False,
+    host: Annotated[
+        str | None, typer.Option("--host", help="Address to listen on (default 127.0.0.1).")
+    ] = None,
+    port: Annotated[int, typer.Option("--port", help="Port to listen on.")] = 8765,
+    max_upload_mb: Annotated[
+        int, typer.Option("--max-upload-mb", help="Largest photo accepted, in MB.")
+    ] = 40,
+    watch: Annotated[
+        Path | None, typer.Option("--watch", help="Also measure photos dropped into this folder.")
+    ] = None,
+    **given: Any,
+) -> None:
+    """Serve the pages for a phone: send a photo, see its count, verdict and guidance."""
+    from printcheck.pipeline import cores_available
+    from printcheck.web.server import serve as run_server
+
+    if lan and host is not None:
+        raise OptionError("give --lan or --host, not both")
+    if not 1 <= port <= 65535:
+        raise OptionError(f"--port must be between 1 and 65535, got {port}")
+    if not 1 <= max_upload_mb <= 500:
+        raise OptionError(f"--max-upload-mb must be between 1 and 500, got {max_upload_mb}")
+    if jobs is not None and jobs < 1:
+        raise OptionError(f"--jobs must be 1 or more, got {jobs}")
+    if watch is not None and not watch.is_dir():
+        raise OptionError(f"--watch {watch}: not a folder")
+    options = _inspect_options(
+        ctx.params, ctx.params["config"].parent if ctx.params["config"] else None
+    )
+    db_path, out = _serve_paths(ctx, db, None)
+    raise typer.Exit(
+        run_server(
+            options=options,
+            db=db_path,
+            out=out,
+            host=host or ("0.0.0.0" if lan else "127.0.0.1"),
+            port=port,
+            workers=jobs or cores_available(),
+            max_upload_mb=max_upload_mb,
+            watch=watch,
+            echo=typer.echo,
+        )
+    )
+
+
+@app.command()
+@_with_inspect_options
+def watch(
+    ctx: typer.Context,
+    folder: Annotated[
+        Path, typer.Argument(help="Folder the phone's photos arrive in.", show_default=False)
+    ],
+    db: DbOpt = None,
+    jobs: JobsOpt = None,
+    **given: Any,
+) -> None:
+    """Measure photos as they arrive in FOLDER (once each is complete) and record them."""
+    import time
+
+    from printcheck.pipeline import cores_available
+    from printcheck.web.measurer import DONE, FAILED, Measurer
+    from printcheck.web.watch import Watcher
+
+    if not folder.is_dir():
+        raise OptionError(f"watch {folder}: not a folder; give the folder the photos arrive in")
+    options = _inspect_options(ctx.params, folder)
+    if options.surface is None:
+        options = _with_surface(options, folder)
+    assert options.surface is not None
+    db_path, out = _serve_paths(ctx, db, folder)
+    with Measurer(options=options, out=out, db=db_path, workers=jobs or cores_available()) as m:
+        watcher = Watcher(folder, m, surface=options.surface)
+        typer.echo(f"watching {folder} for photos of {options.surface}; Ctrl-C stops")
+        told: set[str] = set()
+        while True:
+            watcher.look()
+            for job in watcher.jobs:
+                if job.id in told or job.state not in (DONE, FAILED):
+                    continue
+                told.add(job.id)
+                if job.state == DONE:
+                    again = "" if job.recorded else " (already in the history)"
+                    typer.echo(f"{job.sent_name}: {job.spot_count} points{again}")
+                else:
+                    _fail(f"{job.sent_name}: {job.message}")
+            time.sleep(watcher.interval_s)
+
+
 # ---------------------------------------------------------------- card, specs, demo
 
 
