@@ -423,20 +423,11 @@ def progress(
 ) -> None:
     """Show a surface's passes so far, the trend, and how many passes it may still need."""
     from printcheck.history import open_history
-    from printcheck.progress import history_progress, progress_text, surface_spec
+    from printcheck.progress import progress_text, recorded_progress
     from printcheck.serde import progress_to_dict
 
-    path = _db_path(db)
-    if not path.exists():
-        raise OptionError(f"history {path}: no history yet; run 'printcheck batch' first")
-    with open_history(path, readonly=True) as history:
-        stored = history.passes(surface)
-        if not stored:
-            known = ", ".join(history.surfaces()) or "none"
-            raise OptionError(
-                f"progress: no passes recorded for surface {surface!r} (recorded: {known})"
-            )
-    report = history_progress(surface, stored, spec=surface_spec(stored))
+    with open_history(_existing_history(db), readonly=True) as history:
+        _, _, report = recorded_progress(history, surface, command="progress")
     if json_out:
         typer.echo(json.dumps(progress_to_dict(report), ensure_ascii=False, indent=2))
     else:

@@ -189,12 +189,13 @@ def finish(
 
 
 def _mass_px(labels: np.ndarray, score: np.ndarray, level: np.ndarray, n: int) -> np.ndarray:
-    """Each label's evidence in all (above zero) over ``level`` at its peak, in pixels."""
+    """Each label's evidence in all (above zero) over ``level`` where it lies, in pixels
+    (the compound's level varies slowly: any one pixel of the label gives it)."""
     sel = labels > 0
     lab = labels[sel]
     mass = np.bincount(lab, weights=np.maximum(score[sel], 0.0), minlength=n)
     at = np.zeros(n, np.float64)
-    at[lab] = level[sel]  # the compound's level varies slowly: any pixel of the label
+    at[lab] = level[sel]
     return np.asarray(mass / np.maximum(at, 1e-6))
 
 

@@ -37,6 +37,7 @@ import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 from printcheck.records import (
     PassSummary,
@@ -59,6 +60,7 @@ __all__ = [
     "history_progress",
     "progress_text",
     "projection_words",
+    "recorded_progress",
     "station_progress",
     "surface_spec",
     "fit_line",
@@ -404,6 +406,29 @@ def progress_text(progress: Progress) -> str:
 
 
 # ---------------------------------------------------------------- passes of stations
+
+
+def recorded_progress(
+    history: Any, surface: str, *, command: str
+) -> tuple[list[StoredPass], Spec | None, Progress]:
+    """A surface's stored passes, its spec and its progress, read from an open history.
+
+    Raises
+    ------
+    OptionError
+        No passes are recorded for ``surface`` (the line names ``command`` and the
+        surfaces that are recorded).
+    """
+    from printcheck.errors import OptionError
+
+    stored = list(history.passes(surface))
+    if not stored:
+        known = ", ".join(history.surfaces()) or "none"
+        raise OptionError(
+            f"{command}: no passes recorded for surface {surface!r} (recorded: {known})"
+        )
+    spec = surface_spec(stored)
+    return stored, spec, history_progress(surface, stored, spec=spec)
 
 
 def history_progress(

@@ -51,20 +51,13 @@ def write_history_report(db: Path, surface: str, out: Path) -> Path:
         The history cannot be read, or the report cannot be written.
     """
     from printcheck.history import open_history
-    from printcheck.progress import history_progress, surface_spec
+    from printcheck.progress import recorded_progress
     from printcheck.report.files import write_csv
     from printcheck.report.html import write_report
     from printcheck.report.stations import stations_section
 
     with open_history(db, readonly=True) as history:
-        stored = history.passes(surface)
-        if not stored:
-            known = ", ".join(history.surfaces()) or "none"
-            raise OptionError(
-                f"report: no passes recorded for surface {surface!r} (recorded: {known})"
-            )
-    spec = surface_spec(stored)
-    progress = history_progress(surface, stored, spec=spec)
+        stored, spec, progress = recorded_progress(history, surface, command="report")
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:

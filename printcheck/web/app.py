@@ -83,12 +83,13 @@ class SurfaceView:
 
 
 def _surface_view(history: Any, name: str) -> SurfaceView | None:
-    from printcheck.progress import build_progress, projection_words, surface_spec
+    from printcheck.progress import history_progress, projection_words, surface_spec
 
     stored = history.passes(name)
     if not stored:
         return None
-    progress = build_progress(name, [p.summary for p in stored], spec=surface_spec(stored))
+    # the history's own progress: a pass of several stations is one pass
+    progress = history_progress(name, stored, spec=surface_spec(stored))
     words = projection_words(progress)
     return SurfaceView(name, stored, progress, words[:1].upper() + words[1:], stored[-1])
 
