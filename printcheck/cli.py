@@ -333,7 +333,25 @@ def batch(
         echo=typer.echo,
         warn=_fail,
     )
+    if not ctx.params["json_out"]:
+        _echo_latest_advice(_db_path(db), options.surface)
     raise typer.Exit(outcome)
+
+
+def _echo_latest_advice(db: Path, surface: str | None) -> None:
+    """Where to scrape next on the surface's latest pass (nothing when there is none)."""
+    from printcheck.history import open_history
+    from printcheck.summary import advice_lines
+
+    if surface is None or not db.is_file():
+        return
+    with open_history(db, readonly=True) as history:
+        stored = history.passes(surface)
+    if stored:
+        latest = stored[-1]
+        lines = advice_lines(latest.summary, indent="")
+        if lines:
+            typer.echo(f"pass {latest.number}, " + "\n".join(lines))
 
 
 def _with_surface(options: InspectOptions, folder: Path) -> InspectOptions:

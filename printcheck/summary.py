@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from printcheck.records import CellSummary, PassSummary
 from printcheck.units import to_mm
-from printcheck.wording import density_words
+from printcheck.wording import advice_line, density_words
 
-__all__ = ["summary_text"]
+__all__ = ["advice_lines", "summary_text"]
 
 _MAX_GRID_CELLS = 64  # larger grids are left to the report
 
@@ -47,8 +47,18 @@ def summary_text(s: PassSummary) -> str:
     if s.cells and len(s.cells) <= _MAX_GRID_CELLS:
         lines.append("  cells (points / bearing %; * incomplete):")
         lines += _cell_grid(s.cells)
+    lines += advice_lines(s)
     lines += [f"  warning: {warning}" for warning in s.warnings]
     return "\n".join(lines)
+
+
+def advice_lines(s: PassSummary, indent: str = "  ") -> list[str]:
+    """The guidance list of ``s`` under its heading (no lines when there is none)."""
+    if not s.advice:
+        return []
+    return [f"{indent}where to scrape next:"] + [
+        f"{indent}  {advice_line(a, s.unit)}" for a in s.advice
+    ]
 
 
 def _cell_grid(cells: tuple[CellSummary, ...]) -> list[str]:

@@ -25,6 +25,7 @@ from typing import TYPE_CHECKING
 from printcheck.units import MM_PER_IN
 
 if TYPE_CHECKING:
+    from printcheck.guidance import Advice
     from printcheck.spec import Spec
 
 __all__ = [
@@ -37,6 +38,7 @@ __all__ = [
     "length_words",
     "bearing_words",
     "target_lines",
+    "advice_line",
 ]
 
 
@@ -202,3 +204,18 @@ def target_lines(spec: Spec) -> list[TargetLine]:
             )
         )
     return out
+
+
+def advice_line(a: Advice, unit: str) -> str:
+    """One place of the guidance list as a fitter reads it.
+
+    ``"1. heavy bearing, cell B2, 12 mm from the left edge and 30 mm from the top edge of
+    the window: break up"``; millimetres to the whole mm, inches to the hundredth.
+    """
+    digits = 2 if unit == "in" else 0
+    fx = f"{a.from_x:.{digits}f} {unit}"
+    fy = f"{a.from_y:.{digits}f} {unit}"
+    return (
+        f"{a.rank}. {a.kind}, cell {a.cell}, {fx} from the {a.edge_x} edge and {fy} "
+        f"from the {a.edge_y} edge of the window: {a.action}"
+    )
