@@ -39,6 +39,7 @@ __all__ = [
     "bearing_words",
     "target_lines",
     "advice_line",
+    "advice_words",
 ]
 
 
@@ -212,10 +213,15 @@ def advice_line(a: Advice, unit: str) -> str:
     ``"1. heavy bearing, cell B2, 12 mm from the left edge and 30 mm from the top edge of
     the window: break up"``; millimetres to the whole mm, inches to the hundredth.
     """
+    return f"{a.rank}. {advice_words(a, unit)}"
+
+
+def advice_words(a: Advice, unit: str) -> str:
+    """:func:`advice_line` without its rank (for a numbered list that numbers itself)."""
     digits = 2 if unit == "in" else 0
     fx = f"{a.from_x:.{digits}f} {unit}"
     fy = f"{a.from_y:.{digits}f} {unit}"
     return (
-        f"{a.rank}. {a.kind}, cell {a.cell}, {fx} from the {a.edge_x} edge and {fy} "
+        f"{a.kind}, cell {a.cell}, {fx} from the {a.edge_x} edge and {fy} "
         f"from the {a.edge_y} edge of the window: {a.action}"
     )

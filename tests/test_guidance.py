@@ -132,3 +132,45 @@ def test_rendered_print_names_its_high_and_low_places(rendered_print) -> None:  
     # had the print met its spec, only the places that matter most
     met = advise(m.guidance, window=frame.window, cell_mm=25.4, meets=True)
     assert len(met) <= MAX_WHEN_MET and met[0] == first
+
+
+def test_overlay_gives_each_kind_its_own_mark_and_the_report_the_list() -> None:
+    from _hand_results import make_result
+
+    from printcheck.report.html import render_report
+    from printcheck.report.overlay import COLOURS, OverlayStyle, draw_overlay
+    from printcheck.serde import summarize
+
+    r = make_result(
+        discs_mm=((10.0, 10.0, 2.0),),
+        high=(
+            HighArea(35.0, 12.0, 8.0, "why", "heavy bearing"),  # type: ignore[arg-type]
+            HighArea(12.0, 38.0, 3.0, "why", "oversized spot"),  # type: ignore[arg-type]
+        ),
+        bare=(BarePatch(12.0, 38.0, 12.0),),
+    )
+    out = draw_overlay(r, style=OverlayStyle(min_side=720))
+    s = 720 / r.rectified.image.shape[0]  # drawn px per rectified px; 4 px/mm
+
+    def near(key: str, x_mm: float, y_mm: float, radius_mm: float) -> float:
+        ys, xs = np.nonzero(np.all(out == COLOURS[key], axis=2))
+        d = np.hypot(xs - x_mm * 4 * s, ys - y_mm * 4 * s)
+        return float(np.mean(d < radius_mm * 4 * s)) if d.size else 0.0
+
+    # each mark in its own colour where its place is; the bare patch overlapping the
+    # oversized spot ranked before it is left out, so no cyan is drawn
+    assert near("high", 35.0, 12.0, 5.0) > 0.95
+    assert near("oversized", 12.0, 38.0, 4.0) > 0.95
+    assert not np.all(out == COLOURS["bare"], axis=2).any()
+    # no key burnt into the image: it is as tall as the window
+    assert out.shape[0] == 720
+    summary = summarize(r)
+    assert summary.advice is not None and [a.kind for a in summary.advice] == [
+        "heavy bearing",
+        "oversized spot",
+    ]
+    png = b"\x89PNG\r\n\x1a\n"  # stands for the overlay's bytes
+    page = render_report(surface="bed-front-way", spec=None, passes=[(summary, png)])
+    assert "Where to scrape next" in page
+    assert "heavy bearing, cell B1, 0.62 in from the right edge and 0.47 in from the top" in page
+    assert "oversized spot: split it" in page  # the key, beside the image

@@ -23,7 +23,14 @@ from printcheck.records import CellSummary, PassSummary, Progress
 from printcheck.report.files import CSV_NAME, output_name, write_text
 from printcheck.spec import Spec
 from printcheck.units import to_mm
-from printcheck.wording import bearing_words, density_words, fixed, num, target_lines
+from printcheck.wording import (
+    advice_words,
+    bearing_words,
+    density_words,
+    fixed,
+    num,
+    target_lines,
+)
 
 __all__ = ["render_report", "write_report"]
 
@@ -73,6 +80,11 @@ table.heat caption { caption-side: top; text-align: left; font-size: 13px; color
        padding-bottom: 4px; }
 ul.warn { background: var(--warnbg); border-radius: 6px; padding: 8px 8px 8px 28px; margin: 8px 0; }
 .key { font-size: 12px; color: var(--muted); }
+ol.advice { margin: 6px 0 10px; padding-left: 26px; }
+ol.advice li { margin: 2px 0; }
+ul.legend { list-style: none; padding: 0; margin: 6px 0 0; display: flex; flex-wrap: wrap;
+       gap: 4px 18px; font-size: 13px; }
+ul.legend svg { vertical-align: middle; margin-right: 5px; }
 footer { color: var(--muted); font-size: 12px; text-align: center; margin-top: 30px; }
 a { color: #1f5fa8; }
 @media print {
@@ -282,6 +294,57 @@ def _checks(summary: PassSummary) -> str:
     return "".join(parts)
 
 
+def _advice(summary: PassSummary) -> str:
+    """Where to scrape next: the ranked list in words (nothing when there is none)."""
+    if not summary.advice:
+        return ""
+    items = "".join(f"<li>{_e(advice_words(a, summary.unit))}</li>" for a in summary.advice)
+    return (
+        "<h3>Where to scrape next</h3>"
+        f'<ol class="advice">{items}</ol>'
+        '<p class="key">Cells are lettered by column from the left (A, B, ...) and numbered '
+        "by row from the top; the numbers on the print are these ranks.</p>"
+    )
+
+
+def _swatch(colour_key: str, shape: str) -> str:
+    """A small inline SVG of one overlay mark, in the overlay's own colour."""
+    from printcheck.report.overlay import COLOURS
+
+    b, g, r = COLOURS[colour_key]
+    c = f"#{r:02x}{g:02x}{b:02x}"
+    if shape == "diamond":
+        body = f'<polygon points="9,2 16,9 9,16 2,9" fill="none" stroke="{c}" stroke-width="2.5"/>'
+    elif shape == "dashed circle":
+        body = (
+            f'<circle cx="9" cy="9" r="6.5" fill="none" stroke="{c}" stroke-width="2.5" '
+            'stroke-dasharray="3 2"/>'
+        )
+    elif shape == "hatched circle":
+        body = (
+            f'<circle cx="9" cy="9" r="6.5" fill="{c}" fill-opacity=".35" stroke="{c}" '
+            'stroke-width="2.5"/>'
+        )
+    else:
+        body = (
+            f'<rect x="2" y="4" width="14" height="10" fill="none" stroke="{c}" stroke-width="2"/>'
+        )
+    return (
+        '<svg width="18" height="18" viewBox="0 0 18 18" aria-hidden="true">'
+        f'<rect width="18" height="18" fill="#333"/>{body}</svg>'
+    )
+
+
+def _legend(summary: PassSummary) -> str:
+    """The key to the overlay's marks and figures, beside the image."""
+    from printcheck.report.overlay import LEGEND
+
+    items = [f"<li>{_swatch(key, shape)}{_e(words)}</li>" for key, shape, words in LEGEND]
+    per = density_words(to_mm(summary.cell, summary.unit), summary.unit)
+    items.append(f"<li>figures in each cell: large, {_e(per)}; small, bearing %</li>")
+    return f'<ul class="legend">{"".join(items)}</ul>'
+
+
 def _pass_section(
     number: int,
     summary: PassSummary,
@@ -300,11 +363,13 @@ def _pass_section(
         parts.append('<h3>Warnings</h3><ul class="warn">')
         parts.extend(f"<li>{_e(w)}</li>" for w in summary.warnings)
         parts.append("</ul>")
+    parts.append(_advice(summary))
     if overlay:
         parts.append("<h3>Print</h3>")
         parts.append(
             f'<img class="overlay" src="{_data_uri(overlay)}" alt="overlay of {_e(summary.photo)}">'
         )
+        parts.append(_legend(summary))
     parts.append("<h3>Cells</h3>")
     parts.append(_heat_tables(summary, spec))
     parts.append("</section>")
