@@ -37,7 +37,7 @@ if TYPE_CHECKING:
     from printcheck.measure import Measurement
     from printcheck.spec import Spec
 
-__all__ = ["Check", "Verdict", "judge", "describe_cells"]
+__all__ = ["Check", "Verdict", "certainty", "judge", "describe_cells"]
 
 # Float noise allowance when comparing a measured figure to a converted target.
 _REL_TOL = 1e-9
@@ -290,8 +290,68 @@ def judge(measurement: Measurement, spec: Spec, *, unit: str = "in") -> Verdict:
         checks.append(_bearing_check(measurement, spec))
     if spec.max_bare_mm is not None:
         checks.append(_bare_check(measurement, spec, unit))
+    checks = [_with_certainty(c, spec) for c in checks]
     return Verdict(
         name=spec.name,
         meets=all(c.ok for c in checks),
         checks=tuple(checks),
     )
+
+
+#: The target keys behind each check, and how each is named beside the verdict.
+_CHECK_KEYS: dict[str, tuple[tuple[str, str], ...]] = {
+    "density": (("min_density", "target"),),
+    "cell_density": (("min_cell_density", "target"),),
+    "bearing": (("bearing_min", "minimum"), ("bearing_max", "maximum")),
+    "bare_patch": (("max_bare", "limit"),),
+}
+
+
+def certainty(source: str) -> str | None:
+    """How sure a target's source is, in words; None for a published figure.
+
+    ``"from memory"``, ``"common practice"``, ``"printcheck's rule"`` (our own rule) or
+    ``"printcheck's reading"`` (our reading of a standard's words).
+    """
+    low = source.lower()
+    if "from memory" in low:
+        return "from memory"
+    if low.startswith("common practice") or low.startswith("min: common practice"):
+        return "common practice"
+    if "printcheck's own rule" in low:
+        return "printcheck's rule"
+    if "our reading" in low:
+        return "printcheck's reading"
+    return None
+
+
+def _with_certainty(check: Check, spec: Spec) -> Check:
+    """``check`` with how sure its targets are said beside its reason (nothing when the
+    figures are published or the spec gives no sources)."""
+    notes = []
+    n_set = 0
+    for key, word in _CHECK_KEYS.get(check.name, ()):
+        if _target_set(spec, key):
+            n_set += 1
+            how = certainty(spec.source_of(key))
+            if how is not None:
+                notes.append((word, how))
+    if not notes:
+        return check
+    if len(notes) == n_set and len({how for _w, how in notes}) == 1:
+        plural = "s" if len(notes) > 1 else ""
+        text = f"target{plural}: {notes[0][1]}"
+    else:
+        text = "; ".join(f"{word}: {how}" for word, how in notes)
+    return Check(check.name, check.target, check.value, check.ok, f"{check.reason} ({text})")
+
+
+def _target_set(spec: Spec, key: str) -> bool:
+    value = {
+        "min_density": spec.min_density,
+        "min_cell_density": spec.min_cell_density,
+        "bearing_min": spec.bearing_min,
+        "bearing_max": spec.bearing_max,
+        "max_bare": spec.max_bare_mm,
+    }[key]
+    return value is not None

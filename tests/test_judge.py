@@ -358,3 +358,17 @@ def test_meets_is_the_conjunction_of_independent_comparisons(
     assert v.meets == all(expect.values())
     for c in v.checks:
         assert c.reason and "\n" not in c.reason
+
+
+def test_how_sure_each_target_is_is_said_beside_the_verdict():
+    # the plate's bearing minimum is published (ISO 8512-1:1990 clause 9), its maximum
+    # is common practice; its density is from memory
+    s = find_spec("plate-grade-0")
+    v = judge(make(bearing=30.0), s, unit="mm")
+    reasons = {c.name: c.reason for c in v.checks}
+    assert reasons["density"].endswith("(target: from memory)")
+    assert reasons["bearing"].endswith("(maximum: common practice)")
+    assert reasons["bare_patch"].endswith("(target: printcheck's rule)")
+    # a spec file without sources says nothing of the kind
+    plain = judge(make(bearing=30.0), spec(bearing_min=20.0, bearing_max=60.0))
+    assert "(target" not in plain.checks[0].reason
