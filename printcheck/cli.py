@@ -54,6 +54,30 @@ FLAGS = {
     "jobs": "--jobs",
 }
 
+
+def _show_version(value: bool) -> None:
+    if value:
+        from printcheck import __version__
+
+        typer.echo(f"printcheck {__version__}")
+        raise typer.Exit(0)
+
+
+@app.callback()
+def _root(
+    version: Annotated[
+        bool,
+        typer.Option(
+            "--version",
+            help="Show printcheck's version and exit.",
+            callback=_show_version,
+            is_eager=True,
+        ),
+    ] = False,
+) -> None:
+    """Count and judge scraping prints (points per square inch, bearing) from photos."""
+
+
 # ---------------------------------------------------------------- shared options
 
 

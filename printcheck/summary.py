@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from printcheck.records import CellSummary, PassSummary
 from printcheck.units import to_mm
-from printcheck.wording import advice_line, density_words
+from printcheck.wording import advice_line, check_label, density_words
 
 __all__ = ["advice_lines", "summary_text"]
 
@@ -34,7 +34,7 @@ def summary_text(s: PassSummary) -> str:
         f"{s.window.width:g} x {s.window.height:g} {unit}"
     )
     bearing = f"{_figure(s.bearing_percent, '.1f')}%"
-    if conf:
+    if conf and f"{conf.bearing_percent_low:.0f}" != f"{conf.bearing_percent_high:.0f}":
         bearing += f" ({conf.bearing_percent_low:.0f}-{conf.bearing_percent_high:.0f}%)"
     bare = _figure(s.largest_bare, ".2f")
     lines.append(f"  bearing {bearing}   largest bare patch {bare} {unit}")
@@ -43,7 +43,7 @@ def summary_text(s: PassSummary) -> str:
         lines.append(f"  spec {v.name}: {'MEETS' if v.meets else 'DOES NOT MEET'}")
         for check in v.checks:
             mark = "ok  " if check.ok else "FAIL"
-            lines.append(f"    {mark} {check.name}: {check.reason}")
+            lines.append(f"    {mark} {check_label(check.name)}: {check.reason}")
     if s.cells and len(s.cells) <= _MAX_GRID_CELLS:
         lines.append("  cells (points / bearing %; * incomplete):")
         lines += _cell_grid(s.cells)

@@ -26,10 +26,13 @@ from printcheck.units import to_mm
 from printcheck.wording import (
     advice_words,
     bearing_words,
+    check_label,
     density_words,
     fixed,
     num,
+    range_words,
     target_lines,
+    target_words,
 )
 
 __all__ = ["render_report", "write_report"]
@@ -196,14 +199,16 @@ def _heat_tables(summary: PassSummary, spec: Spec | None) -> str:
     top = max((c.density for c in cells), default=0.0)
     lo = None if spec is None else spec.bearing_min
     hi = None if spec is None else spec.bearing_max
-    dcap = f"Density, {_per(summary)}" + ("" if target is None else f" (target {num(target, 1)})")
+    dcap = f"Density, {_per(summary)}" + (
+        "" if target is None else f" (target at least {num(target, 1)} {_per(summary)})"
+    )
     bcap = "Bearing"
     if lo is not None or hi is not None:
         bcap = f"Bearing (target {_e(bearing_words(lo, hi).span)})"
     density = _heat_table(
         cells,
         dcap,
-        lambda c: (fixed(c.density, 1), f"{fixed(c.spot_count)} pts"),
+        lambda c: (fixed(c.density, 1), _points(c.spot_count)),
         lambda c: _density_colour(c.density, target, top),
     )
     bearing = _heat_table(
@@ -255,14 +260,17 @@ def _pass_figures(summary: PassSummary) -> str:
     conf = summary.confidence
     cnt_rng = bear_rng = ""
     if conf is not None:
-        cnt_rng = f"range {fixed(conf.spot_count_low)}–{fixed(conf.spot_count_high)}"
-        bear_rng = f"range {fixed(conf.bearing_percent_low)}–{fixed(conf.bearing_percent_high)} %"
+        cnt_rng = range_words(conf.spot_count_low, conf.spot_count_high, 0, "spots")
+        bear_rng = range_words(conf.bearing_percent_low, conf.bearing_percent_high, 1, "%")
     parts = [
         '<div class="figures">',
         _figure(fixed(summary.density), _per(summary)),
         _figure(fixed(summary.bearing_percent) + " %", "bearing", bear_rng),
         _figure(fixed(summary.spot_count), "spots in the window", cnt_rng),
-        _figure(fixed(summary.largest_bare, 2) + f" {_e(summary.unit)}", "largest bare patch"),
+        _figure(
+            fixed(summary.largest_bare, 2 if summary.unit == "in" else 1) + f" {_e(summary.unit)}",
+            "largest bare patch",
+        ),
         "</div>",
     ]
     if conf is not None and conf.doubtful:
@@ -271,6 +279,23 @@ def _pass_figures(summary: PassSummary) -> str:
             f"{_e(conf.reason or 'the segmentation threshold matters')}</li></ul>"
         )
     return "".join(parts)
+
+
+def _points(n: int) -> str:
+    return f"{n} point" if n == 1 else f"{n} points"
+
+
+def _check_value(name: str, value: float | None, summary: PassSummary) -> str:
+    """A check's value with its unit, rounded as the pass's figures above it are."""
+    if value is None:
+        return "–"
+    if name in ("density", "cell_density"):
+        return f"{fixed(value, 1)} {_e(_per(summary))}"
+    if name == "bearing":
+        return f"{fixed(value, 1)} %"
+    if name == "bare_patch":
+        return f"{fixed(value, 2 if summary.unit == 'in' else 1)} {_e(summary.unit)}"
+    return fixed(value, 2)
 
 
 def _checks(summary: PassSummary) -> str:
@@ -283,10 +308,12 @@ def _checks(summary: PassSummary) -> str:
         '<table class="checks"><tr><th>check</th><th>target</th><th>value</th>'
         "<th></th><th>reason</th></tr>",
     ]
+    cell_mm = to_mm(summary.cell, summary.unit)
     for ch in verdict.checks:
+        target = target_words(ch.name, ch.target, summary.unit, cell_mm)
         parts.append(
-            f"<tr><td>{_e(ch.name)}</td><td>{_e(ch.target)}</td>"
-            f"<td>{fixed(ch.value, 2)}</td>"
+            f"<tr><td>{_e(check_label(ch.name))}</td><td>{_e(target)}</td>"
+            f"<td>{_check_value(ch.name, ch.value, summary)}</td>"
             f'<td class="{"ok" if ch.ok else "bad"}">{"✓ ok" if ch.ok else "✗ short"}</td>'
             f"<td>{_e(ch.reason)}</td></tr>"
         )
