@@ -103,3 +103,49 @@ def test_every_number_in_the_report_carries_its_unit(unit, cell, spec_name) -> N
     assert not bad, "numbers without a unit:\n" + "\n".join(bad)
     joined = " ".join(texts)
     assert " pts" not in joined and "_" not in joined  # no abbreviations, no snake_case
+
+
+@pytest.mark.parametrize(("cell_mm", "cells"), [(25.0, 2), (25.4, 2), (20.0, 3), (12.0, 4)])
+def test_two_inch_card_in_millimetres_has_no_sliver_cells(cell_mm, cells) -> None:
+    # the 2 in card's window is 50.8 mm (1 in = 25.4 mm exactly); counted in 25 mm
+    # cells it once gave a third column of 0.8 mm: now no cell is narrower than a
+    # quarter of the cell (common practice: a count over a sliver means nothing)
+    import math
+
+    import numpy as np
+
+    from printcheck.frame import Frame
+    from printcheck.layout import card_layout
+    from printcheck.measure import MeasureConfig, measure
+
+    w = card_layout().window
+    assert w.width_mm == pytest.approx(50.8)
+    s = 8.0
+    n = int(round(50.8 * s))
+    frame = Frame(px_per_mm=s, origin_mm=(w.x_mm, w.y_mm), shape=(n, n), window=w)
+    yy, xx = np.mgrid[:n, :n]
+    mask = ((yy % 40) < 8) & ((xx % 40) < 8)  # a 5 mm grid of 1 mm squares
+    analysed = np.ones((n, n), bool)
+    m = measure(mask, frame=frame, analysed=analysed, config=MeasureConfig(cell_mm=cell_mm))
+    assert (m.rows, m.cols) == (cells, cells)
+    for c in m.cells:
+        assert c.width_mm >= cell_mm / 4 and c.height_mm >= cell_mm / 4
+        assert c.width_mm <= 1.25 * cell_mm + 1e-9 and c.height_mm <= 1.25 * cell_mm + 1e-9
+    # the cells tile the window and count every spot once
+    # (to the pixel: 406 px at 8 px/mm cover 50.75 of the 50.8 mm)
+    assert sum(c.area_mm2 for c in m.cells) == pytest.approx(50.75**2, rel=1e-6)
+    assert sum(c.spot_count for c in m.cells) == m.spot_count == math.ceil(n / 40) ** 2
+    # a cell is complete when it is a whole cell (or more) inside the window
+    assert all(c.complete == (c.width_mm >= cell_mm and c.height_mm >= cell_mm) for c in m.cells)
+
+
+def test_version_is_printed() -> None:
+    import subprocess
+    import sys
+
+    from printcheck import __version__
+
+    out = subprocess.run(
+        [sys.executable, "-m", "printcheck", "--version"], capture_output=True, text=True
+    )
+    assert out.returncode == 0 and out.stdout.strip() == f"printcheck {__version__}"
