@@ -36,7 +36,7 @@ def summary_text(s: PassSummary) -> str:
     bearing = f"{_figure(s.bearing_percent, '.1f')}%"
     if conf and f"{conf.bearing_percent_low:.0f}" != f"{conf.bearing_percent_high:.0f}":
         bearing += f" ({conf.bearing_percent_low:.0f}-{conf.bearing_percent_high:.0f}%)"
-    bare = _figure(s.largest_bare, ".2f")
+    bare = _figure(s.largest_bare, ".2f" if unit == "in" else ".1f")
     lines.append(f"  bearing {bearing}   largest bare patch {bare} {unit}")
     if s.verdict is not None:
         v = s.verdict

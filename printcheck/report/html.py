@@ -35,7 +35,7 @@ from printcheck.wording import (
     target_words,
 )
 
-__all__ = ["render_report", "write_report"]
+__all__ = ["CELL_COLOURS", "bearing_class", "density_class", "render_report", "write_report"]
 
 _CSS = """
 :root { --ink:#1d232a; --muted:#5f6b76; --line:#d9dee3; --ok:#1e7e46; --bad:#b3261e;
@@ -131,33 +131,61 @@ def _mix(a: tuple[int, int, int], b: tuple[int, int, int], t: float) -> str:
     return f"#{r:02x}{g:02x}{bl:02x}"
 
 
-_PALE_RED = (246, 196, 190)
-_PALE_AMBER = (252, 226, 164)
-_PALE_GREEN = (181, 228, 195)
-_PALE_BLUE = (196, 218, 244)
-_PALE_ORANGE = (250, 205, 160)
+#: The cell maps' classes: one lightness each, far apart (CIE L* about 30, 60, 90), so
+#: they read apart to a colour-blind eye and in grey print; hues on the blue-yellow
+#: axis, which red-green colour blindness keeps.  (sRGB; the key below names them.)
+CELL_COLOURS: dict[str, tuple[int, int, int]] = {
+    "short": (38, 66, 120),  # dark blue: well short of the target (under 75 % of it)
+    "close": (140, 140, 128),  # grey: close (75 % of the target up to it)
+    "meets": (250, 232, 140),  # pale yellow: meets the target
+    "over": (205, 110, 40),  # orange-brown: more bearing than the spec allows
+}
+_DARK = {"short"}  # classes whose figures are written in white
 _WHITE = (248, 249, 250)
+
+
+def _hex(rgb: tuple[int, int, int]) -> str:
+    return "#{:02x}{:02x}{:02x}".format(*rgb)
+
+
+def density_class(value: float, target: float) -> str:
+    """The cell-map class of a density against its target (see :data:`CELL_COLOURS`)."""
+    ratio = value / target
+    if ratio >= 1.0 - 1e-9:
+        return "meets"
+    return "close" if ratio >= 0.75 else "short"
+
+
+def bearing_class(value: float, lo: float | None, hi: float | None) -> str:
+    """The cell-map class of a bearing against the spec's range."""
+    if hi is not None and value > hi:
+        return "over"
+    if lo is not None and value < lo:
+        return "close" if value >= 0.75 * lo else "short"
+    return "meets"
+
+
+def _colour_style(cls: str | None, t: float = 0.0) -> str:
+    """The inline style of a map cell: its class's colour, or a ramp from white to the
+    dark blue by ``t`` (0..1) where there is no target (lightness falls with ``t``)."""
+    if cls is None:
+        rgb = _mix(_WHITE, CELL_COLOURS["short"], 0.75 * t)
+        text = "#fff" if t > 0.55 else "#1d232a"
+        return f"background:{rgb};color:{text}"
+    text = "#fff" if cls in _DARK else "#1d232a"
+    return f"background:{_hex(CELL_COLOURS[cls])};color:{text}"
 
 
 def _density_colour(value: float, target: float | None, top: float) -> str:
     if target is None or target <= 0:
-        return _mix(_WHITE, _PALE_BLUE, value / top if top > 0 else 0.0)
-    ratio = value / target
-    if ratio >= 1.0:
-        return _mix(_PALE_GREEN, _PALE_GREEN, 0.0)
-    if ratio >= 0.75:
-        return _mix(_PALE_AMBER, _PALE_GREEN, (ratio - 0.75) / 0.25 * 0.4)
-    return _mix(_PALE_RED, _PALE_AMBER, ratio / 0.75)
+        return _colour_style(None, value / top if top > 0 else 0.0)
+    return _colour_style(density_class(value, target))
 
 
 def _bearing_colour(value: float, lo: float | None, hi: float | None) -> str:
     if lo is None and hi is None:
-        return _mix(_WHITE, _PALE_BLUE, value / 100.0)
-    if lo is not None and value < lo:
-        return _mix(_PALE_BLUE, _PALE_AMBER, value / lo if lo > 0 else 1.0)
-    if hi is not None and value > hi:
-        return _mix(_PALE_ORANGE, _PALE_RED, (value - hi) / max(100.0 - hi, 1.0))
-    return _mix(_PALE_GREEN, _PALE_GREEN, 0.0)
+        return _colour_style(None, value / 100.0)
+    return _colour_style(bearing_class(value, lo, hi))
 
 
 def _per(summary: PassSummary) -> str:
@@ -183,7 +211,7 @@ def _heat_table(cells: tuple[CellSummary, ...], caption: str, cell_html: Any, co
             cls = "" if cell.complete else ' class="part"'
             title = "" if cell.complete else ' title="incomplete cell"'
             sm = f"<small>{small}</small>" if small else ""
-            out.append(f'<td{cls}{title} style="background:{colour(cell)}">{text}{sm}</td>')
+            out.append(f'<td{cls}{title} style="{colour(cell)}">{text}{sm}</td>')
         out.append("</tr>")
     out.append("</table>")
     return "".join(out)
@@ -220,7 +248,8 @@ def _heat_tables(summary: PassSummary, spec: Spec | None) -> str:
     return (
         f'<div class="cols"><div>{density}</div><div>{bearing}</div></div>'
         '<p class="key">Italic: incomplete cell (cut by the window edge or an '
-        "exclusion). Green: meets the target; amber: close; red: well short.</p>"
+        "exclusion). Pale yellow: meets the target; grey: close (within a quarter of it); "
+        "dark blue: well short; orange-brown: more bearing than allowed.</p>"
     )
 
 
