@@ -401,12 +401,45 @@ def _legend(summary: PassSummary) -> str:
     return f'<ul class="legend">{"".join(items)}</ul>'
 
 
+def _change_table(summary: PassSummary, previous: PassSummary | None) -> str:
+    """Per-cell change of density and bearing since the pass before (same grid only)."""
+    if previous is None or not summary.cells:
+        return ""
+    same_grid = (
+        previous.unit == summary.unit
+        and previous.cell == summary.cell
+        and {(c.row, c.col) for c in previous.cells} == {(c.row, c.col) for c in summary.cells}
+    )
+    if not same_grid:
+        return (
+            '<p class="key">No cell-by-cell change: the pass before was counted on another '
+            "grid (unit, cell size or window).</p>"
+        )
+    before = {(c.row, c.col): c for c in previous.cells}
+
+    def text(c: CellSummary) -> tuple[str, str]:
+        b = before[(c.row, c.col)]
+        dd = c.density - b.density
+        db = c.bearing_percent - b.bearing_percent
+        return f"{dd:+.1f} points", f"{db:+.0f} % bearing"
+
+    def colour(c: CellSummary) -> str:
+        return "background:#f4f6f8;color:#1d232a"
+
+    caption = (
+        f"Change since the pass before: density in {_per(summary)}, and bearing in "
+        "percentage points"
+    )
+    return _heat_table(summary.cells, caption, text, colour)
+
+
 def _pass_section(
     number: int,
     summary: PassSummary,
     overlay: bytes | None,
     spec: Spec | None,
     folder: Path | None,
+    previous: PassSummary | None = None,
 ) -> str:
     """One pass: its head, figures, checks, warnings, overlay and cell maps."""
     parts = [
@@ -428,6 +461,10 @@ def _pass_section(
         parts.append(_legend(summary))
     parts.append("<h3>Cells</h3>")
     parts.append(_heat_tables(summary, spec))
+    change = _change_table(summary, previous)
+    if change:
+        parts.append("<h3>Change since the pass before</h3>")
+        parts.append(change)
     parts.append("</section>")
     return "".join(parts)
 
@@ -514,8 +551,10 @@ def render_report(
     if progress is not None and len(progress.passes) == len(passes):
         numbers = [p.number for p in progress.passes]
     body = [
-        _pass_section(n, summary, overlay, spec, folder_path)
-        for n, (summary, overlay) in reversed(list(zip(numbers, passes, strict=True)))
+        _pass_section(n, summary, overlay, spec, folder_path, previous)
+        for n, (summary, overlay), previous in reversed(
+            list(zip(numbers, passes, [None, *[s for s, _ in passes[:-1]]], strict=True))
+        )
     ]
     foot = f"<footer>printcheck {_e(__version__)}</footer></main></body></html>\n"
     return "\n".join(head) + "\n" + "\n".join(body) + "\n" + foot
