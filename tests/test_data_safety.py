@@ -377,7 +377,8 @@ FULL_DISKS = [
     ("db", "160k"),
     ("db", "128k"),
     ("db", "96k"),
-    ("out", "700k"),
+    ("out", "560k"),  # two overlays fit, then the report does not (was 700k: the
+    # overlays lost their burnt-in key and shrank, so the report fitted)
     ("out", "1600k"),
     ("out", "1m"),
 ]
