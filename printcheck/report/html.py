@@ -193,13 +193,19 @@ def _per(summary: PassSummary) -> str:
     return _e(density_words(to_mm(summary.cell, summary.unit), summary.unit))
 
 
-def _heat_table(cells: tuple[CellSummary, ...], caption: str, cell_html: Any, colour: Any) -> str:
+def _heat_table(
+    cells: tuple[CellSummary, ...],
+    caption: str,
+    cell_html: Any,
+    colour: Any,
+    css_class: str = "heat",
+) -> str:
     """A table of the cells on their grid: ``cell_html(cell)`` gives (text, small text),
     ``colour(cell)`` the background."""
     rows = max(c.row for c in cells) + 1
     cols = max(c.col for c in cells) + 1
     grid = {(c.row, c.col): c for c in cells}
-    out = [f'<table class="heat"><caption>{caption}</caption>']
+    out = [f'<table class="{css_class}"><caption>{caption}</caption>']
     for r in range(rows):
         out.append("<tr>")
         for c in range(cols):
@@ -430,7 +436,7 @@ def _change_table(summary: PassSummary, previous: PassSummary | None) -> str:
         f"Change since the pass before: density in {_per(summary)}, and bearing in "
         "percentage points"
     )
-    return _heat_table(summary.cells, caption, text, colour)
+    return _heat_table(summary.cells, caption, text, colour, css_class="heat change")
 
 
 def _pass_section(
