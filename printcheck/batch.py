@@ -899,9 +899,10 @@ class _Runner:
         if exc_type is None:
             self._pool.shutdown(wait=True)
             return
-        # Ctrl-C or an error: stop now, without waiting for the photos being measured
-        for future in self._futures:
-            future.cancel()
+        # Ctrl-C or an error: stop now, without waiting for the photos being measured.
+        # No future is cancelled from here: the pool's own thread cancels the waiting ones
+        # (cancel_futures), and one cancelled from this thread while that thread fails the
+        # killed pool's futures makes it raise (InvalidStateError, Python 3.11).
         for process in self._processes:
             with contextlib.suppress(OSError):
                 process.kill()  # a no-op for one already ended

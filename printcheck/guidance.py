@@ -6,6 +6,14 @@
   (from the Euclidean distance transform of the bare analysed pixels), and every patch
   larger than the spec allows (leave those alone this pass; they come up as the high
   areas around them are scraped).
+- **Advice** (:func:`advise`): the places above as a short ranked list in words, with
+  positions a fitter can find on the part: the cell's label (column letter, row number:
+  ``B2`` is the second column, second row, from the window's top-left) and the distances
+  of the place's centre from the nearer side and the nearer end of the window.  The places
+  to scrape (heavy bearing, oversized spots) come first, largest area first; then the bare
+  patches over the spec's limit (at most ``MAX_BARE``, largest first), to be left alone.
+  A place overlapping one ranked before it is the same place and is left out.  A print
+  that meets its spec gets at most ``MAX_WHEN_MET`` places, any other ``MAX_PLACES``.
 """
 
 from __future__ import annotations
@@ -18,9 +26,38 @@ import cv2
 import numpy as np
 
 from printcheck.frame import Frame
+from printcheck.layout import Window
 from printcheck.spots import Spots
 
-__all__ = ["BarePatch", "HighArea", "Guidance", "guidance", "largest_bare"]
+__all__ = [
+    "ACTIONS",
+    "KINDS",
+    "MAX_BARE",
+    "MAX_PLACES",
+    "MAX_WHEN_MET",
+    "Advice",
+    "BarePatch",
+    "HighArea",
+    "Guidance",
+    "advise",
+    "cell_label",
+    "guidance",
+    "largest_bare",
+]
+
+#: The kinds of place the advice names, in the words the outputs use.
+KINDS = ("heavy bearing", "oversized spot", "bare patch")
+#: What to do at each kind of place.
+ACTIONS = {
+    "heavy bearing": "break up",
+    "oversized spot": "split it",
+    "bare patch": "leave alone this pass",
+}
+#: Most places listed for a print that meets its spec, and for any other.
+MAX_WHEN_MET = 3
+MAX_PLACES = 8
+#: Most bare patches listed.
+MAX_BARE = 2
 
 
 @dataclass(frozen=True)
@@ -39,6 +76,7 @@ class HighArea(NamedTuple):
     y_mm: float
     size_mm: float
     reason: str
+    kind: str = "heavy bearing"
 
 
 @dataclass(frozen=True)
@@ -82,6 +120,7 @@ def guidance(
                     float(spots.y_mm[i]),
                     float(spots.diameter_mm[i]),
                     f"large spot {a:.1f} mm² ({a / med:.0f}x the median): break it up",
+                    "oversized spot",
                 )
             )
     # heavy-bearing regions: local bearing over a box of half a cell
@@ -120,6 +159,7 @@ def guidance(
                         2.0 * math.sqrt(area_px / math.pi) / s,
                         f"heavy bearing {peak:.0f}% against {bearing:.0f}% overall: "
                         "scrape this area down",
+                        "heavy bearing",
                     )
                 )
     bare: list[BarePatch] = []
@@ -172,3 +212,139 @@ def largest_bare(free: np.ndarray, frame: Frame) -> tuple[BarePatch, np.ndarray]
     r, c = divmod(k, free.shape[1])
     x, y = frame.to_mm(np.array(float(r)), np.array(float(c)))
     return BarePatch(2.0 * float(radius.flat[k]) / frame.px_per_mm, float(x), float(y)), radius
+
+
+@dataclass(frozen=True)
+class Advice:
+    """One place to work on next, as a fitter finds it on the part.
+
+    Attributes
+    ----------
+    rank : int
+        1 for the place that matters most.
+    kind : {"heavy bearing", "oversized spot", "bare patch"}
+    cell : str
+        The counting cell holding the place's centre: column letter, row number (``B2``).
+    x, y : float
+        Centre of the place from the window's left and top edges, in ``unit``.
+    edge_x, edge_y : {"left", "right"}, {"top", "bottom"}
+        The nearer side and end of the window.
+    from_x, from_y : float
+        Distances of the centre from ``edge_x`` and ``edge_y``, in ``unit``.
+    size : float
+        The place's size across, in ``unit``.
+    action : str
+        What to do there (:data:`ACTIONS`).
+    """
+
+    rank: int
+    kind: str
+    cell: str
+    x: float
+    y: float
+    edge_x: str
+    from_x: float
+    edge_y: str
+    from_y: float
+    size: float
+    action: str
+
+
+def cell_label(row: int, col: int) -> str:
+    """A cell's label: column letter(s) then 1-based row number (``cell_label(1, 1)`` is B2).
+
+    Columns past Z run on as AA, AB, ... as in a spreadsheet.
+    """
+    letters = ""
+    k = col + 1
+    while k > 0:
+        k, rem = divmod(k - 1, 26)
+        letters = chr(ord("A") + rem) + letters
+    return f"{letters}{row + 1}"
+
+
+def advise(
+    g: Guidance,
+    *,
+    window: Window,
+    cell_mm: float,
+    meets: bool | None,
+    to_unit: float = 1.0,
+    digits: int = 1,
+) -> tuple[Advice, ...]:
+    """The places of ``g`` as a short ranked list (see the module).
+
+    Parameters
+    ----------
+    g : Guidance
+        High areas and bare patches, centres in mm (layout frame).
+    window : Window
+        The analysed window, mm (layout frame).
+    cell_mm : float
+        Side of the counting cell, mm.
+    meets : bool or None
+        Whether the print meets its spec (True: at most :data:`MAX_WHEN_MET` places).
+    to_unit : float
+        Factor from mm to the output unit (``1 / 25.4`` for inches).
+    digits : int
+        Decimals the positions and sizes are rounded to.
+
+    Returns
+    -------
+    tuple of Advice
+        Ranked, the most important first; places never overlap.
+    """
+    limit = MAX_WHEN_MET if meets else MAX_PLACES
+    highs = sorted(
+        (
+            (h.kind if h.kind in ACTIONS else "heavy bearing", h.x_mm, h.y_mm, h.size_mm)
+            for h in (HighArea(*p) for p in g.high)
+        ),
+        key=lambda p: -p[3],
+    )
+    bares = sorted(
+        (("bare patch", b.x_mm, b.y_mm, b.diameter_mm) for b in g.bare), key=lambda p: -p[3]
+    )
+    n_bare = min(MAX_BARE, len(bares), limit)
+    kept: list[tuple[str, float, float, float]] = []
+    for group, room in ((highs, limit - n_bare), (bares, n_bare)):
+        taken = 0
+        for kind, x, y, size in group:
+            if taken >= room:
+                break
+            if any(math.hypot(x - kx, y - ky) < 0.5 * (size + ks) for _k, kx, ky, ks in kept):
+                continue
+            kept.append((kind, x, y, size))
+            taken += 1
+    out = []
+    w = window
+    for rank, (kind, x, y, size) in enumerate(kept, start=1):
+        dx, dy = x - w.x_mm, y - w.y_mm
+        col = min(
+            max(int(math.floor(dx / cell_mm)), 0), max(math.ceil(w.width_mm / cell_mm) - 1, 0)
+        )
+        row = min(
+            max(int(math.floor(dy / cell_mm)), 0), max(math.ceil(w.height_mm / cell_mm) - 1, 0)
+        )
+        near_x = ("left", dx) if dx <= w.width_mm - dx else ("right", w.width_mm - dx)
+        near_y = ("top", dy) if dy <= w.height_mm - dy else ("bottom", w.height_mm - dy)
+
+        def u(mm: float) -> float:
+            return round(max(mm, 0.0) * to_unit, digits)
+
+        out.append(
+            Advice(
+                rank=rank,
+                kind=kind,
+                cell=cell_label(row, col),
+                x=u(dx),
+                y=u(dy),
+                edge_x=near_x[0],
+                from_x=u(near_x[1]),
+                edge_y=near_y[0],
+                from_y=u(near_y[1]),
+                size=u(size),
+                action=ACTIONS[kind],
+            )
+        )
+    return tuple(out)

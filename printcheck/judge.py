@@ -37,7 +37,7 @@ if TYPE_CHECKING:
     from printcheck.measure import Measurement
     from printcheck.spec import Spec
 
-__all__ = ["Check", "Verdict", "judge", "describe_cells"]
+__all__ = ["Check", "Verdict", "certainty", "judge", "describe_cells"]
 
 # Float noise allowance when comparing a measured figure to a converted target.
 _REL_TOL = 1e-9
@@ -101,21 +101,33 @@ def _runs(cols: list[int]) -> str:
 
 
 def describe_cells(cells: list[tuple[int, int]], *, limit: int = 6) -> str:
-    """Name cells compactly: ``[(0, 2), (0, 3), (1, 0)]`` -> ``"row 1 cols 3-4; row 2 col 1"``.
+    """Name cells by their labels: ``[(0, 2), (0, 3), (1, 0)]`` -> ``"C1-D1; A2"``.
 
-    ``cells`` are 0-based (row, col) pairs; the text counts from 1 at the window's
-    top-left.  At most ``limit`` rows are named, then ``"and N more cells"``.
+    ``cells`` are 0-based (row, col) pairs; a label is the column letter from the left
+    and the row number from the top (:func:`printcheck.guidance.cell_label`, as the
+    guidance list names cells).  Runs along a row are joined (``C1-E1``).  At most
+    ``limit`` rows are named, then ``"and N more cells"``.
     """
+    from printcheck.guidance import cell_label
+
     by_row: dict[int, list[int]] = {}
     for row, col in sorted(set(cells)):
-        by_row.setdefault(row, []).append(col + 1)
+        by_row.setdefault(row, []).append(col)
     parts: list[str] = []
     shown = 0
     for row, cols in by_row.items():
         if len(parts) == limit:
             break
-        word = "col" if len(cols) == 1 else "cols"
-        parts.append(f"row {row + 1} {word} {_runs(cols)}")
+        runs: list[str] = []
+        start = prev = cols[0]
+        for col in [*cols[1:], -1]:  # -1 closes the last run
+            if col == prev + 1:
+                prev = col
+                continue
+            first, last = cell_label(row, start), cell_label(row, prev)
+            runs.append(first if start == prev else f"{first}-{last}")
+            start = prev = col
+        parts.append(", ".join(runs))
         shown += len(cols)
     text = "; ".join(parts)
     rest = len(set(cells)) - shown
@@ -128,8 +140,7 @@ def _as_stated(figure: float, spec: Spec, m: Measurement) -> str:
     """``" (20 per 25 mm square)"`` when the spec's square differs from the cell, else ``""``."""
     if math.isclose(spec.basis_mm, m.cell_mm, rel_tol=1e-9):
         return ""
-    words = density_words(spec.basis_mm, spec.units).removeprefix("points ")
-    return f" ({num(figure, 3)} {words})"
+    return f" ({num(figure, 3)} {density_words(spec.basis_mm, spec.units)})"
 
 
 def _density_check(m: Measurement, spec: Spec, unit: str) -> Check:
@@ -150,9 +161,9 @@ def _density_check(m: Measurement, spec: Spec, unit: str) -> Check:
     v, t = _pair(value, target, ok)
     stated = _as_stated(spec.min_density, spec, m)
     if ok:
-        reason = f"{v} {per} over the window; at least {t} needed{stated}"
+        reason = f"{v} {per} over the window; at least {t} {per} needed{stated}"
     else:
-        reason = f"{v} {per} over the window, below the {t} needed{stated}"
+        reason = f"{v} {per} over the window, below the {t} {per} needed{stated}"
     return Check("density", f">= {num(target, 1)}", value, ok, reason)
 
 
@@ -203,7 +214,7 @@ def _cell_check(m: Measurement, spec: Spec, unit: str) -> Check:
             reason += f"; {n_ok} reach it, {need} must ({num(100 * share, 1)}%)"
     else:
         lowest = densities[-1]
-        reason = f"all {n} {cells_word} reach {t} {per}{stated} (lowest {num(lowest, 1)})"
+        reason = f"all {n} {cells_word} reach {t} {per}{stated} (lowest {num(lowest, 1)} {per})"
     if partial:
         reason += f"; {partial} part {'cell' if partial == 1 else 'cells'} at the edge not judged"
     return Check("cell_density", target_text, value, ok, reason)
@@ -245,7 +256,7 @@ def _bare_check(m: Measurement, spec: Spec, unit: str) -> Check:
     ok = _at_most(value, limit)
     v, t = _pair(value, limit, ok, digits)
     where = (
-        f"centre x {num(from_mm(bare.x_mm, unit), digits)}, "
+        f"centre x {num(from_mm(bare.x_mm, unit), digits)} {unit}, "
         f"y {num(from_mm(bare.y_mm, unit), digits)} {unit}"
     )
     if ok:
@@ -290,8 +301,68 @@ def judge(measurement: Measurement, spec: Spec, *, unit: str = "in") -> Verdict:
         checks.append(_bearing_check(measurement, spec))
     if spec.max_bare_mm is not None:
         checks.append(_bare_check(measurement, spec, unit))
+    checks = [_with_certainty(c, spec) for c in checks]
     return Verdict(
         name=spec.name,
         meets=all(c.ok for c in checks),
         checks=tuple(checks),
     )
+
+
+#: The target keys behind each check, and how each is named beside the verdict.
+_CHECK_KEYS: dict[str, tuple[tuple[str, str], ...]] = {
+    "density": (("min_density", "target"),),
+    "cell_density": (("min_cell_density", "target"),),
+    "bearing": (("bearing_min", "minimum"), ("bearing_max", "maximum")),
+    "bare_patch": (("max_bare", "limit"),),
+}
+
+
+def certainty(source: str) -> str | None:
+    """How sure a target's source is, in words; None for a published figure.
+
+    ``"from memory"``, ``"common practice"``, ``"printcheck's rule"`` (our own rule) or
+    ``"printcheck's reading"`` (our reading of a standard's words).
+    """
+    low = source.lower()
+    if "from memory" in low:
+        return "from memory"
+    if low.startswith("common practice") or low.startswith("min: common practice"):
+        return "common practice"
+    if "printcheck's own rule" in low:
+        return "printcheck's rule"
+    if "our reading" in low:
+        return "printcheck's reading"
+    return None
+
+
+def _with_certainty(check: Check, spec: Spec) -> Check:
+    """``check`` with how sure its targets are said beside its reason (nothing when the
+    figures are published or the spec gives no sources)."""
+    notes = []
+    n_set = 0
+    for key, word in _CHECK_KEYS.get(check.name, ()):
+        if _target_set(spec, key):
+            n_set += 1
+            how = certainty(spec.source_of(key))
+            if how is not None:
+                notes.append((word, how))
+    if not notes:
+        return check
+    if len(notes) == n_set and len({how for _w, how in notes}) == 1:
+        plural = "s" if len(notes) > 1 else ""
+        text = f"target{plural}: {notes[0][1]}"
+    else:
+        text = "; ".join(f"{word}: {how}" for word, how in notes)
+    return Check(check.name, check.target, check.value, check.ok, f"{check.reason} ({text})")
+
+
+def _target_set(spec: Spec, key: str) -> bool:
+    value = {
+        "min_density": spec.min_density,
+        "min_cell_density": spec.min_cell_density,
+        "bearing_min": spec.bearing_min,
+        "bearing_max": spec.bearing_max,
+        "max_bare": spec.max_bare_mm,
+    }[key]
+    return value is not None

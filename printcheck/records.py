@@ -17,9 +17,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime
+from typing import TYPE_CHECKING
 
 from printcheck.judge import Verdict
 from printcheck.spec import Spec
+
+if TYPE_CHECKING:
+    from printcheck.guidance import Advice
 
 __all__ = [
     "CalibrationSummary",
@@ -160,6 +164,9 @@ class PassSummary:
     high, bare : tuples of HighArea, BareArea
         Where to scrape next.
     warnings : tuple of str
+    advice : tuple of Advice
+        Where to scrape next as a short ranked list (:func:`printcheck.guidance.advise`);
+        None for a pass recorded before the list was made.
     """
 
     photo: str
@@ -183,6 +190,7 @@ class PassSummary:
     high: tuple[HighArea, ...] = ()
     bare: tuple[BareArea, ...] = ()
     warnings: tuple[str, ...] = ()
+    advice: tuple[Advice, ...] | None = None
 
     @property
     def meets(self) -> bool | None:

@@ -23,6 +23,7 @@ from typing import TYPE_CHECKING, Any, NamedTuple
 
 import numpy as np
 
+from printcheck.guidance import Advice, advise
 from printcheck.judge import Check, Verdict
 from printcheck.records import (
     BareArea,
@@ -144,7 +145,7 @@ def summarize(result: Result) -> PassSummary:
         ),
         high=tuple(
             HighArea(_rf(from_mm(x, u), 4), _rf(from_mm(y, u), 4), _rf(from_mm(s, u), 4), why)
-            for x, y, s, why in m.guidance.high
+            for x, y, s, why, *_kind in m.guidance.high
         ),
         bare=tuple(
             BareArea(
@@ -155,6 +156,14 @@ def summarize(result: Result) -> PassSummary:
             for b in m.guidance.bare
         ),
         warnings=tuple(str(w) for w in result.warnings),
+        advice=advise(
+            m.guidance,
+            window=win,
+            cell_mm=float(m.cell_mm),
+            meets=result.meets,
+            to_unit=from_mm(1.0, u),
+            digits=2 if u == "in" else 1,
+        ),
     )
 
 
@@ -243,7 +252,14 @@ def summary_to_dict(s: PassSummary) -> dict[str, Any]:
             "bare": [dataclasses.asdict(b) for b in s.bare],
         },
         "warnings": list(s.warnings),
-    }
+    } | _advice_dict(s)
+
+
+def _advice_dict(s: PassSummary) -> dict[str, Any]:
+    """The added ``advice`` key; none for a pass recorded before it was made."""
+    if s.advice is None:
+        return {}
+    return {"advice": [dataclasses.asdict(a) for a in s.advice]}
 
 
 def _opt_float(value: Any) -> float | None:
@@ -270,7 +286,8 @@ def summary_from_dict(data: Mapping[str, Any]) -> PassSummary:
     """Read a result JSON object back (the inverse of :func:`summary_to_dict`).
 
     The contract's keys are required; the added ones (``sha256``, ``confidence``,
-    ``spot_sizes``, ``segmentation``, ``guidance``, ``warnings``) may be missing.
+    ``spot_sizes``, ``segmentation``, ``guidance``, ``warnings``, ``advice``) may be
+    missing.
 
     Raises
     ------
@@ -337,6 +354,7 @@ def _summary_from(d: Mapping[str, Any]) -> PassSummary:
         high=tuple(HighArea(**h) for h in guidance.get("high") or ()),
         bare=tuple(BareArea(**b) for b in guidance.get("bare") or ()),
         warnings=tuple(str(w) for w in d.get("warnings") or ()),
+        advice=None if d.get("advice") is None else tuple(Advice(**a) for a in d["advice"]),
     )
 
 
@@ -483,6 +501,6 @@ def overlay_marks(result: Result) -> OverlayMarks:
             for c in m.cells
         ),
         cell_mm=float(m.cell_mm),
-        high=tuple(Circle(x, y, size) for x, y, size, _why in m.guidance.high),
+        high=tuple(Circle(x, y, size) for x, y, size, *_why in m.guidance.high),
         bare=tuple(Circle(b.x_mm, b.y_mm, b.diameter_mm) for b in m.guidance.bare),
     )

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from printcheck.records import CellSummary, PassSummary
 from printcheck.units import to_mm
-from printcheck.wording import density_words
+from printcheck.wording import advice_line, check_label, density_words
 
-__all__ = ["summary_text"]
+__all__ = ["advice_lines", "summary_text"]
 
 _MAX_GRID_CELLS = 64  # larger grids are left to the report
 
@@ -34,21 +34,31 @@ def summary_text(s: PassSummary) -> str:
         f"{s.window.width:g} x {s.window.height:g} {unit}"
     )
     bearing = f"{_figure(s.bearing_percent, '.1f')}%"
-    if conf:
+    if conf and f"{conf.bearing_percent_low:.0f}" != f"{conf.bearing_percent_high:.0f}":
         bearing += f" ({conf.bearing_percent_low:.0f}-{conf.bearing_percent_high:.0f}%)"
-    bare = _figure(s.largest_bare, ".2f")
+    bare = _figure(s.largest_bare, ".2f" if unit == "in" else ".1f")
     lines.append(f"  bearing {bearing}   largest bare patch {bare} {unit}")
     if s.verdict is not None:
         v = s.verdict
         lines.append(f"  spec {v.name}: {'MEETS' if v.meets else 'DOES NOT MEET'}")
         for check in v.checks:
             mark = "ok  " if check.ok else "FAIL"
-            lines.append(f"    {mark} {check.name}: {check.reason}")
+            lines.append(f"    {mark} {check_label(check.name)}: {check.reason}")
     if s.cells and len(s.cells) <= _MAX_GRID_CELLS:
         lines.append("  cells (points / bearing %; * incomplete):")
         lines += _cell_grid(s.cells)
+    lines += advice_lines(s)
     lines += [f"  warning: {warning}" for warning in s.warnings]
     return "\n".join(lines)
+
+
+def advice_lines(s: PassSummary, indent: str = "  ") -> list[str]:
+    """The guidance list of ``s`` under its heading (no lines when there is none)."""
+    if not s.advice:
+        return []
+    return [f"{indent}where to scrape next:"] + [
+        f"{indent}  {advice_line(a, s.unit)}" for a in s.advice
+    ]
 
 
 def _cell_grid(cells: tuple[CellSummary, ...]) -> list[str]:

@@ -25,6 +25,7 @@ from typing import TYPE_CHECKING
 from printcheck.units import MM_PER_IN
 
 if TYPE_CHECKING:
+    from printcheck.guidance import Advice
     from printcheck.spec import Spec
 
 __all__ = [
@@ -37,7 +38,21 @@ __all__ = [
     "length_words",
     "bearing_words",
     "target_lines",
+    "advice_line",
+    "advice_words",
+    "CHECK_LABELS",
+    "check_label",
+    "target_words",
+    "range_words",
 ]
+
+#: What each check of a verdict is called where people read it (never its JSON name).
+CHECK_LABELS = {
+    "density": "density",
+    "cell_density": "every cell",
+    "bearing": "bearing",
+    "bare_patch": "bare patch",
+}
 
 
 def num(value: float, digits: int = 1) -> str:
@@ -202,3 +217,66 @@ def target_lines(spec: Spec) -> list[TargetLine]:
             )
         )
     return out
+
+
+def advice_line(a: Advice, unit: str) -> str:
+    """One place of the guidance list as a fitter reads it.
+
+    ``"1. heavy bearing, cell B2, 12 mm from the left edge and 30 mm from the top edge of
+    the window: break up"``; millimetres to the whole mm, inches to the hundredth.
+    """
+    return f"{a.rank}. {advice_words(a, unit)}"
+
+
+def advice_words(a: Advice, unit: str) -> str:
+    """:func:`advice_line` without its rank (for a numbered list that numbers itself)."""
+    digits = 2 if unit == "in" else 0
+    fx = f"{a.from_x:.{digits}f} {unit}"
+    fy = f"{a.from_y:.{digits}f} {unit}"
+    return (
+        f"{a.kind}, cell {a.cell}, {fx} from the {a.edge_x} edge and {fy} "
+        f"from the {a.edge_y} edge of the window: {a.action}"
+    )
+
+
+def check_label(name: str) -> str:
+    """A check's name as people read it: ``"cell_density"`` is ``"every cell"``."""
+    return CHECK_LABELS.get(name, name.replace("_", " "))
+
+
+def target_words(name: str, target: str, unit: str, cell_mm: float) -> str:
+    """A check's target (``">= 16.5"`` in the result JSON) in words, with its unit.
+
+    ``target_words("density", ">= 16.5", "in", 25.4)`` is
+    ``"at least 16.5 points per square inch"``; a bearing ``"20-60%"`` is
+    ``"20% to 60%"``; a bare patch ``"<= 0.748"`` is ``"at most 0.748 in across"``.
+    """
+    text = target.strip()
+    rest = ""
+    if " in " in text:  # ">= 16 in 75% of cells"
+        text, rest = text.split(" in ", 1)
+        rest = f" in {rest}"
+    if text.startswith(">="):
+        words = "at least " + text[2:].strip()
+    elif text.startswith("<="):
+        words = "at most " + text[2:].strip()
+    elif "-" in text and name == "bearing":
+        lo, hi = text.rstrip("%").split("-", 1)
+        return f"{lo.strip()}% to {hi.strip()}%"
+    else:
+        words = text
+    if name in ("density", "cell_density"):
+        words += " " + density_words(cell_mm, unit)
+    elif name == "bare_patch":
+        words += f" {unit} across"
+    elif name == "bearing" and not words.endswith("%"):
+        words += "%"
+    return words + rest
+
+
+def range_words(low: float, high: float, digits: int = 0, unit: str = "") -> str:
+    """A likely range, ``"range 12-15 %"``; ``""`` when it is one value (no ``12-12``)."""
+    lo, hi = fixed(low, digits), fixed(high, digits)
+    if lo == hi:
+        return ""
+    return f"range {lo}–{hi}" + (f" {unit}" if unit else "")

@@ -100,14 +100,14 @@ def by_name(verdict):
 
 
 def test_two_of_eight_cells_below_20_ppi():
-    # the reason's form: '2 of 8 cells below 20 points per square inch: row 1 cols 3-4'
+    # the reason's form: '2 of 8 cells below 20 points per square inch: C1-D1'
     # (rows and cols counted from 1 at the window's top-left)
     grid = [[22, 25, 15, 12], [21, 20, 30, 24]]
     m = make(cells=_cells(grid, cell_mm=IN), density=21.125)
     v = judge(m, spec(min_cell_density=20.0), unit="in")
     (check,) = v.checks
     assert check.name == "cell_density"
-    assert check.reason == "2 of 8 cells below 20 points per square inch: row 1 cols 3-4"
+    assert check.reason == "2 of 8 cells below 20 points per square inch: C1-D1"
     assert check.target == ">= 20"
     assert check.value == 12.0  # the lowest complete cell
     assert not check.ok and not v.meets
@@ -119,7 +119,10 @@ def test_all_cells_reach():
     v = judge(make(cells=_cells(grid, cell_mm=IN)), spec(min_cell_density=20.0))
     (check,) = v.checks
     assert check.ok and v.meets
-    assert check.reason == "all 4 cells reach 20 points per square inch (lowest 20)"
+    assert (
+        check.reason
+        == "all 4 cells reach 20 points per square inch (lowest 20 points per square inch)"
+    )
 
 
 # --------------------------------------------------------------------------- units
@@ -135,7 +138,8 @@ def test_ppi_spec_judged_on_25_mm_cells():
     check = by_name(low)["density"]
     assert check.target == ">= 19.4"
     assert check.reason == (
-        "19.37 points per 25 mm square over the window, below the 19.38 needed (20 per square inch)"
+        "19.37 points per 25 mm square over the window, below the 19.38 points per 25 mm square "
+        "needed (20 points per square inch)"
     )
     assert 19.37 < target < 19.38
 
@@ -149,7 +153,7 @@ def test_per_25_mm_spec_judged_on_inch_cells():
     checks = by_name(v)
     assert checks["density"].target == f">= {target:.1f}"  # ">= 16.5"
     assert checks["cell_density"].reason.startswith(
-        "1 of 4 cells below 16.5 points per square inch (16 per 25 mm square): row 2 col 1"
+        "1 of 4 cells below 16.5 points per square inch (16 points per 25 mm square): A2"
     )
     assert not v.meets
 
@@ -213,7 +217,7 @@ def test_bare_patch_in_mm_and_inches():
     s = spec(max_bare_mm=17.0)
     mm = judge(make(bare_mm=20.0), s, unit="mm").checks[0]
     assert (mm.name, mm.target, mm.value, mm.ok) == ("bare_patch", "<= 17", 20.0, False)
-    assert mm.reason.startswith("largest bare patch 20 mm across (centre x 12, y 30 mm)")
+    assert mm.reason.startswith("largest bare patch 20 mm across (centre x 12 mm, y 30 mm)")
     inch = judge(make(bare_mm=20.0), s, unit="in").checks[0]
     assert inch.value == pytest.approx(20.0 / 25.4)  # 0.787 in
     assert inch.target == "<= 0.669"  # 17 / 25.4
@@ -232,7 +236,7 @@ def test_incomplete_cells_are_not_judged():
     check = judge(make(cells=cells), spec(min_cell_density=20.0)).checks[0]
     assert check.ok
     assert check.reason == (
-        "all 2 cells reach 20 points per square inch (lowest 25); "
+        "all 2 cells reach 20 points per square inch (lowest 25 points per square inch); "
         "1 part cell at the edge not judged"
     )
 
@@ -260,15 +264,13 @@ def test_cell_share():
     assert check.target == ">= 20 in 75% of cells"
     assert check.value == 25.0  # the 6th highest cell density
     assert check.reason == (
-        "2 of 8 cells below 20 points per square inch: row 1 cols 1-2; 6 reach it, 6 must (75%)"
+        "2 of 8 cells below 20 points per square inch: A1-B1; 6 reach it, 6 must (75%)"
     )
     grid[1][3] = 5
     check = judge(make(cells=_cells(grid, cell_mm=IN)), s).checks[0]
     assert not check.ok
     assert check.value == 12.0
-    assert check.reason.startswith(
-        "3 of 8 cells below 20 points per square inch: row 1 cols 1-2; row 2 col 4"
-    )
+    assert check.reason.startswith("3 of 8 cells below 20 points per square inch: A1-B1; D2")
 
 
 def test_empty_window():
@@ -282,13 +284,12 @@ def test_empty_window():
 @pytest.mark.parametrize(
     ("cells", "text"),
     [
-        ([(0, 2), (0, 3)], "row 1 cols 3-4"),
-        ([(1, 0)], "row 2 col 1"),
-        ([(0, 0), (0, 2), (0, 3), (0, 4), (2, 7)], "row 1 cols 1, 3-5; row 3 col 8"),
+        ([(0, 2), (0, 3)], "C1-D1"),
+        ([(1, 0)], "A2"),
+        ([(0, 0), (0, 2), (0, 3), (0, 4), (2, 7)], "A1, C1-E1; H3"),
         (
             [(r, 0) for r in range(8)],
-            "row 1 col 1; row 2 col 1; row 3 col 1; row 4 col 1; "
-            "row 5 col 1; row 6 col 1; and 2 more cells",
+            "A1; A2; A3; A4; A5; A6; and 2 more cells",
         ),
     ],
 )
@@ -358,3 +359,17 @@ def test_meets_is_the_conjunction_of_independent_comparisons(
     assert v.meets == all(expect.values())
     for c in v.checks:
         assert c.reason and "\n" not in c.reason
+
+
+def test_how_sure_each_target_is_is_said_beside_the_verdict():
+    # the plate's bearing minimum is published (ISO 8512-1:1990 clause 9), its maximum
+    # is common practice; its density is from memory
+    s = find_spec("plate-grade-0")
+    v = judge(make(bearing=30.0), s, unit="mm")
+    reasons = {c.name: c.reason for c in v.checks}
+    assert reasons["density"].endswith("(target: from memory)")
+    assert reasons["bearing"].endswith("(maximum: common practice)")
+    assert reasons["bare_patch"].endswith("(target: printcheck's rule)")
+    # a spec file without sources says nothing of the kind
+    plain = judge(make(bearing=30.0), spec(bearing_min=20.0, bearing_max=60.0))
+    assert "(target" not in plain.checks[0].reason

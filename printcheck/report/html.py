@@ -23,9 +23,19 @@ from printcheck.records import CellSummary, PassSummary, Progress
 from printcheck.report.files import CSV_NAME, output_name, write_text
 from printcheck.spec import Spec
 from printcheck.units import to_mm
-from printcheck.wording import bearing_words, density_words, fixed, num, target_lines
+from printcheck.wording import (
+    advice_words,
+    bearing_words,
+    check_label,
+    density_words,
+    fixed,
+    num,
+    range_words,
+    target_lines,
+    target_words,
+)
 
-__all__ = ["render_report", "write_report"]
+__all__ = ["CELL_COLOURS", "bearing_class", "density_class", "render_report", "write_report"]
 
 _CSS = """
 :root { --ink:#1d232a; --muted:#5f6b76; --line:#d9dee3; --ok:#1e7e46; --bad:#b3261e;
@@ -73,6 +83,11 @@ table.heat caption { caption-side: top; text-align: left; font-size: 13px; color
        padding-bottom: 4px; }
 ul.warn { background: var(--warnbg); border-radius: 6px; padding: 8px 8px 8px 28px; margin: 8px 0; }
 .key { font-size: 12px; color: var(--muted); }
+ol.advice { margin: 6px 0 10px; padding-left: 26px; }
+ol.advice li { margin: 2px 0; }
+ul.legend { list-style: none; padding: 0; margin: 6px 0 0; display: flex; flex-wrap: wrap;
+       gap: 4px 18px; font-size: 13px; }
+ul.legend svg { vertical-align: middle; margin-right: 5px; }
 footer { color: var(--muted); font-size: 12px; text-align: center; margin-top: 30px; }
 a { color: #1f5fa8; }
 @media print {
@@ -116,33 +131,61 @@ def _mix(a: tuple[int, int, int], b: tuple[int, int, int], t: float) -> str:
     return f"#{r:02x}{g:02x}{bl:02x}"
 
 
-_PALE_RED = (246, 196, 190)
-_PALE_AMBER = (252, 226, 164)
-_PALE_GREEN = (181, 228, 195)
-_PALE_BLUE = (196, 218, 244)
-_PALE_ORANGE = (250, 205, 160)
+#: The cell maps' classes: one lightness each, far apart (CIE L* about 30, 60, 90), so
+#: they read apart to a colour-blind eye and in grey print; hues on the blue-yellow
+#: axis, which red-green colour blindness keeps.  (sRGB; the key below names them.)
+CELL_COLOURS: dict[str, tuple[int, int, int]] = {
+    "short": (38, 66, 120),  # dark blue: well short of the target (under 75 % of it)
+    "close": (140, 140, 128),  # grey: close (75 % of the target up to it)
+    "meets": (250, 232, 140),  # pale yellow: meets the target
+    "over": (205, 110, 40),  # orange-brown: more bearing than the spec allows
+}
+_DARK = {"short"}  # classes whose figures are written in white
 _WHITE = (248, 249, 250)
+
+
+def _hex(rgb: tuple[int, int, int]) -> str:
+    return "#{:02x}{:02x}{:02x}".format(*rgb)
+
+
+def density_class(value: float, target: float) -> str:
+    """The cell-map class of a density against its target (see :data:`CELL_COLOURS`)."""
+    ratio = value / target
+    if ratio >= 1.0 - 1e-9:
+        return "meets"
+    return "close" if ratio >= 0.75 else "short"
+
+
+def bearing_class(value: float, lo: float | None, hi: float | None) -> str:
+    """The cell-map class of a bearing against the spec's range."""
+    if hi is not None and value > hi:
+        return "over"
+    if lo is not None and value < lo:
+        return "close" if value >= 0.75 * lo else "short"
+    return "meets"
+
+
+def _colour_style(cls: str | None, t: float = 0.0) -> str:
+    """The inline style of a map cell: its class's colour, or a ramp from white to the
+    dark blue by ``t`` (0..1) where there is no target (lightness falls with ``t``)."""
+    if cls is None:
+        rgb = _mix(_WHITE, CELL_COLOURS["short"], 0.75 * t)
+        text = "#fff" if t > 0.55 else "#1d232a"
+        return f"background:{rgb};color:{text}"
+    text = "#fff" if cls in _DARK else "#1d232a"
+    return f"background:{_hex(CELL_COLOURS[cls])};color:{text}"
 
 
 def _density_colour(value: float, target: float | None, top: float) -> str:
     if target is None or target <= 0:
-        return _mix(_WHITE, _PALE_BLUE, value / top if top > 0 else 0.0)
-    ratio = value / target
-    if ratio >= 1.0:
-        return _mix(_PALE_GREEN, _PALE_GREEN, 0.0)
-    if ratio >= 0.75:
-        return _mix(_PALE_AMBER, _PALE_GREEN, (ratio - 0.75) / 0.25 * 0.4)
-    return _mix(_PALE_RED, _PALE_AMBER, ratio / 0.75)
+        return _colour_style(None, value / top if top > 0 else 0.0)
+    return _colour_style(density_class(value, target))
 
 
 def _bearing_colour(value: float, lo: float | None, hi: float | None) -> str:
     if lo is None and hi is None:
-        return _mix(_WHITE, _PALE_BLUE, value / 100.0)
-    if lo is not None and value < lo:
-        return _mix(_PALE_BLUE, _PALE_AMBER, value / lo if lo > 0 else 1.0)
-    if hi is not None and value > hi:
-        return _mix(_PALE_ORANGE, _PALE_RED, (value - hi) / max(100.0 - hi, 1.0))
-    return _mix(_PALE_GREEN, _PALE_GREEN, 0.0)
+        return _colour_style(None, value / 100.0)
+    return _colour_style(bearing_class(value, lo, hi))
 
 
 def _per(summary: PassSummary) -> str:
@@ -150,13 +193,19 @@ def _per(summary: PassSummary) -> str:
     return _e(density_words(to_mm(summary.cell, summary.unit), summary.unit))
 
 
-def _heat_table(cells: tuple[CellSummary, ...], caption: str, cell_html: Any, colour: Any) -> str:
+def _heat_table(
+    cells: tuple[CellSummary, ...],
+    caption: str,
+    cell_html: Any,
+    colour: Any,
+    css_class: str = "heat",
+) -> str:
     """A table of the cells on their grid: ``cell_html(cell)`` gives (text, small text),
     ``colour(cell)`` the background."""
     rows = max(c.row for c in cells) + 1
     cols = max(c.col for c in cells) + 1
     grid = {(c.row, c.col): c for c in cells}
-    out = [f'<table class="heat"><caption>{caption}</caption>']
+    out = [f'<table class="{css_class}"><caption>{caption}</caption>']
     for r in range(rows):
         out.append("<tr>")
         for c in range(cols):
@@ -168,7 +217,7 @@ def _heat_table(cells: tuple[CellSummary, ...], caption: str, cell_html: Any, co
             cls = "" if cell.complete else ' class="part"'
             title = "" if cell.complete else ' title="incomplete cell"'
             sm = f"<small>{small}</small>" if small else ""
-            out.append(f'<td{cls}{title} style="background:{colour(cell)}">{text}{sm}</td>')
+            out.append(f'<td{cls}{title} style="{colour(cell)}">{text}{sm}</td>')
         out.append("</tr>")
     out.append("</table>")
     return "".join(out)
@@ -184,14 +233,16 @@ def _heat_tables(summary: PassSummary, spec: Spec | None) -> str:
     top = max((c.density for c in cells), default=0.0)
     lo = None if spec is None else spec.bearing_min
     hi = None if spec is None else spec.bearing_max
-    dcap = f"Density, {_per(summary)}" + ("" if target is None else f" (target {num(target, 1)})")
+    dcap = f"Density, {_per(summary)}" + (
+        "" if target is None else f" (target at least {num(target, 1)} {_per(summary)})"
+    )
     bcap = "Bearing"
     if lo is not None or hi is not None:
         bcap = f"Bearing (target {_e(bearing_words(lo, hi).span)})"
     density = _heat_table(
         cells,
         dcap,
-        lambda c: (fixed(c.density, 1), f"{fixed(c.spot_count)} pts"),
+        lambda c: (fixed(c.density, 1), _points(c.spot_count)),
         lambda c: _density_colour(c.density, target, top),
     )
     bearing = _heat_table(
@@ -203,7 +254,8 @@ def _heat_tables(summary: PassSummary, spec: Spec | None) -> str:
     return (
         f'<div class="cols"><div>{density}</div><div>{bearing}</div></div>'
         '<p class="key">Italic: incomplete cell (cut by the window edge or an '
-        "exclusion). Green: meets the target; amber: close; red: well short.</p>"
+        "exclusion). Pale yellow: meets the target; grey: close (within a quarter of it); "
+        "dark blue: well short; orange-brown: more bearing than allowed.</p>"
     )
 
 
@@ -243,14 +295,17 @@ def _pass_figures(summary: PassSummary) -> str:
     conf = summary.confidence
     cnt_rng = bear_rng = ""
     if conf is not None:
-        cnt_rng = f"range {fixed(conf.spot_count_low)}–{fixed(conf.spot_count_high)}"
-        bear_rng = f"range {fixed(conf.bearing_percent_low)}–{fixed(conf.bearing_percent_high)} %"
+        cnt_rng = range_words(conf.spot_count_low, conf.spot_count_high, 0, "spots")
+        bear_rng = range_words(conf.bearing_percent_low, conf.bearing_percent_high, 1, "%")
     parts = [
         '<div class="figures">',
         _figure(fixed(summary.density), _per(summary)),
         _figure(fixed(summary.bearing_percent) + " %", "bearing", bear_rng),
         _figure(fixed(summary.spot_count), "spots in the window", cnt_rng),
-        _figure(fixed(summary.largest_bare, 2) + f" {_e(summary.unit)}", "largest bare patch"),
+        _figure(
+            fixed(summary.largest_bare, 2 if summary.unit == "in" else 1) + f" {_e(summary.unit)}",
+            "largest bare patch",
+        ),
         "</div>",
     ]
     if conf is not None and conf.doubtful:
@@ -259,6 +314,23 @@ def _pass_figures(summary: PassSummary) -> str:
             f"{_e(conf.reason or 'the segmentation threshold matters')}</li></ul>"
         )
     return "".join(parts)
+
+
+def _points(n: int) -> str:
+    return f"{n} point" if n == 1 else f"{n} points"
+
+
+def _check_value(name: str, value: float | None, summary: PassSummary) -> str:
+    """A check's value with its unit, rounded as the pass's figures above it are."""
+    if value is None:
+        return "–"
+    if name in ("density", "cell_density"):
+        return f"{fixed(value, 1)} {_e(_per(summary))}"
+    if name == "bearing":
+        return f"{fixed(value, 1)} %"
+    if name == "bare_patch":
+        return f"{fixed(value, 2 if summary.unit == 'in' else 1)} {_e(summary.unit)}"
+    return fixed(value, 2)
 
 
 def _checks(summary: PassSummary) -> str:
@@ -271,15 +343,100 @@ def _checks(summary: PassSummary) -> str:
         '<table class="checks"><tr><th>check</th><th>target</th><th>value</th>'
         "<th></th><th>reason</th></tr>",
     ]
+    cell_mm = to_mm(summary.cell, summary.unit)
     for ch in verdict.checks:
+        target = target_words(ch.name, ch.target, summary.unit, cell_mm)
         parts.append(
-            f"<tr><td>{_e(ch.name)}</td><td>{_e(ch.target)}</td>"
-            f"<td>{fixed(ch.value, 2)}</td>"
+            f"<tr><td>{_e(check_label(ch.name))}</td><td>{_e(target)}</td>"
+            f"<td>{_check_value(ch.name, ch.value, summary)}</td>"
             f'<td class="{"ok" if ch.ok else "bad"}">{"✓ ok" if ch.ok else "✗ short"}</td>'
             f"<td>{_e(ch.reason)}</td></tr>"
         )
     parts.append("</table>")
     return "".join(parts)
+
+
+def _advice(summary: PassSummary) -> str:
+    """Where to scrape next: the ranked list in words (nothing when there is none)."""
+    if not summary.advice:
+        return ""
+    items = "".join(f"<li>{_e(advice_words(a, summary.unit))}</li>" for a in summary.advice)
+    return (
+        "<h3>Where to scrape next</h3>"
+        f'<ol class="advice">{items}</ol>'
+        '<p class="key">Cells are lettered by column from the left (A, B, ...) and numbered '
+        "by row from the top; the numbers on the print are these ranks.</p>"
+    )
+
+
+def _swatch(colour_key: str, shape: str) -> str:
+    """A small inline SVG of one overlay mark, in the overlay's own colour."""
+    from printcheck.report.overlay import COLOURS
+
+    b, g, r = COLOURS[colour_key]
+    c = f"#{r:02x}{g:02x}{b:02x}"
+    if shape == "diamond":
+        body = f'<polygon points="9,2 16,9 9,16 2,9" fill="none" stroke="{c}" stroke-width="2.5"/>'
+    elif shape == "dashed circle":
+        body = (
+            f'<circle cx="9" cy="9" r="6.5" fill="none" stroke="{c}" stroke-width="2.5" '
+            'stroke-dasharray="3 2"/>'
+        )
+    elif shape == "hatched circle":
+        body = (
+            f'<circle cx="9" cy="9" r="6.5" fill="{c}" fill-opacity=".35" stroke="{c}" '
+            'stroke-width="2.5"/>'
+        )
+    else:
+        body = (
+            f'<rect x="2" y="4" width="14" height="10" fill="none" stroke="{c}" stroke-width="2"/>'
+        )
+    return (
+        '<svg width="18" height="18" viewBox="0 0 18 18" aria-hidden="true">'
+        f'<rect width="18" height="18" fill="#333"/>{body}</svg>'
+    )
+
+
+def _legend(summary: PassSummary) -> str:
+    """The key to the overlay's marks and figures, beside the image."""
+    from printcheck.report.overlay import LEGEND
+
+    items = [f"<li>{_swatch(key, shape)}{_e(words)}</li>" for key, shape, words in LEGEND]
+    per = density_words(to_mm(summary.cell, summary.unit), summary.unit)
+    items.append(f"<li>figures in each cell: large, {_e(per)}; small, bearing %</li>")
+    return f'<ul class="legend">{"".join(items)}</ul>'
+
+
+def _change_table(summary: PassSummary, previous: PassSummary | None) -> str:
+    """Per-cell change of density and bearing since the pass before (same grid only)."""
+    if previous is None or not summary.cells:
+        return ""
+    same_grid = (
+        previous.unit == summary.unit
+        and previous.cell == summary.cell
+        and {(c.row, c.col) for c in previous.cells} == {(c.row, c.col) for c in summary.cells}
+    )
+    if not same_grid:
+        return (
+            '<p class="key">No cell-by-cell change: the pass before was counted on another '
+            "grid (unit, cell size or window).</p>"
+        )
+    before = {(c.row, c.col): c for c in previous.cells}
+
+    def text(c: CellSummary) -> tuple[str, str]:
+        b = before[(c.row, c.col)]
+        dd = c.density - b.density
+        db = c.bearing_percent - b.bearing_percent
+        return f"{dd:+.1f} points", f"{db:+.0f} % bearing"
+
+    def colour(c: CellSummary) -> str:
+        return "background:#f4f6f8;color:#1d232a"
+
+    caption = (
+        f"Change since the pass before: density in {_per(summary)}, and bearing in "
+        "percentage points"
+    )
+    return _heat_table(summary.cells, caption, text, colour, css_class="heat change")
 
 
 def _pass_section(
@@ -288,6 +445,7 @@ def _pass_section(
     overlay: bytes | None,
     spec: Spec | None,
     folder: Path | None,
+    previous: PassSummary | None = None,
 ) -> str:
     """One pass: its head, figures, checks, warnings, overlay and cell maps."""
     parts = [
@@ -300,13 +458,19 @@ def _pass_section(
         parts.append('<h3>Warnings</h3><ul class="warn">')
         parts.extend(f"<li>{_e(w)}</li>" for w in summary.warnings)
         parts.append("</ul>")
+    parts.append(_advice(summary))
     if overlay:
         parts.append("<h3>Print</h3>")
         parts.append(
             f'<img class="overlay" src="{_data_uri(overlay)}" alt="overlay of {_e(summary.photo)}">'
         )
+        parts.append(_legend(summary))
     parts.append("<h3>Cells</h3>")
     parts.append(_heat_tables(summary, spec))
+    change = _change_table(summary, previous)
+    if change:
+        parts.append("<h3>Change since the pass before</h3>")
+        parts.append(change)
     parts.append("</section>")
     return "".join(parts)
 
@@ -399,8 +563,10 @@ def render_report(
     if progress is not None and len(progress.passes) == len(passes):
         numbers = [p.number for p in progress.passes]
     body = [
-        _pass_section(n, summary, overlay, spec, folder_path)
-        for n, (summary, overlay) in reversed(list(zip(numbers, passes, strict=True)))
+        _pass_section(n, summary, overlay, spec, folder_path, previous)
+        for n, (summary, overlay), previous in reversed(
+            list(zip(numbers, passes, [None, *[s for s, _ in passes[:-1]]], strict=True))
+        )
     ]
     foot = f"<footer>printcheck {_e(__version__)}</footer></main></body></html>\n"
     return "\n".join(head) + "\n" + "\n".join(body) + "\n" + foot

@@ -8,9 +8,12 @@ What is drawn (all with OpenCV, so it stays fast):
   lies past the window edge;
 - the grid of counting cells, each with its density (large) and bearing (small) written in
   its top-left corner on a dark halo; figures of incomplete cells in grey;
-- the guidance: high areas to break up as orange hatched circles, bare patches larger than
-  the spec allows as cyan dashed circles;
-- a legend band below the image.
+- the guidance list (:func:`printcheck.guidance.advise`), each place numbered by its
+  rank: heavy bearing as an orange hatched circle, an oversized spot as a magenta diamond,
+  a bare patch over the spec's limit as a cyan dashed circle (the places never overlap).
+
+The key to the marks is not drawn into the image: the HTML report gives it beside the
+image (:data:`LEGEND`), where it stays legible on a phone.
 
 The image is scaled so its longer side lies between ``min_side`` and ``max_side`` pixels,
 and fonts and line widths scale with it, so the figures stay legible.
@@ -24,14 +27,13 @@ from typing import TYPE_CHECKING, NamedTuple
 
 import numpy as np
 
-from printcheck.units import to_mm
-from printcheck.wording import cell_figure, density_words
+from printcheck.wording import cell_figure
 
 if TYPE_CHECKING:
     from printcheck.result import Result
     from printcheck.serde import OverlayMarks
 
-__all__ = ["OverlayStyle", "COLOURS", "draw_overlay", "spot_boundaries"]
+__all__ = ["OverlayStyle", "COLOURS", "LEGEND", "draw_overlay", "spot_boundaries"]
 
 # BGR colours
 COLOURS: dict[str, tuple[int, int, int]] = {
@@ -41,10 +43,19 @@ COLOURS: dict[str, tuple[int, int, int]] = {
     "halo": (20, 20, 20),
     "text": (255, 255, 255),
     "text_partial": (185, 185, 185),
-    "high": (0, 140, 255),  # orange
+    "high": (0, 140, 255),  # orange: heavy bearing
+    "oversized": (255, 0, 255),  # magenta: an oversized spot
     "bare": (255, 255, 0),  # cyan
-    "legend_bg": (38, 38, 38),
 }
+
+#: The overlay's marks, for the key the report gives beside it: (colour key, shape, words).
+LEGEND: tuple[tuple[str, str, str], ...] = (
+    ("spot", "outline", "spot (counted)"),
+    ("spot_outside", "outline", "spot past the window edge (not counted)"),
+    ("high", "hatched circle", "heavy bearing: break up"),
+    ("oversized", "diamond", "oversized spot: split it"),
+    ("bare", "dashed circle", "bare patch over the spec's limit: leave alone this pass"),
+)
 
 
 @dataclass(frozen=True)
@@ -179,55 +190,6 @@ def _hatched_circle(img: np.ndarray, centre: tuple[int, int], radius: int, pen: 
     cv2.circle(img, centre, radius, colour, thickness, cv2.LINE_AA)
 
 
-def _legend(width: int, scale: float, thickness: int, unit_text: str) -> np.ndarray:
-    """A dark band, ``width`` wide, with the key to the overlay's marks."""
-    import cv2
-
-    font = cv2.FONT_HERSHEY_SIMPLEX
-    (_, th), base = cv2.getTextSize("Ag", font, scale, thickness)
-    line_h = th + base + int(th * 0.9)
-    pad = max(6, th // 2)
-    sw = max(3 * th, 18)  # swatch width
-    entries = [
-        ("spot", "spot (counted)"),
-        ("spot_outside", "spot past the window"),
-        ("high", "high area: break up"),
-        ("bare", "bare patch over the limit"),
-        ("text", unit_text),
-    ]
-    # flow the entries into lines
-    placed: list[tuple[int, int, str, str]] = []
-    x, row = pad, 0
-    for key, label in entries:
-        (tw, _), _ = cv2.getTextSize(label, font, scale, thickness)
-        item_w = (0 if key == "text" else sw + pad) + tw + 3 * pad
-        if x + item_w > width and x > pad:
-            x, row = pad, row + 1
-        placed.append((x, row, key, label))
-        x += item_w
-    band = np.empty((pad * 2 + line_h * (row + 1), width, 3), np.uint8)
-    band[:] = COLOURS["legend_bg"]
-    for x, r, key, label in placed:
-        y_mid = pad + r * line_h + line_h // 2
-        tx = x
-        if key != "text":
-            c = (x + sw // 2, y_mid)
-            rad = max(th // 2 + 1, 4)
-            if key in ("spot", "spot_outside"):
-                cv2.rectangle(
-                    band, (x, y_mid - rad), (x + sw, y_mid + rad), COLOURS[key], thickness
-                )
-            elif key == "high":
-                _hatched_circle(band, c, rad, _Pen(COLOURS[key], thickness))
-            else:
-                _dashed_circle(band, c, rad, _Pen(COLOURS[key], thickness))
-            tx = x + sw + pad
-        cv2.putText(
-            band, label, (tx, y_mid + th // 2), font, scale, COLOURS["text"], thickness, cv2.LINE_AA
-        )
-    return band
-
-
 @dataclass(frozen=True)
 class _View:
     """Where layout-frame millimetres land on the drawn image.
@@ -320,16 +282,60 @@ def _draw_outlines(
     )
 
 
-def _draw_guidance(img: np.ndarray, marks: OverlayMarks, view: _View, thick: int) -> None:
-    """High areas as hatched circles, bare patches over the limit as dashed ones."""
-    for high in marks.high:
-        radius = max(view.length(high.diameter_mm / 2), 3 * thick)
-        _hatched_circle(
-            img, view.px(high.x_mm, high.y_mm), radius, _Pen(COLOURS["high"], thick + 1)
-        )
-    for bare in marks.bare:
-        radius = view.length(bare.diameter_mm / 2)
-        _dashed_circle(img, view.px(bare.x_mm, bare.y_mm), radius, _Pen(COLOURS["bare"], thick + 1))
+def _diamond(img: np.ndarray, centre: tuple[int, int], radius: int, pen: _Pen) -> None:
+    import cv2
+
+    colour, thickness = pen
+    cx, cy = centre
+    pts = np.array([[cx, cy - radius], [cx + radius, cy], [cx, cy + radius], [cx - radius, cy]])
+    cv2.polylines(img, [pts.astype(np.int32)], True, COLOURS["halo"], thickness + 2, cv2.LINE_AA)
+    cv2.polylines(img, [pts.astype(np.int32)], True, colour, thickness, cv2.LINE_AA)
+
+
+def _rank_label(img: np.ndarray, centre: tuple[int, int], radius: int, rank: int) -> None:
+    """The place's rank in white on a dark disc, up and right of the mark, in the image."""
+    import cv2
+
+    h, w = img.shape[:2]
+    scale = max(0.5, min(h, w) / 1200.0)
+    thick = max(1, int(round(scale * 2)))
+    text = str(rank)
+    (tw, th), _ = cv2.getTextSize(text, cv2.FONT_HERSHEY_SIMPLEX, scale, thick)
+    r = int(max(tw, th) * 0.8) + 2
+    d = int(radius * 0.71) + r
+    x = min(max(centre[0] + d, r), w - r - 1)
+    y = min(max(centre[1] - d, r), h - r - 1)
+    cv2.circle(img, (x, y), r, COLOURS["halo"], -1, cv2.LINE_AA)
+    cv2.putText(
+        img,
+        text,
+        (x - tw // 2, y + th // 2),
+        cv2.FONT_HERSHEY_SIMPLEX,
+        scale,
+        COLOURS["text"],
+        thick,
+        cv2.LINE_AA,
+    )
+
+
+def _draw_guidance(img: np.ndarray, result: Result, view: _View, thick: int) -> None:
+    """The ranked places: a mark of its own for each kind of advice, and the rank."""
+    from printcheck.guidance import advise
+
+    win = result.rectified.frame.window
+    m = result.measurement
+    places = advise(m.guidance, window=win, cell_mm=float(m.cell_mm), meets=result.meets, digits=3)
+    pen = thick + 1
+    for a in places:
+        centre = view.px(win.x_mm + a.x, win.y_mm + a.y)
+        radius = max(view.length(a.size / 2), 3 * pen)
+        if a.kind == "bare patch":
+            _dashed_circle(img, centre, radius, _Pen(COLOURS["bare"], pen))
+        elif a.kind == "oversized spot":
+            _diamond(img, centre, max(radius, 5 * pen), _Pen(COLOURS["oversized"], pen))
+        else:
+            _hatched_circle(img, centre, radius, _Pen(COLOURS["high"], pen))
+        _rank_label(img, centre, radius, a.rank)
 
 
 def _draw_grid(img: np.ndarray, marks: OverlayMarks, view: _View, thick: int) -> None:
@@ -382,7 +388,8 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
     -------
     (H, W, 3) uint8 ndarray, BGR
         A new image: the window (plus visible margin) scaled by ``s`` so its longer side is
-        within ``style.min_side .. style.max_side``, with a legend band appended below.
+        within ``style.min_side .. style.max_side``.  The key to its marks is
+        :data:`LEGEND` (the report shows it beside the image).
         The inputs are never modified.
     """
     from printcheck.serde import overlay_marks
@@ -399,12 +406,8 @@ def draw_overlay(result: Result, *, style: OverlayStyle = OverlayStyle()) -> np.
     thick = max(1, int(round(min(h, w) / 600)))
     if marks.labels.shape == rect.image.shape[:2]:
         _draw_outlines(img, marks, box, thick)
-    # guidance first, so the grid and figures stay on top
-    _draw_guidance(img, marks, view, thick)
     _draw_grid(img, marks, view, thick)
     _draw_figures(img, marks, view)
-    per = density_words(to_mm(result.cell, result.unit), result.unit)
-    unit_text = f"large: {per}; small: bearing %"
-    lscale = max(0.4, min(w / 1500.0, 1.2))
-    band = _legend(w, lscale, max(1, int(round(lscale * 1.6))), unit_text)
-    return np.concatenate([img, band], axis=0)
+    # the guidance last, so its marks and ranks are not hidden under the grid's figures
+    _draw_guidance(img, result, view, thick)
+    return img
