@@ -1,8 +1,6 @@
 """Cells: the counting grid over the window, by the rules of docs/formats.md.
 
 Cells start at the window's top-left corner and run right and down, side ``cell_mm``;
-a remainder narrower than a quarter of a cell at the right or bottom edge is counted with
-the cell before it (:func:`fitted_count`), so no cell is a sliver;
 a pixel belongs to the window, and to a cell, by where its centre lies.  A cell not wholly
 inside the window (or with analysed pixels missing, an exclusion) is not complete; its
 density is still per the area it really has.
@@ -18,10 +16,11 @@ import numpy as np
 from printcheck.frame import Frame
 from printcheck.spots import Spots
 
-__all__ = ["MIN_SLIVER", "Cell", "Grid", "cell_sums", "cells_of", "fitted_count", "in_window"]
+__all__ = ["EDGE_STRIP", "Cell", "Grid", "cell_sums", "cells_of", "edge_strip", "in_window"]
 
-#: The narrowest remainder, as a share of the cell, that is a cell of its own.
-MIN_SLIVER = 0.25
+#: A last row or column narrower than this share of a cell is an edge strip: a cell of the
+#: grid (docs/formats.md), never complete, that the maps and the terminal leave out.
+EDGE_STRIP = 0.25
 
 
 @dataclass(frozen=True)
@@ -47,7 +46,7 @@ def _axis_cells(
     """Per-pixel cell index along one axis (-1 outside the window), and cell count."""
     centres = origin + (np.arange(n_px) + 0.5) / s
     t = (centres - start) / cell
-    n_cells = fitted_count(length, cell)
+    n_cells = max(1, int(math.ceil(length / cell - 1e-9)))
     idx = np.floor(t + 1e-9).astype(np.int64)
     inside = (centres >= start - 1e-9 / s) & (centres < start + length - 1e-9 / s)
     idx[~inside] = -1
@@ -55,23 +54,23 @@ def _axis_cells(
     return idx, n_cells
 
 
-def fitted_count(length: float, cell: float) -> int:
-    """Cells along one axis of ``length``: whole cells, the remainder a last, shorter one.
+def edge_strip(length: float, cell: float) -> float | None:
+    """The width of the last row or column along ``length`` when it is an edge strip.
 
-    A remainder narrower than :data:`MIN_SLIVER` of a cell is no cell of its own: it is
-    counted with the last whole cell (which is then up to 1.25 cells long), so no cell
-    is a sliver (a 2 in window counted in 25 mm cells has two of 25.8 mm, not a third of
-    0.8 mm).
+    The grid's cells have side ``cell`` from the window's top-left (the contract); where
+    the window is not a whole number of cells the last one is shorter, and a remainder
+    under :data:`EDGE_STRIP` of a cell is a sliver whose count means nothing on its own
+    (common practice).  It stays in the result as an incomplete cell; its spots count in
+    the window's figures.  None when the last cell is not such a strip.
 
     Examples
     --------
-    >>> fitted_count(50.8, 25.0), fitted_count(50.8, 25.4), fitted_count(60.0, 25.0)
-    (2, 2, 3)
+    >>> round(edge_strip(50.8, 25.0), 3), edge_strip(50.8, 25.4), edge_strip(60.0, 25.0)
+    (0.8, None, None)
     """
     n = max(1, int(math.ceil(length / cell - 1e-9)))
-    if n > 1 and length - (n - 1) * cell < MIN_SLIVER * cell - 1e-9:
-        n -= 1
-    return n
+    rest = length - (n - 1) * cell
+    return rest if n > 1 and rest < EDGE_STRIP * cell - 1e-9 else None
 
 
 def cell_sums(
@@ -160,11 +159,8 @@ def cells_of(
             k = r * grid.cols + c
             x0 = win.x_mm + c * c_mm
             y0 = win.y_mm + r * c_mm
-            # the last cell of a row or column runs to the window's edge (shorter than a
-            # cell, or longer by a remainder too narrow to be a cell: fitted_count)
-            x_end, y_end = win.x_mm + win.width_mm, win.y_mm + win.height_mm
-            x1 = x_end if c == grid.cols - 1 else min(x0 + c_mm, x_end)
-            y1 = y_end if r == grid.rows - 1 else min(y0 + c_mm, y_end)
+            x1 = min(x0 + c_mm, win.x_mm + win.width_mm)
+            y1 = min(y0 + c_mm, win.y_mm + win.height_mm)
             a_mm2 = float(cell_area_px[k]) * px_area
             full = _count_centres(frame.origin_mm[0], s, x0, x1) * _count_centres(
                 frame.origin_mm[1], s, y0, y1

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from printcheck.cells import edge_strip
 from printcheck.records import CellSummary, PassSummary
 from printcheck.units import to_mm
 from printcheck.wording import advice_line, check_label, density_words
@@ -46,7 +47,14 @@ def summary_text(s: PassSummary) -> str:
             lines.append(f"    {mark} {check_label(check.name)}: {check.reason}")
     if s.cells and len(s.cells) <= _MAX_GRID_CELLS:
         lines.append("  cells (points / bearing %; * incomplete):")
-        lines += _cell_grid(s.cells)
+        strips = [edge_strip(s.window.width, s.cell), edge_strip(s.window.height, s.cell)]
+        lines += _cell_grid(s.cells, drop_last=(strips[1] is not None, strips[0] is not None))
+        if any(w is not None for w in strips):
+            width = min(w for w in strips if w is not None)
+            lines.append(
+                f"    (edge strips {width:.2g} {unit} wide, under a quarter cell, not shown; "
+                "their points count in the window's figures)"
+            )
     lines += advice_lines(s)
     lines += [f"  warning: {warning}" for warning in s.warnings]
     return "\n".join(lines)
@@ -61,10 +69,13 @@ def advice_lines(s: PassSummary, indent: str = "  ") -> list[str]:
     ]
 
 
-def _cell_grid(cells: tuple[CellSummary, ...]) -> list[str]:
-    """One line per row of cells: ``density/bearing%``, ``*`` marking incomplete cells."""
-    rows = 1 + max(c.row for c in cells)
-    cols = 1 + max(c.col for c in cells)
+def _cell_grid(
+    cells: tuple[CellSummary, ...], drop_last: tuple[bool, bool] = (False, False)
+) -> list[str]:
+    """One line per row of cells: ``density/bearing%``, ``*`` marking incomplete cells;
+    ``drop_last`` leaves out the last row and/or column (edge strips)."""
+    rows = 1 + max(c.row for c in cells) - int(drop_last[0])
+    cols = 1 + max(c.col for c in cells) - int(drop_last[1])
     grid = {(c.row, c.col): c for c in cells}
     lines = []
     for r in range(rows):

@@ -260,20 +260,10 @@ def test_window_not_a_multiple_of_cell_and_offset_origin():
     m = measure(
         np.zeros((150, 200), bool), frame=frame, analysed=an, config=MeasureConfig(cell_mm=25.4)
     )
-    # 30 mm is one 25.4 mm cell and 4.6 mm, under a quarter cell: counted with it
-    assert (m.rows, m.cols) == (1, 1)
-    (c0,) = m.cells
-    assert not c0.complete  # 20 mm high: no cell is whole
-    assert c0.width_mm == pytest.approx(30.0) and c0.height_mm == pytest.approx(20.0)
-    assert c0.area_mm2 == pytest.approx(600.0)
-    m3 = measure(
-        np.zeros((150, 200), bool), frame=frame, analysed=an, config=MeasureConfig(cell_mm=20.0)
-    )
-    # 30 mm in 20 mm cells leaves 10 mm, half a cell: a cell of its own
-    assert (m3.rows, m3.cols) == (1, 2)
-    c0, c1 = m3.cells
-    assert c0.complete and not c1.complete
-    assert c0.width_mm == pytest.approx(20.0) and c1.width_mm == pytest.approx(10.0)
+    assert (m.rows, m.cols) == (1, 2)
+    c0, c1 = m.cells
+    assert not c0.complete and not c1.complete  # 20 mm high: no cell is whole
+    assert c0.width_mm == pytest.approx(25.4) and c1.width_mm == pytest.approx(4.6)
     assert c0.area_mm2 + c1.area_mm2 == pytest.approx(600.0)
     m2 = measure(
         np.zeros((150, 200), bool), frame=frame, analysed=an, config=MeasureConfig(cell_mm=10.0)
@@ -287,9 +277,8 @@ def test_window_not_a_multiple_of_cell_and_offset_origin():
 )
 def test_cell_areas_and_bearing_match_scipy_sum_labels(cell_mm: float, win_w: float) -> None:
     # Per-pixel cell map from pixel centres (plane geometry), summed by
-    # scipy.ndimage.sum_labels; 9.99 and 14.98 mm leave a remainder with no whole pixel
-    # column at the window's end (a sliver, counted with the cell before it), the other
-    # sizes a partial or no last cell.
+    # scipy.ndimage.sum_labels; 9.99 and 14.98 mm leave a cell with no whole pixel column
+    # at the window's end (a sliver), the other sizes a partial or no last cell.
     s = 5.0
     window = Window(10.0, 5.0, win_w, 20.0)
     frame = Frame(px_per_mm=s, origin_mm=(5.0, 0.0), shape=(150, 200), window=window)
@@ -302,11 +291,6 @@ def test_cell_areas_and_bearing_match_scipy_sum_labels(cell_mm: float, win_w: fl
     xc = (np.arange(200) + 5.0 * s + 0.5) / s - window.x_mm
     n_rows = math.ceil(window.height_mm / cell_mm - 1e-9)
     n_cols = math.ceil(window.width_mm / cell_mm - 1e-9)
-    # a remainder under a quarter cell is counted with the cell before it (no slivers)
-    if n_cols > 1 and window.width_mm - (n_cols - 1) * cell_mm < cell_mm / 4:
-        n_cols -= 1
-    if n_rows > 1 and window.height_mm - (n_rows - 1) * cell_mm < cell_mm / 4:
-        n_rows -= 1
     ri = np.minimum(np.floor(yc / cell_mm + 1e-9), n_rows - 1).astype(int)
     ci = np.minimum(np.floor(xc / cell_mm + 1e-9), n_cols - 1).astype(int)
     cell_map = np.where(an, ri[:, None] * n_cols + ci[None, :] + 1, 0)

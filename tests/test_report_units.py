@@ -105,18 +105,29 @@ def test_every_number_in_the_report_carries_its_unit(unit, cell, spec_name) -> N
     assert " pts" not in joined and "_" not in joined  # no abbreviations, no snake_case
 
 
-@pytest.mark.parametrize(("cell_mm", "cells"), [(25.0, 2), (25.4, 2), (20.0, 3), (12.0, 4)])
-def test_two_inch_card_in_millimetres_has_no_sliver_cells(cell_mm, cells) -> None:
-    # the 2 in card's window is 50.8 mm (1 in = 25.4 mm exactly); counted in 25 mm
-    # cells it once gave a third column of 0.8 mm: now no cell is narrower than a
-    # quarter of the cell (common practice: a count over a sliver means nothing)
+@pytest.mark.parametrize(
+    ("cell_mm", "cells", "strip"),
+    [(25.0, 3, 0.8), (25.4, 2, None), (20.0, 3, None), (12.0, 5, 2.8)],
+)
+def test_two_inch_card_in_millimetres_keeps_the_grid_and_hides_edge_strips(
+    cell_mm, cells, strip
+) -> None:
+    # the 2 in card's window is 50.8 mm (1 in = 25.4 mm exactly); counted in 25 mm cells
+    # the grid (DESIGN: side `cell` from the top-left) leaves a third row and column of
+    # 0.8 mm.  They stay in the result as incomplete cells (other scripts read cells of
+    # side `cell`); the terminal leaves out a strip under a quarter cell and says so
+    # (common practice: a count over a sliver means nothing)
     import math
+    from dataclasses import replace
 
     import numpy as np
+    from _hand_results import make_summary
 
     from printcheck.frame import Frame
     from printcheck.layout import card_layout
     from printcheck.measure import MeasureConfig, measure
+    from printcheck.records import CellSummary, WindowSummary
+    from printcheck.summary import summary_text
 
     w = card_layout().window
     assert w.width_mm == pytest.approx(50.8)
@@ -128,15 +139,32 @@ def test_two_inch_card_in_millimetres_has_no_sliver_cells(cell_mm, cells) -> Non
     analysed = np.ones((n, n), bool)
     m = measure(mask, frame=frame, analysed=analysed, config=MeasureConfig(cell_mm=cell_mm))
     assert (m.rows, m.cols) == (cells, cells)
-    for c in m.cells:
-        assert c.width_mm >= cell_mm / 4 and c.height_mm >= cell_mm / 4
-        assert c.width_mm <= 1.25 * cell_mm + 1e-9 and c.height_mm <= 1.25 * cell_mm + 1e-9
+    for c in m.cells:  # every cell but the last row and column has side `cell`
+        if c.col < cells - 1:
+            assert c.width_mm == pytest.approx(cell_mm)
+        if c.row < cells - 1:
+            assert c.height_mm == pytest.approx(cell_mm)
     # the cells tile the window and count every spot once
     # (to the pixel: 406 px at 8 px/mm cover 50.75 of the 50.8 mm)
     assert sum(c.area_mm2 for c in m.cells) == pytest.approx(50.75**2, rel=1e-6)
     assert sum(c.spot_count for c in m.cells) == m.spot_count == math.ceil(n / 40) ** 2
-    # a cell is complete when it is a whole cell (or more) inside the window
     assert all(c.complete == (c.width_mm >= cell_mm and c.height_mm >= cell_mm) for c in m.cells)
+
+    summary = replace(
+        make_summary(unit="mm", cell=cell_mm),
+        window=WindowSummary(50.8, 50.8, 50.8**2),
+        cells=tuple(
+            CellSummary(c.row, c.col, c.complete, c.spot_count, 1.0, 4.0, c.area_mm2)
+            for c in m.cells
+        ),
+    )
+    text = summary_text(summary)
+    grid = [line for line in text.splitlines() if line.startswith("    ") and "%" in line]
+    shown = cells - (strip is not None)
+    assert len(grid) == shown and all(line.count("%") == shown for line in grid)
+    assert ("edge strips" in text) == (strip is not None)
+    if strip is not None:
+        assert f"{strip:.2g} mm wide" in text
 
 
 def test_version_is_printed() -> None:
