@@ -42,6 +42,16 @@ __all__ = [
 ]
 
 
+def flat_where(mask: np.ndarray) -> np.ndarray:
+    """Row-major flat indices of the true pixels of a 2-D bool mask: ``np.flatnonzero``,
+    found by OpenCV's ``findNonZero``, many times faster on a large, sparse mask."""
+    pts = cv2.findNonZero(np.ascontiguousarray(mask).view(np.uint8))
+    if pts is None:
+        return np.zeros(0, np.intp)
+    pts = pts.reshape(-1, 2).astype(np.intp)
+    return np.asarray(pts[:, 1] * mask.shape[1] + pts[:, 0])
+
+
 def _disc(radius: int) -> np.ndarray:
     return cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * radius + 1, 2 * radius + 1))
 
@@ -169,67 +179,74 @@ def finish(
     of its area above half its peak.  Its evidence in all, over the compound's level
     where it lies (``level``, (M, N)), is its area whatever the blur: blur spreads the
     evidence but keeps its sum."""
+    # on the contact pixels alone, by their flat indices (row-major, as numpy orders them)
+    idx = flat_where(labels > 0)
+    lab = labels.ravel()[idx]
     if rim_share is not None:
-        sc = height if score is None else score
-        peak = _label_max(labels, sc)
+        sc = (height if score is None else score).ravel()[idx]
+        n = int(labels.max()) + 1
+        peak = np.full(n, -np.inf, np.float32)
+        np.maximum.at(peak, lab, sc)
+        peak[0] = np.inf
+        keep = sc > (rim_share * peak)[lab]
         if min_core_px > 0:
-            core = np.bincount(labels[sc > (0.5 * peak)[labels]], minlength=peak.size)
+            core = np.bincount(lab[sc > (0.5 * peak)[lab]], minlength=n)
             if level is not None:
-                core = np.maximum(core, _mass_px(labels, sc, level, peak.size))
+                core = np.maximum(core, _mass_px(lab, sc, level.ravel()[idx], n))
             small = core < min_core_px
             small[0] = False
-            labels = np.where(small[labels], 0, labels)
-        labels = np.where(sc > (rim_share * peak)[labels], labels, 0)
+            keep &= ~small[lab]
+        idx, lab = idx[keep], lab[keep]
     has_seed = np.zeros(int(labels.max()) + 1, bool)
-    has_seed[labels[seeds & (labels > 0)]] = True
-    has_seed[0] = False
-    labels = np.where(has_seed[labels], labels, 0)
-    mask = _carve(labels, height)
-    return _drop_crumbs(mask, labels, height)
+    has_seed[lab[seeds.ravel()[idx]]] = True
+    keep = has_seed[lab]
+    idx, lab = idx[keep], lab[keep]
+    kept = np.zeros(labels.size, labels.dtype)
+    kept[idx] = lab
+    kept = kept.reshape(labels.shape)
+    idx = idx[~_carved(kept, idx, height)]
+    return _drop_crumbs(idx, kept, height)
 
 
-def _mass_px(labels: np.ndarray, score: np.ndarray, level: np.ndarray, n: int) -> np.ndarray:
+def _mass_px(lab: np.ndarray, score: np.ndarray, level: np.ndarray, n: int) -> np.ndarray:
     """Each label's evidence in all (above zero) over ``level`` where it lies, in pixels
-    (the compound's level varies slowly: any one pixel of the label gives it)."""
-    sel = labels > 0
-    lab = labels[sel]
-    mass = np.bincount(lab, weights=np.maximum(score[sel], 0.0), minlength=n)
+    (the compound's level varies slowly: any one pixel of the label gives it); ``lab``,
+    ``score`` and ``level`` are the contact pixels' labels and values."""
+    mass = np.bincount(lab, weights=np.maximum(score, 0.0), minlength=n)
     at = np.zeros(n, np.float64)
-    at[lab] = level[sel]
+    at[lab] = level
     return np.asarray(mass / np.maximum(at, 1e-6))
 
 
-def _drop_crumbs(mask: np.ndarray, labels: np.ndarray, height: np.ndarray) -> np.ndarray:
-    """Cutting a contact's rim may leave crumbs of its halo apart from it: only the piece
-    holding the contact's highest point is the contact."""
+def _drop_crumbs(idx: np.ndarray, labels: np.ndarray, height: np.ndarray) -> np.ndarray:
+    """The mask of the contact pixels ``idx`` (flat) of ``labels``: cutting a contact's
+    rim may leave crumbs of its halo apart from it: only the piece holding the contact's
+    highest point is the contact."""
+    mask = np.zeros(labels.size, bool)
+    mask[idx] = True
+    mask = mask.reshape(labels.shape)
     n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     if n <= 1:
         return mask
+    piece = pieces.ravel()[idx]
+    lab = labels.ravel()[idx]
     owner = np.zeros(n, np.int64)
-    owner[pieces[mask]] = labels[mask]
+    owner[piece] = lab
     per_label = np.bincount(owner[1:], minlength=int(labels.max()) + 1)
     split = per_label > 1
     split[0] = False
     if not split.any():
         return mask
-    sel = mask & split[labels]
-    flat = np.flatnonzero(sel.ravel())
-    lab_f = labels.ravel()[flat]
+    sel = split[lab]
+    flat = idx[sel]
+    lab_f = lab[sel]
     order = np.lexsort((height.ravel()[flat], lab_f))
     last = np.r_[lab_f[order][1:] != lab_f[order][:-1], True]
     keep = np.ones(n, bool)
-    keep[np.unique(pieces.ravel()[flat])] = False
+    keep[np.unique(piece[sel])] = False
     keep[pieces.ravel()[flat[order][last]]] = True
-    keep[0] = False
-    return np.asarray(keep[pieces], dtype=bool)
-
-
-def _label_max(labels: np.ndarray, values: np.ndarray) -> np.ndarray:
-    peak = np.full(int(labels.max()) + 1, -np.inf, np.float32)
-    sel = labels > 0
-    np.maximum.at(peak, labels[sel], values[sel])
-    peak[0] = np.inf
-    return peak
+    mask.ravel()[idx[~keep[piece]]] = False
+    return mask
 
 
 def _watershed(
@@ -247,9 +264,7 @@ def _watershed(
     peaks = (height >= cv2.dilate(height, _disc(k))) & region
     if seeds is not None:
         peaks &= seeds
-    n, comp, stats, _ = cv2.connectedComponentsWithStats(
-        region.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
-    )
+    n, comp = cv2.connectedComponents(region.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     pn, markers = cv2.connectedComponents(peaks.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     comp_of_peak = np.zeros(pn, np.int64)
     comp_of_peak[markers[peaks]] = comp[peaks]
@@ -285,9 +300,15 @@ def merge_regions(
     """
     if n <= 1:
         return regions
-    peak = _label_max(regions, height).astype(np.float64)
-    area = np.bincount(regions.ravel(), minlength=n + 1).astype(np.float64)
-    keys, saddles = _saddles(regions, n, height)
+    # on the regions' pixels alone, by their flat indices
+    idx = flat_where(regions > 0)
+    lab = regions.ravel()[idx]
+    peak = np.full(n + 1, -np.inf, np.float32)
+    np.maximum.at(peak, lab, height.ravel()[idx])
+    peak[0] = np.inf
+    peak = peak.astype(np.float64)
+    area = np.bincount(lab, minlength=n + 1).astype(np.float64)
+    keys, saddles = _saddles(regions, idx, n, height)
     parent = np.arange(n + 1)
 
     def find(i: int) -> int:
@@ -319,11 +340,16 @@ def merge_regions(
         top[a] = max(top[a], top[b])
         area[a] += area[b]
     roots = np.array([find(i) for i in range(n + 1)], dtype=np.int32)
-    return np.asarray(roots[regions], dtype=np.int32)
+    out = np.zeros(regions.size, np.int32)
+    out[idx] = roots[lab]
+    return out.reshape(regions.shape)
 
 
-def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Each pair of touching regions (key ``a * (n + 1) + b``, a < b) and its saddle.
+def _saddles(
+    regions: np.ndarray, at: np.ndarray, n: int, height: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Each pair of touching regions (key ``a * (n + 1) + b``, a < b) and its saddle;
+    ``at``: the regions' pixels (flat indices, row-major).
 
     The saddle is the highest value, along their shared boundary, of the lower of two
     8-neighbours that lie one in each region.
@@ -331,9 +357,9 @@ def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarra
     padded = np.pad(regions, 1)
     flat = padded.ravel()
     hf = np.pad(height, 1).ravel().astype(np.float64)
-    idx = np.flatnonzero(flat)
-    here = flat[idx].astype(np.int64)
     width = padded.shape[1]
+    idx = at + 2 * (at // regions.shape[1]) + width + 1
+    here = flat[idx].astype(np.int64)
     keys_l, vals_l = [], []
     for off in (1, width - 1, width, width + 1):
         nb = flat[idx + off].astype(np.int64)
@@ -352,25 +378,22 @@ def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarra
     return keys[starts], np.maximum.reduceat(vals, starts)
 
 
-def _carve(labels: np.ndarray, height: np.ndarray) -> np.ndarray:
-    """Contact mask with a gap wherever two contacts touch (the lower side is removed)."""
-    mask = labels > 0
-    # only contact pixels can touch another contact: work on their flat indices
+def _carved(labels: np.ndarray, idx: np.ndarray, height: np.ndarray) -> np.ndarray:
+    """Of the contact pixels ``idx`` (flat indices of ``labels``), those removed to leave
+    a gap where two contacts touch (the lower side)."""
+    # only contact pixels can touch another contact: work on their flat indices, in the
+    # labels padded by one pixel all round
     lab = np.pad(labels, 1).ravel()
     hp = np.pad(height, 1, constant_values=-np.inf).ravel()
     width = labels.shape[1] + 2
-    idx = np.flatnonzero(lab)
-    here, h = lab[idx], hp[idx]
+    at = idx + 2 * (idx // labels.shape[1]) + width + 1
+    here, h = lab[at], hp[at]
     drop = np.zeros(idx.size, bool)
     for off in (-width - 1, -width, -width + 1, -1, 1, width - 1, width, width + 1):
-        nb = lab[idx + off]
-        nh = hp[idx + off]
+        nb = lab[at + off]
+        nh = hp[at + off]
         drop |= (nb > 0) & (nb != here) & ((h < nh) | ((h == nh) & (here < nb)))
-    if not drop.any():
-        return mask
-    out = np.zeros(lab.size, bool)
-    out[idx[~drop]] = True
-    return np.ascontiguousarray(out.reshape(labels.shape[0] + 2, width)[1:-1, 1:-1])
+    return drop
 
 
 def fill_small_holes(mask: np.ndarray, max_px: float, glare: np.ndarray | None) -> np.ndarray:
@@ -382,16 +405,21 @@ def fill_small_holes(mask: np.ndarray, max_px: float, glare: np.ndarray | None) 
     holes = framed[1:-1, 1:-1]
     if not holes.any():
         return mask
-    n, lab, stats, _ = cv2.connectedComponentsWithStats(holes, connectivity=4)
-    area = stats[:, cv2.CC_STAT_AREA]
+    holes = np.ascontiguousarray(holes)
+    n, lab = cv2.connectedComponents(holes, connectivity=4, ltype=cv2.CV_32S)
+    at = flat_where(holes > 0)
+    hole = lab.ravel()[at]
+    area = np.bincount(hole, minlength=n)
     fill = area <= max_px
     if glare is not None and glare.any():
-        glare_px = np.bincount(lab[glare], minlength=n)
+        glare_px = np.bincount(hole[glare.ravel()[at]], minlength=n)
         fill |= (area <= 20 * max_px) & (glare_px >= 0.5 * area)
     fill[0] = False
     if not fill.any():
         return mask
-    return np.asarray(mask | fill[lab], dtype=bool)
+    out = mask.copy()
+    out.ravel()[at[fill[hole]]] = True
+    return out
 
 
 def spot_scale_px(px_per_mm: float, mm: float) -> float:

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
+from printcheck.contacts import flat_where
 from printcheck.evidence import (
     EVIDENCE_FLOOR,
     LevelMaps,
@@ -160,8 +161,7 @@ def _marks(
         firm.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
     ).view(bool)
     film = marked & ~near
-    n, lab, stats, _ = cv2.connectedComponentsWithStats(film.view(np.uint8), connectivity=8)
-    wide = stats[:, cv2.CC_STAT_AREA] > _FILM_MM2 * s * s
+    wide, lab = _wider(film, _FILM_MM2 * s * s)
     wide[0] = False
     region = np.zeros(marked.shape, bool)
     if wide.any():
@@ -169,12 +169,19 @@ def _marks(
 
         region = np.asarray(ndimage.binary_fill_holes(wide[lab]), bool)
         marked = marked & ~wide[lab]
-    n, lab, stats, _ = cv2.connectedComponentsWithStats(marked.view(np.uint8), connectivity=8)
-    broad = stats[:, cv2.CC_STAT_AREA] > _BROAD_MM2 * s * s
+    broad, lab = _wider(marked, _BROAD_MM2 * s * s)
     broad[0] = False
     if broad.any():
         marked &= ~broad[lab]
     return marked, region
+
+
+def _wider(mask: np.ndarray, px: float) -> tuple[np.ndarray, np.ndarray]:
+    """Which 8-connected pieces of ``mask`` have more than ``px`` pixels (by label, the
+    background's False), and the labels."""
+    n, lab = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    area = np.bincount(lab.ravel()[flat_where(mask)], minlength=n)
+    return area > px, lab
 
 
 def _compound_level(

@@ -25,10 +25,11 @@ import cv2
 import numpy as np
 
 from printcheck.cells import Cell, Grid, cell_sums, cells_of, in_window
+from printcheck.contacts import flat_where
 from printcheck.errors import OptionError
 from printcheck.frame import Frame
 from printcheck.guidance import BarePatch, Guidance, HighArea, guidance, largest_bare
-from printcheck.spots import Spots, components, diameters, label_spots
+from printcheck.spots import Spots, components, diameters, spots_of
 
 __all__ = [
     "MeasureConfig",
@@ -225,9 +226,8 @@ def measure(
     _check_shapes(mask, analysed, frame, alternates)
     s = float(frame.px_per_mm)
     px_area = 1.0 / (s * s)
-    labels, count, area_px, centroid = label_spots(
-        mask, px_per_mm=s, min_spot_mm2=config.min_spot_mm2
-    )
+    found = components(mask, config.min_spot_mm2 * s * s)
+    labels, count, area_px, centroid = spots_of(found)
     contact = labels > 0
     grid = Grid.of(frame, mask.shape, config.cell_mm)
     in_an = in_window(frame, analysed)
@@ -248,7 +248,7 @@ def measure(
         spot_count,
         bearing,
         alts,
-        _marginal(mask, in_an, frame, config),
+        _marginal(found, in_an, frame, config),
         spots,
         photo_px_per_mm,
         config,
@@ -370,23 +370,27 @@ def _count_and_bearing(
     pc = np.clip(np.floor(cent[:, 0] + 0.5).astype(np.int64), 0, cols_px - 1)
     counted = keep & in_an[pr, pc]
     analysed_px = int(np.count_nonzero(in_an))
-    bearing_px = np.bincount(lab[in_an], minlength=n)[keep].sum()
+    bearing_px = int(np.count_nonzero(keep[lab.ravel()[flat_where(in_an & (lab > 0))]]))
     bearing = 100.0 * float(bearing_px) / analysed_px if analysed_px else 0.0
     return int(counted.sum()), bearing
 
 
 def _marginal(
-    mask: np.ndarray, in_an: np.ndarray, frame: Frame, config: MeasureConfig
+    found: tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+    in_an: np.ndarray,
+    frame: Frame,
+    config: MeasureConfig,
 ) -> tuple[int, int]:
     """Marks near the minimum spot area: (counted but under 1.5 times it, left out but over
-    two thirds of it), centroids in the window; either could have gone the other way."""
+    two thirds of it), centroids in the window; either could have gone the other way.
+    ``found``: the mask's :func:`components`."""
     s = float(frame.px_per_mm)
     min_px = config.min_spot_mm2 * s * s
     if min_px <= 0:
         return 0, 0
-    n, _, stats, cent, _ = components(mask, 0.0)
+    _, lab, stats, cent, _ = found
     area = stats[1:, cv2.CC_STAT_AREA].astype(np.float64)
-    rows_px, cols_px = mask.shape
+    rows_px, cols_px = lab.shape
     pr = np.clip(np.floor(cent[1:, 1] + 0.5).astype(np.int64), 0, rows_px - 1)
     pc = np.clip(np.floor(cent[1:, 0] + 0.5).astype(np.int64), 0, cols_px - 1)
     inside = in_an[pr, pc]

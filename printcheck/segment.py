@@ -215,7 +215,7 @@ def segment(
     s = float(config.px_per_mm)
     warnings: list[str] = []
     compound = _colour(image, analysed, config, warnings)
-    glare = (np.count_nonzero(image >= 250, axis=2) >= 2) & visible
+    glare = _burnt_out(image) & visible
     valid = visible & ~glare
     stat = analysed & valid
     glare_fraction = float(np.count_nonzero(glare & analysed)) / max(int(analysed.sum()), 1)
@@ -297,6 +297,12 @@ def segment(
         _decide(field, more, s, rim / rim_step, cut),
     )
     return result(mask, alternates, level, field.noise)
+
+
+def _burnt_out(image: np.ndarray) -> np.ndarray:
+    """Pixels with at least two of their three channels at 250 or more (burnt out)."""
+    b, g, r = (c >= 250 for c in cv2.split(image))
+    return np.asarray((b & (g | r)) | (g & r), dtype=bool)
 
 
 def _checked(

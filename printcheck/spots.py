@@ -20,7 +20,7 @@ import numpy as np
 
 from printcheck.errors import OptionError
 
-__all__ = ["Spots", "label_spots", "components"]
+__all__ = ["Spots", "label_spots", "spots_of", "components"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -100,7 +100,15 @@ def label_spots(
     mask = np.asarray(mask, dtype=bool)
     if mask.ndim != 2:
         raise OptionError(f"contact mask must be 2-D (M, N), got shape {mask.shape}")
-    n, lab, stats, cent, keep = components(mask, min_spot_mm2 * px_per_mm**2)
+    return spots_of(components(mask, min_spot_mm2 * px_per_mm**2))
+
+
+def spots_of(
+    found: tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray],
+) -> tuple[np.ndarray, int, np.ndarray, np.ndarray]:
+    """:func:`label_spots` from the :func:`components` of the mask (found once, used
+    twice)."""
+    n, lab, stats, cent, keep = found
     kept = np.flatnonzero(keep)
     kept = kept[np.argsort(_first_pixels(lab, stats, kept), kind="stable")]
     lut = np.zeros(n, np.int32)

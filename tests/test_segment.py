@@ -349,3 +349,24 @@ def test_a_film_narrower_than_a_broad_change_is_not_contact_but_its_pale_contact
     pale = truth[225:256, 225:256]
     found = seg.mask[225:256, 225:256]
     assert abs(int(found.sum()) - int(pale.sum())) < 0.35 * pale.sum()
+
+
+@pytest.mark.parametrize("share", [0.0, 0.001, 0.3, 1.0])
+def test_flat_where_is_numpys_flatnonzero(share: float) -> None:
+    # the contact stages find pixels by OpenCV's findNonZero (much faster on large
+    # masks); reference: numpy.flatnonzero, the same row-major order
+    from printcheck.contacts import flat_where
+
+    rng = np.random.default_rng(7)
+    mask = rng.random((123, 457)) < share
+    assert np.array_equal(flat_where(mask), np.flatnonzero(mask))
+    assert np.array_equal(flat_where(mask[:, 3:200]), np.flatnonzero(mask[:, 3:200]))
+
+
+def test_burnt_out_is_two_channels_at_250() -> None:
+    # reference: the plain numpy count of channels at 250 or more
+    from printcheck.segment import _burnt_out
+
+    rng = np.random.default_rng(3)
+    image = rng.integers(235, 256, (64, 97, 3), dtype=np.uint8)
+    assert np.array_equal(_burnt_out(image), np.count_nonzero(image >= 250, axis=2) >= 2)
