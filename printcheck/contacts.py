@@ -222,9 +222,8 @@ def _drop_crumbs(idx: np.ndarray, labels: np.ndarray, height: np.ndarray) -> np.
     """The mask of the contact pixels ``idx`` (flat) of ``labels``: cutting a contact's
     rim may leave crumbs of its halo apart from it: only the piece holding the contact's
     highest point is the contact."""
-    mask = np.zeros(labels.size, bool)
-    mask[idx] = True
-    mask = mask.reshape(labels.shape)
+    mask = np.zeros(labels.shape, bool)
+    mask.ravel()[idx] = True
     n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     if n <= 1:
         return mask
