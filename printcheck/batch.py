@@ -39,6 +39,8 @@ __all__ = [
     "Measured",
     "Skipped",
     "list_photos",
+    "measure_photo",
+    "photo_pool",
     "run_batch",
 ]
 
@@ -186,6 +188,57 @@ def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -
     except Exception as exc:  # a bug or out of memory on one photo must not stop the batch
         return Skipped(path, f"photo {path}: internal error: {type(exc).__name__}: {exc}")
     return Measured(path, summary, preview)
+
+
+def measure_photo(path: Path, options: InspectOptions, out: Path) -> Outcome:
+    """Measure one photo for the history, exactly as a batch's worker does.
+
+    Inspects the photo, writes its result JSON and full-size overlay into ``out`` and
+    makes a JPEG preview of the overlay (at most 1400 px on its longest side) for a
+    report.  OpenCV is held to one thread: the caller runs one of these per core
+    (in :func:`photo_pool`).  Nothing is recorded; the caller records
+    ``Measured.summary`` in the history.
+
+    Parameters
+    ----------
+    path : Path
+        The photo (read, never modified).
+    options : InspectOptions
+        The job's settings, its surface set.
+    out : Path
+        The output folder (it must exist).
+
+    Returns
+    -------
+    Measured or Skipped
+        The summary and preview; or, for a photo that cannot be used (or an internal
+        error on it), the one-line reason, which names the photo.  Never raises for the
+        photo's own faults.
+    """
+    return _work(path, options, out, True)
+
+
+def photo_pool(workers: int) -> ProcessPoolExecutor:
+    """A pool of ``workers`` processes to run :func:`measure_photo` in, as a batch's are.
+
+    The same process context as a batch's (a fork server with the stages preloaded,
+    where there is one); its workers ignore Ctrl-C (the calling process answers it) and
+    end as soon as the calling process ends, however it ends.  The caller shuts it down.
+    """
+    context = _pool_context()
+    _start_helpers(context)
+    return ProcessPoolExecutor(
+        max_workers=max(1, workers),
+        mp_context=context,
+        initializer=_start_pool_worker,
+        initargs=(os.getpid(),),
+    )
+
+
+def _start_pool_worker(parent_pid: int) -> None:
+    """Initializer of a :func:`photo_pool` worker: ignore Ctrl-C, end with the parent."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _end_with(parent_pid)
 
 
 def _shrink(image: Any, longest: int) -> Any:

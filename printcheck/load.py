@@ -24,7 +24,10 @@ __all__ = [
     "MAX_PIXELS",
     "PHOTO_SUFFIXES",
     "Photo",
+    "PhotoHeader",
+    "is_truncated",
     "load_photo",
+    "photo_header",
     "photo_taken",
     "is_photo_name",
     "not_a_photo_file",
@@ -177,6 +180,44 @@ def _exif_taken(im: object) -> datetime | None:
     except Exception:
         sub = {}
     return _parse_exif_time(sub.get(_DATETIME_ORIGINAL)) or _parse_exif_time(exif.get(_DATETIME))
+
+
+@dataclass(frozen=True)
+class PhotoHeader:
+    """What a photo's header says: Pillow's format name and the size in pixels."""
+
+    format: str
+    width: int
+    height: int
+
+
+def photo_header(data: bytes, name: str | Path) -> PhotoHeader:
+    """Read the header of a photo's bytes with the guards of :func:`load_photo`.
+
+    No pixel is decoded.  The caller checks the size against :data:`MAX_PIXELS` and the
+    end of the bytes with :func:`is_truncated`, as :func:`load_photo` does.
+
+    Parameters
+    ----------
+    data : bytes
+        The whole file.
+    name : str or Path
+        What the messages call the photo.
+
+    Raises
+    ------
+    PhotoError
+        Not an image printcheck reads, a decompression bomb, or an unreadable header;
+        one line naming ``name``.
+    """
+    im = _open_header(Path(name), data)
+    width, height = im.size
+    return PhotoHeader(str(im.format or ""), int(width), int(height))
+
+
+def is_truncated(data: bytes) -> bool:
+    """True when a JPEG or PNG file's bytes lack their end marker (a cut-short copy)."""
+    return _truncated(data)
 
 
 def _truncated(data: bytes) -> bool:

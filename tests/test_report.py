@@ -452,3 +452,56 @@ def test_csv_text_a_spreadsheet_would_run_is_inert(tmp_path: Path, name: str) ->
         row = next(csv.DictReader(fh))
     assert row["photo"] == "'" + name and data.photo == name
     assert float(row["density"]) == data.density
+
+
+def test_cell_maps_leave_out_edge_strips_under_a_quarter_cell() -> None:
+    # The grid contract (DESIGN.md, "grid and counting"): cells of side `cell` from the
+    # window's top-left corner.  The 2 in card (50.8 mm) in 25 mm cells leaves a 0.8 mm
+    # strip on the right and at the bottom; it stays in the result (incomplete cells),
+    # the maps leave it out and say so.
+    import dataclasses
+
+    from _hand_results import make_summary
+
+    from printcheck.records import CellSummary, WindowSummary
+    from printcheck.report.html import render_report
+
+    side = [25.0, 25.0, 0.8]
+    cells = tuple(
+        CellSummary(
+            r,
+            c,
+            side[r] == 25.0 and side[c] == 25.0,
+            3 if max(r, c) < 2 else 1,
+            # strips: a density no full cell has, to find it on the page if drawn
+            12.5 + r + 2 * c if max(r, c) < 2 else 77.7,
+            30.0,
+            side[r] * side[c],
+        )
+        for r in range(3)
+        for c in range(3)
+    )
+    window = WindowSummary(50.8, 50.8, 50.8**2)
+    mm = [
+        dataclasses.replace(make_summary(i, unit="mm", cell=25.0, cells=cells), window=window)
+        for i in (1, 2)
+    ]
+    page = render_report(surface="plate", spec=None, passes=[(s, None) for s in mm])
+    parser = _Collect()
+    parser.feed(page)
+    maps = page.split('<table class="heat')[1:]
+    assert len(maps) == 2 * 2 + 1  # two maps a pass and one change table
+    for table in maps:
+        table = table[: table.index("</table>")]
+        assert table.count("<tr>") == 2 and table.count("<td") == 4
+        assert "77.7" not in table
+    assert len(mm[-1].cells) == 9  # the record keeps the strips
+    text = " ".join(parser.text)
+    assert text.count("Edge strips under a quarter cell (0.8 mm) are not shown") == 2
+    assert "their spots count in the window's figures" in text
+    # a grid with no strip (the card in 1 in cells) draws every cell and says nothing
+    inch = make_summary(
+        3, cells=tuple(CellSummary(r, c, True, 2, 2.0, 30.0, 1.0) for r in (0, 1) for c in (0, 1))
+    )
+    page = render_report(surface="plate", spec=None, passes=[(inch, None)])
+    assert "Edge strips" not in page and page.count("<td") == 8

@@ -139,3 +139,57 @@ def test_report_screenshot(report, tmp_path) -> None:  # type: ignore[no-untyped
     image = cv2.imread(str(shot))
     assert image is not None and image.shape[1] == 1280
     assert image.std() > 10  # a page with content, not a blank sheet
+
+
+def test_report_at_phone_width_leads_with_the_latest_pass(report, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """At 390 px (a phone held upright) nothing scrolls sideways, the earlier passes are
+    folded away in closed <details>, and the overlay opens at its natural size."""
+    sync_api = pytest.importorskip("playwright.sync_api", reason="playwright is not installed")
+    path, names = report
+    with sync_api.sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=CHROMIUM, args=["--no-sandbox"])
+        try:
+            page = browser.new_page(viewport={"width": 390, "height": 844}, device_scale_factor=2)
+            page.goto(path.as_uri())
+            assert page.evaluate("document.documentElement.scrollWidth") <= 390
+            # the latest pass is open on the page; the earlier ones fold away, closed
+            latest = page.locator("section.pass#pass-3")
+            assert latest.count() == 1 and latest.locator("table.checks").count() == 1
+            assert latest.locator("ol.advice li").count() >= 1  # where to scrape next
+            folded = page.evaluate(
+                "Array.from(document.querySelectorAll('details.pass')).map(d => [d.id, d.open])"
+            )
+            assert folded == [["pass-2", False], ["pass-1", False]]
+            # the surface, its trend and the latest pass come before the earlier passes
+            order = page.evaluate(
+                "['header.surface', 'img.trend', '#pass-3', 'details.pass']"
+                ".map(s => document.querySelector(s).getBoundingClientRect().top)"
+            )
+            assert order == sorted(order)
+            page.screenshot(path=str(tmp_path / "report-390px.png"), full_page=True)
+            # the overlay at its natural size, in a frame of its own: the page stays put
+            latest.locator("details.zoom > summary").click()
+            natural, shown = page.evaluate(
+                "(() => { const i = document.querySelector('#pass-3 img.overlay');"
+                " return [i.naturalWidth, i.clientWidth]; })()"
+            )
+            assert natural > 390 and shown == pytest.approx(natural, abs=1)
+            assert page.evaluate("document.documentElement.scrollWidth") <= 390
+            # every earlier pass opened: its checks, guidance and cell maps still fit
+            for summary in page.locator("details.pass > summary").all():
+                summary.click()
+            assert page.evaluate(
+                "Array.from(document.querySelectorAll('details.pass')).every(d => d.open)"
+            )
+            assert page.locator("table.heat:not(.change)").count() == 2 * len(names)
+            assert page.locator("table.heat.change").count() == len(names) - 1
+            assert page.evaluate("document.documentElement.scrollWidth") <= 390
+            widths = page.evaluate(
+                "Array.from(document.querySelectorAll('table.checks, ol.advice, table.heat,"
+                " img.trend')).map(e => e.getBoundingClientRect().right)"
+            )
+            assert widths and max(widths) <= 390
+            page.screenshot(path=str(tmp_path / "report-390px-open.png"), full_page=True)
+            print(f"screenshots: {tmp_path}")
+        finally:
+            browser.close()

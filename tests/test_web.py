@@ -173,6 +173,39 @@ def test_upload_measures_records_and_shows_the_pass(server: Server, small_job: A
     assert (server.out / "uploads" / f"{sha}.jpg").read_bytes() == data
 
 
+def test_the_station_is_recorded_in_the_history_and_shown(server: Server, small_job: Any) -> None:
+    folder, photos = small_job
+    body = _reencoded(folder / photos[0].file, 91)
+    with server.client() as client:
+        # the upload page offers a station field beside the surface (optional)
+        form = client.get("/upload").text
+        assert (
+            'id="station" name="station"' in form
+            and "required" not in form.split('id="station"')[1].split(">")[0]
+        )
+        sent = _send(client, body, surface="saddle-way", station="<i>middle</i>")
+        location = sent.headers["location"]
+        assert _wait(client, location)["state"] == "done"
+        result = client.get(location, follow_redirects=True).text
+        assert 'id="station">&lt;i&gt;middle&lt;/i&gt;<' in result
+        # the pass page is the report's: checks, guidance and cell maps from one template
+        assert 'class="heat"' in result and "Show the overlay at full size" in result
+        # the next photo of the surface: its recorded stations are offered to pick from
+        form = client.get("/upload", params={"s": "saddle-way"}).text
+        assert '<datalist id="stations"><option value="&lt;i&gt;middle&lt;/i&gt;">' in form
+        surface_page = client.get("/surface", params={"s": "saddle-way"}).text
+        assert "station &lt;i&gt;middle&lt;/i&gt;" in surface_page
+    # the history holds the station (as batch records a station), not only the page
+    with sqlite3.connect(f"file:{server.db}?mode=ro", uri=True) as con:
+        rows = con.execute(
+            "SELECT p.station, p.sha256, p.settings IS NOT NULL, p.method FROM passes p "
+            "JOIN surfaces s ON s.id = p.surface_id WHERE s.name = 'saddle-way'"
+        ).fetchall()
+    from printcheck.method import METHOD_VERSION
+
+    assert rows == [("<i>middle</i>", hashlib.sha256(body).hexdigest(), 1, METHOD_VERSION)]
+
+
 # ---------------------------------------------------------------- several fitters at once
 
 

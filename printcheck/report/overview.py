@@ -8,7 +8,6 @@ station named, for a surface of stations), density and bearing, and the projecti
 from __future__ import annotations
 
 from dataclasses import dataclass
-from html import escape
 from pathlib import Path
 
 from printcheck.errors import OptionError
@@ -48,47 +47,33 @@ def machine_states(db: Path, machine: str) -> list[SurfaceState]:
     return states
 
 
-def _e(value: object) -> str:
-    return escape(str(value), quote=True)
-
-
 def render_overview(machine: str, states: list[SurfaceState]) -> str:
-    """The overview page's HTML."""
+    """The overview page's HTML (``printcheck/templates/overview.html``)."""
     from printcheck.progress import projection_words
+    from printcheck.report.templating import render
 
+    prefix = len(machine.strip("/")) + 1
     rows = []
     for state in states:
         p = state.progress
         last = p.passes[-1]
-        verdict = {True: "meets", False: "does not meet", None: "not judged"}[last.meets]
-        colour = {True: "#d9f2dd", False: "#f9d7d3", None: "#eeeeee"}[last.meets]
-        worst = (
-            f" (worst station {_e(last.worst_station)})"
-            if last.worst_station is not None and len(last.stations) > 1
-            else ""
-        )
-        density = "–" if last.density is None else f"{last.density:.1f}"
-        bearing = "–" if last.bearing_percent is None else f"{last.bearing_percent:.1f} %"
         rows.append(
-            f'<tr data-surface="{_e(state.name)}"><th style="text-align:left">'
-            f"{_e(state.name[len(machine.strip('/')) + 1 :])}</th>"
-            f"<td>{len(p.passes)}</td>"
-            f'<td style="background:{colour}">{_e(verdict)} {_e(p.spec or "")}{worst}</td>'
-            f"<td>{density}</td><td>{bearing}</td>"
-            f"<td>{_e(projection_words(p))}</td></tr>"
+            {
+                "name": state.name,
+                "short": state.name[prefix:],
+                "passes": len(p.passes),
+                "verdict": {True: "meets", False: "does not meet", None: "not judged"}[last.meets],
+                "colour": {True: "#d9f2dd", False: "#f9d7d3", None: "#eeeeee"}[last.meets],
+                "spec": p.spec or "",
+                "worst": last.worst_station
+                if last.worst_station is not None and len(last.stations) > 1
+                else None,
+                "density": "–" if last.density is None else f"{last.density:.1f}",
+                "bearing": "–" if last.bearing_percent is None else f"{last.bearing_percent:.1f} %",
+                "projection": projection_words(p),
+            }
         )
-    return (
-        '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">'
-        '<meta name="viewport" content="width=device-width, initial-scale=1">'
-        f"<title>{_e(machine)} · surfaces</title>"
-        "<style>body{font-family:sans-serif;margin:1.5em}table{border-collapse:collapse}"
-        "td,th{border:1px solid #ccc;padding:4px 8px;vertical-align:top}</style></head>"
-        f"<body><h1>{_e(machine)}: {len(states)} surface{'s' if len(states) != 1 else ''}</h1>"
-        "<p>Each surface's latest pass; densities in points per the latest pass's cell; a "
-        "pass of stations meets only when every station meets.</p>"
-        "<table><tr><th>surface</th><th>passes</th><th>latest pass</th><th>density</th>"
-        f"<th>bearing</th><th>projection</th></tr>{''.join(rows)}</table></body></html>\n"
-    )
+    return render("overview.html", machine=machine, rows=rows)
 
 
 def write_overview(db: Path, machine: str, out: Path) -> Path:

@@ -8,37 +8,67 @@ passes are single photos it shows only the passes' notes, if any.
 
 from __future__ import annotations
 
-from html import escape
+from dataclasses import dataclass
 
 from printcheck.progress import MIN_PASSES, projection_words, station_progress
 from printcheck.records import Progress, ProgressRow, StationProgress
 
-__all__ = ["stations_section"]
+__all__ = ["StationsView", "stations_section", "stations_view"]
 
 _OK, _SHORT, _NONE = "#d9f2dd", "#f9d7d3", "#eeeeee"
 
 
-def _e(value: object) -> str:
-    return escape(str(value), quote=True)
+@dataclass(frozen=True)
+class StationCell:
+    """One station of one pass: its figures, colour and whether it is the worst."""
+
+    station: str
+    photo: str
+    density: str
+    bearing: str
+    colour: str
+    worst: bool
+
+
+@dataclass(frozen=True)
+class StationRow:
+    """One pass of the strip: its number, verdict, worst station, note and cells."""
+
+    number: int
+    verdict: str
+    worst: str | None
+    note: str | None
+    cells: list[StationCell | None]
+
+
+@dataclass(frozen=True)
+class StationsView:
+    """The stations strip (``rows``, newest pass first) or, for a surface of single
+    photos, only its passes' notes."""
+
+    names: list[str]
+    per: str
+    rows: list[StationRow]
+    lead: str
+    each: list[str]
+    notes: list[tuple[int, str]]
 
 
 def _fig(value: float | None, digits: int = 1) -> str:
     return "–" if value is None else f"{value:.{digits}f}"
 
 
-def _cell(row: ProgressRow, station: str, per: str) -> str:
+def _cell(row: ProgressRow, station: str) -> StationCell | None:
     figure = next((f for f in row.stations if f.station == station), None)
     if figure is None:
-        return '<td style="background:#fafafa;color:#999">no photo</td>'
-    colour = {True: _OK, False: _SHORT, None: _NONE}[figure.meets]
-    worst = figure.station == row.worst_station and len(row.stations) > 1
-    mark = "<br><b>worst</b>" if worst else ""
-    border = "border:2px solid #a33;" if worst else ""
-    return (
-        f'<td class="station" data-station="{_e(station)}" style="background:{colour};{border}'
-        f'padding:4px 8px;text-align:center" title="{_e(figure.photo)}">'
-        f"<b>{_fig(figure.density)}</b> {_e(per)}<br>bearing {_fig(figure.bearing_percent)} %"
-        f"{mark}</td>"
+        return None
+    return StationCell(
+        station=station,
+        photo=figure.photo,
+        density=_fig(figure.density),
+        bearing=_fig(figure.bearing_percent),
+        colour={True: _OK, False: _SHORT, None: _NONE}[figure.meets],
+        worst=figure.station == row.worst_station and len(row.stations) > 1,
     )
 
 
@@ -54,49 +84,47 @@ def _station_projection(progress: Progress, s: StationProgress) -> str:
     return projection_words(one)
 
 
-def stations_section(progress: Progress | None) -> str:
-    """The stations strip and notes of ``progress`` as an HTML section (or ``""``)."""
-    if progress is None:
-        return ""
+def stations_view(progress: Progress) -> StationsView:
+    """The stations strip and notes of ``progress``, for the ``stations`` macro."""
     from printcheck.units import to_mm
     from printcheck.wording import density_words
 
     per = density_words(to_mm(progress.cell or 1.0, progress.unit or "in"), progress.unit or "in")
     if not progress.stations:
-        notes = [r for r in progress.passes if r.note]
-        if not notes:
-            return ""
-        items = "".join(f"<li>pass {r.number}: {_e(r.note)}</li>" for r in notes)
-        return f'<section class="pass" id="notes"><h2>Pass notes</h2><ul>{items}</ul></section>'
+        notes = [(r.number, r.note) for r in progress.passes if r.note]
+        return StationsView([], per, [], "", [], notes)
     names = [s.station for s in progress.stations]
-    head = "".join(f'<th style="padding:4px 8px">station {_e(n)}</th>' for n in names)
-    rows = []
-    for row in reversed(progress.passes):
-        cells = "".join(_cell(row, n, per) for n in names)
-        note = f"<br><i>{_e(row.note)}</i>" if row.note else ""
-        worst = (
-            f"; worst station {_e(row.worst_station)}"
+    rows = [
+        StationRow(
+            number=row.number,
+            verdict=_verdict(row.meets),
+            worst=row.worst_station
             if row.worst_station is not None and len(row.stations) > 1
-            else ""
+            else None,
+            note=row.note,
+            cells=[_cell(row, n) for n in names],
         )
-        rows.append(
-            f'<tr data-pass="{row.number}"><th style="text-align:left;padding:4px 8px">'
-            f"pass {row.number}<br><small>{_e(_verdict(row.meets))}{worst}</small>{note}</th>"
-            f"{cells}</tr>"
-        )
+        for row in reversed(progress.passes)
+    ]
     lead = (
-        f"<p>Projection for the surface, led by its slowest station "
-        f"({_e(progress.slowest_station)}): {_e(projection_words(progress))}.</p>"
+        f"Projection for the surface, led by its slowest station "
+        f"({progress.slowest_station}): {projection_words(progress)}."
         if progress.slowest_station is not None
         else ""
     )
-    each = "".join(
-        f"<li>station {_e(s.station)}: {_e(_station_projection(progress, s))}</li>"
-        for s in progress.stations
-    )
-    return (
-        '<section class="pass" id="stations"><h2>Stations</h2>'
-        "<p>A pass meets only when every station meets; the worst station decides.</p>"
-        f'<table class="stations" style="border-collapse:separate;border-spacing:3px">'
-        f"<tr><th></th>{head}</tr>{''.join(rows)}</table>{lead}<ul>{each}</ul></section>"
-    )
+    each = [f"station {s.station}: {_station_projection(progress, s)}" for s in progress.stations]
+    return StationsView(names, per, rows, lead, each, [])
+
+
+def stations_section(progress: Progress | None) -> str:
+    """The stations strip and notes of ``progress`` as an HTML section (or ``""``),
+    rendered by the ``stations`` macro of ``printcheck/templates/_macros.html``."""
+    if progress is None:
+        return ""
+    from printcheck.report.templating import environment
+
+    view = stations_view(progress)
+    if not view.rows and not view.notes:
+        return ""
+    macros = environment().get_template("_macros.html").module
+    return str(macros.stations(view)).strip()  # type: ignore[attr-defined]

@@ -1,6 +1,7 @@
 """The Starlette application: the surfaces, one surface, one pass, the upload page.
 
-Pages are Jinja2 templates with autoescape on (every name from outside is escaped);
+Pages are rendered from printcheck's one set of Jinja2 templates (``printcheck/templates``,
+shared with the offline report; autoescape on: every name from outside is escaped);
 they need no script: the progress page refreshes itself with ``<meta http-equiv=refresh>``
 until its photo has been measured.  Nothing outside the history and the output folder is
 read or written: there is no static-file route; images come from the output folder by
@@ -15,7 +16,7 @@ from pathlib import Path
 from typing import Any
 from urllib.parse import urlencode
 
-from jinja2 import Environment, PackageLoader, select_autoescape
+from jinja2 import Environment
 from starlette.applications import Starlette
 from starlette.concurrency import run_in_threadpool
 from starlette.formparsers import MultiPartException
@@ -24,6 +25,7 @@ from starlette.responses import HTMLResponse, RedirectResponse, Response
 from starlette.routing import Route
 
 from printcheck.errors import PhotoError, PrintcheckError
+from printcheck.report.views import legend_items
 from printcheck.web.measurer import DONE, FAILED, Measurer
 from printcheck.web.security import AccessCode, csrf_ok, csrf_token, keep_csrf
 from printcheck.web.uploads import UploadIndex, check_photo_bytes, store_upload
@@ -51,17 +53,10 @@ class WebConfig:
 
 
 def _environment() -> Environment:
-    from printcheck.wording import fixed
+    """The one environment of printcheck's pages (shared with the offline report)."""
+    from printcheck.report.templating import environment
 
-    env = Environment(
-        loader=PackageLoader("printcheck.web", "templates"),
-        autoescape=select_autoescape(default=True, default_for_string=True),
-        trim_blocks=True,
-        lstrip_blocks=True,
-    )
-    env.filters["fixed"] = fixed
-    env.globals["q"] = lambda **kw: urlencode(kw)
-    return env
+    return environment()
 
 
 def _clean_name(text: Any, limit: int = _NAME_MAX) -> str:
@@ -80,6 +75,7 @@ class SurfaceView:
     progress: Any
     words: str
     latest: Any
+    progress_spec: Any = None
 
 
 def _surface_view(history: Any, name: str) -> SurfaceView | None:
@@ -89,9 +85,10 @@ def _surface_view(history: Any, name: str) -> SurfaceView | None:
     if not stored:
         return None
     # the history's own progress: a pass of several stations is one pass
-    progress = history_progress(name, stored, spec=surface_spec(stored))
+    spec = surface_spec(stored)
+    progress = history_progress(name, stored, spec=spec)
     words = projection_words(progress)
-    return SurfaceView(name, stored, progress, words[:1].upper() + words[1:], stored[-1])
+    return SurfaceView(name, stored, progress, words[:1].upper() + words[1:], stored[-1], spec)
 
 
 def _read(db: Path, work: Any) -> Any:
@@ -169,15 +166,15 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
             return problem(request, "No such pass in the history.", 404)
         view, stored = found
         uploads = await run_in_threadpool(index.rows, name)
+        upload = uploads.get(sha, {})
         return page(
             request,
             "pass.html",
             view=view,
-            stored=stored,
-            s=stored.summary,
-            upload=uploads.get(sha, {}),
+            v=_pass_view(view, stored, upload.get("station")),
+            legend_items=legend_items(),
+            upload=upload,
             fresh=request.query_params.get("new") == "1",
-            grid=_grid(stored.summary.cells),
         )
 
     async def overlay(request: Request) -> Response:
@@ -199,13 +196,25 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
         return Response(data, media_type="image/png", headers={"Cache-Control": "no-store"})
 
     async def upload_form(request: Request) -> Response:
-        known = await run_in_threadpool(_read, config.db, lambda h: h.surfaces())
-        chosen = request.query_params.get("s") or config.default_surface or ""
+        chosen = _clean_name(request.query_params.get("s") or config.default_surface or "")
+
+        def work(history: Any) -> tuple[list[str], list[str]]:
+            names = history.surfaces()
+            stations: list[str] = []
+            if chosen in names:
+                for p in history.passes(chosen):
+                    if p.station and p.station not in stations:
+                        stations.append(p.station)
+            return names, stations
+
+        known, stations = await run_in_threadpool(_read, config.db, work)
         return page(
             request,
             "upload.html",
             surfaces=known,
             chosen=chosen,
+            stations=stations,
+            station=_clean_name(request.query_params.get("st")),
             limit_mb=config.max_upload_bytes // (1024 * 1024),
         )
 
@@ -323,13 +332,23 @@ def _too_big(limit: int) -> str:
     )
 
 
-def _grid(cells: Any) -> list[list[Any]]:
-    """The cells as rows (row-major, gaps as None) for the cell table."""
-    if not cells:
-        return []
-    rows = 1 + max(c.row for c in cells)
-    cols = 1 + max(c.col for c in cells)
-    grid: list[list[Any]] = [[None] * cols for _ in range(rows)]
-    for c in cells:
-        grid[c.row][c.col] = c
-    return grid
+def _pass_view(view: SurfaceView, stored: Any, sent_station: str | None) -> Any:
+    """The shared view of a pass (as the report shows it), its images from the routes."""
+    from printcheck.report.views import pass_view
+
+    previous = None
+    for earlier in view.passes:
+        if earlier is stored:
+            break
+        previous = earlier.summary
+    image = "/pass/overlay.png?" + urlencode({"s": view.name, "sha": stored.summary.sha256})
+    spec = stored.spec if stored.spec is not None else view.progress_spec
+    return pass_view(
+        stored.number,
+        stored.summary,
+        spec,
+        previous=previous,
+        overlay_src=image,
+        overlay_href=image,
+        station=stored.station or sent_station,
+    )

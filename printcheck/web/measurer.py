@@ -1,9 +1,10 @@
 """The measurer: photos measured in worker processes, each pass recorded in the history.
 
-The workers are ``batch``'s: the same pool context (a fork server with the stages
-preloaded), the same work function (:func:`printcheck.batch._work`: inspect, write the
-result JSON and overlay into the output folder), so a photo sent from a phone is measured,
-written and recorded exactly as ``batch`` would.  Recording happens in this process, one
+The workers are ``batch``'s: the same pool (:func:`printcheck.batch.photo_pool`, a fork
+server with the stages preloaded), the same work function
+(:func:`printcheck.batch.measure_photo`: inspect, write the result JSON and overlay into
+the output folder), so a photo sent from a phone is measured, written and recorded exactly
+as ``batch`` would.  Recording happens in this process, one
 pass at a time under a lock; the history itself refuses a photo (by its SHA-256) it
 already holds for the surface, and the job table recognises a photo that is still being
 measured, so a photo sent twice is measured and recorded once.
@@ -13,8 +14,6 @@ from __future__ import annotations
 
 import contextlib
 import hashlib
-import os
-import signal
 import threading
 import time
 from concurrent.futures import Future, ProcessPoolExecutor
@@ -58,20 +57,6 @@ class Job:
         return (self.finished or time.monotonic()) - self.submitted
 
 
-def _start_worker(parent_pid: int) -> None:
-    """Each worker: ignore Ctrl-C (the server answers it), end when the server ends."""
-    from printcheck import batch
-
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    batch._end_with(parent_pid)  # noqa: SLF001 - the batch's own worker life-cycle
-
-
-def _measure(path: Path, options: InspectOptions, out: Path) -> Any:
-    from printcheck import batch
-
-    return batch._work(path, options, out, True)  # noqa: SLF001
-
-
 class Measurer:
     """A pool of worker processes and the table of jobs.
 
@@ -102,20 +87,14 @@ class Measurer:
 
     def start(self) -> None:
         """Start the worker pool (and check the history can be opened and written)."""
-        from printcheck import batch
+        from printcheck.batch import photo_pool
         from printcheck.history import open_history
 
         with open_history(self.db):
             pass  # a file that is not a history is refused now, not at the first photo
         self.out.mkdir(parents=True, exist_ok=True)
-        context = batch._pool_context()  # noqa: SLF001
-        batch._start_helpers(context)  # noqa: SLF001
-        self._pool = ProcessPoolExecutor(
-            max_workers=self.workers,
-            mp_context=context,
-            initializer=_start_worker,
-            initargs=(os.getpid(),),
-        )
+        # workers ignore Ctrl-C (the server answers it) and end when the server ends
+        self._pool = photo_pool(self.workers)
 
     def stop(self) -> None:
         """Stop the workers (photos still queued are dropped; none is half-recorded)."""
@@ -150,13 +129,15 @@ class Measurer:
     def _run(self, job: Job) -> None:
         from concurrent.futures.process import BrokenProcessPool
 
+        from printcheck.batch import measure_photo
+
         options = replace(self.options, surface=job.surface)
         for _ in range(2):
             pool = self._pool
             if pool is None:
                 raise RuntimeError("the measurer is not started")
             try:
-                future = pool.submit(_measure, job.path, options, self.out)
+                future = pool.submit(measure_photo, job.path, options, self.out)
             except BrokenProcessPool:  # a worker was killed: a fresh pool, then again
                 self._restart(pool)
                 continue
@@ -193,7 +174,7 @@ class Measurer:
             self._fail(job, _without_path(outcome.error, job.path))
             return
         try:
-            recorded = self._record(outcome.summary, job.surface, options)
+            recorded = self._record(outcome.summary, job.surface, options, job.station)
         except Exception as exc:  # the history could not be written: say so on the page
             self._fail(job, str(exc))
             return
@@ -203,11 +184,24 @@ class Measurer:
             job.finished = time.monotonic()
             job.state = DONE
 
-    def _record(self, summary: Any, surface: str, options: InspectOptions) -> bool:
+    def _record(
+        self, summary: Any, surface: str, options: InspectOptions, station: str | None
+    ) -> bool:
+        """Record the photo as a pass of ``surface`` (at ``station``), with the settings
+        and method it was measured by, as ``batch`` records a photo of its own."""
         from printcheck.history import open_history
+        from printcheck.method import METHOD_VERSION
+        from printcheck.stations import settings_key
 
         with self._record_lock, open_history(self.db) as history:
-            return history.record(summary, surface=surface, spec=options.spec)
+            return history.record(
+                summary,
+                surface=surface,
+                spec=options.spec,
+                station=station,
+                settings=settings_key(options),
+                method=METHOD_VERSION,
+            )
 
     def _fail(self, job: Job, message: str) -> None:
         with self._lock:

@@ -60,14 +60,14 @@ def check_photo_bytes(data: bytes, *, label: str = "upload") -> CheckedPhoto:
 
     if not data:
         raise PhotoError(f"{label}: the file is empty")
-    im = load._open_header(Path(label), data)  # noqa: SLF001 - the same guards as load
-    fmt = str(im.format or "")
+    header = load.photo_header(data, label)  # the same guards as load_photo
+    fmt = header.format
     suffix = _SUFFIX.get(fmt)
     if suffix is None:
         raise PhotoError(
             f"{label}: a {fmt or 'unknown'} image; send a JPEG, PNG, TIFF or HEIC photo"
         )
-    width, height = im.size
+    width, height = header.width, header.height
     if width * height > load.MAX_PIXELS:
         raise PhotoError(
             f"{label}: {width} x {height} pixels is more than the "
@@ -75,7 +75,7 @@ def check_photo_bytes(data: bytes, *, label: str = "upload") -> CheckedPhoto:
         )
     if width < 16 or height < 16:
         raise PhotoError(f"{label}: {width} x {height} pixels is too small to measure")
-    if load._truncated(data):  # noqa: SLF001
+    if load.is_truncated(data):
         raise PhotoError(f"{label}: the file is truncated (the upload was cut short?)")
     return CheckedPhoto(hashlib.sha256(data).hexdigest(), suffix, width, height)
 
