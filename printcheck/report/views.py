@@ -14,6 +14,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from urllib.parse import quote
 
+from printcheck.cells import EDGE_STRIP
 from printcheck.records import CellSummary, PassSummary
 from printcheck.spec import Spec
 from printcheck.units import to_mm
@@ -58,8 +59,9 @@ CELL_COLOURS: dict[str, tuple[int, int, int]] = {
 _DARK = {"short"}  # classes whose figures are written in white
 _WHITE = (248, 249, 250)
 
-#: A column or row of cells narrower than this share of a cell is not drawn on the maps.
-MIN_DRAWN_SHARE = 0.25
+#: A column or row of cells narrower than this share of a cell is not drawn on the maps
+#: (the edge strips of :func:`printcheck.cells.edge_strip`).
+MIN_DRAWN_SHARE = EDGE_STRIP
 
 
 def data_uri(data: bytes) -> str:
