@@ -343,6 +343,25 @@ def test_names_from_outside_are_escaped(tmp_path: Path) -> None:
     assert sheet_name("../../x", ".html") == "sheet-.._.._x.html"
 
 
+def test_a_surface_without_a_spec_gets_figures_and_no_verdicts(tmp_path: Path) -> None:
+    from _hand_results import make_summary
+
+    from printcheck.progress import history_progress
+    from printcheck.records import StoredPass
+    from printcheck.report.sheet import render_sheet
+
+    stored = [StoredPass(n, make_summary(n, 5.0 * n), None, None, "2027-01-01") for n in (1, 2, 3)]
+    progress = history_progress("gib", stored, spec=None)
+    text = render_sheet(surface="gib", spec=None, stored=stored, progress=progress, out=tmp_path)
+    page = _Reader()
+    page.feed(text)
+    rows = [r for r in page.page.rows if "data-verdict" in r["attrs"]]
+    assert [r["attrs"]["data-verdict"] for r in rows] == ["not judged"] * 3
+    assert [r["cells"][3] for r in rows] == ["5.0", "10.0", "15.0"]
+    assert "No spec was recorded for this surface" in text
+    assert page.page.fields["verdict"] == "pass 3 not judged"
+
+
 # --------------------------------------------------------------------------- the PDF
 
 
