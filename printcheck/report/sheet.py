@@ -236,6 +236,32 @@ def _spec_lines(spec: Spec | None) -> list[SpecLine]:
     return [SpecLine(t.label, t.words, t.source) for t in target_lines(spec)]
 
 
+def _job_target(progress: Progress, spec: Spec | None) -> str:
+    """The spec's density targets in the job's own unit and cell, in words (or ``""``)."""
+    from printcheck.units import to_mm
+    from printcheck.wording import density_words, num
+
+    t = progress.targets
+    if spec is None or t.density is None:
+        return ""
+    unit = progress.unit or "in"
+    per = density_words(to_mm(progress.cell or 1.0, unit), unit)
+    words = f"at least {num(t.density, 1)} {per}"
+    if spec.min_density is not None:
+        words += " on average"
+    if spec.min_cell_density is not None and t.cell_density is not None:
+        share = (
+            "every complete cell"
+            if spec.cell_share >= 1.0
+            else f"{num(100 * spec.cell_share, 1)}% of complete cells"
+        )
+        if spec.min_density is None:
+            words += f" in {share}"
+        else:
+            words += f", and at least {num(t.cell_density, 1)} in {share}"
+    return words
+
+
 def _data_uri(data: bytes) -> str:
     mime = "image/png" if data[:8] == b"\x89PNG\r\n\x1a\n" else "image/jpeg"
     return f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
@@ -410,6 +436,7 @@ def render_sheet(
         "worst_station": latest.worst_station if len(latest.stations) > 1 else None,
         "projection": words[:1].upper() + words[1:] + ".",
         "per": density_words(to_mm(progress.cell or 1.0, unit), unit),
+        "job_target": _job_target(progress, spec),
         "lines": _verdict_lines(progress, stored),
         "prints": _latest_prints(progress, stored, spec, out),
         "trend": _data_uri(trend_png(progress, dpi=150)),
