@@ -487,8 +487,10 @@ def print_pdf(
     (date, file name) are switched off.  Chromium runs with a fresh profile in a temporary
     folder (so it neither touches the user's nor waits for a running browser's), and
     without its sandbox, which refuses to start as root: the page is printcheck's own
-    file, with no script and no outside resource.  The PDF is written beside the target
-    and moved into place only when whole.
+    file, with no script and no outside resource.  Chromium prints into a temporary
+    folder inside the output folder (a browser confined to the user's files, as a snap
+    is, may not see the system's temporary folder), and the PDF is moved into place
+    only when whole.
 
     Raises
     ------
