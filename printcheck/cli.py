@@ -641,6 +641,45 @@ def report(
 
 
 @app.command()
+def sheet(
+    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    db: DbOpt = None,
+    out: Annotated[
+        Path,
+        typer.Option("--out", help="Folder for the sheet (overlays found there are shown)."),
+    ] = Path("printcheck-out"),
+    pdf: Annotated[
+        bool, typer.Option("--pdf/--no-pdf", help="Also print it to PDF with a Chromium.")
+    ] = True,
+    paper: Annotated[
+        Literal["a4", "letter"], typer.Option("--paper", help="Paper size of the printed sheet.")
+    ] = "a4",
+    chromium: Annotated[
+        str | None,
+        typer.Option(
+            "--chromium",
+            help="The Chromium to print the PDF with (default: PRINTCHECK_CHROMIUM, else "
+            "chromium, chromium-browser or google-chrome on PATH).",
+        ),
+    ] = None,
+) -> None:
+    """Write a surface's job sheet (one or two printed pages) from the history, and its PDF."""
+    from printcheck.report.sheet import find_chromium, write_sheet
+
+    history = _existing_history(db)
+    browser = find_chromium(chromium) if pdf else None
+    files = write_sheet(history, surface, out, paper=paper, chromium=browser)
+    typer.echo(f"sheet: {files.html}")
+    if files.pdf is not None:
+        typer.echo(f"pdf:   {files.pdf}")
+    elif pdf:
+        typer.echo(
+            "no PDF: printing it needs a Chromium (chromium, chromium-browser or google-chrome "
+            "on PATH, or --chromium / PRINTCHECK_CHROMIUM); print the sheet from a browser"
+        )
+
+
+@app.command()
 def overview(
     machine: Annotated[
         str,
