@@ -181,11 +181,27 @@ def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -
         write_json(out, output_name(result.photo, ".json"), summary_to_dict(summary))
         write_bytes(out, output_name(result.photo, OVERLAY_SUFFIX), encode_image(overlay, ".png"))
         preview = encode_image(_shrink(overlay, 1400), ".jpg", jpeg_quality=85)
+        _keep_contacts(result, out)
     except PrintcheckError as exc:
         return Skipped(path, str(exc))
     except Exception as exc:  # a bug or out of memory on one photo must not stop the batch
         return Skipped(path, f"photo {path}: internal error: {type(exc).__name__}: {exc}")
     return Measured(path, summary, preview)
+
+
+def _keep_contacts(result: Any, out: Path) -> None:
+    """Keep the photo's contact map for the change since the pass before (best effort:
+    the report only leaves the change image out where a map is missing)."""
+    from printcheck.compare import CONTACTS_FOLDER, contact_map_of, contacts_name, encode_contacts
+    from printcheck.report.files import write_bytes
+
+    if not result.sha256:
+        return
+    data = encode_contacts(contact_map_of(result), photo=result.photo, sha256=result.sha256)
+    try:
+        write_bytes(out / CONTACTS_FOLDER, contacts_name(result.sha256), data)
+    except PrintcheckError:
+        pass
 
 
 def _shrink(image: Any, longest: int) -> Any:

@@ -468,9 +468,12 @@ def _pass_section(
     parts.append("<h3>Cells</h3>")
     parts.append(_heat_tables(summary, spec))
     change = _change_table(summary, previous)
-    if change:
+    from printcheck.compare import change_view  # where contacts appeared and disappeared
+
+    view = change_view(folder, summary, previous)
+    if change or view is not None:
         parts.append("<h3>Change since the pass before</h3>")
-        parts.append(change)
+        parts.append(change + (view.html if view is not None else ""))
     parts.append("</section>")
     return "".join(parts)
 
