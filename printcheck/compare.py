@@ -584,8 +584,8 @@ def _view_html(change: Change, png: bytes, summary: PassSummary, previous: PassS
             f"most disappeared from cell {least.label} ({pct(least.disappeared_percent)} of it)"
         )
     key = "; ".join(words) + (
-        ". Hatched: not seen in both photos. The photos are laid one on the other "
-        "through the card's markers."
+        ". Hatched: not seen in one of the two photos (glare, out of view). The prints "
+        "are laid one on the other through the markers."
     )
     src = "data:image/png;base64," + base64.b64encode(png).decode("ascii")
     alt = f"contacts of {summary.photo} laid on those of {previous.photo}"
