@@ -462,6 +462,7 @@ def _measure_and_record(
     photos for the report (their current figures, and the overlay where there is one)."""
     import json
 
+    from printcheck.compare import place_contacts
     from printcheck.history import open_history
     from printcheck.method import METHOD_VERSION
     from printcheck.progress import history_progress, surface_spec
@@ -507,6 +508,7 @@ def _measure_and_record(
                 history.place(
                     surface, sha, station=p.station, pass_key=p.pass_key, sort_time=_iso(p)
                 )
+                place_contacts(out, sha, station=p.station, pass_key=p.pass_key)
                 continue
             to_measure.append(p)
         if not to_measure:
@@ -554,6 +556,13 @@ def _measure_and_record(
                                         _remeasured_words(
                                             outcome.summary, done.earlier, reasons[plan.path]
                                         )
+                                    )
+                                if outcome.summary.sha256:
+                                    place_contacts(
+                                        out,
+                                        outcome.summary.sha256,
+                                        station=plan.station,
+                                        pass_key=plan.pass_key,
                                     )
                                 tally.measured.append(outcome)
                                 if json_lines:

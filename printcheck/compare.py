@@ -25,6 +25,7 @@ Arrays are indexed (row, col); physical points are (x, y) mm in the layout frame
 
 from __future__ import annotations
 
+import dataclasses
 import html
 import io
 import math
@@ -61,7 +62,9 @@ __all__ = [
     "decode_contacts",
     "draw_change",
     "encode_contacts",
+    "place_contacts",
     "read_contacts",
+    "same_place",
 ]
 
 #: The folder of the output folder that holds the contact maps (hidden: a later batch
@@ -104,6 +107,9 @@ class ContactMap:
         The analysed window (mm, layout frame).
     cell_mm : float
         Side of the counting cell the print was measured with, in mm.
+    station, pass_key : str or None
+        Where batch placed the photo: its station within its pass and what groups the
+        photos of its pass (None: the pass's only photo; a pass of its own).
     """
 
     state: np.ndarray
@@ -111,6 +117,8 @@ class ContactMap:
     origin_mm: tuple[float, float]
     window: Window
     cell_mm: float
+    station: str | None = None
+    pass_key: str | None = None
 
     @property
     def frame(self) -> Frame:
@@ -263,8 +271,9 @@ def encode_contacts(cmap: ContactMap, *, photo: str = "", sha256: str = "") -> b
     """The contact map as a 2-bit palette PNG, its geometry in text chunks.
 
     Text chunks (all mm): ``format`` (``printcheck-contacts/1``), ``px_per_mm``,
-    ``origin_mm`` ("x y"), ``window_mm`` ("x y width height"), ``cell_mm``, and the
-    ``photo`` name and ``sha256`` it was measured from.  Palette: 0 not analysed (white),
+    ``origin_mm`` ("x y"), ``window_mm`` ("x y width height"), ``cell_mm``, the
+    ``photo`` name and ``sha256`` it was measured from, and where batch placed it:
+    ``station`` and ``pass_key`` (only when set).  Palette: 0 not analysed (white),
     1 bare (light grey), 2 contact (black), so the file also reads as a picture.
     """
     from PIL import Image, PngImagePlugin
@@ -281,6 +290,10 @@ def encode_contacts(cmap: ContactMap, *, photo: str = "", sha256: str = "") -> b
     info.add_text("cell_mm", repr(float(cmap.cell_mm)))
     info.add_text("photo", photo)
     info.add_text("sha256", sha256)
+    if cmap.station is not None:
+        info.add_text("station", cmap.station)
+    if cmap.pass_key is not None:
+        info.add_text("pass_key", cmap.pass_key)
     buf = io.BytesIO()
     image.save(buf, format="PNG", bits=2, optimize=True, pnginfo=info)
     return buf.getvalue()
@@ -321,7 +334,15 @@ def decode_contacts(data: bytes, *, name: str = "contact map") -> ContactMap:
         raise bad(f"its geometry is not sane: {numbers}")
     if state.ndim != 2 or state.size == 0 or int(state.max()) > CONTACT:
         raise bad("its pixels are not contact states")
-    return ContactMap(state, s, (ox, oy), Window(wx, wy, ww, wh), cell)
+    return ContactMap(
+        state,
+        s,
+        (ox, oy),
+        Window(wx, wy, ww, wh),
+        cell,
+        station=text.get("station"),
+        pass_key=text.get("pass_key"),
+    )
 
 
 def read_contacts(path: str | Path) -> ContactMap:
@@ -332,6 +353,46 @@ def read_contacts(path: str | Path) -> ContactMap:
     except OSError as exc:
         raise ReportError(f"contact map {p}: cannot be read ({exc.strerror or exc})") from None
     return decode_contacts(data, name=f"contact map {p}")
+
+
+def place_contacts(
+    folder: str | Path, sha256: str, *, station: str | None, pass_key: str | None
+) -> None:
+    """Record in a kept contact map where batch placed its photo (station, pass).
+
+    Best effort: a missing or unreadable map, or a folder that cannot be written, is left
+    as it is (the report then shows no change image for it).
+    """
+    from printcheck.report.files import write_bytes
+
+    where = Path(folder) / CONTACTS_FOLDER
+    try:
+        name = contacts_name(sha256)
+        data = (where / name).read_bytes()
+        cmap = decode_contacts(data)
+        if (cmap.station, cmap.pass_key) == (station, pass_key):
+            return
+        with_place = dataclasses.replace(cmap, station=station, pass_key=pass_key)
+        from PIL import Image
+
+        with Image.open(io.BytesIO(data)) as image:
+            photo = str(getattr(image, "text", {}).get("photo", ""))
+        write_bytes(where, name, encode_contacts(with_place, photo=photo, sha256=sha256))
+    except (OSError, ValueError):  # ReportError is an OSError
+        return
+
+
+def same_place(before: ContactMap, after: ContactMap) -> bool:
+    """Whether two maps are of one station in two different passes, as far as known.
+
+    Maps that batch placed in passes of stations must name the same station and
+    different passes; maps with no place recorded (a pass of one photo) are taken as
+    one place, as the surface's passes are.
+    """
+    if before.station != after.station:
+        return False
+    placed = before.pass_key is not None or after.pass_key is not None
+    return not (placed and before.pass_key == after.pass_key)
 
 
 # --------------------------------------------------------------------------- comparing
@@ -549,7 +610,8 @@ def change_view(
     """The change from ``previous`` to ``summary``, from the contact maps in ``folder``.
 
     None when there is no pass before, no output folder, or a map is missing, unreadable
-    or of another window (a pass measured before maps were kept, another card).
+    or of another window (a pass measured before maps were kept, another card), or when
+    the two photos are not of one station in two passes (:func:`same_place`).
     """
     if folder is None or previous is None or not summary.sha256 or not previous.sha256:
         return None
@@ -557,6 +619,8 @@ def change_view(
     try:
         before = read_contacts(where / contacts_name(previous.sha256))
         after = read_contacts(where / contacts_name(summary.sha256))
+        if not same_place(before, after):
+            return None
         change = compare_contacts(before, after)
     except (ReportError, ValueError):
         return None

@@ -29,6 +29,7 @@ from printcheck.compare import (
     decode_contacts,
     draw_change,
     encode_contacts,
+    same_place,
 )
 from printcheck.errors import ReportError
 from printcheck.frame import Frame
@@ -318,3 +319,50 @@ def test_batch_keeps_a_map_per_photo_and_reports_the_change(small_job, tmp_path,
     assert page.count('class="overlay change"') == len(photos) - 1
     # the photo folder is untouched: no file added, none changed
     assert {p: hashlib.sha256(p.read_bytes()).hexdigest() for p in folder.iterdir()} == before
+
+
+def test_same_place_needs_one_station_in_two_passes() -> None:
+    a = _tiny(np.ones((4, 4)))
+
+    def at(station: str | None, pass_key: str | None) -> ContactMap:
+        return dataclasses.replace(a, station=station, pass_key=pass_key)
+
+    assert same_place(a, a)  # passes of one photo each: the surface's one place
+    assert same_place(at("1", "p1"), at("1", "p2"))
+    assert not same_place(at("1", "p1"), at("2", "p2"))  # another station
+    assert not same_place(at("1", "p1"), at("2", "p1"))  # two stations of one pass
+    data = encode_contacts(at("tailstock", "pass3"))
+    back = decode_contacts(data)
+    assert (back.station, back.pass_key) == ("tailstock", "pass3")
+
+
+def test_a_batch_of_stations_compares_only_a_station_with_itself(
+    small_job, tmp_path, capsys
+) -> None:  # type: ignore[no-untyped-def]
+    import shutil
+
+    from printcheck.cli import main
+
+    folder, photos = small_job
+    job = tmp_path / "job"
+    job.mkdir()
+    shutil.copy(folder / "layout.toml", job / "layout.toml")
+    # taken in this order: pass 1 station 1, pass 1 station 2, pass 2 station 1
+    for photo, name in zip(photos, ("p1-st1.jpg", "p1-st2.jpg", "p2-st1.jpg"), strict=True):
+        shutil.copy2(folder / photo.file, job / name)
+    out = tmp_path / "out"
+    code = main(
+        ["batch", str(job), "--layout", str(job / "layout.toml"), "--surface", "w"]
+        + ["--group", "name", "--out", str(out), "--db", str(tmp_path / "h.sqlite")]
+    )
+    capsys.readouterr()
+    assert code == 0
+    maps = {m.stem: decode_contacts(m.read_bytes()) for m in (out / CONTACTS_FOLDER).iterdir()}
+    assert sorted((m.station, m.pass_key) for m in maps.values()) == [
+        ("1", "pass 1"),
+        ("1", "pass 2"),
+        ("2", "pass 1"),
+    ]
+    # the photo before each in the report is another station, or the same pass: no overlay
+    page = (out / "report.html").read_text(encoding="utf-8")
+    assert 'class="overlay change"' not in page
