@@ -264,7 +264,7 @@ def test_maps_that_are_not_maps_are_refused() -> None:
 def test_colours_tell_apart_in_grey() -> None:
     # ITU-R BT.601 luma: the three states and white stay at least 40 levels apart printed
     # in grey; blue against vermillion is a pair of Okabe and Ito's colour-universal-design
-    # palette (Okabe & Ito 2008, "Color Universal Design"; the blue darkened here)
+    # palette (Okabe & Ito, "Color Universal Design", 2008; cited from memory; blue darkened)
     def luma(rgb: tuple[int, int, int]) -> float:
         return 0.299 * rgb[0] + 0.587 * rgb[1] + 0.114 * rgb[2]
 
