@@ -183,6 +183,7 @@ def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -
         write_json(out, output_name(result.photo, ".json"), summary_to_dict(summary))
         write_bytes(out, output_name(result.photo, OVERLAY_SUFFIX), encode_image(overlay, ".png"))
         preview = encode_image(_shrink(overlay, 1400), ".jpg", jpeg_quality=85)
+        _keep_contacts(result, out)
     except PrintcheckError as exc:
         return Skipped(path, str(exc))
     except Exception as exc:  # a bug or out of memory on one photo must not stop the batch
@@ -239,6 +240,21 @@ def _start_pool_worker(parent_pid: int) -> None:
     """Initializer of a :func:`photo_pool` worker: ignore Ctrl-C, end with the parent."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _end_with(parent_pid)
+
+
+def _keep_contacts(result: Any, out: Path) -> None:
+    """Keep the photo's contact map for the change since the pass before (best effort:
+    the report only leaves the change image out where a map is missing)."""
+    from printcheck.compare import CONTACTS_FOLDER, contact_map_of, contacts_name, encode_contacts
+    from printcheck.report.files import write_bytes
+
+    if not result.sha256:
+        return
+    data = encode_contacts(contact_map_of(result), photo=result.photo, sha256=result.sha256)
+    try:
+        write_bytes(out / CONTACTS_FOLDER, contacts_name(result.sha256), data)
+    except PrintcheckError:
+        pass
 
 
 def _shrink(image: Any, longest: int) -> Any:
@@ -499,6 +515,7 @@ def _measure_and_record(
     photos for the report (their current figures, and the overlay where there is one)."""
     import json
 
+    from printcheck.compare import place_contacts
     from printcheck.history import open_history
     from printcheck.method import METHOD_VERSION
     from printcheck.progress import history_progress, surface_spec
@@ -544,6 +561,7 @@ def _measure_and_record(
                 history.place(
                     surface, sha, station=p.station, pass_key=p.pass_key, sort_time=_iso(p)
                 )
+                place_contacts(out, sha, station=p.station, pass_key=p.pass_key)
                 continue
             to_measure.append(p)
         if not to_measure:
@@ -591,6 +609,13 @@ def _measure_and_record(
                                         _remeasured_words(
                                             outcome.summary, done.earlier, reasons[plan.path]
                                         )
+                                    )
+                                if outcome.summary.sha256:
+                                    place_contacts(
+                                        out,
+                                        outcome.summary.sha256,
+                                        station=plan.station,
+                                        pass_key=plan.pass_key,
                                     )
                                 tally.measured.append(outcome)
                                 if json_lines:

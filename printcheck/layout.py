@@ -16,6 +16,7 @@ Keys beyond the contract (all optional, added by printcheck):
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -32,6 +33,13 @@ __all__ = [
     "parse_layout",
     "read_layout",
     "card_layout",
+    "CardSize",
+    "CARD_SIZES",
+    "CARD_DICTIONARY",
+    "OTHER_CARD_IDS",
+    "card_ids",
+    "card_shown",
+    "card_of_layout",
     "layout_to_toml",
     "CARD_MARKER_MM",
     "CARD_GAP_MM",
@@ -71,6 +79,101 @@ CARD_MARKER_MM = 12.0  # side of each printed card marker
 CARD_GAP_MM = 4.0  # clear paper between the window edge and the markers
 
 Point = tuple[float, float]
+
+
+@dataclass(frozen=True)
+class CardSize:
+    """A built-in card size and the marker ids (``DICT_4X4_50``) that identify it.
+
+    Attributes
+    ----------
+    window_mm : float
+        Side of the card's square window in mm.
+    words : str
+        How messages name it ("2 in", "50 mm").
+    ids : (int, int, int, int)
+        The markers' ids: top-left, top-right, bottom-right, bottom-left.
+    option : str
+        The ``printcheck card --window`` value that prints it.
+    """
+
+    window_mm: float
+    words: str
+    ids: tuple[int, int, int, int]
+    option: str
+
+
+#: Each built-in card size has its own four marker ids, so that a photo says which card
+#: it shows (docs/formats.md, "Card marker ids").  The 2 in card keeps ids 0-3, which the
+#: cards printed before and the sample photos carry.
+CARD_SIZES: tuple[CardSize, ...] = (
+    CardSize(50.8, "2 in", (0, 1, 2, 3), "2in"),
+    CardSize(25.4, "1 in", (4, 5, 6, 7), "1in"),
+    CardSize(76.2, "3 in", (8, 9, 10, 11), "3in"),
+    CardSize(101.6, "4 in", (12, 13, 14, 15), "4in"),
+    CardSize(25.0, "25 mm", (16, 17, 18, 19), "25mm"),
+    CardSize(50.0, "50 mm", (20, 21, 22, 23), "50mm"),
+    CardSize(75.0, "75 mm", (24, 25, 26, 27), "75mm"),
+    CardSize(100.0, "100 mm", (28, 29, 30, 31), "100mm"),
+)
+
+#: The ids of a card whose window is none of :data:`CARD_SIZES` (they share one set).
+OTHER_CARD_IDS: tuple[int, int, int, int] = (32, 33, 34, 35)
+
+CARD_DICTIONARY = "DICT_4X4_50"
+_SAME_SIZE_MM = 1e-6
+
+
+def _card_size(window_mm: float) -> CardSize | None:
+    for size in CARD_SIZES:
+        if abs(size.window_mm - window_mm) <= _SAME_SIZE_MM:
+            return size
+    return None
+
+
+def card_ids(window_mm: float) -> tuple[int, int, int, int]:
+    """The marker ids of the built-in card with a ``window_mm`` window.
+
+    Examples
+    --------
+    >>> card_ids(50.8), card_ids(50.0), card_ids(30.0)
+    ((0, 1, 2, 3), (20, 21, 22, 23), (32, 33, 34, 35))
+    """
+    size = _card_size(float(window_mm))
+    return size.ids if size is not None else OTHER_CARD_IDS
+
+
+def card_shown(ids: Iterable[int]) -> CardSize | None:
+    """The built-in card whose markers are ``ids`` (ids found in a photo), or None.
+
+    The card of :data:`OTHER_CARD_IDS` is a :class:`CardSize` with ``window_mm`` 0 and
+    ``words`` "a size without ids of its own".  When ids of several cards are found, the
+    card with the most of them wins (None on a tie).
+    """
+    found = set(ids)
+    sizes = (*CARD_SIZES, CardSize(0.0, "a size without ids of its own", OTHER_CARD_IDS, ""))
+    scored = sorted(((len(found & set(c.ids)), c) for c in sizes), key=lambda t: -t[0])
+    if not scored or scored[0][0] == 0 or (len(scored) > 1 and scored[1][0] == scored[0][0]):
+        return None
+    return scored[0][1]
+
+
+def card_of_layout(layout: Layout) -> CardSize | None:
+    """The built-in card size ``layout`` is (its markers and window exactly), or None."""
+    w = layout.window
+    size = _card_size(w.width_mm)
+    if size is None or layout.dictionary != CARD_DICTIONARY:
+        return None
+    card = card_layout(size.window_mm)
+    if layout.marker_ids != card.marker_ids:
+        return None
+    mine = [p for m in layout.markers for c in m.corners_mm for p in c]
+    theirs = [p for m in card.markers for c in m.corners_mm for p in c]
+    here = (w.x_mm, w.y_mm, w.width_mm, w.height_mm, *mine)
+    there = (0.0, 0.0, size.window_mm, size.window_mm, *theirs)
+    if any(abs(a - b) > 1e-3 for a, b in zip(here, there, strict=True)):
+        return None  # a layout file may round to a micrometre
+    return size
 
 
 @dataclass(frozen=True)
@@ -391,9 +494,10 @@ def read_layout(path: str | Path) -> Layout:
 def card_layout(window_mm: float = 2 * MM_PER_IN, *, name: str | None = None) -> Layout:
     """The built-in card: a square window with one 12 mm marker off each corner.
 
-    Markers ``DICT_4X4_50`` ids 0 to 3 sit top-left, top-right, bottom-right and
-    bottom-left of the window, ``CARD_GAP_MM`` clear of it.  The card hides the surface
-    beyond its cut-out, so ``margin_mm`` is 0.
+    Four ``DICT_4X4_50`` markers sit top-left, top-right, bottom-right and bottom-left of
+    the window, ``CARD_GAP_MM`` clear of it; their ids are the card size's own
+    (:func:`card_ids`: 0 to 3 for the 2 in card), so a photo says which card it shows.
+    The card hides the surface beyond its cut-out, so ``margin_mm`` is 0.
 
     Parameters
     ----------
@@ -411,18 +515,19 @@ def card_layout(window_mm: float = 2 * MM_PER_IN, *, name: str | None = None) ->
     def square(x: float, y: float) -> tuple[Point, Point, Point, Point]:
         return ((x, y), (x + s, y), (x + s, y + s), (x, y + s))
 
+    tl, tr, br, bl = card_ids(w)
     markers = (
-        Marker(0, square(lo, lo)),
-        Marker(1, square(hi, lo)),
-        Marker(2, square(hi, hi)),
-        Marker(3, square(lo, hi)),
+        Marker(tl, square(lo, lo)),
+        Marker(tr, square(hi, lo)),
+        Marker(br, square(hi, hi)),
+        Marker(bl, square(lo, hi)),
     )
     if name is None:
         inches = w / MM_PER_IN
         name = f"card-{inches:g}in" if abs(inches - round(inches, 3)) < 1e-9 else f"card-{w:g}mm"
     return Layout(
         name=name,
-        dictionary="DICT_4X4_50",
+        dictionary=CARD_DICTIONARY,
         units="mm",
         window=Window(0.0, 0.0, w, w),
         markers=markers,

@@ -29,7 +29,14 @@ import numpy as np
 from printcheck.errors import LocateError, OptionError, PhotoError
 from printcheck.frame import Frame
 from printcheck.homography import Candidate, fit_homography, local_px_per_mm, rms, robust_fit
-from printcheck.layout import Layout, Window
+from printcheck.layout import (
+    CARD_DICTIONARY,
+    Layout,
+    Window,
+    card_ids,
+    card_of_layout,
+    card_shown,
+)
 from printcheck.markers import Detection, detect_markers
 from printcheck.window import (
     check_partial,
@@ -216,6 +223,7 @@ def _candidates(photo: np.ndarray, layout: Layout, warnings: list[str]) -> list[
         if d.id in by_id
     ]
     if not cands:
+        _say_which_card(photo, layout, detections)
         ids = ", ".join(str(i) for i in layout.marker_ids)
         others = sorted({d.id for d in detections})
         extra = (
@@ -240,6 +248,40 @@ def _candidates(photo: np.ndarray, layout: Layout, warnings: list[str]) -> list[
         cands = [cands[int(np.argmax(areas))]]
         warnings.append(f"marker {cands[0][0]} is in view {len(areas)} times; the largest was used")
     return cands
+
+
+def _say_which_card(photo: np.ndarray, layout: Layout, detections: tuple[Detection, ...]) -> None:
+    """Refuse, naming both, a photo that shows another built-in card than ``layout``.
+
+    Called when none of the layout's markers is in the photo.  Each card size has its own
+    marker ids (:data:`printcheck.layout.CARD_SIZES`), so the ids in view say which card
+    the photo shows.
+    """
+    if layout.dictionary != CARD_DICTIONARY:
+        detections = detect_markers(photo, dictionary=CARD_DICTIONARY)
+    shown = card_shown(d.id for d in detections)
+    if shown is None:
+        return
+    given = card_of_layout(layout)
+    if given is not None and given.ids == shown.ids:
+        return  # cannot be: the layout's markers would have been found
+    given_words = (
+        f"the {given.words} card"
+        if given is not None
+        else f"layout {layout.name} ({layout.source})"
+    )
+    if shown.window_mm == 0:  # a card of a size without ids of its own
+        raise LocateError(
+            f"this photo shows a printcheck card of {shown.words} (ids "
+            f"{shown.ids[0]}-{shown.ids[-1]}); the layout given is {given_words}: use --layout "
+            "with the layout file printed with that card"
+        )
+    default = " or leave --layout out (it is the default)" if shown.ids == card_ids(50.8) else ""
+    raise LocateError(
+        f"this photo shows the {shown.words} card; the layout given is {given_words}: "
+        f"use --layout with the {shown.words} card's layout file (printcheck card --window "
+        f"{shown.option} writes it){default}"
+    )
 
 
 def _fit_markers(

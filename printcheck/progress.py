@@ -329,7 +329,12 @@ def projection_words(progress: Progress) -> str:
         return f"the density is not approaching the target of {num(target, 1)}"
     if proj.passes_to_spec == 0:
         return f"the latest pass reaches the density target of {num(target, 1)}"
-    rng = f"{proj.low} to {proj.high}" if proj.high is not None else f"{proj.low} or more"
+    if proj.high is None:
+        rng = f"{proj.low} or more"
+    elif proj.high == proj.low:  # one value: "likely 1", never "1 to 1"
+        rng = f"{proj.low}"
+    else:
+        rng = f"{proj.low} to {proj.high}"
     more = proj.passes_to_spec
     rate = 0.0 if proj.rate is None else proj.rate
     led = (

@@ -506,8 +506,9 @@ def test_masks_are_exact_to_a_pixel(photos: dict[str, _Photo]) -> None:
     # the photo shows a paper card round the window: its cut-out edge is found on every
     # side and the 2 mm margin of the layout is hidden, so what is visible is the window
     # (up to where the edge is seen, at most 0.6 mm out: a registration error of the card)
-    out_mm = np.maximum.reduce([w.x_mm - x, x - (w.x_mm + w.width_mm), w.y_mm - y,
-                                y - (w.y_mm + w.height_mm)])
+    out_mm = np.maximum.reduce(
+        [w.x_mm - x, x - (w.x_mm + w.width_mm), w.y_mm - y, y - (w.y_mm + w.height_mm)]
+    )
     assert out_mm[rect.visible & ~excluded & ~in_window].max(initial=0.0) <= 0.6
     assert (rect.visible & ~excluded).sum() >= 0.998 * (in_window & ~excluded).sum()
     assert f.origin_mm == pytest.approx((-m, -m))
@@ -548,17 +549,25 @@ def test_no_marker_names_the_ids_and_dictionary(card: Layout, photos: dict[str, 
         locate(blank, layout=card)
     other = replace(card, dictionary="DICT_5X5_100")
     with pytest.raises(LocateError, match="DICT_5X5_100 ids 0, 1, 2, 3"):
+        locate(blank, layout=other)
+    # the photo shows a built-in card's markers (of another dictionary): say which card
+    with pytest.raises(
+        LocateError, match=r"this photo shows the 2 in card; the layout given is layout card-2in"
+    ):
         locate(photos["tilt0-roll200-w20"].image, layout=other)
 
 
 def test_markers_that_do_not_fit_the_layout_are_refused(
     card: Layout, photos: dict[str, _Photo]
 ) -> None:
-    # the photo shows the 2 in card; a 30 mm card's layout puts the markers elsewhere
+    # the photo shows the 2 in card; a layout of a 30 mm window with the same marker ids
+    # (a card printed before each size had ids of its own) puts the markers elsewhere
+    small = card_layout(30.0)
+    same_ids = replace(small, markers=tuple(replace(m, id=i) for i, m in enumerate(small.markers)))
     with pytest.raises(
         LocateError, match=r"do not fit layout card-30mm: RMS corner residual \d+\.\d+ mm"
     ):
-        locate(photos["tilt20-roll135-w35"].image, layout=card_layout(30.0))
+        locate(photos["tilt20-roll135-w35"].image, layout=same_ids)
 
 
 def test_bad_inputs(card: Layout, photos: dict[str, _Photo]) -> None:

@@ -230,3 +230,25 @@ def test_progress_text_says_the_projection() -> None:
     assert " 13.0 " in text
     short = progress_text(build_progress("bed", passes[:1], spec=PPI20))
     assert "too few passes" in short
+
+
+def test_projection_words_give_one_value_when_the_range_is_one() -> None:
+    import dataclasses
+
+    from printcheck.progress import projection_words
+
+    # an exact rise of 4 per pass has no spread: low == high == 2 ("likely 2", not "2 to 2")
+    passes = [_res(i + 1, d, meets=False) for i, d in enumerate([5.0, 9.0, 13.0])]
+    progress = build_progress("bed", passes, spec=PPI20)
+    assert progress.projection is not None
+    assert (progress.projection.low, progress.projection.high) == (2, 2)
+    words = projection_words(progress)
+    assert "(likely 2;" in words and "2 to 2" not in words
+    wide = dataclasses.replace(
+        progress, projection=dataclasses.replace(progress.projection, low=1, high=3)
+    )
+    assert "(likely 1 to 3;" in projection_words(wide)
+    open_ended = dataclasses.replace(
+        progress, projection=dataclasses.replace(progress.projection, high=None)
+    )
+    assert "(likely 2 or more;" in projection_words(open_ended)

@@ -57,10 +57,8 @@ def render_report(
     from printcheck.wording import fixed
 
     folder_path = None if folder is None else Path(folder)
-    numbers = list(range(1, len(passes) + 1))
-    if progress is not None and len(progress.passes) == len(passes):
-        numbers = [p.number for p in progress.passes]
-    views = pass_views(passes, numbers, spec, folder_path)
+    numbers, stations = _places(passes, progress)
+    views = pass_views(passes, numbers, spec, folder_path, stations)
     latest = views[-1] if views else None
     # the badge is the surface's latest pass (all its stations), as the history holds it
     verdict = progress.passes[-1].meets if progress is not None and progress.passes else None
@@ -99,6 +97,28 @@ def render_report(
         legend_items=legend_items(),
         version=__version__,
     )
+
+
+def _places(
+    passes: Sequence[tuple[PassSummary, bytes | None]], progress: Progress | None
+) -> tuple[list[int], list[str | None] | None]:
+    """Each photo's pass number and station, as the progress groups them (photos named
+    once each); else numbered in order, one photo a pass."""
+    numbers = list(range(1, len(passes) + 1))
+    if progress is None:
+        return numbers, None
+    if len(progress.passes) == len(passes) and not any(p.stations for p in progress.passes):
+        return [p.number for p in progress.passes], None
+    where: dict[str, tuple[int, str | None]] = {}
+    for row in progress.passes:
+        for st in row.stations:
+            where[st.photo] = (row.number, st.station)
+        if not row.stations:
+            where[row.photo] = (row.number, None)
+    names = [summary.photo for summary, _ in passes]
+    if len(set(names)) != len(names) or any(name not in where for name in names):
+        return numbers, None
+    return [where[n][0] for n in names], [where[n][1] for n in names]
 
 
 def write_report(

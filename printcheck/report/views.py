@@ -185,6 +185,9 @@ class ChangeView:
 
     map: MapView | None = None
     note: str = ""
+    contacts_src: str | None = None  # this print laid on the one before (a data: URI)
+    contacts_alt: str = ""
+    contacts_key: str = ""
 
 
 @dataclass(frozen=True)
@@ -332,7 +335,29 @@ def _hidden_words(summary: PassSummary) -> str:
     )
 
 
-def _change(summary: PassSummary, previous: PassSummary | None) -> ChangeView | None:
+def _change(
+    summary: PassSummary, previous: PassSummary | None, folder: Path | None = None
+) -> ChangeView | None:
+    """The change since the pass before: where contacts appeared and disappeared (from
+    the contact maps kept in ``folder``), and per cell (same grid only)."""
+    from dataclasses import replace
+
+    from printcheck.compare import change_view, change_words
+
+    cells = _cell_change(summary, previous)
+    laid = change_view(folder, summary, previous)
+    if laid is None or previous is None:
+        return cells
+    key, alt = change_words(laid.change, summary, previous)
+    return replace(
+        cells or ChangeView(),
+        contacts_src=data_uri(laid.png),
+        contacts_alt=alt,
+        contacts_key=key,
+    )
+
+
+def _cell_change(summary: PassSummary, previous: PassSummary | None) -> ChangeView | None:
     """Per-cell change of density and bearing since the pass before (same grid only)."""
     if previous is None or not summary.cells:
         return None
@@ -484,7 +509,7 @@ def pass_view(
         per=_per(summary),
         maps=_maps(summary, spec),
         hidden_strips=_hidden_words(summary),
-        change=_change(summary, previous),
+        change=_change(summary, previous, folder),
         overlay_src=overlay_src,
         overlay_href=href,
         station=station,
@@ -496,12 +521,26 @@ def pass_views(
     numbers: Sequence[int],
     spec: Spec | None,
     folder: Path | None,
+    stations: Sequence[str | None] | None = None,
 ) -> list[PassView]:
-    """The views of a report's passes, oldest first (each with the one before it)."""
+    """The views of a report's photos, oldest first, each with the one before it at its
+    station (``stations``: each photo's; None: one photo a pass)."""
     views = []
-    previous: PassSummary | None = None
-    for n, (summary, overlay) in zip(numbers, passes, strict=True):
+    before: dict[str | None, PassSummary] = {}
+    places = list(stations) if stations is not None else [None] * len(passes)
+    for n, (summary, overlay), station in zip(numbers, passes, places, strict=True):
         src = data_uri(overlay) if overlay else None
-        views.append(pass_view(n, summary, spec, previous=previous, folder=folder, overlay_src=src))
-        previous = summary
+        previous = before.get(station)
+        views.append(
+            pass_view(
+                n,
+                summary,
+                spec,
+                previous=previous,
+                folder=folder,
+                overlay_src=src,
+                station=station,
+            )
+        )
+        before[station] = summary
     return views
