@@ -321,14 +321,14 @@ def projection_words(progress: Progress) -> str:
     if proj is None and progress.slowest_station is not None:
         return (
             f"station {progress.slowest_station}'s density is not yet approaching the "
-            f"target of {num(target, 1)} (too few passes, or no rise)"
+            f"target of {num(target, 1)} {_per(progress)} (too few passes, or no rise)"
         )
     if proj is None:
         if n < MIN_PASSES:
             return f"too few passes yet ({n} of {MIN_PASSES} needed)"
-        return f"the density is not approaching the target of {num(target, 1)}"
+        return f"the density is not approaching the target of {num(target, 1)} {_per(progress)}"
     if proj.passes_to_spec == 0:
-        return f"the latest pass reaches the density target of {num(target, 1)}"
+        return f"the latest pass reaches the density target of {num(target, 1)} {_per(progress)}"
     if proj.high is None:
         rng = f"{proj.low} or more"
     elif proj.high == proj.low:  # one value: "likely 1", never "1 to 1"
