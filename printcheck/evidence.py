@@ -18,7 +18,9 @@ out).  Contacts are then judged against those local levels (:mod:`printcheck.con
 
 from __future__ import annotations
 
+import functools
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import cv2
@@ -86,13 +88,13 @@ def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> t
     step = max(1, int(math.sqrt(max(int(where.sum()), 1) / 200_000.0)))
     sub = (slice(None, None, step), slice(None, None, step))
     sel = where[sub]
+    channels = cv2.split(np.ascontiguousarray(image[sub]))
     tails = {}
     for name in ("blue", "red"):
-        ev = compound_evidence(image[sub], name)[sel]
-        if ev.size < 16:
+        if np.count_nonzero(sel) < 16:
             tails[name] = 0.0
             continue
-        lo, mid, hi = np.quantile(ev, [0.005, 0.5, 0.995])
+        lo, mid, hi = _evidence_quantiles(channels, sel, name, (0.005, 0.5, 0.995))
         tails[name] = float(hi - mid) if compound_on == "reference" else float(mid - lo)
         if compound_on == "reference" and mid > 0.4:
             # the window is coloured all over (a surface covered in compound): no white
@@ -101,6 +103,50 @@ def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> t
     best = max(tails, key=lambda k: tails[k])
     other = tails["red" if best == "blue" else "blue"]
     return best, tails[best] / max(other, 1e-6)
+
+
+@functools.lru_cache(maxsize=2)
+def _evidence_table(compound: str) -> tuple[np.ndarray, np.ndarray]:
+    """Every value :func:`compound_evidence` can take, sorted, and their codes' order.
+
+    The evidence is a function of two 8-bit numbers (blue: B and R, code ``B * 256 + R``;
+    red: R and G + B, code ``R * 511 + G + B``), computed here as there (float32, OpenCV's
+    log), so a histogram of the codes gives its quantiles exactly.
+    """
+    log = cv2.log(np.arange(256, dtype=np.float32) + np.float32(_EPS)).ravel()
+    if compound == "blue":
+        values = log[:, None] - log[None, :]
+    else:
+        pair = np.float32(0.5) * (np.arange(511, dtype=np.float32) + np.float32(2 * _EPS))
+        values = log[:, None] - cv2.log(pair).ravel()[None, :]
+    flat = values.ravel()
+    order = np.argsort(flat, kind="stable")
+    return flat[order], order
+
+
+def _evidence_quantiles(
+    channels: Sequence[np.ndarray], where: np.ndarray, compound: str, qs: tuple[float, ...]
+) -> list[float]:
+    """``np.quantile(compound_evidence(image, compound)[where], qs)`` (linear, numpy's
+    default), from a histogram of the pixels' codes: the same values, without sorting
+    the pixels (tested against numpy)."""
+    b, g, r = channels
+    if compound == "blue":
+        code = b.astype(np.int32) * 256 + r
+    else:
+        code = r.astype(np.int32) * 511 + b.astype(np.int32) + g
+    values, order = _evidence_table(compound)
+    cum = np.cumsum(np.bincount(code[where], minlength=values.size)[order])
+    n = int(cum[-1])
+    out = []
+    for q in qs:
+        h = (n - 1) * q
+        k = math.floor(h)
+        ranks = np.array([k, min(k + 1, n - 1)])
+        a, b2 = values[np.searchsorted(cum, ranks, side="right")]
+        # numpy's own interpolation between the two order statistics around rank h
+        out.append(float(np.quantile(np.array([a, b2]), [h - k])[0]))
+    return out
 
 
 def block_quantiles(

@@ -370,3 +370,19 @@ def test_burnt_out_is_two_channels_at_250() -> None:
     rng = np.random.default_rng(3)
     image = rng.integers(235, 256, (64, 97, 3), dtype=np.uint8)
     assert np.array_equal(_burnt_out(image), np.count_nonzero(image >= 250, axis=2) >= 2)
+
+
+@pytest.mark.parametrize("compound", ["blue", "red"])
+def test_evidence_quantiles_are_numpys(compound: str) -> None:
+    # the compound's colour is chosen from quantiles of the evidence, read off a
+    # histogram of the pixels' 8-bit codes; reference: numpy.quantile of the evidence
+    from printcheck.evidence import _evidence_quantiles
+
+    rng = np.random.default_rng(11)
+    image = rng.integers(0, 256, (151, 173, 3), dtype=np.uint8)
+    image[40:90, 50:120] = (200, 120, 60)  # a patch of one colour: many equal values
+    where = rng.random((151, 173)) < 0.7
+    qs = (0.005, 0.25, 0.5, 0.995)
+    got = _evidence_quantiles(cv2.split(image), where, compound, qs)
+    want = np.quantile(compound_evidence(image, compound)[where], list(qs))
+    assert got == [float(v) for v in want]
