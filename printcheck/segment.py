@@ -308,16 +308,26 @@ def segment(
 
 
 _THREADS: list[ThreadPoolExecutor] = []  # made on first use, one per process
+# Two decisions at once hold two sets of temporaries, about 45 bytes a pixel more: only
+# up to 3 MP (a card's window at phone resolution; not a whole way's, which would pass
+# 1 GB in a 24 MP photo).
+_PARALLEL_MAX_PX = 3_000_000
 
 
 def _decisions(calls: list[tuple[Any, ...]]) -> list[np.ndarray]:
     """:func:`_decide` of each of ``calls``; side by side on two threads where OpenCV may
-    use more than one (not in a batch's workers, which hold it to one: one photo a core).
+    use more than one (not in a batch's workers, which hold it to one: one photo a core)
+    and the window is small enough (:data:`_PARALLEL_MAX_PX`).
 
     The decisions only read the shared field, and NumPy and OpenCV release the GIL in
     their loops, so the threads overlap (about 0.7 times the time on 2 cores).
     """
-    if cv2.getNumThreads() <= 1 or (os.cpu_count() or 1) <= 1:
+    field = calls[0][0]
+    if (
+        cv2.getNumThreads() <= 1
+        or (os.cpu_count() or 1) <= 1
+        or field.score.size > _PARALLEL_MAX_PX
+    ):
         return [_decide(*c) for c in calls]
     if not _THREADS:
         _THREADS.append(ThreadPoolExecutor(max_workers=2, thread_name_prefix="decide"))
