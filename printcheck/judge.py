@@ -246,8 +246,8 @@ def _bearing_check(m: Measurement, spec: Spec) -> Check:
 def _bare_check(m: Measurement, spec: Spec, unit: str) -> Check:
     assert spec.max_bare_mm is not None
     limit = from_mm(spec.max_bare_mm, unit)
-    digits = 3 if unit == "in" else 1
-    target_text = f"<= {num(limit, digits)}"
+    target_text = f"<= {num(limit, 3 if unit == 'in' else 1)}"  # the result JSON's target
+    digits = 2 if unit == "in" else 1  # as the figures beside it: 0.33 in, 8.4 mm
     bare = m.largest_bare
     d_mm = float(bare.diameter_mm)
     if not math.isfinite(d_mm):

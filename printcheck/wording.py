@@ -22,7 +22,7 @@ import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from printcheck.units import MM_PER_IN
+from printcheck.units import MM_PER_IN, convert_density
 
 if TYPE_CHECKING:
     from printcheck.guidance import Advice
@@ -116,9 +116,9 @@ def density_words(cell_mm: float, unit: str = "mm") -> str:
 
 
 def length_words(value_mm: float, unit: str) -> str:
-    """A length in ``unit``: ``"0.748 in"`` (3 decimals) or ``"19 mm"`` (1 decimal)."""
+    """A length in ``unit``: ``"0.75 in"`` (2 decimals) or ``"19 mm"`` (1 decimal)."""
     if unit == "in":
-        return f"{num(value_mm / MM_PER_IN, 3)} in"
+        return f"{num(value_mm / MM_PER_IN, 2)} in"
     return f"{num(value_mm, 1)} mm"
 
 
@@ -172,15 +172,31 @@ class TargetLine:
     source: str
 
 
-def target_lines(spec: Spec) -> list[TargetLine]:
-    """Each target ``spec`` sets, in words, in the spec's own units and square."""
+def target_lines(
+    spec: Spec, unit: str | None = None, cell_mm: float | None = None
+) -> list[TargetLine]:
+    """Each target ``spec`` sets, in words, in the spec's own units and square; or, given
+    a job's ``unit`` and ``cell_mm``, in those, the spec's own figure after it where it
+    differs ("at least 16.5 points per square inch (16 per 25 mm square) on average")."""
     per = density_words(spec.basis_mm, spec.units)
+    job = unit is not None and cell_mm is not None and unit != spec.units
+
+    def density(value: float) -> str:
+        if not job:
+            return f"{num(value, 3)} {per}"
+        assert unit is not None and cell_mm is not None
+        there = convert_density(value, from_cell_mm=spec.basis_mm, to_cell_mm=cell_mm)
+        return (
+            f"{num(there, 1)} {density_words(cell_mm, unit)} "
+            f"({num(value, 3)} {per.replace('points ', '', 1)})"
+        )
+
     out: list[TargetLine] = []
     if spec.min_density is not None:
         out.append(
             TargetLine(
                 "density",
-                f"at least {num(spec.min_density, 3)} {per} on average",
+                f"at least {density(spec.min_density)} on average",
                 spec.source_of("min_density"),
             )
         )
@@ -193,7 +209,7 @@ def target_lines(spec: Spec) -> list[TargetLine]:
         out.append(
             TargetLine(
                 "cells",
-                f"at least {num(spec.min_cell_density, 3)} {per} in {share}",
+                f"at least {density(spec.min_cell_density)} in {share}",
                 spec.source_of("min_cell_density"),
             )
         )
@@ -212,7 +228,8 @@ def target_lines(spec: Spec) -> list[TargetLine]:
         out.append(
             TargetLine(
                 "bare patch",
-                f"at most {length_words(spec.max_bare_mm, spec.units)} across",
+                f"at most {length_words(spec.max_bare_mm, unit if job and unit else spec.units)}"
+                " across",
                 spec.source_of("max_bare"),
             )
         )

@@ -36,6 +36,7 @@ from printcheck.report.views import (
     spec_words,
 )
 from printcheck.spec import Spec
+from printcheck.units import to_mm
 
 __all__ = ["CELL_COLOURS", "bearing_class", "density_class", "render_report", "write_report"]
 
@@ -82,7 +83,11 @@ def render_report(
         "report.html",
         surface=surface,
         verdict=verdict,
-        spec=spec_words(spec),
+        spec=spec_words(
+            spec,
+            passes[-1][0].unit if passes else None,
+            to_mm(passes[-1][0].cell, passes[-1][0].unit) if passes else None,
+        ),
         views=views,
         latest=latest,
         earlier=list(reversed(views[:-1])),

@@ -226,11 +226,14 @@ def legend_items() -> list[tuple[str, str, str]]:
     return items
 
 
-def spec_words(spec: Spec | None) -> tuple[str, str, str] | None:
-    """The spec's title, name and targets in the words of ``printcheck specs``."""
+def spec_words(
+    spec: Spec | None, unit: str | None = None, cell_mm: float | None = None
+) -> tuple[str, str, str] | None:
+    """The spec's title, name and targets in words, in the job's ``unit`` and cell where
+    given (the spec's own figures beside them), else as ``printcheck specs`` has them."""
     if spec is None:
         return None
-    targets = "; ".join(f"{t.label} {t.words}" for t in target_lines(spec))
+    targets = "; ".join(f"{t.label} {t.words}" for t in target_lines(spec, unit, cell_mm))
     return (spec.title or spec.name, spec.name, targets or "no targets")
 
 
