@@ -206,6 +206,22 @@ def test_the_station_is_recorded_in_the_history_and_shown(server: Server, small_
     assert rows == [("<i>middle</i>", hashlib.sha256(body).hexdigest(), 1, METHOD_VERSION)]
 
 
+def test_the_pass_page_lays_the_print_on_the_pass_before(server: Server, small_job: Any) -> None:
+    # two passes of one surface sent from the phone: the later pass's page shows where
+    # contacts appeared and disappeared, from the contact maps the measurer keeps
+    folder, photos = small_job
+    first, second = (_reencoded(folder / p.file, 93) for p in photos[:2])
+    with server.client() as client:
+        for body in (first, second):
+            location = _send(client, body, surface="change-way").headers["location"]
+            assert _wait(client, location)["state"] == "done"
+        page = client.get(location, follow_redirects=True).text
+    assert page.count('class="overlay change"') == 1
+    assert "Contact appeared on" in page
+    maps = server.out / ".contacts"
+    assert (maps / f"{hashlib.sha256(second).hexdigest()}.png").is_file()
+
+
 # ---------------------------------------------------------------- several fitters at once
 
 

@@ -439,6 +439,7 @@ def pass_view(
     overlay_src: str | None = None,
     overlay_href: str | None = None,
     station: str | None = None,
+    maps: Path | None = None,
 ) -> PassView:
     """The view of one pass.
 
@@ -461,6 +462,9 @@ def pass_view(
         beside it where there is one.
     station : str or None
         The station the photo was taken at.
+    maps : Path or None
+        The output folder whose contact maps give where contacts appeared and
+        disappeared (default ``folder``; the web app's pages link no files there).
     """
     from printcheck.report.files import output_name
 
@@ -512,7 +516,7 @@ def pass_view(
         per=_per(summary),
         maps=_maps(summary, spec),
         hidden_strips=_hidden_words(summary),
-        change=_change(summary, previous, folder),
+        change=_change(summary, previous, maps if maps is not None else folder),
         overlay_src=overlay_src,
         overlay_href=href,
         station=station,

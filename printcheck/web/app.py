@@ -171,7 +171,7 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
             request,
             "pass.html",
             view=view,
-            v=_pass_view(view, stored, upload.get("station")),
+            v=_pass_view(view, stored, upload.get("station"), config.out),
             legend_items=legend_items(),
             upload=upload,
             fresh=request.query_params.get("new") == "1",
@@ -332,15 +332,20 @@ def _too_big(limit: int) -> str:
     )
 
 
-def _pass_view(view: SurfaceView, stored: Any, sent_station: str | None) -> Any:
-    """The shared view of a pass (as the report shows it), its images from the routes."""
+def _pass_view(
+    view: SurfaceView, stored: Any, sent_station: str | None, folder: Path | None = None
+) -> Any:
+    """The shared view of a pass (as the report shows it), its images from the routes;
+    the change since the pass before at the same station, its contacts laid on this
+    pass's from the maps kept in ``folder`` (the output folder)."""
     from printcheck.report.views import pass_view
 
     previous = None
     for earlier in view.passes:
         if earlier is stored:
             break
-        previous = earlier.summary
+        if earlier.station == stored.station and earlier.number < stored.number:
+            previous = earlier.summary
     image = "/pass/overlay.png?" + urlencode({"s": view.name, "sha": stored.summary.sha256})
     spec = stored.spec if stored.spec is not None else view.progress_spec
     return pass_view(
@@ -348,6 +353,7 @@ def _pass_view(view: SurfaceView, stored: Any, sent_station: str | None) -> Any:
         stored.summary,
         spec,
         previous=previous,
+        maps=folder,
         overlay_src=image,
         overlay_href=image,
         station=stored.station or sent_station,
