@@ -222,6 +222,54 @@ def test_the_pass_page_lays_the_print_on_the_pass_before(server: Server, small_j
     assert (maps / f"{hashlib.sha256(second).hexdigest()}.png").is_file()
 
 
+def test_stations_sent_one_after_another_make_one_pass(server: Server, small_job: Any) -> None:
+    # the fitter walks the bed after a pass, station by station, then scrapes and walks
+    # it again: the first round is one pass of two stations, the next starts a pass
+    folder, photos = small_job
+    bodies = [_reencoded(folder / photos[i].file, q) for i, q in ((0, 88), (1, 88), (2, 88))]
+    with server.client() as client:
+        for body, station in zip(bodies, ("head end", "tail end", "head end"), strict=True):
+            location = _send(client, body, surface="round-way", station=station).headers["location"]
+            assert _wait(client, location)["state"] == "done"
+    with sqlite3.connect(f"file:{server.db}?mode=ro", uri=True) as con:
+        rows = con.execute(
+            "SELECT p.sha256, p.station, p.pass_key FROM passes p JOIN surfaces s "
+            "ON s.id = p.surface_id WHERE s.name = 'round-way' ORDER BY p.id"
+        ).fetchall()
+    keys = [key for _, _, key in rows]
+    assert [station for _, station, _ in rows] == ["head end", "tail end", "head end"]
+    assert keys[0] == keys[1] != keys[2] and all(k.startswith("web ") for k in keys)
+
+
+def test_web_pass_rule() -> None:
+    # the rule by itself: no station, a pass of its own; a station already in the latest
+    # phone pass, or that pass's last photo too long ago, or a new pass asked: a new one
+    from datetime import UTC, datetime
+    from types import SimpleNamespace
+
+    from printcheck.web.measurer import SAME_PASS_S, Job, web_pass
+
+    t0 = datetime(2026, 12, 4, 9, 0, tzinfo=UTC)
+
+    def stored(station: str, key: str | None, minutes: float) -> SimpleNamespace:
+        at = t0.timestamp() + 60 * minutes
+        when = datetime.fromtimestamp(at, UTC).isoformat(timespec="seconds")
+        return SimpleNamespace(station=station, pass_key=key, recorded=when)
+
+    def job(station: str | None, new_pass: bool = False) -> Job:
+        return Job("id", "way", "ab" * 32, Path("x.jpg"), "x.jpg", station, new_pass)
+
+    now = t0.timestamp() + 600
+    history = [stored("a", "web 1", 0), stored("b", "web 1", 5)]
+    assert web_pass(history, job(None), now) is None
+    assert web_pass(history, job("c"), now) == "web 1"
+    assert web_pass(history, job("a"), now) == "web " + "ab" * 8
+    assert web_pass(history, job("c", new_pass=True), now) == "web " + "ab" * 8
+    assert web_pass(history, job("c"), t0.timestamp() + 300 + SAME_PASS_S) == "web " + "ab" * 8
+    # a batch's pass is never joined
+    assert web_pass([stored("a", "pass 3", 9)], job("b"), now) == "web " + "ab" * 8
+
+
 # ---------------------------------------------------------------- several fitters at once
 
 

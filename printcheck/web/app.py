@@ -238,6 +238,7 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
                 )
             surface_name = _clean_name(form.get("new_surface")) or _clean_name(form.get("surface"))
             station = _clean_name(form.get("station")) or None
+            new_pass = form.get("new_pass") == "1"
             photo = form.get("photo")
             if not surface_name:
                 return problem(request, "Pick a surface (or name a new one) for the photo.", 400)
@@ -270,6 +271,7 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
             sha256=checked.sha256,
             sent_name=sent_name,
             station=station,
+            new_pass=new_pass,
         )
         return RedirectResponse(f"/job/{job.id}", status_code=303)
 

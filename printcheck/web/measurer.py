@@ -44,6 +44,7 @@ class Job:
     path: Path
     sent_name: str
     station: str | None
+    new_pass: bool = False  # the fitter asked for a new pass (not a station of the last)
     submitted: float = field(default_factory=time.monotonic)
     state: str = QUEUED
     finished: float | None = None
@@ -112,7 +113,14 @@ class Measurer:
     # ------------------------------------------------------------ jobs
 
     def submit(
-        self, path: Path, *, surface: str, sha256: str, sent_name: str, station: str | None
+        self,
+        path: Path,
+        *,
+        surface: str,
+        sha256: str,
+        sent_name: str,
+        station: str | None,
+        new_pass: bool = False,
     ) -> Job:
         """Measure the photo at ``path`` for ``surface``; the job (an existing one when the
         same photo was already sent for the surface and did not fail)."""
@@ -121,7 +129,7 @@ class Measurer:
             known = self._jobs.get(jid)
             if known is not None and known.state != FAILED:
                 return known
-            job = Job(jid, surface, sha256, path, sent_name, station)
+            job = Job(jid, surface, sha256, path, sent_name, station, new_pass)
             self._jobs[jid] = job
         self._run(job)
         return job
@@ -174,7 +182,7 @@ class Measurer:
             self._fail(job, _without_path(outcome.error, job.path))
             return
         try:
-            recorded = self._record(outcome.summary, job.surface, options, job.station)
+            recorded = self._record(outcome.summary, job, options)
         except Exception as exc:  # the history could not be written: say so on the page
             self._fail(job, str(exc))
             return
@@ -184,21 +192,22 @@ class Measurer:
             job.finished = time.monotonic()
             job.state = DONE
 
-    def _record(
-        self, summary: Any, surface: str, options: InspectOptions, station: str | None
-    ) -> bool:
-        """Record the photo as a pass of ``surface`` (at ``station``), with the settings
-        and method it was measured by, as ``batch`` records a photo of its own."""
+    def _record(self, summary: Any, job: Job, options: InspectOptions) -> bool:
+        """Record the photo for ``job.surface`` (at ``job.station``, in the pass
+        :func:`web_pass` gives), with the settings and method it was measured by, as
+        ``batch`` records a photo."""
         from printcheck.history import open_history
         from printcheck.method import METHOD_VERSION
         from printcheck.stations import settings_key
 
         with self._record_lock, open_history(self.db) as history:
+            key = web_pass(history.passes(job.surface), job, time.time())
             return history.record(
                 summary,
-                surface=surface,
+                surface=job.surface,
                 spec=options.spec,
-                station=station,
+                station=job.station,
+                pass_key=key,
                 settings=settings_key(options),
                 method=METHOD_VERSION,
             )
@@ -232,3 +241,34 @@ def _without_path(error: str, path: Path) -> str:
     """The error without the stored file's path (the phone's user never saw that name)."""
     head = f"photo {path}: "
     return "the photo " + error[len(head) :] if error.startswith(head) else error
+
+
+#: Photos of one pass's stations are taken within minutes of each other; a scraping pass
+#: between two prints takes longer (common practice).
+SAME_PASS_S = 20 * 60
+_WEB_PASS = "web "
+
+
+def web_pass(stored: list[Any], job: Job, now: float) -> str | None:
+    """The pass a photo sent from the phone belongs to (its history pass key).
+
+    A photo without a station is a pass of its own (None).  A photo at a station joins
+    the surface's latest pass sent from the phone when that pass has no photo at the
+    station yet and its last photo was recorded under :data:`SAME_PASS_S` ago, unless the
+    fitter asked for a new pass; otherwise it starts a pass.  So walking the bed after a
+    pass, station by station, makes one pass; the same stations again after scraping,
+    the next.  (A batch's passes are never joined.)
+    """
+    from datetime import datetime
+
+    if job.station is None:
+        return None
+    if not job.new_pass:
+        web = [p for p in stored if (p.pass_key or "").startswith(_WEB_PASS)]
+        if web:
+            latest = max(web, key=lambda p: p.recorded).pass_key
+            members = [p for p in web if p.pass_key == latest]
+            last = max(datetime.fromisoformat(p.recorded).timestamp() for p in members)
+            if job.station not in {p.station for p in members} and now - last < SAME_PASS_S:
+                return str(latest)
+    return f"{_WEB_PASS}{job.sha256[:16]}"
