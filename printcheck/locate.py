@@ -105,6 +105,7 @@ class Calibration:
     px_per_mm: float  # resolution of the rectified image
     residual_mm: float | None  # RMS corner residual of the fit, None for "scale"
     photo_px_per_mm: float | None = None  # what the photo itself resolves at the window
+    photo_blur_px: float | None = None  # how far the photo spreads the markers' edges (sigma)
 
 
 @dataclass(frozen=True, eq=False)
@@ -180,7 +181,10 @@ def locate(
     """
     photo = _as_bgr(image)
     warnings: list[str] = []
-    h, used, residual = _fit_markers(photo, layout, config, warnings)
+    blurs: dict[int, list[float]] = {}
+    h, used, residual = _fit_markers(photo, layout, config, warnings, blurs)
+    seen = [b for marker_id in used for b in blurs.get(marker_id, ())]
+    blur = float(np.median(seen)) if seen else None
     win = layout.window
     photo_ppm, _ = local_px_per_mm(
         np.linalg.inv(h), win.x_mm + win.width_mm / 2, win.y_mm + win.height_mm / 2
@@ -209,14 +213,25 @@ def locate(
         px_per_mm=s,
         residual_mm=residual,
         photo_px_per_mm=photo_ppm,
+        photo_blur_px=blur,
     )
     return Rectified(rect, frame, visible, analysed, calibration, h, tuple(warnings))
 
 
-def _candidates(photo: np.ndarray, layout: Layout, warnings: list[str]) -> list[Candidate]:
-    """The layout's markers found in the photo, as (id, photo corners, layout corners)."""
+def _candidates(
+    photo: np.ndarray,
+    layout: Layout,
+    warnings: list[str],
+    blurs: dict[int, list[float]] | None = None,
+) -> list[Candidate]:
+    """The layout's markers found in the photo, as (id, photo corners, layout corners);
+    ``blurs`` collects each marker's edge blur (:attr:`Detection.blur_px`) by id."""
     detections = detect_markers(photo, dictionary=layout.dictionary)
     by_id = {m.id: m for m in layout.markers}
+    if blurs is not None:
+        for d in detections:
+            if d.id in by_id and d.blur_px is not None:
+                blurs.setdefault(d.id, []).append(d.blur_px)
     cands = [
         (d.id, d.corners_px, np.asarray(by_id[d.id].corners_mm, dtype=np.float64))
         for d in detections
@@ -285,11 +300,15 @@ def _say_which_card(photo: np.ndarray, layout: Layout, detections: tuple[Detecti
 
 
 def _fit_markers(
-    photo: np.ndarray, layout: Layout, config: LocateConfig, warnings: list[str]
+    photo: np.ndarray,
+    layout: Layout,
+    config: LocateConfig,
+    warnings: list[str],
+    blurs: dict[int, list[float]] | None = None,
 ) -> tuple[np.ndarray, tuple[int, ...], float]:
     """Homography (photo px -> layout mm), the marker ids it uses, and its RMS residual."""
     h, kept, dropped = robust_fit(
-        _candidates(photo, layout, warnings), 0.5 * config.max_residual_mm
+        _candidates(photo, layout, warnings, blurs), 0.5 * config.max_residual_mm
     )
     kept_ids = {c[0] for c in kept}
     for marker_id, miss in dropped:

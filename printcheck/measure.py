@@ -195,6 +195,7 @@ def measure(
     alternates: tuple[np.ndarray, ...] = (),
     photo_px_per_mm: float | None = None,
     unseen: np.ndarray | None = None,
+    photo_blur_px: float | None = None,
 ) -> Measurement:
     """Measure the contact ``mask`` (M, N) bool on rectified ``frame``.
 
@@ -212,6 +213,10 @@ def measure(
         only what the mask itself says.
     photo_px_per_mm : float, optional
         What the photo itself resolves at the window, for the resolution check.
+    photo_blur_px : float, optional
+        How far the photo spreads sharp edges (the Gaussian sigma at the card's markers,
+        photo pixels): a blurred photo resolves less than its pixels
+        (:func:`resolving_px_per_mm`).
     unseen : (M, N) bool ndarray, optional
         Pixels where the photo shows nothing of the print (burnt-out highlights): the
         contacts they hide are not counted, and the range reaches up by what they
@@ -244,16 +249,18 @@ def measure(
     cells = cells_of(frame, grid, c_mm, cell_area_px, cell_contact_px, cell_count, px_area)
     largest, bare_radius = largest_bare(in_an & ~contact, frame)
     alts = tuple(_count_and_bearing(a, frame, in_an, config) for a in alternates)
+    resolves = resolving_px_per_mm(photo_px_per_mm, photo_blur_px)
     confidence = _confidence(
         spot_count,
         bearing,
         alts,
         _marginal(found, in_an, frame, config),
         spots,
-        photo_px_per_mm,
+        resolves,
         config,
-        crowded=_crowded(labels, spots, s, photo_px_per_mm, config),
+        crowded=_crowded(labels, spots, s, resolves, config),
         unseen_share=_unseen_share(unseen, in_an & ~contact, analysed_px),
+        blur_px=photo_blur_px if resolves != photo_px_per_mm else None,
     )
     return Measurement(
         spots=spots,
@@ -407,6 +414,32 @@ def _unseen_share(unseen: np.ndarray | None, bare: np.ndarray, analysed_px: int)
     return min(hidden / analysed_px, 0.9)
 
 
+#: The edge spread (Gaussian sigma, px) of a photo in focus: a phone camera's lens and
+#: demosaicing spread an edge by about 0.4-1 px (measured at the card's markers on
+#: printcheck's renders and an independent simulator's photos); more is blur.
+SHARP_BLUR_PX = 1.0
+
+
+def resolving_px_per_mm(photo_px_per_mm: float | None, blur_px: float | None) -> float | None:
+    """What a photo resolves at the window, in px/mm of a sharp photo.
+
+    A photo blurred by ``blur_px`` (sigma, its own pixels) over :data:`SHARP_BLUR_PX`
+    parts no finer detail than a sharp one with that many times fewer pixels: the
+    resolution scales by ``SHARP_BLUR_PX / blur_px``.  None without the photo's own
+    resolution.
+
+    Examples
+    --------
+    >>> resolving_px_per_mm(12.0, 0.7), resolving_px_per_mm(12.0, 3.0)
+    (12.0, 4.0)
+    """
+    if photo_px_per_mm is None:
+        return None
+    if blur_px is None or blur_px <= SHARP_BLUR_PX:
+        return photo_px_per_mm
+    return photo_px_per_mm * SHARP_BLUR_PX / blur_px
+
+
 def _crowded(
     labels: np.ndarray,
     spots: Spots,
@@ -450,8 +483,10 @@ def _confidence(
     *,
     crowded: int = 0,
     unseen_share: float = 0.0,
+    blur_px: float | None = None,
 ) -> Confidence:
-    """The range and the doubtful flag (see the module docstring)."""
+    """The range and the doubtful flag (see the module docstring); ``photo_px_per_mm``
+    is what the photo resolves, ``blur_px`` its blur where that lowered it."""
     counts = [count] + [a for a, _ in alts]
     bears = [bearing] + [b for _, b in alts]
     spread = max(1, int(round(config.count_spread * count))) if count else 0
@@ -469,16 +504,23 @@ def _confidence(
             reasons.append(
                 f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this photo has "
                 f"{photo_px_per_mm:.0f}: move closer"
+                if blur_px is None
+                else f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this "
+                f"photo is blurred (the card's edges spread {blur_px:.1f} px) and resolves "
+                f"like {photo_px_per_mm:.0f}: hold the phone still and let it focus"
             )
     if crowded > config.crowded_share * count and photo_px_per_mm is not None:
         # a print as fine as the photo's pixels: each contact closer to a neighbour than
         # the photo can part may hide another merged into it
         hi = max(hi, count + crowded)
         gap_mm = config.part_px / photo_px_per_mm
+        how = "move closer" if blur_px is None else "hold the phone still and let it focus"
+        if blur_px is not None and not any("blurred" in r for r in reasons):
+            how = f"the photo is blurred (the card's edges spread {blur_px:.1f} px): {how}"
         reasons.append(
             f"{crowded} of {count} contacts lie within {gap_mm:.2f} mm of a neighbour, "
             f"closer than this photo can part ({config.part_px:g} px at "
-            f"{photo_px_per_mm:.0f} px/mm): move closer"
+            f"{photo_px_per_mm:.0f} px/mm): {how}"
         )
     if unseen_share > 0:
         # what the burnt-out share of the window would hold at the density seen elsewhere

@@ -106,6 +106,7 @@ def _measure_rectified(
         ),
         alternates=seg.alternates,
         photo_px_per_mm=rect.calibration.photo_px_per_mm,
+        photo_blur_px=rect.calibration.photo_blur_px,
         unseen=seg.glare,
     )
     if meas.spot_count == 0:

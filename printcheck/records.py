@@ -50,7 +50,8 @@ __all__ = [
 class CalibrationSummary:
     """How the photo was scaled: ``method`` ``"layout"`` or ``"scale"``, the layout's
     name, the marker ids found, the rectified ``px_per_mm``, the marker fit's
-    ``residual_mm`` and the ``photo_px_per_mm`` the photo resolves at the window."""
+    ``residual_mm``, the ``photo_px_per_mm`` the photo resolves at the window and the
+    ``photo_blur_px`` it spreads the markers' edges by (None: not read)."""
 
     method: str
     layout: str | None
@@ -58,6 +59,7 @@ class CalibrationSummary:
     px_per_mm: float
     residual_mm: float | None
     photo_px_per_mm: float | None
+    photo_blur_px: float | None = None
 
 
 @dataclass(frozen=True)

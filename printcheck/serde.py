@@ -122,6 +122,7 @@ def summarize(result: Result) -> PassSummary:
             px_per_mm=_rf(cal.px_per_mm, 3),
             residual_mm=None if cal.residual_mm is None else _r(cal.residual_mm, 4),
             photo_px_per_mm=None if cal.photo_px_per_mm is None else _r(cal.photo_px_per_mm, 3),
+            photo_blur_px=None if cal.photo_blur_px is None else _r(cal.photo_blur_px, 2),
         ),
         window=WindowSummary(
             width=_rf(from_mm(win.width_mm, u), 4),
@@ -235,6 +236,8 @@ def summary_to_dict(s: PassSummary) -> dict[str, Any]:
             "px_per_mm": cal.px_per_mm,
             "residual_mm": cal.residual_mm,
             "photo_px_per_mm": cal.photo_px_per_mm,
+            # added: left out where not read (and in results made before it was)
+            **({} if cal.photo_blur_px is None else {"photo_blur_px": cal.photo_blur_px}),
         },
         "window": dataclasses.asdict(s.window),
         "spot_count": s.spot_count,
@@ -333,6 +336,7 @@ def _summary_from(d: Mapping[str, Any]) -> PassSummary:
             px_per_mm=float(cal["px_per_mm"]),
             residual_mm=_opt_float(cal.get("residual_mm")),
             photo_px_per_mm=_opt_float(cal.get("photo_px_per_mm")),
+            photo_blur_px=_opt_float(cal.get("photo_blur_px")),
         ),
         window=WindowSummary(float(win["width"]), float(win["height"]), float(win["area"])),
         spot_count=int(d["spot_count"]),

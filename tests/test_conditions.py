@@ -54,6 +54,7 @@ def _measure(scene: Scene, seed: int, **segment_options):  # type: ignore[no-unt
         config=MeasureConfig(cell_mm=25.4),
         alternates=seg.alternates,
         photo_px_per_mm=rect.calibration.photo_px_per_mm,
+        photo_blur_px=rect.calibration.photo_blur_px,
         unseen=seg.glare,
     )
     return shot.truth, meas, seg
@@ -314,3 +315,28 @@ def test_a_photo_without_compound_is_refused_and_nothing_of_it_is_recorded(tmp_p
     )
     passes = json.loads(prog.stdout)["passes"]
     assert [p["photo"] for p in passes] == ["a-good.jpg"]
+
+
+def test_an_out_of_focus_photo_is_flagged_and_its_range_holds_the_truth() -> None:
+    # a phone that missed focus (or shook): the markers' sharp printed edges spread 2.5 px,
+    # so the photo parts no finer detail than a sharp one with 2.5 times fewer pixels;
+    # neighbours merge and the count comes out low.  The photo is called doubtful for
+    # its blur, and the range reaches up to the truth
+    scene = Scene(
+        density=20,
+        camera=CAMERA,
+        image_size=(1400, 1050),
+        lighting=Lighting(blur_sigma_px=2.5),
+    )
+    truth, meas, _ = _measure(scene, seed=41)
+    conf = meas.confidence
+    assert conf is not None and conf.doubtful
+    assert "blurred" in conf.reason and "let it focus" in conf.reason
+    assert conf.count_low <= truth.spot_count <= conf.count_high
+
+
+def test_a_sharp_photo_is_not_called_blurred() -> None:
+    scene = Scene(density=20, camera=CAMERA, image_size=(1400, 1050))
+    truth, meas, _ = _measure(scene, seed=42)
+    _within(truth, meas)
+    assert meas.confidence is not None and "blurred" not in meas.confidence.reason

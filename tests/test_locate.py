@@ -670,3 +670,26 @@ def test_detect_markers_refines_corners_to_hundredths_of_a_pixel(photos: dict[st
         truth = _apply(photo.h_true, np.array(photo.layout.marker(marker_id).corners_mm))
         assert det.refined
         assert np.max(np.hypot(*(det.corners_px - truth).T)) < 0.1  # px
+
+
+@pytest.mark.parametrize("sigma", [1.0, 1.5, 2.5, 4.0])
+def test_edge_blur_is_the_gaussian_the_photo_was_blurred_by(sigma: float) -> None:
+    # a marker drawn by OpenCV's own ArUco generator, 24 px a module, blurred by
+    # cv2.GaussianBlur of known sigma: the edge-spread estimate (10-90 % rise / 2.563,
+    # the rise of a Gaussian edge) gives that sigma back; the drawn edge is a step, so
+    # nothing else spreads it
+    from printcheck.markers import edge_blur_px
+
+    dictionary = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
+    side = 6 * 24
+    marker = cv2.aruco.generateImageMarker(dictionary, 7, side)
+    page = np.full((side + 120, side + 120), 235, np.uint8)
+    page[60 : 60 + side, 60 : 60 + side] = np.where(marker > 0, 235, 20)
+    blurred = cv2.GaussianBlur(page.astype(np.float32), (0, 0), sigma)
+    # pixel centres: the marker's outer corners lie on pixel edges, 0.5 px off the centres
+    corners = np.array(
+        [[59.5, 59.5], [59.5 + side, 59.5], [59.5 + side, 59.5 + side], [59.5, 59.5 + side]]
+    )
+    estimate = edge_blur_px(blurred, corners, 4)
+    assert estimate is not None
+    assert estimate == pytest.approx(sigma, rel=0.08)
