@@ -126,8 +126,32 @@ class ContactMap:
         return Frame(self.px_per_mm, self.origin_mm, self.state.shape[:2], self.window)
 
 
+class _Shares:
+    """The areas of a change as percentages of the area both prints show (0 when none)."""
+
+    compared_mm2: float
+    appeared_mm2: float
+    disappeared_mm2: float
+    kept_mm2: float
+
+    @property
+    def appeared_percent(self) -> float:
+        """Appeared area as a percentage of the compared area."""
+        return _percent(self.appeared_mm2, self.compared_mm2)
+
+    @property
+    def disappeared_percent(self) -> float:
+        """Disappeared area as a percentage of the compared area."""
+        return _percent(self.disappeared_mm2, self.compared_mm2)
+
+    @property
+    def kept_percent(self) -> float:
+        """Kept contact area as a percentage of the compared area."""
+        return _percent(self.kept_mm2, self.compared_mm2)
+
+
 @dataclass(frozen=True)
-class CellChange:
+class CellChange(_Shares):
     """The change in one counting cell; areas in mm² of what both prints show there."""
 
     row: int
@@ -138,19 +162,9 @@ class CellChange:
     disappeared_mm2: float
     kept_mm2: float
 
-    @property
-    def appeared_percent(self) -> float:
-        """Appeared area as a percentage of the compared area (0 when none)."""
-        return _percent(self.appeared_mm2, self.compared_mm2)
-
-    @property
-    def disappeared_percent(self) -> float:
-        """Disappeared area as a percentage of the compared area (0 when none)."""
-        return _percent(self.disappeared_mm2, self.compared_mm2)
-
 
 @dataclass(frozen=True, eq=False)
-class Change:
+class Change(_Shares):
     """Where contacts appeared and disappeared between an earlier and a later print.
 
     Attributes
@@ -187,21 +201,6 @@ class Change:
     disappeared_centroid_mm: tuple[float, float] | None
     cells: tuple[CellChange, ...]
     cell_mm: float
-
-    @property
-    def appeared_percent(self) -> float:
-        """Appeared area as a percentage of the compared area."""
-        return _percent(self.appeared_mm2, self.compared_mm2)
-
-    @property
-    def disappeared_percent(self) -> float:
-        """Disappeared area as a percentage of the compared area."""
-        return _percent(self.disappeared_mm2, self.compared_mm2)
-
-    @property
-    def kept_percent(self) -> float:
-        """Kept contact area as a percentage of the compared area."""
-        return _percent(self.kept_mm2, self.compared_mm2)
 
 
 def _percent(part: float, whole: float) -> float:

@@ -137,8 +137,14 @@ def make_result(
         size_stats={"median_area_mm2": float(np.median(area)) if k_spots else 0.0},
     )
     seg = Segmentation(
-        mask=mask, alternates=(mask, mask), visible=visible, compound="blue",
-        compound_on="reference", px_per_mm=px_per_mm, compound_level=1.2, noise=0.01,
+        mask=mask,
+        alternates=(mask, mask),
+        visible=visible,
+        compound="blue",
+        compound_on="reference",
+        px_per_mm=px_per_mm,
+        compound_level=1.2,
+        noise=0.01,
         glare_fraction=0.0,
     )
     cal = Calibration("layout", "card-2in", (0, 1, 2, 3), px_per_mm, 0.03, 20.0)
@@ -208,3 +214,23 @@ def make_summary(
         segmentation=SegmentationSummary("reference", 1.2, 0.01),
         warnings=warnings,
     )
+
+
+def with_added_contacts(field):  # type: ignore[no-untyped-def]
+    """``field`` (a synth SurfaceField) with twelve new contacts, 1.2 mm across, on a
+    4-5 mm grid in cell B2 of the 2 in card (centres x 31-43, y 32-42 mm): the known
+    region of the change tests."""
+    import dataclasses
+
+    import numpy as np
+
+    h = field.height_um.copy()
+    y = field.origin_mm[1] + (np.arange(h.shape[0]) + 0.5) / field.px_per_mm
+    x = field.origin_mm[0] + (np.arange(h.shape[1]) + 0.5) / field.px_per_mm
+    xx, yy = np.meshgrid(x, y)
+    top = float(h.max())
+    for cx in (31.0, 35.0, 39.0, 43.0):
+        for cy in (32.0, 37.0, 42.0):
+            disc = (xx - cx) ** 2 + (yy - cy) ** 2 <= 0.6**2
+            h[disc] = np.maximum(h[disc], top - 0.5)
+    return dataclasses.replace(field, height_um=h)

@@ -12,7 +12,7 @@ import dataclasses
 
 import numpy as np
 import pytest
-from _hand_results import make_summary
+from _hand_results import make_summary, with_added_contacts
 from scipy import ndimage
 from skimage import measure as skm
 
@@ -69,17 +69,7 @@ def field():  # type: ignore[no-untyped-def]
 
 
 def _with_added(field):  # type: ignore[no-untyped-def]
-    h = field.height_um.copy()
-    y = field.origin_mm[1] + (np.arange(h.shape[0]) + 0.5) / field.px_per_mm
-    x = field.origin_mm[0] + (np.arange(h.shape[1]) + 0.5) / field.px_per_mm
-    xx, yy = np.meshgrid(x, y)
-    top = float(h.max())
-    # twelve new contacts, 1.2 mm across, on a 4-5 mm grid in cell B2
-    for cx in (31.0, 35.0, 39.0, 43.0):
-        for cy in (32.0, 37.0, 42.0):
-            disc = (xx - cx) ** 2 + (yy - cy) ** 2 <= 0.6**2
-            h[disc] = np.maximum(h[disc], top - 0.5)
-    return dataclasses.replace(field, height_um=h)
+    return with_added_contacts(field)
 
 
 @pytest.fixture(scope="module")

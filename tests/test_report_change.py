@@ -7,11 +7,8 @@ per-cell change the report shows must put the gain there and nowhere else.
 
 from __future__ import annotations
 
-import dataclasses
-
-import numpy as np
 import pytest
-from _hand_results import make_summary
+from _hand_results import make_summary, with_added_contacts
 
 from printcheck.frame import Frame
 from printcheck.layout import card_layout
@@ -43,17 +40,7 @@ def two_passes():  # type: ignore[no-untyped-def]
     layout = card_layout()
     field = surface_at_density(layout, 10, seed=5, px_per_mm=14.0, film_um=1.5)
     before = _measure(field)
-    h = field.height_um.copy()
-    y = field.origin_mm[1] + (np.arange(h.shape[0]) + 0.5) / field.px_per_mm
-    x = field.origin_mm[0] + (np.arange(h.shape[1]) + 0.5) / field.px_per_mm
-    xx, yy = np.meshgrid(x, y)
-    top = float(h.max())
-    # twelve new contacts, 1.2 mm across, on a 4 mm grid in cell B2
-    for cx in (31.0, 35.0, 39.0, 43.0):
-        for cy in (32.0, 37.0, 42.0):
-            disc = (xx - cx) ** 2 + (yy - cy) ** 2 <= 0.6**2
-            h[disc] = np.maximum(h[disc], top - 0.5)
-    after = _measure(dataclasses.replace(field, height_um=h))
+    after = _measure(with_added_contacts(field))
     return before, after
 
 

@@ -8,6 +8,7 @@ earlier batch wrote into the output folder are shown where they are found.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 from printcheck.errors import OptionError
 
@@ -40,6 +41,29 @@ def stored_preview(out: Path, photo: str) -> bytes | None:
         return None
 
 
+def read_recorded(db: Path, surface: str, out: Path, *, command: str) -> tuple[Any, Any, Any]:
+    """``surface``'s recorded passes, spec and progress from the history at ``db``
+    (:func:`printcheck.progress.recorded_progress`), with the output folder ``out`` made.
+
+    Raises
+    ------
+    OptionError
+        No passes recorded for the surface, or ``out`` cannot be made.
+    HistoryError
+        The history cannot be read.
+    """
+    from printcheck.history import open_history
+    from printcheck.progress import recorded_progress
+
+    with open_history(db, readonly=True) as history:
+        found = recorded_progress(history, surface, command=command)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OptionError(f"output folder {out}: cannot be created ({exc.strerror})") from None
+    return found
+
+
 def write_history_report(db: Path, surface: str, out: Path) -> Path:
     """Write ``out/report.html`` for ``surface`` from the history at ``db``.
 
@@ -50,18 +74,11 @@ def write_history_report(db: Path, surface: str, out: Path) -> Path:
     HistoryError, ReportError
         The history cannot be read, or the report cannot be written.
     """
-    from printcheck.history import open_history
-    from printcheck.progress import recorded_progress
     from printcheck.report.files import write_csv
     from printcheck.report.html import write_report
     from printcheck.report.stations import stations_section
 
-    with open_history(db, readonly=True) as history:
-        stored, spec, progress = recorded_progress(history, surface, command="report")
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OptionError(f"output folder {out}: cannot be created ({exc.strerror})") from None
+    stored, spec, progress = read_recorded(db, surface, out, command="report")
     write_csv(out, "results.csv", [p.summary for p in stored])
     return write_report(
         out / "report.html",

@@ -563,16 +563,10 @@ def write_sheet(
     HistoryError, ReportError
         The history cannot be read, the sheet cannot be written, or Chromium failed.
     """
-    from printcheck.history import open_history
-    from printcheck.progress import recorded_progress
     from printcheck.report.files import write_text
+    from printcheck.report.history_report import read_recorded
 
-    with open_history(db, readonly=True) as history:
-        stored, spec, progress = recorded_progress(history, surface, command="sheet")
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OptionError(f"output folder {out}: cannot be created ({exc.strerror})") from None
+    stored, spec, progress = read_recorded(db, surface, out, command="sheet")
     text = render_sheet(
         surface=surface, spec=spec, stored=stored, progress=progress, out=out, paper=paper
     )
