@@ -45,7 +45,7 @@ __all__ = [
 def flat_where(mask: np.ndarray) -> np.ndarray:
     """Row-major flat indices of the true pixels of a 2-D bool mask: ``np.flatnonzero``,
     found by OpenCV's ``findNonZero``, many times faster on a large, sparse mask."""
-    pts = cv2.findNonZero(np.ascontiguousarray(mask).view(np.uint8))
+    pts = cv2.findNonZero(np.ascontiguousarray(mask, dtype=bool).view(np.uint8))
     if pts is None:
         return np.zeros(0, np.intp)
     pts = pts.reshape(-1, 2).astype(np.intp)
