@@ -8,6 +8,7 @@ size equals the source's), and the history's rows (each photo once).
 from __future__ import annotations
 
 import os
+import shutil
 import sqlite3
 import threading
 import time
@@ -137,3 +138,28 @@ def test_a_killed_worker_costs_only_its_photo(measurer: Measurer, small_job: Any
     )
     _wait_done([second])
     assert second.state == DONE, second.message
+
+
+def test_names_give_the_pass_and_station_as_batch_reads_them(
+    tmp_path: Path, measurer: Measurer, small_job: Any
+) -> None:
+    # a sync client drops p1-st1.jpg, p1-st2.jpg, p2-st1.jpg: stations 1 and 2 of pass
+    # 1, then station 1 of pass 2 (the name rule of `printcheck batch`, docs/guide.md)
+    source_folder, photos = small_job
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    for photo, name in zip(photos, ("p1-st1.jpg", "p1-st2.jpg", "p2-st1.jpg"), strict=True):
+        shutil.copy2(source_folder / photo.file, inbox / name)
+    watcher = Watcher(inbox, measurer, surface="watched-way", interval_s=0.1, settle_s=0.3)
+    deadline = time.monotonic() + 10
+    while len(watcher.jobs) < 3 and time.monotonic() < deadline:
+        watcher.look()
+        time.sleep(0.1)
+    _wait_done(watcher.jobs)
+    with sqlite3.connect(f"file:{measurer.db}?mode=ro", uri=True) as con:
+        rows = con.execute("SELECT photo, station, pass_key FROM passes ORDER BY photo").fetchall()
+    assert rows == [
+        ("p1-st1.jpg", "1", "pass 1"),
+        ("p1-st2.jpg", "2", "pass 1"),
+        ("p2-st1.jpg", "1", "pass 2"),
+    ]

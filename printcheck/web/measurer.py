@@ -45,6 +45,7 @@ class Job:
     sent_name: str
     station: str | None
     new_pass: bool = False  # the fitter asked for a new pass (not a station of the last)
+    pass_key: str | None = None  # the pass the photo's name gives ("pass 3"), as batch has it
     submitted: float = field(default_factory=time.monotonic)
     state: str = QUEUED
     finished: float | None = None
@@ -121,6 +122,7 @@ class Measurer:
         sent_name: str,
         station: str | None,
         new_pass: bool = False,
+        pass_key: str | None = None,
     ) -> Job:
         """Measure the photo at ``path`` for ``surface``; the job (an existing one when the
         same photo was already sent for the surface and did not fail)."""
@@ -129,7 +131,7 @@ class Measurer:
             known = self._jobs.get(jid)
             if known is not None and known.state != FAILED:
                 return known
-            job = Job(jid, surface, sha256, path, sent_name, station, new_pass)
+            job = Job(jid, surface, sha256, path, sent_name, station, new_pass, pass_key)
             self._jobs[jid] = job
         self._run(job)
         return job
@@ -252,15 +254,18 @@ _WEB_PASS = "web "
 def web_pass(stored: list[Any], job: Job, now: float) -> str | None:
     """The pass a photo sent from the phone belongs to (its history pass key).
 
-    A photo without a station is a pass of its own (None).  A photo at a station joins
-    the surface's latest pass sent from the phone when that pass has no photo at the
-    station yet and its last photo was recorded under :data:`SAME_PASS_S` ago, unless the
-    fitter asked for a new pass; otherwise it starts a pass.  So walking the bed after a
-    pass, station by station, makes one pass; the same stations again after scraping,
-    the next.  (A batch's passes are never joined.)
+    A pass its name gives (``job.pass_key``, a watched folder's ``p3-st2.jpg``) is kept,
+    as a batch keeps it.  A photo without a station is a pass of its own (None).  A photo
+    at a station joins the surface's latest pass sent from the phone when that pass has
+    no photo at the station yet and its last photo was recorded under
+    :data:`SAME_PASS_S` ago, unless the fitter asked for a new pass; otherwise it starts
+    a pass.  So walking the bed after a pass, station by station, makes one pass; the
+    same stations again after scraping, the next.  (A batch's passes are never joined.)
     """
     from datetime import datetime
 
+    if job.pass_key is not None:
+        return job.pass_key
     if job.station is None:
         return None
     if not job.new_pass:

@@ -15,6 +15,7 @@ import time
 from pathlib import Path
 
 from printcheck.errors import PhotoError, PrintcheckError
+from printcheck.stations import pass_token, station_token
 from printcheck.web.measurer import Job, Measurer
 
 __all__ = ["Watcher"]
@@ -107,6 +108,14 @@ class Watcher:
         if checked.sha256 in self._hashes:
             return None  # the same photo under another name
         self._hashes.add(checked.sha256)
+        # the station and pass the name gives, by batch's rule (p3-st2.jpg, pass3-station-
+        # tailstock.jpg); stations without a pass number group as the phone's do
+        number = pass_token(path.name)
         return self.measurer.submit(
-            path, surface=self.surface, sha256=checked.sha256, sent_name=path.name, station=None
+            path,
+            surface=self.surface,
+            sha256=checked.sha256,
+            sent_name=path.name,
+            station=station_token(path.name),
+            pass_key=None if number is None else f"pass {number}",
         )
