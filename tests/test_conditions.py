@@ -23,6 +23,7 @@ The bounds are the accuracy targets' 90th-percentile figures for one photo: coun
 from __future__ import annotations
 
 from dataclasses import replace
+from typing import Any
 
 import numpy as np
 import pytest
@@ -35,6 +36,18 @@ from printcheck.synth import Camera, Lighting, Scene, render_photo
 from printcheck.synth.fine import fine_surface
 
 CAMERA = Camera(tilt_deg=12.0, rotation_deg=20.0, window_fraction=0.45)
+
+
+def _scene(density: float, light: dict[str, float] | None = None, **scene: Any) -> Scene:
+    """A print of ``density`` through the 2 in card, photographed hand-held (CAMERA) at
+    1400 x 1050, under ``Lighting(**light)``."""
+    return Scene(
+        density=density,
+        camera=CAMERA,
+        image_size=(1400, 1050),
+        lighting=Lighting(**(light or {})),
+        **scene,
+    )
 
 
 def _measure(scene: Scene, seed: int, **segment_options):  # type: ignore[no-untyped-def]
@@ -77,7 +90,7 @@ def test_pieces_at_the_card_edge_are_counted_with_a_layout_that_states_a_margin(
     # card's edge is found and what it hides is not surface; the spots it cuts count by
     # their visible pieces (docs/formats.md, grid and counting)
     layout = replace(card_layout(), margin_mm=5.0)
-    scene = Scene(layout=layout, card=True, density=18, camera=CAMERA, image_size=(1400, 1050))
+    scene = _scene(18, layout=layout, card=True)
     truth, meas, _ = _measure(scene, seed=31)
     _within(truth, meas)
     edge = meas.spots.in_window & (
@@ -90,20 +103,13 @@ def test_pieces_at_the_card_edge_are_counted_with_a_layout_that_states_a_margin(
 
 
 def test_a_wide_smear_of_compound_is_not_contact() -> None:
-    scene = Scene(
-        density=14,
-        camera=CAMERA,
-        image_size=(1400, 1050),
-        lighting=Lighting(haze=0.5, haze_wide=1.0),
-    )
+    scene = _scene(14, dict(haze=0.5, haze_wide=1.0))
     truth, meas, _ = _measure(scene, seed=32)
     _within(truth, meas)
 
 
 def test_broad_bright_facets_are_metal_not_glare() -> None:
-    scene = Scene(
-        density=16, camera=CAMERA, image_size=(1400, 1050), lighting=Lighting(facet_gloss=0.6)
-    )
+    scene = _scene(16, dict(facet_gloss=0.6))
     truth, meas, seg = _measure(scene, seed=33)
     _within(truth, meas)
     assert seg.glare_fraction < 0.05
@@ -115,13 +121,7 @@ def test_broad_bright_facets_are_metal_not_glare() -> None:
     "wear only part of the coat through and are missed (about 15 % under)",
 )
 def test_compound_on_the_work_through_a_card_with_a_pushed_up_ring() -> None:
-    scene = Scene(
-        density=12,
-        compound_on="work",
-        camera=CAMERA,
-        image_size=(1400, 1050),
-        lighting=Lighting(ring=0.8),
-    )
+    scene = _scene(12, dict(ring=0.8), compound_on="work")
     truth, meas, seg = _measure(scene, seed=34)
     _within(truth, meas)
     assert seg.compound == "blue"
@@ -131,12 +131,7 @@ def test_contacts_under_burnt_out_glare_are_in_the_range() -> None:
     # a broad patch of burnt-out glare over the window hides the contacts under it: they
     # cannot be counted, but the range must reach up to them (at the density and bearing
     # seen elsewhere), and the photo carries the glare warning
-    scene = Scene(
-        density=24,
-        camera=CAMERA,
-        image_size=(1400, 1050),
-        lighting=Lighting(glare=3.0, glare_radius=0.12),
-    )
+    scene = _scene(24, dict(glare=3.0, glare_radius=0.12))
     truth, meas, seg = _measure(scene, seed=40)
     assert seg.glare_fraction > 0.05
     assert any("burnt out" in w for w in seg.warnings)
@@ -147,7 +142,7 @@ def test_contacts_under_burnt_out_glare_are_in_the_range() -> None:
 
 
 def test_red_compound_is_found_by_default() -> None:
-    scene = Scene(density=20, compound="red", camera=CAMERA, image_size=(1400, 1050))
+    scene = _scene(20, compound="red")
     truth, meas, seg = _measure(scene, seed=35)  # compound left to its default, auto
     assert seg.compound == "red"
     _within(truth, meas)
@@ -160,9 +155,7 @@ def test_red_compound_is_found_by_default() -> None:
     "a neck from a gap the blur has filled in",
 )
 def test_pale_rims_are_kept() -> None:
-    scene = Scene(
-        density=20, camera=CAMERA, image_size=(1400, 1050), lighting=Lighting(rim_film=0.15)
-    )
+    scene = _scene(20, dict(rim_film=0.15))
     truth, meas, _ = _measure(scene, seed=36)
     _within(truth, meas)
 
@@ -322,12 +315,7 @@ def test_an_out_of_focus_photo_is_flagged_and_its_range_holds_the_truth() -> Non
     # so the photo parts no finer detail than a sharp one with 2.5 times fewer pixels;
     # neighbours merge and the count comes out low.  The photo is called doubtful for
     # its blur, and the range reaches up to the truth
-    scene = Scene(
-        density=20,
-        camera=CAMERA,
-        image_size=(1400, 1050),
-        lighting=Lighting(blur_sigma_px=2.5),
-    )
+    scene = _scene(20, dict(blur_sigma_px=2.5))
     truth, meas, _ = _measure(scene, seed=41)
     conf = meas.confidence
     assert conf is not None and conf.doubtful
@@ -336,7 +324,7 @@ def test_an_out_of_focus_photo_is_flagged_and_its_range_holds_the_truth() -> Non
 
 
 def test_a_sharp_photo_is_not_called_blurred() -> None:
-    scene = Scene(density=20, camera=CAMERA, image_size=(1400, 1050))
+    scene = _scene(20)
     truth, meas, _ = _measure(scene, seed=42)
     _within(truth, meas)
     assert meas.confidence is not None and "blurred" not in meas.confidence.reason
