@@ -50,7 +50,7 @@ def summary_text(s: PassSummary) -> str:
         strips = [edge_strip(s.window.width, s.cell), edge_strip(s.window.height, s.cell)]
         lines += _cell_grid(s.cells, drop_last=(strips[1] is not None, strips[0] is not None))
         if any(w is not None for w in strips):
-            width = min(w for w in strips if w is not None)
+            width = max(w for w in strips if w is not None)
             lines.append(
                 f"    (edge strips {width:.2g} {unit} wide, under a quarter cell, not shown; "
                 "their points count in the window's figures)"

@@ -38,6 +38,7 @@ __all__ = [
     "length_words",
     "bearing_words",
     "target_lines",
+    "cell_share_words",
     "advice_line",
     "advice_words",
     "CHECK_LABELS",
@@ -172,6 +173,14 @@ class TargetLine:
     source: str
 
 
+def cell_share_words(spec: Spec) -> str:
+    """Which cells a spec's cell target holds for: ``"every complete cell"`` or
+    ``"75% of complete cells"``."""
+    if spec.cell_share >= 1.0:
+        return "every complete cell"
+    return f"{num(100 * spec.cell_share, 1)}% of complete cells"
+
+
 def target_lines(
     spec: Spec, unit: str | None = None, cell_mm: float | None = None
 ) -> list[TargetLine]:
@@ -201,11 +210,7 @@ def target_lines(
             )
         )
     if spec.min_cell_density is not None:
-        share = (
-            "every complete cell"
-            if spec.cell_share >= 1.0
-            else f"{num(100 * spec.cell_share, 1)}% of complete cells"
-        )
+        share = cell_share_words(spec)
         out.append(
             TargetLine(
                 "cells",

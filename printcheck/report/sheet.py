@@ -17,7 +17,6 @@ at run time; :func:`find_chromium` finds one.
 
 from __future__ import annotations
 
-import base64
 import os
 import shutil
 import subprocess
@@ -30,7 +29,9 @@ from typing import TYPE_CHECKING, Literal
 
 from printcheck.errors import OptionError, ReportError
 from printcheck.records import CellSummary, PassSummary, Progress, ProgressRow, StoredPass
+from printcheck.report.views import data_uri
 from printcheck.spec import Spec
+from printcheck.wording import TargetLine, cell_share_words, fixed, target_lines
 
 if TYPE_CHECKING:
     from jinja2 import Environment
@@ -43,7 +44,6 @@ __all__ = [
     "Paper",
     "PrintView",
     "SheetFiles",
-    "SpecLine",
     "VerdictLine",
     "find_chromium",
     "print_pdf",
@@ -72,15 +72,6 @@ _PRINT_TIMEOUT_S = 120.0
 
 
 # ---------------------------------------------------------------- what the sheet shows
-
-
-@dataclass(frozen=True)
-class SpecLine:
-    """One target of the spec: its label, its words and where its number comes from."""
-
-    label: str
-    words: str
-    source: str
 
 
 @dataclass(frozen=True)
@@ -165,12 +156,6 @@ def _station_when(taken: datetime | None, pass_taken: datetime | None) -> str:
     return _when(taken)
 
 
-def _fig(value: float | None, digits: int = 1) -> str:
-    from printcheck.wording import fixed
-
-    return fixed(value, digits)
-
-
 def _short_on(summary: PassSummary | None) -> str:
     from printcheck.wording import check_label
 
@@ -198,8 +183,8 @@ def _verdict_lines(progress: Progress, stored: Sequence[StoredPass]) -> list[Ver
                     station=f.station,
                     when=_station_when(None if summary is None else summary.taken, row.taken),
                     photo=f.photo,
-                    density=_fig(f.density),
-                    bearing=_fig(f.bearing_percent),
+                    density=fixed(f.density),
+                    bearing=fixed(f.bearing_percent),
                     verdict=verdict,
                     state=state,
                     short_on=_short_on(summary),
@@ -218,8 +203,8 @@ def _pass_line(row: ProgressRow, by_key: Mapping[tuple[int, str], PassSummary]) 
         station=None,
         when=_when(row.taken),
         photo=row.photo,
-        density=_fig(row.density),
-        bearing=_fig(row.bearing_percent),
+        density=fixed(row.density),
+        bearing=fixed(row.bearing_percent),
         verdict=verdict,
         state=state,
         short_on=_short_on(by_key.get((row.number, deciding or "1"))),
@@ -228,12 +213,8 @@ def _pass_line(row: ProgressRow, by_key: Mapping[tuple[int, str], PassSummary]) 
     )
 
 
-def _spec_lines(spec: Spec | None) -> list[SpecLine]:
-    from printcheck.wording import target_lines
-
-    if spec is None:
-        return []
-    return [SpecLine(t.label, t.words, t.source) for t in target_lines(spec)]
+def _spec_lines(spec: Spec | None) -> list[TargetLine]:
+    return [] if spec is None else target_lines(spec)
 
 
 def _job_target(progress: Progress, spec: Spec | None) -> str:
@@ -250,11 +231,7 @@ def _job_target(progress: Progress, spec: Spec | None) -> str:
     if spec.min_density is not None:
         words += " on average"
     if spec.min_cell_density is not None and t.cell_density is not None:
-        share = (
-            "every complete cell"
-            if spec.cell_share >= 1.0
-            else f"{num(100 * spec.cell_share, 1)}% of complete cells"
-        )
+        share = cell_share_words(spec)
         if spec.min_density is None:
             words += f" in {share}"
         else:
@@ -262,18 +239,14 @@ def _job_target(progress: Progress, spec: Spec | None) -> str:
     return words
 
 
-def _data_uri(data: bytes) -> str:
-    mime = "image/png" if data[:8] == b"\x89PNG\r\n\x1a\n" else "image/jpeg"
-    return f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
-
-
 def _cell_map(
     cells: Sequence[CellSummary], summary: PassSummary, spec: Spec | None
 ) -> tuple[tuple[str, ...], tuple[tuple[str, tuple[MapCell | None, ...]], ...], str]:
     """The latest print's cells on their grid, coloured against ``spec`` as the report's
-    cell maps are (its colour classes, read from :mod:`printcheck.report.html`)."""
+    cell maps are (:mod:`printcheck.report.views`' colour classes), the edge strips left
+    out as there (:func:`~printcheck.report.views.drawn_cells`)."""
     from printcheck.guidance import cell_label
-    from printcheck.report.views import CELL_COLOURS, density_class
+    from printcheck.report.views import CELL_COLOURS, density_class, drawn_cells
     from printcheck.units import to_mm
     from printcheck.wording import density_words, num
 
@@ -283,14 +256,13 @@ def _cell_map(
     target = None
     if spec is not None:
         target = spec.density_target(to_mm(summary.cell, summary.unit), per_cell=True)
-    n_rows = max(c.row for c in cells) + 1
-    n_cols = max(c.col for c in cells) + 1
+    keep_rows, keep_cols, _ = drawn_cells(summary)
     grid = {(c.row, c.col): c for c in cells}
-    columns = tuple(cell_label(0, c)[:-1] for c in range(n_cols))
+    columns = tuple(cell_label(0, c)[:-1] for c in keep_cols)
     rows = []
-    for r in range(n_rows):
+    for r in keep_rows:
         out: list[MapCell | None] = []
-        for c in range(n_cols):
+        for c in keep_cols:
             cell = grid.get((r, c))
             if cell is None:
                 out.append(None)
@@ -301,7 +273,7 @@ def _cell_map(
             out.append(
                 MapCell(
                     label=cell_label(r, c),
-                    density=_fig(cell.density),
+                    density=fixed(cell.density),
                     bearing=f"{cell.bearing_percent:.0f}%",
                     background="#{:02x}{:02x}{:02x}".format(*rgb),
                     ink=ink,
@@ -341,7 +313,7 @@ def _latest_prints(
                 verdict=verdict,
                 state=state,
                 worst=len(members) > 1 and (p.station or "1") == last.worst_station,
-                overlay=None if preview is None else _data_uri(preview),
+                overlay=None if preview is None else data_uri(preview),
                 columns=columns,
                 rows=rows,
                 caption=caption,
@@ -439,7 +411,7 @@ def render_sheet(
         "job_target": _job_target(progress, spec),
         "lines": _verdict_lines(progress, stored),
         "prints": _latest_prints(progress, stored, spec, out),
-        "trend": _data_uri(trend_png(progress, dpi=150)),
+        "trend": data_uri(trend_png(progress, dpi=150)),
         "today": (today or datetime.now()).strftime("%Y-%m-%d"),
         "version": __version__,
     }

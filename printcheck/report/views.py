@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from urllib.parse import quote
 
-from printcheck.cells import EDGE_STRIP
+from printcheck.cells import edge_strip
 from printcheck.records import CellSummary, PassSummary
 from printcheck.spec import Spec
 from printcheck.units import to_mm
@@ -40,6 +40,7 @@ __all__ = [
     "PassView",
     "bearing_class",
     "data_uri",
+    "drawn_cells",
     "density_class",
     "legend_items",
     "pass_view",
@@ -58,10 +59,6 @@ CELL_COLOURS: dict[str, tuple[int, int, int]] = {
 }
 _DARK = {"short"}  # classes whose figures are written in white
 _WHITE = (248, 249, 250)
-
-#: A column or row of cells narrower than this share of a cell is not drawn on the maps
-#: (the edge strips of :func:`printcheck.cells.edge_strip`).
-MIN_DRAWN_SHARE = EDGE_STRIP
 
 
 def data_uri(data: bytes) -> str:
@@ -237,34 +234,18 @@ def spec_words(
     return (spec.title or spec.name, spec.name, targets or "no targets")
 
 
-def _spans(count: int, side: float, extent: float) -> list[float]:
-    """The widths of ``count`` cells of side ``side`` laid from 0 over ``extent``: every
-    cell its side, the last one what is left (narrower, or wider where the grid gave
-    the leftover strip to the last cell)."""
-    out = []
-    for k in range(count):
-        end = extent if k == count - 1 else min((k + 1) * side, extent)
-        out.append(max(0.0, end - k * side))
-    return out
-
-
-def _drawn(summary: PassSummary) -> tuple[set[int], set[int], float]:
-    """The rows and columns a map draws, and the widest edge strip it leaves out
-    (0 when none): strips under :data:`MIN_DRAWN_SHARE` of a cell are not drawn."""
-    cells = summary.cells
-    rows = max(c.row for c in cells) + 1
-    cols = max(c.col for c in cells) + 1
-    side = summary.cell
-    widths = _spans(cols, side, summary.window.width)
-    heights = _spans(rows, side, summary.window.height)
-    limit = MIN_DRAWN_SHARE * side
-    keep_cols = {k for k, w in enumerate(widths) if w >= limit}
-    keep_rows = {k for k, h in enumerate(heights) if h >= limit}
-    if not keep_cols or not keep_rows:  # a window smaller than a quarter cell: draw it all
-        return set(range(rows)), set(range(cols)), 0.0
-    hidden = [w for k, w in enumerate(widths) if k not in keep_cols]
-    hidden += [h for k, h in enumerate(heights) if k not in keep_rows]
-    return keep_rows, keep_cols, max(hidden, default=0.0)
+def drawn_cells(summary: PassSummary) -> tuple[list[int], list[int], float]:
+    """The rows and columns a cell map draws, and the widest edge strip it leaves out
+    (0 when none): the last row or column when it is an edge strip
+    (:func:`printcheck.cells.edge_strip`; never the only one)."""
+    rows = max(c.row for c in summary.cells) + 1
+    cols = max(c.col for c in summary.cells) + 1
+    across = edge_strip(summary.window.width, summary.cell)
+    down = edge_strip(summary.window.height, summary.cell)
+    hidden = [w for w in (across, down) if w is not None]
+    keep_cols = cols - (across is not None)
+    keep_rows = rows - (down is not None)
+    return list(range(keep_rows)), list(range(keep_cols)), max(hidden, default=0.0)
 
 
 def _map(
@@ -275,7 +256,7 @@ def _map(
     css_class: str = "heat",
 ) -> MapView:
     """A map of ``summary``'s cells on their grid, leaving out the thin edge strips."""
-    keep_rows, keep_cols, _ = _drawn(summary)
+    keep_rows, keep_cols, _ = drawn_cells(summary)
     grid = {(c.row, c.col): c for c in summary.cells}
     rows: list[list[CellView | None]] = []
     for r in sorted(keep_rows):
@@ -327,7 +308,7 @@ def _hidden_words(summary: PassSummary) -> str:
     """The line under the maps when thin edge strips are left out of them."""
     if not summary.cells:
         return ""
-    _, _, widest = _drawn(summary)
+    _, _, widest = drawn_cells(summary)
     if widest <= 0:
         return ""
     digits = 2 if summary.unit == "in" else 1
