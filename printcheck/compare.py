@@ -26,7 +26,6 @@ Arrays are indexed (row, col); physical points are (x, y) mm in the layout frame
 from __future__ import annotations
 
 import dataclasses
-import html
 import io
 import math
 from dataclasses import dataclass
@@ -52,7 +51,7 @@ __all__ = [
     "KEPT_RGB",
     "CellChange",
     "Change",
-    "ChangeView",
+    "LaidChange",
     "ContactMap",
     "change_view",
     "compare_contacts",
@@ -585,27 +584,24 @@ def change_png(change: Change) -> bytes:
 
 
 @dataclass(frozen=True, eq=False)
-class ChangeView:
-    """What the report shows of the change since the pass before.
+class LaidChange:
+    """The print laid on the pass before, as the report shows it.
 
     Attributes
     ----------
     png : bytes
         The change image (:func:`draw_change`).
     change : Change
-        Its figures.
-    html : str
-        A small fragment: the image and its key in words.
+        Its figures (:func:`change_words` words them).
     """
 
     png: bytes
     change: Change
-    html: str
 
 
 def change_view(
     folder: str | Path | None, summary: PassSummary, previous: PassSummary | None
-) -> ChangeView | None:
+) -> LaidChange | None:
     """The change from ``previous`` to ``summary``, from the contact maps in ``folder``.
 
     None when there is no pass before, no output folder, or a map is missing, unreadable
@@ -623,8 +619,7 @@ def change_view(
         change = compare_contacts(before, after)
     except (ReportError, ValueError):
         return None
-    png = change_png(change)
-    return ChangeView(png, change, _view_html(change, png, summary, previous))
+    return LaidChange(change_png(change), change)
 
 
 def change_words(change: Change, summary: PassSummary, previous: PassSummary) -> tuple[str, str]:
@@ -651,14 +646,3 @@ def change_words(change: Change, summary: PassSummary, previous: PassSummary) ->
         "are laid one on the other through the markers."
     )
     return key, f"contacts of {summary.photo} laid on those of {previous.photo}"
-
-
-def _view_html(change: Change, png: bytes, summary: PassSummary, previous: PassSummary) -> str:
-    import base64
-
-    key, alt = change_words(change, summary, previous)
-    src = "data:image/png;base64," + base64.b64encode(png).decode("ascii")
-    return (
-        f'<img class="overlay change" src="{src}" alt="{html.escape(alt)}">'
-        f'<p class="key">{html.escape(key)}</p>'
-    )

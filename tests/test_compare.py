@@ -23,6 +23,7 @@ from printcheck.compare import (
     KEPT_RGB,
     ContactMap,
     change_view,
+    change_words,
     compare_contacts,
     contact_map,
     contacts_name,
@@ -68,13 +69,9 @@ def field():  # type: ignore[no-untyped-def]
     return surface_at_density(card_layout(), 10, seed=5, px_per_mm=14.0, film_um=1.5)
 
 
-def _with_added(field):  # type: ignore[no-untyped-def]
-    return with_added_contacts(field)
-
-
 @pytest.fixture(scope="module")
 def two_maps(field):  # type: ignore[no-untyped-def]
-    return _map_of(field), _map_of(_with_added(field))
+    return _map_of(field), _map_of(with_added_contacts(field))
 
 
 def _in_region(frame: Frame, shape: tuple[int, int]) -> np.ndarray:
@@ -140,7 +137,7 @@ def test_figures_match_scipy_and_skimage(two_maps) -> None:  # type: ignore[no-u
 
 def test_a_coarser_photo_of_the_same_print_compares_at_its_resolution(field, two_maps) -> None:  # type: ignore[no-untyped-def]
     before, after = two_maps
-    coarse_after = _map_of(_with_added(field), px_per_mm=7.0)
+    coarse_after = _map_of(with_added_contacts(field), px_per_mm=7.0)
     change = compare_contacts(before, coarse_after)
     assert change.frame.px_per_mm == 7.0
     fine = compare_contacts(before, after)
@@ -174,7 +171,7 @@ def test_photos_from_other_camera_poses_register_through_the_card(field) -> None
     contact_mm2 = unchanged.kept_mm2
     assert unchanged.appeared_mm2 < 0.01 * contact_mm2
     assert unchanged.disappeared_mm2 < 0.01 * contact_mm2
-    change = compare_contacts(before, photographed(_with_added(field), second, 2))
+    change = compare_contacts(before, photographed(with_added_contacts(field), second, 2))
     cx, cy = change.appeared_centroid_mm  # type: ignore[misc]
     assert np.hypot(cx - _ADDED_CENTRE[0], cy - _ADDED_CENTRE[1]) <= 3.0
     inside = _in_region(change.frame, change.appeared.shape)
@@ -278,7 +275,7 @@ def test_the_report_shows_the_change_from_the_kept_maps(tmp_path, two_maps) -> N
     (folder / contacts_name("b" * 64)).write_bytes(encode_contacts(after))
     view = change_view(tmp_path, s1, s0)
     assert view is not None and view.png.startswith(b"\x89PNG")
-    assert "cell B2" in view.html
+    assert "cell B2" in change_words(view.change, s1, s0)[0]
     page = render_report(surface="bed", spec=None, passes=[(s0, None), (s1, None)], folder=tmp_path)
     section = page[page.index('id="pass-2"') : page.index('id="pass-1"')]
     assert 'class="overlay change"' in section and "most appeared in cell B2" in section
