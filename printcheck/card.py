@@ -7,7 +7,8 @@ through matplotlib's Agg renderer, the dpi recorded in the file) and SVG (vector
 here, in mm units).  Every format is at exact physical size; the card's layout TOML is
 written beside it.
 
-The sheet holds the card (four markers, ``DICT_4X4_50`` ids 0 to 3, around a square
+The sheet holds the card (four markers, ``DICT_4X4_50``, the ids of its size
+(:data:`printcheck.layout.CARD_SIZES`; 0 to 3 for the 2 in card), around a square
 window outlined for cutting out) and below it a strip with a 100 mm scale bar: printed
 at 100 % the bar measures 100 mm, which is the one check no photo can make (a card
 printed uniformly too small fits its layout perfectly, only at the wrong size).

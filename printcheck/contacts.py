@@ -31,6 +31,7 @@ import cv2
 import numpy as np
 
 __all__ = [
+    "disc",
     "seeds_and_growth",
     "separate",
     "contact_labels",
@@ -52,7 +53,8 @@ def flat_where(mask: np.ndarray) -> np.ndarray:
     return np.asarray(pts[:, 1] * mask.shape[1] + pts[:, 0])
 
 
-def _disc(radius: int) -> np.ndarray:
+def disc(radius: int) -> np.ndarray:
+    """An elliptic (disc) structuring element of ``radius`` pixels, for OpenCV's morphology."""
     return cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * radius + 1, 2 * radius + 1))
 
 
@@ -185,9 +187,7 @@ def finish(
     if rim_share is not None:
         sc = (height if score is None else score).ravel()[idx]
         n = int(labels.max()) + 1
-        peak = np.full(n, -np.inf, np.float32)
-        np.maximum.at(peak, lab, sc)
-        peak[0] = np.inf
+        peak = _label_max(lab, sc, n)
         keep = sc > (rim_share * peak)[lab]
         if min_core_px > 0:
             core = np.bincount(lab[sc > (0.5 * peak)[lab]], minlength=n)
@@ -248,6 +248,15 @@ def _drop_crumbs(idx: np.ndarray, labels: np.ndarray, height: np.ndarray) -> np.
     return mask
 
 
+def _label_max(lab: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
+    """Each of ``n`` labels' highest value (float32) over pixels labelled ``lab`` with
+    ``values``; +inf for the background, label 0 (so nothing is ever above it)."""
+    peak = np.full(n, -np.inf, np.float32)
+    np.maximum.at(peak, lab, values)
+    peak[0] = np.inf
+    return peak
+
+
 def _watershed(
     region: np.ndarray, height: np.ndarray, px_per_mm: float, seeds: np.ndarray | None = None
 ) -> tuple[np.ndarray, int]:
@@ -260,7 +269,7 @@ def _watershed(
     from skimage.segmentation import watershed
 
     k = max(1, int(round(0.15 * px_per_mm)))
-    peaks = (height >= cv2.dilate(height, _disc(k))) & region
+    peaks = (height >= cv2.dilate(height, disc(k))) & region
     if seeds is not None:
         peaks &= seeds
     n, comp = cv2.connectedComponents(region.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
@@ -302,10 +311,7 @@ def merge_regions(
     # on the regions' pixels alone, by their flat indices
     idx = flat_where(regions > 0)
     lab = regions.ravel()[idx]
-    peak = np.full(n + 1, -np.inf, np.float32)
-    np.maximum.at(peak, lab, height.ravel()[idx])
-    peak[0] = np.inf
-    peak = peak.astype(np.float64)
+    peak = _label_max(lab, height.ravel()[idx], n + 1).astype(np.float64)
     area = np.bincount(lab, minlength=n + 1).astype(np.float64)
     keys, saddles = _saddles(regions, idx, n, height)
     parent = np.arange(n + 1)

@@ -110,16 +110,20 @@ def _evidence_table(compound: str) -> tuple[np.ndarray, np.ndarray]:
     """Every value :func:`compound_evidence` can take, sorted, and their codes' order.
 
     The evidence is a function of two 8-bit numbers (blue: B and R, code ``B * 256 + R``;
-    red: R and G + B, code ``R * 511 + G + B``), computed here as there (float32, OpenCV's
-    log), so a histogram of the codes gives its quantiles exactly.
+    red: R and G + B, code ``R * 511 + G + B``): :func:`compound_evidence` of one pixel
+    per code gives every value, so a histogram of the codes gives its quantiles exactly.
     """
-    log = cv2.log(np.arange(256, dtype=np.float32) + np.float32(_EPS)).ravel()
-    if compound == "blue":
-        values = log[:, None] - log[None, :]
-    else:
-        pair = np.float32(0.5) * (np.arange(511, dtype=np.float32) + np.float32(2 * _EPS))
-        values = log[:, None] - cv2.log(pair).ravel()[None, :]
-    flat = values.ravel()
+    first = np.arange(256, dtype=np.uint8)[:, None]
+    pixels = np.zeros((256, 511 if compound == "red" else 256, 3), np.uint8)
+    if compound == "blue":  # B, R
+        pixels[..., 0] = first
+        pixels[..., 2] = np.arange(256, dtype=np.uint8)[None, :]
+    else:  # R, and G + B split as G = min(sum, 255), B = the rest
+        total = np.arange(511)[None, :]
+        pixels[..., 2] = first
+        pixels[..., 1] = np.minimum(total, 255)
+        pixels[..., 0] = total - np.minimum(total, 255)
+    flat = compound_evidence(pixels, compound).ravel()
     order = np.argsort(flat, kind="stable")
     return flat[order], order
 

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from printcheck.contacts import flat_where
+from printcheck.contacts import disc, flat_where
 from printcheck.evidence import (
     EVIDENCE_FLOOR,
     LevelMaps,
@@ -91,10 +91,7 @@ def contact_field(
     noise0 = max(float(np.median((q[1] - q[0])[ok])) / 1.645, EVIDENCE_FLOOR)
     smoothed = cv2.GaussianBlur(evidence, (0, 0), max(spot_mm * s, 0.35))
     marked, film = _marks(evidence, smoothed, first, noise0, valid, stat, s, local_mm)
-    r = max(1, int(round(0.3 * s)))
-    near = cv2.dilate(
-        marked.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
-    )
+    near = cv2.dilate(marked.view(np.uint8), disc(max(1, int(round(0.3 * s)))))
     block = max(4, int(round(background_mm * s)))
     bare = stat & ~near.view(bool)
     maps = level_maps(evidence, smoothed, bare & ~film, block=block)
@@ -152,36 +149,34 @@ def _marks(
     that a contact there stands out from the film around it, as it does on a real print.
     """
     marked = (evidence - first) > 5.0 * noise0
-    rel = smoothed - first
-    strong = rel >= 10.0 * noise0
-    level = _compound_level(rel, valid, stat, strong, s, local_mm)
-    firm = (rel >= _FILM_SHARE * level) & marked
-    r = max(1, int(round(0.3 * s)))
-    near = cv2.dilate(
-        firm.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * r + 1, 2 * r + 1))
-    ).view(bool)
-    film = marked & ~near
-    wide, lab = _wider(film, _FILM_MM2 * s * s)
-    wide[0] = False
+    area, lab = _pieces(marked)
     region = np.zeros(marked.shape, bool)
-    if wide.any():
-        from scipy import ndimage
+    if (area[1:] > _FILM_MM2 * s * s).any():  # a film is a piece of a mark at least this wide
+        rel = smoothed - first
+        strong = rel >= 10.0 * noise0
+        level = _compound_level(rel, valid, stat, strong, s, local_mm)
+        firm = (rel >= _FILM_SHARE * level) & marked
+        near = cv2.dilate(firm.view(np.uint8), disc(max(1, int(round(0.3 * s))))).view(bool)
+        film = marked & ~near
+        film_area, film_lab = _pieces(film)
+        wide = film_area > _FILM_MM2 * s * s
+        if wide.any():
+            from scipy import ndimage
 
-        region = np.asarray(ndimage.binary_fill_holes(wide[lab]), bool)
-        marked = marked & ~wide[lab]
-    broad, lab = _wider(marked, _BROAD_MM2 * s * s)
-    broad[0] = False
+            region = np.asarray(ndimage.binary_fill_holes(wide[film_lab]), bool)
+            marked = marked & ~wide[film_lab]
+            area, lab = _pieces(marked)
+    broad = area > _BROAD_MM2 * s * s
     if broad.any():
         marked &= ~broad[lab]
     return marked, region
 
 
-def _wider(mask: np.ndarray, px: float) -> tuple[np.ndarray, np.ndarray]:
-    """Which 8-connected pieces of ``mask`` have more than ``px`` pixels (by label, the
-    background's False), and the labels."""
+def _pieces(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The 8-connected pieces of ``mask``: each label's pixels of ``mask`` (so none for
+    the background, label 0) and the labels."""
     n, lab = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
-    area = np.bincount(lab.ravel()[flat_where(mask)], minlength=n)
-    return area > px, lab
+    return np.bincount(lab.ravel()[flat_where(mask)], minlength=n), lab
 
 
 def _compound_level(

@@ -31,7 +31,6 @@ from printcheck.spots import Spots
 
 __all__ = [
     "ACTIONS",
-    "KINDS",
     "MAX_BARE",
     "MAX_PLACES",
     "MAX_WHEN_MET",
@@ -46,7 +45,6 @@ __all__ = [
 ]
 
 #: The kinds of place the advice names, in the words the outputs use.
-KINDS = ("heavy bearing", "oversized spot", "bare patch")
 #: What to do at each kind of place.
 ACTIONS = {
     "heavy bearing": "break up",

@@ -181,10 +181,7 @@ def locate(
     """
     photo = _as_bgr(image)
     warnings: list[str] = []
-    blurs: dict[int, list[float]] = {}
-    h, used, residual = _fit_markers(photo, layout, config, warnings, blurs)
-    seen = [b for marker_id in used for b in blurs.get(marker_id, ())]
-    blur = float(np.median(seen)) if seen else None
+    h, used, residual, blur = _fit_markers(photo, layout, config, warnings)
     win = layout.window
     photo_ppm, _ = local_px_per_mm(
         np.linalg.inv(h), win.x_mm + win.width_mm / 2, win.y_mm + win.height_mm / 2
@@ -219,19 +216,16 @@ def locate(
 
 
 def _candidates(
-    photo: np.ndarray,
-    layout: Layout,
-    warnings: list[str],
-    blurs: dict[int, list[float]] | None = None,
-) -> list[Candidate]:
-    """The layout's markers found in the photo, as (id, photo corners, layout corners);
-    ``blurs`` collects each marker's edge blur (:attr:`Detection.blur_px`) by id."""
+    photo: np.ndarray, layout: Layout, warnings: list[str]
+) -> tuple[list[Candidate], dict[int, list[float]]]:
+    """The layout's markers found in the photo, as (id, photo corners, layout corners),
+    and each one's edge blur (:attr:`Detection.blur_px`) by id."""
     detections = detect_markers(photo, dictionary=layout.dictionary)
     by_id = {m.id: m for m in layout.markers}
-    if blurs is not None:
-        for d in detections:
-            if d.id in by_id and d.blur_px is not None:
-                blurs.setdefault(d.id, []).append(d.blur_px)
+    blurs: dict[int, list[float]] = {}
+    for d in detections:
+        if d.id in by_id and d.blur_px is not None:
+            blurs.setdefault(d.id, []).append(d.blur_px)
     cands = [
         (d.id, d.corners_px, np.asarray(by_id[d.id].corners_mm, dtype=np.float64))
         for d in detections
@@ -262,7 +256,7 @@ def _candidates(
         areas = [abs(cv2.contourArea(c[1].astype(np.float32))) for c in cands]
         cands = [cands[int(np.argmax(areas))]]
         warnings.append(f"marker {cands[0][0]} is in view {len(areas)} times; the largest was used")
-    return cands
+    return cands, blurs
 
 
 def _say_which_card(photo: np.ndarray, layout: Layout, detections: tuple[Detection, ...]) -> None:
@@ -300,16 +294,12 @@ def _say_which_card(photo: np.ndarray, layout: Layout, detections: tuple[Detecti
 
 
 def _fit_markers(
-    photo: np.ndarray,
-    layout: Layout,
-    config: LocateConfig,
-    warnings: list[str],
-    blurs: dict[int, list[float]] | None = None,
-) -> tuple[np.ndarray, tuple[int, ...], float]:
-    """Homography (photo px -> layout mm), the marker ids it uses, and its RMS residual."""
-    h, kept, dropped = robust_fit(
-        _candidates(photo, layout, warnings, blurs), 0.5 * config.max_residual_mm
-    )
+    photo: np.ndarray, layout: Layout, config: LocateConfig, warnings: list[str]
+) -> tuple[np.ndarray, tuple[int, ...], float, float | None]:
+    """Homography (photo px -> layout mm), the marker ids it uses, its RMS residual, and
+    the median edge blur of those markers (None where none could be read)."""
+    cands, blurs = _candidates(photo, layout, warnings)
+    h, kept, dropped = robust_fit(cands, 0.5 * config.max_residual_mm)
     kept_ids = {c[0] for c in kept}
     for marker_id, miss in dropped:
         if marker_id in kept_ids:
@@ -347,7 +337,8 @@ def _fit_markers(
             f"calibration residual {residual:.2f} mm is high; check that the card lies flat"
         )
     _note_missing(layout, used, warnings)
-    return h, used, residual
+    seen = [b for marker_id in used for b in blurs.get(marker_id, ())]
+    return h, used, residual, float(np.median(seen)) if seen else None
 
 
 def _note_missing(layout: Layout, used: tuple[int, ...], warnings: list[str]) -> None:

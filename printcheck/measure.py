@@ -247,7 +247,8 @@ def measure(
     bearing = 100.0 * int(cell_contact_px.sum()) / analysed_px if analysed_px else 0.0
     cell_count = np.bincount(grid.cell_of(spots), minlength=grid.rows * grid.cols)
     cells = cells_of(frame, grid, c_mm, cell_area_px, cell_contact_px, cell_count, px_area)
-    largest, bare_radius = largest_bare(in_an & ~contact, frame)
+    bare = in_an & ~contact
+    largest, bare_radius = largest_bare(bare, frame)
     alts = tuple(_count_and_bearing(a, frame, in_an, config) for a in alternates)
     resolves = resolving_px_per_mm(photo_px_per_mm, photo_blur_px)
     confidence = _confidence(
@@ -259,8 +260,8 @@ def measure(
         resolves,
         config,
         crowded=_crowded(labels, spots, s, resolves, config),
-        unseen_share=_unseen_share(unseen, in_an & ~contact, analysed_px),
-        blur_px=photo_blur_px if resolves != photo_px_per_mm else None,
+        unseen_share=_unseen_share(unseen, bare, analysed_px),
+        blur_px=photo_blur_px if _blurred(photo_blur_px) else None,
     )
     return Measurement(
         spots=spots,
@@ -435,9 +436,14 @@ def resolving_px_per_mm(photo_px_per_mm: float | None, blur_px: float | None) ->
     """
     if photo_px_per_mm is None:
         return None
-    if blur_px is None or blur_px <= SHARP_BLUR_PX:
+    if blur_px is None or not _blurred(blur_px):
         return photo_px_per_mm
     return photo_px_per_mm * SHARP_BLUR_PX / blur_px
+
+
+def _blurred(blur_px: float | None) -> bool:
+    """Whether a photo's edge spread is past a sharp photo's."""
+    return blur_px is not None and blur_px > SHARP_BLUR_PX
 
 
 def _crowded(
@@ -493,6 +499,8 @@ def _confidence(
     lo = min(min(counts) - marginal[0], count - spread)
     hi = max(max(counts) + marginal[1], count + spread)
     reasons = []
+    how = "move closer" if blur_px is None else "hold the phone still and let it focus"
+    blurred = None if blur_px is None else f"blurred (the card's edges spread {blur_px:.1f} px)"
     d_in = spots.diameter_mm[spots.in_window]
     if photo_px_per_mm is not None and d_in.size >= 5:
         small = float(np.percentile(d_in, 25))
@@ -501,26 +509,26 @@ def _confidence(
             # contacts the photo cannot part come out merged: how many there really are
             # cannot be read from it, and the range says so (up to twice the count)
             hi = max(hi, 2 * count)
-            reasons.append(
-                f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this photo has "
-                f"{photo_px_per_mm:.0f}: move closer"
-                if blur_px is None
-                else f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this "
-                f"photo is blurred (the card's edges spread {blur_px:.1f} px) and resolves "
-                f"like {photo_px_per_mm:.0f}: hold the phone still and let it focus"
+            has = (
+                f"has {photo_px_per_mm:.0f}"
+                if blurred is None
+                else f"is {blurred} and resolves like {photo_px_per_mm:.0f}"
             )
+            reasons.append(
+                f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this photo "
+                f"{has}: {how}"
+            )
+            blurred = None  # said once
     if crowded > config.crowded_share * count and photo_px_per_mm is not None:
         # a print as fine as the photo's pixels: each contact closer to a neighbour than
         # the photo can part may hide another merged into it
         hi = max(hi, count + crowded)
         gap_mm = config.part_px / photo_px_per_mm
-        how = "move closer" if blur_px is None else "hold the phone still and let it focus"
-        if blur_px is not None and not any("blurred" in r for r in reasons):
-            how = f"the photo is blurred (the card's edges spread {blur_px:.1f} px): {how}"
+        why = "" if blurred is None else f"the photo is {blurred}: "
         reasons.append(
             f"{crowded} of {count} contacts lie within {gap_mm:.2f} mm of a neighbour, "
             f"closer than this photo can part ({config.part_px:g} px at "
-            f"{photo_px_per_mm:.0f} px/mm): {how}"
+            f"{photo_px_per_mm:.0f} px/mm): {why}{how}"
         )
     if unseen_share > 0:
         # what the burnt-out share of the window would hold at the density seen elsewhere
