@@ -67,11 +67,12 @@ _WAITING, _DONE = 0, -1  # ... and a worker's pid while that worker measures it
 
 @dataclass(frozen=True)
 class Measured:
-    """A photo a worker measured: its summary and a JPEG preview of its overlay."""
+    """A photo a worker measured: its summary and a JPEG preview of its overlay (None
+    where none was asked for)."""
 
     path: Path
     summary: PassSummary
-    preview: bytes
+    preview: bytes | None
 
 
 @dataclass(frozen=True)
@@ -159,8 +160,10 @@ def list_photos(folder: Path) -> tuple[list[BatchItem], list[Skipped]]:
     return items, skipped
 
 
-def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -> Outcome:
-    """Inspect one photo and write its JSON and overlay."""
+def _work(
+    path: Path, options: InspectOptions, out: Path, single_thread: bool, preview: bool = True
+) -> Outcome:
+    """Inspect one photo and write its JSON and overlay (and make a report's preview)."""
     if single_thread:  # one worker per core: the cores are busy
         import cv2
 
@@ -182,16 +185,18 @@ def _work(path: Path, options: InspectOptions, out: Path, single_thread: bool) -
         overlay = draw_overlay(result)
         write_json(out, output_name(result.photo, ".json"), summary_to_dict(summary))
         write_bytes(out, output_name(result.photo, OVERLAY_SUFFIX), encode_image(overlay, ".png"))
-        preview = encode_image(_shrink(overlay, 1400), ".jpg", jpeg_quality=85)
+        shown = encode_image(_shrink(overlay, 1400), ".jpg", jpeg_quality=85) if preview else None
         _keep_contacts(result, out)
     except PrintcheckError as exc:
         return Skipped(path, str(exc))
     except Exception as exc:  # a bug or out of memory on one photo must not stop the batch
         return Skipped(path, f"photo {path}: internal error: {type(exc).__name__}: {exc}")
-    return Measured(path, summary, preview)
+    return Measured(path, summary, shown)
 
 
-def measure_photo(path: Path, options: InspectOptions, out: Path) -> Outcome:
+def measure_photo(
+    path: Path, options: InspectOptions, out: Path, *, preview: bool = True
+) -> Outcome:
     """Measure one photo for the history, exactly as a batch's worker does.
 
     Inspects the photo, writes its result JSON and full-size overlay into ``out`` and
@@ -208,6 +213,9 @@ def measure_photo(path: Path, options: InspectOptions, out: Path) -> Outcome:
         The job's settings, its surface set.
     out : Path
         The output folder (it must exist).
+    preview : bool
+        Make the report's JPEG preview (the web app, which serves the overlay itself,
+        asks for none).
 
     Returns
     -------
@@ -216,7 +224,7 @@ def measure_photo(path: Path, options: InspectOptions, out: Path) -> Outcome:
         error on it), the one-line reason, which names the photo.  Never raises for the
         photo's own faults.
     """
-    return _work(path, options, out, True)
+    return _work(path, options, out, True, preview)
 
 
 def photo_pool(workers: int) -> ProcessPoolExecutor:

@@ -74,12 +74,15 @@ class SurfaceView:
     passes: list[Any]
     progress: Any
     words: str
-    latest: Any
+    latest: Any  # the latest pass as the progress has it (ProgressRow): all its stations
     progress_spec: Any = None
+    per: str = ""  # the density's unit in words
 
 
 def _surface_view(history: Any, name: str) -> SurfaceView | None:
     from printcheck.progress import history_progress, projection_words, surface_spec
+    from printcheck.units import to_mm
+    from printcheck.wording import density_words
 
     stored = history.passes(name)
     if not stored:
@@ -88,7 +91,10 @@ def _surface_view(history: Any, name: str) -> SurfaceView | None:
     spec = surface_spec(stored)
     progress = history_progress(name, stored, spec=spec)
     words = projection_words(progress)
-    return SurfaceView(name, stored, progress, words[:1].upper() + words[1:], stored[-1], spec)
+    unit = progress.unit or "in"
+    per = density_words(to_mm(progress.cell or 1.0, unit), unit)
+    latest = progress.passes[-1]
+    return SurfaceView(name, stored, progress, words[:1].upper() + words[1:], latest, spec, per)
 
 
 def _read(db: Path, work: Any) -> Any:
@@ -149,6 +155,9 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
         png = await run_in_threadpool(trend_png, view.progress)
         return Response(png, media_type="image/png", headers={"Cache-Control": "no-store"})
 
+    def _stored(history: Any, name: str, sha: str) -> Any:
+        return next((p for p in history.passes(name) if p.summary.sha256 == sha), None)
+
     def _find(history: Any, name: str, sha: str) -> tuple[SurfaceView, Any] | None:
         view = _surface_view(history, name)
         if view is None:
@@ -184,11 +193,12 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
         sha = request.query_params.get("sha", "")
         if not _SHA.match(sha):
             return Response(status_code=404)
-        found = await run_in_threadpool(_read, config.db, lambda h: _find(h, name, sha))
-        if found is None:
+        # the photo's name from its row alone (no progress is worked out for an image)
+        stored = await run_in_threadpool(_read, config.db, lambda h: _stored(h, name, sha))
+        if stored is None:
             return Response(status_code=404)
         # the name printcheck gave the overlay, in the output folder, nowhere else
-        path = config.out / output_name(found[1].summary.photo, OVERLAY_SUFFIX)
+        path = config.out / output_name(stored.summary.photo, OVERLAY_SUFFIX)
         try:
             data = await run_in_threadpool(path.read_bytes)
         except OSError:

@@ -147,7 +147,7 @@ class Measurer:
             if pool is None:
                 raise RuntimeError("the measurer is not started")
             try:
-                future = pool.submit(measure_photo, job.path, options, self.out)
+                future = pool.submit(measure_photo, job.path, options, self.out, preview=False)
             except BrokenProcessPool:  # a worker was killed: a fresh pool, then again
                 self._restart(pool)
                 continue
