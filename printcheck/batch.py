@@ -20,7 +20,7 @@ from __future__ import annotations
 import contextlib
 import os
 import signal
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from concurrent.futures import Future, ProcessPoolExecutor
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -30,7 +30,7 @@ from typing import Any
 from printcheck.errors import Interrupted, OptionError, PrintcheckError, ReportError
 from printcheck.options import InspectOptions
 from printcheck.pipeline import cores_available
-from printcheck.records import PassSummary, Progress
+from printcheck.records import PassSummary, Progress, StoredPass
 from printcheck.spec import Spec
 
 __all__ = [
@@ -356,7 +356,7 @@ def run_batch(
         tally = _Tally(total=count + len(not_photos), skipped=list(not_photos))
         if show_progress is None:
             show_progress = _stderr_is_terminal()
-        progress, shown = _measure_and_record(
+        progress, shown, stored = _measure_and_record(
             planned,
             options,
             out,
@@ -393,10 +393,28 @@ def run_batch(
 
         echo(progress_text(progress))
         echo(_summary_words(tally, out))
+        for line in _latest_advice(stored):
+            echo(line)
     if killed:
         return EXIT_INCOMPLETE
     latest = progress.passes[-1].meets if progress.passes else None
     return EXIT_FAILS if latest is False else EXIT_MEETS
+
+
+def _latest_advice(stored: list[StoredPass]) -> list[str]:
+    """Where to scrape next on each station of the surface's latest pass, as lines."""
+    from printcheck.summary import advice_lines
+
+    if not stored:
+        return []
+    number = stored[-1].number
+    out = []
+    for photo in (p for p in stored if p.number == number):
+        lines = advice_lines(photo.summary, indent="")
+        if lines:
+            where = f"pass {number}" + (f", station {photo.station}" if photo.station else "")
+            out.append(f"{where}, " + "\n".join(lines))
+    return out
 
 
 def _list_job(
@@ -517,10 +535,11 @@ def _measure_and_record(
     same_surface: bool,
     remeasure: bool,
     note: str | None,
-) -> tuple[Progress, list[tuple[PassSummary, bytes | None]]]:
+) -> tuple[Progress, list[tuple[PassSummary, bytes | None]], list[StoredPass]]:
     """Measure what is new or changed, record each pass as it comes (into ``tally``, in
-    the batch's order); the surface's progress over its whole history and the batch's
-    photos for the report (their current figures, and the overlay where there is one)."""
+    the batch's order); the surface's progress over its whole history, the batch's
+    photos for the report (their current figures, and the overlay where there is one),
+    and the surface's recorded photos."""
     import json
 
     from printcheck.compare import place_contacts
@@ -532,17 +551,19 @@ def _measure_and_record(
     from printcheck.stations import settings_changes, settings_key
 
     settings = settings_key(options)
-    hashes = {p.path: _sha256(p.path) for p in planned}
     # the history first: a file that is not a history is refused before any work is done
     # or any folder made
     with open_history(db) as history:
-        _check_folder(history, surface, folder, set(hashes.values()), same_surface=same_surface)
+        hashes = {p.path: _sha256(p.path) for p in planned}
+        known = history.known(surface)
+        _check_folder(
+            history, surface, folder, set(hashes.values()), known, same_surface=same_surface
+        )
         try:
             out.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise ReportError(f"output folder {out}: cannot be created ({exc.strerror})") from None
         announce_groups()
-        known = history.known(surface)
         to_measure: list[Any] = []
         reasons: dict[Path, str] = {}
         for p in planned:
@@ -659,7 +680,7 @@ def _measure_and_record(
         elif hashes[p.path] in by_sha:
             summary = by_sha[hashes[p.path]]
             shown.append((summary, stored_preview(out, summary.photo)))
-    return progress, shown
+    return progress, shown, stored
 
 
 def _iso(plan: Any) -> str:
@@ -678,7 +699,13 @@ def _sha256(path: Path) -> str | None:
 
 
 def _check_folder(
-    history: Any, surface: str, folder: Path, shas: set[str | None], *, same_surface: bool
+    history: Any,
+    surface: str,
+    folder: Path,
+    shas: set[str | None],
+    known: Mapping[str, Any],
+    *,
+    same_surface: bool,
 ) -> None:
     """Refuse to add to a surface whose passes came from another folder (unless asked);
     note this folder as the surface's when it has none.
@@ -690,7 +717,7 @@ def _check_folder(
     if history.schema_version() < 3:
         return
     there = history.surface_folder(surface)
-    ours = any(sha in history.known(surface) for sha in shas if sha is not None)
+    ours = any(sha in known for sha in shas if sha is not None)
     if there is not None and there != here and not same_surface and not ours:
         count = len({p.number for p in history.passes(surface)})
         if count:

@@ -407,8 +407,6 @@ def batch(
         remeasure=remeasure,
         note=note,
     )
-    if not ctx.params["json_out"]:
-        _echo_latest_advice(_db_path(history), options.surface)
     raise typer.Exit(outcome)
 
 
@@ -423,25 +421,6 @@ def _on_machine(options: InspectOptions, machine: str) -> InspectOptions:
     if "/" in surface:
         return options
     return replace(options, surface=f"{name}/{surface}")
-
-
-def _echo_latest_advice(db: Path, surface: str | None) -> None:
-    """Where to scrape next on the surface's latest pass (nothing when there is none)."""
-    from printcheck.history import open_history
-    from printcheck.summary import advice_lines
-
-    if surface is None or not db.is_file():
-        return
-    with open_history(db, readonly=True) as history:
-        stored = history.passes(surface)
-    if not stored:
-        return
-    number = stored[-1].number
-    for photo in (p for p in stored if p.number == number):
-        lines = advice_lines(photo.summary, indent="")
-        if lines:
-            where = f"pass {number}" + (f", station {photo.station}" if photo.station else "")
-            typer.echo(f"{where}, " + "\n".join(lines))
 
 
 def _with_surface(options: InspectOptions, folder: Path) -> InspectOptions:
