@@ -96,6 +96,7 @@ DbOpt = Annotated[
 JobsOpt = Annotated[
     int | None, typer.Option("--jobs", help="Photos processed at once (default: all cores).")
 ]
+SurfaceArg = Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)]
 
 # The options inspect and batch share, defined once, in the order --help lists them:
 # (parameter, type with its option, default).
@@ -441,7 +442,7 @@ def _db_path(db: Path | None) -> Path:
 
 @app.command()
 def progress(
-    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    surface: SurfaceArg,
     json_out: JsonOpt = False,
     db: DbOpt = None,
 ) -> None:
@@ -544,7 +545,7 @@ def surface_remove(
 
 @pass_app.command("remove")
 def pass_remove(
-    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    surface: SurfaceArg,
     number: Annotated[
         int | None, typer.Option("--pass", help="Pass number (as progress shows it).")
     ] = None,
@@ -570,7 +571,7 @@ def pass_remove(
 
 @pass_app.command("restore")
 def pass_restore(
-    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    surface: SurfaceArg,
     photo: Annotated[
         str | None, typer.Option("--photo", help="One removed photo (default: every one).")
     ] = None,
@@ -586,7 +587,7 @@ def pass_restore(
 
 @pass_app.command("note")
 def pass_note(
-    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    surface: SurfaceArg,
     number: Annotated[int, typer.Argument(help="Pass number.", show_default=False)],
     text: Annotated[
         str,
@@ -606,7 +607,7 @@ def pass_note(
 
 @app.command()
 def report(
-    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    surface: SurfaceArg,
     out: Annotated[
         Path, typer.Option("--out", help="Folder for report.html (overlays found there are shown).")
     ] = Path("printcheck-out"),
@@ -621,7 +622,7 @@ def report(
 
 @app.command()
 def sheet(
-    surface: Annotated[str, typer.Argument(help="Name of the surface.", show_default=False)],
+    surface: SurfaceArg,
     db: DbOpt = None,
     out: Annotated[
         Path,

@@ -85,21 +85,6 @@ def _pair(value: float, target: float, ok: bool, digits: int = 1) -> tuple[str, 
     return v, t
 
 
-def _runs(cols: list[int]) -> str:
-    """Sorted 1-based columns as ``"3-4, 7"``."""
-    parts: list[str] = []
-    start = prev = cols[0]
-    ends: list[int | None] = [*cols[1:], None]
-    for c in ends:
-        if c is not None and c == prev + 1:
-            prev = c
-            continue
-        parts.append(f"{start}" if start == prev else f"{start}-{prev}")
-        if c is not None:
-            start = prev = c
-    return ", ".join(parts)
-
-
 def describe_cells(cells: list[tuple[int, int]], *, limit: int = 6) -> str:
     """Name cells by their labels: ``[(0, 2), (0, 3), (1, 0)]`` -> ``"C1-D1; A2"``.
 
@@ -327,7 +312,7 @@ def certainty(source: str) -> str | None:
     low = source.lower()
     if "from memory" in low:
         return "from memory"
-    if low.startswith("common practice") or low.startswith("min: common practice"):
+    if low.startswith("common practice"):
         return "common practice"
     if "printcheck's own rule" in low:
         return "printcheck's rule"

@@ -217,10 +217,6 @@ def photo_header(data: bytes, name: str | Path) -> PhotoHeader:
 
 def is_truncated(data: bytes) -> bool:
     """True when a JPEG or PNG file's bytes lack their end marker (a cut-short copy)."""
-    return _truncated(data)
-
-
-def _truncated(data: bytes) -> bool:
     if data[:3] == b"\xff\xd8\xff":  # JPEG ends with the EOI marker (ITU T.81 B.2.1)
         return b"\xff\xd9" not in data[-65536:]
     if data[:8] == b"\x89PNG\r\n\x1a\n":  # PNG ends with an IEND chunk (ISO/IEC 15948 11.2.5)
@@ -372,7 +368,7 @@ def load_photo(path: str | Path, *, max_pixels: int = MAX_PIXELS) -> Photo:
         )
     if width < 16 or height < 16:
         raise PhotoError(f"photo {path}: {width} x {height} pixels is too small to measure")
-    if _truncated(data):
+    if is_truncated(data):
         raise PhotoError(f"photo {path}: file is truncated (incomplete copy or download?)")
     with _quiet():
         taken = _exif_taken(im)
