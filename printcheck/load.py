@@ -22,6 +22,7 @@ from printcheck.errors import PhotoError
 
 __all__ = [
     "MAX_PIXELS",
+    "check_pixels",
     "PHOTO_SUFFIXES",
     "Photo",
     "PhotoHeader",
@@ -343,6 +344,19 @@ def _pillow_to_bgr8(im) -> np.ndarray:  # type: ignore[no-untyped-def]
     return _to_bgr8(np.asarray(im))
 
 
+def check_pixels(width: int, height: int, *, label: str, max_pixels: int = MAX_PIXELS) -> None:
+    """Refuse, in one line naming ``label``, a photo of more than ``max_pixels`` (a
+    decompression bomb, checked from the header before any pixel is decoded) or of
+    fewer than 16 pixels a side."""
+    if width * height > max_pixels:
+        raise PhotoError(
+            f"{label}: {width} x {height} pixels is more than the "
+            f"{max_pixels // 1_000_000} MP printcheck accepts; refused"
+        )
+    if width < 16 or height < 16:
+        raise PhotoError(f"{label}: {width} x {height} pixels is too small to measure")
+
+
 def load_photo(path: str | Path, *, max_pixels: int = MAX_PIXELS) -> Photo:
     """Read and decode the photo at ``path``.
 
@@ -360,14 +374,7 @@ def load_photo(path: str | Path, *, max_pixels: int = MAX_PIXELS) -> Photo:
     if not data:
         raise PhotoError(f"photo {path}: file is empty")
     im = _open_header(path, data)
-    width, height = im.size
-    if width * height > max_pixels:
-        raise PhotoError(
-            f"photo {path}: {width} x {height} pixels is more than the "
-            f"{max_pixels // 1_000_000} MP printcheck accepts; refused"
-        )
-    if width < 16 or height < 16:
-        raise PhotoError(f"photo {path}: {width} x {height} pixels is too small to measure")
+    check_pixels(*im.size, label=f"photo {path}", max_pixels=max_pixels)
     if is_truncated(data):
         raise PhotoError(f"photo {path}: file is truncated (incomplete copy or download?)")
     with _quiet():

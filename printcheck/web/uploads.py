@@ -68,13 +68,7 @@ def check_photo_bytes(data: bytes, *, label: str = "upload") -> CheckedPhoto:
             f"{label}: a {fmt or 'unknown'} image; send a JPEG, PNG, TIFF or HEIC photo"
         )
     width, height = header.width, header.height
-    if width * height > load.MAX_PIXELS:
-        raise PhotoError(
-            f"{label}: {width} x {height} pixels is more than the "
-            f"{load.MAX_PIXELS // 1_000_000} MP printcheck accepts; refused"
-        )
-    if width < 16 or height < 16:
-        raise PhotoError(f"{label}: {width} x {height} pixels is too small to measure")
+    load.check_pixels(width, height, label=label)
     if load.is_truncated(data):
         raise PhotoError(f"{label}: the file is truncated (the upload was cut short?)")
     return CheckedPhoto(hashlib.sha256(data).hexdigest(), suffix, width, height)
