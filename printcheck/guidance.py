@@ -296,7 +296,7 @@ def advise(
     highs = sorted(
         (
             (h.kind if h.kind in ACTIONS else "heavy bearing", h.x_mm, h.y_mm, h.size_mm)
-            for h in (HighArea(*p) for p in g.high)
+            for h in g.high
         ),
         key=lambda p: -p[3],
     )

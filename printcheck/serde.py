@@ -19,7 +19,7 @@ import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import datetime
-from typing import TYPE_CHECKING, Any, NamedTuple
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -46,7 +46,6 @@ __all__ = [
     "RESULT_FORMAT",
     "PROGRESS_FORMAT",
     "CellBox",
-    "Circle",
     "OverlayMarks",
     "summarize",
     "result_to_dict",
@@ -145,8 +144,13 @@ def summarize(result: Result) -> PassSummary:
             noise=_rf(result.segmentation.noise, 5),
         ),
         high=tuple(
-            HighArea(_rf(from_mm(x, u), 4), _rf(from_mm(y, u), 4), _rf(from_mm(s, u), 4), why)
-            for x, y, s, why, *_kind in m.guidance.high
+            HighArea(
+                _rf(from_mm(h.x_mm, u), 4),
+                _rf(from_mm(h.y_mm, u), 4),
+                _rf(from_mm(h.size_mm, u), 4),
+                h.reason,
+            )
+            for h in m.guidance.high
         ),
         bare=tuple(
             BareArea(
@@ -451,14 +455,6 @@ class CellBox:
     bearing_percent: float
 
 
-class Circle(NamedTuple):
-    """A round area the overlay marks: centre and diameter in mm (layout frame)."""
-
-    x_mm: float
-    y_mm: float
-    diameter_mm: float
-
-
 @dataclass(frozen=True, eq=False)
 class OverlayMarks:
     """What the overlay draws over the rectified photo.
@@ -472,22 +468,19 @@ class OverlayMarks:
     cells : tuple of CellBox
     cell_mm : float
         Side of the counting cell, mm.
-    high : tuple of Circle
-        High areas to break up (the circle spans the area's size).
-    bare : tuple of Circle
-        Bare patches over the spec's limit.
+
+    The places to scrape are :func:`printcheck.guidance.advise`'s, drawn from the
+    summary.
     """
 
     labels: np.ndarray
     counted: np.ndarray
     cells: tuple[CellBox, ...]
     cell_mm: float
-    high: tuple[Circle, ...]
-    bare: tuple[Circle, ...]
 
 
 def overlay_marks(result: Result) -> OverlayMarks:
-    """The spots, cells and guidance of ``result`` for the overlay, in mm."""
+    """The spots and cells of ``result`` for the overlay, in mm."""
     m = result.measurement
     return OverlayMarks(
         labels=np.asarray(m.labels),
@@ -505,6 +498,4 @@ def overlay_marks(result: Result) -> OverlayMarks:
             for c in m.cells
         ),
         cell_mm=float(m.cell_mm),
-        high=tuple(Circle(x, y, size) for x, y, size, *_why in m.guidance.high),
-        bare=tuple(Circle(b.x_mm, b.y_mm, b.diameter_mm) for b in m.guidance.bare),
     )

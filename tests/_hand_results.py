@@ -15,6 +15,7 @@ import numpy as np
 from skimage.measure import regionprops
 
 from printcheck.frame import Frame
+from printcheck.guidance import HighArea
 from printcheck.judge import Check, Verdict
 from printcheck.layout import Window
 from printcheck.locate import Calibration, Rectified
@@ -133,7 +134,7 @@ def make_result(
         cols=ncell,
         cell_mm=cell_mm,
         confidence=Confidence(max(total - 1, 0), total + 1, 1.0, 3.0, False, ""),
-        guidance=Guidance(high=high, bare=bare),
+        guidance=Guidance(high=tuple(HighArea(*h) for h in high), bare=bare),
         size_stats={"median_area_mm2": float(np.median(area)) if k_spots else 0.0},
     )
     seg = Segmentation(
