@@ -16,7 +16,17 @@ import numpy as np
 from printcheck.frame import Frame
 from printcheck.spots import Spots
 
-__all__ = ["EDGE_STRIP", "Cell", "Grid", "cell_sums", "cells_of", "edge_strip", "in_window"]
+__all__ = [
+    "EDGE_STRIP",
+    "Cell",
+    "Grid",
+    "cell_count",
+    "cell_index",
+    "cell_sums",
+    "cells_of",
+    "edge_strip",
+    "in_window",
+]
 
 #: A last row or column narrower than this share of a cell is an edge strip: a cell of the
 #: grid (docs/formats.md), never complete, that the maps and the terminal leave out.
@@ -46,12 +56,24 @@ def _axis_cells(
     """Per-pixel cell index along one axis (-1 outside the window), and cell count."""
     centres = origin + (np.arange(n_px) + 0.5) / s
     t = (centres - start) / cell
-    n_cells = max(1, int(math.ceil(length / cell - 1e-9)))
+    n_cells = cell_count(length, cell)
     idx = np.floor(t + 1e-9).astype(np.int64)
     inside = (centres >= start - 1e-9 / s) & (centres < start + length - 1e-9 / s)
     idx[~inside] = -1
     idx[idx >= n_cells] = n_cells - 1
     return idx, n_cells
+
+
+def cell_count(length: float, cell: float) -> int:
+    """How many cells of side ``cell`` a window ``length`` long holds along one axis (the
+    last one shorter where the window is not a whole number of cells)."""
+    return max(1, int(math.ceil(length / cell - 1e-9)))
+
+
+def cell_index(offset: float, length: float, cell: float) -> int:
+    """The cell along one axis that holds a point ``offset`` from the window's start
+    (clamped to the window's cells)."""
+    return min(max(int(math.floor(offset / cell + 1e-9)), 0), cell_count(length, cell) - 1)
 
 
 def edge_strip(length: float, cell: float) -> float | None:
@@ -68,7 +90,7 @@ def edge_strip(length: float, cell: float) -> float | None:
     >>> round(edge_strip(50.8, 25.0), 3), edge_strip(50.8, 25.4), edge_strip(60.0, 25.0)
     (0.8, None, None)
     """
-    n = max(1, int(math.ceil(length / cell - 1e-9)))
+    n = cell_count(length, cell)
     rest = length - (n - 1) * cell
     return rest if n > 1 and rest < EDGE_STRIP * cell - 1e-9 else None
 

@@ -25,6 +25,7 @@ from typing import NamedTuple
 import cv2
 import numpy as np
 
+from printcheck.cells import cell_index
 from printcheck.frame import Frame
 from printcheck.layout import Window
 from printcheck.spots import Spots
@@ -318,12 +319,8 @@ def advise(
     w = window
     for rank, (kind, x, y, size) in enumerate(kept, start=1):
         dx, dy = x - w.x_mm, y - w.y_mm
-        col = min(
-            max(int(math.floor(dx / cell_mm)), 0), max(math.ceil(w.width_mm / cell_mm) - 1, 0)
-        )
-        row = min(
-            max(int(math.floor(dy / cell_mm)), 0), max(math.ceil(w.height_mm / cell_mm) - 1, 0)
-        )
+        col = cell_index(dx, w.width_mm, cell_mm)
+        row = cell_index(dy, w.height_mm, cell_mm)
         near_x = ("left", dx) if dx <= w.width_mm - dx else ("right", w.width_mm - dx)
         near_y = ("top", dy) if dy <= w.height_mm - dy else ("bottom", w.height_mm - dy)
 
