@@ -655,7 +655,9 @@ def _measure_and_record(
                                     )
                             bar.advance(items[index].path.name)
         except KeyboardInterrupt:
-            tally.in_history = _photos_in_history(history, surface, planned)
+            tally.in_history = _photos_in_history(
+                history, surface, [hashes[p.path] for p in planned]
+            )
             raise
         finally:
             warming.wait()
@@ -786,13 +788,14 @@ class _Warming:
             raise interrupt
 
 
-def _photos_in_history(history: Any, surface: str, items: Sequence[Any]) -> int | None:
-    """How many photos of the batch (by name) have a pass of ``surface`` in the history."""
+def _photos_in_history(history: Any, surface: str, shas: Sequence[str | None]) -> int | None:
+    """How many photos of the batch (by their hashes: names repeat across the subfolders
+    of a job) have a pass of ``surface`` in the history."""
     try:
-        names = {p.summary.photo for p in history.passes(surface)}
+        recorded = {p.summary.sha256 for p in history.passes(surface)}
     except (PrintcheckError, KeyboardInterrupt):
         return None
-    return sum(item.path.name in names for item in items)
+    return sum(sha is not None and sha in recorded for sha in shas)
 
 
 def _write_outputs(
