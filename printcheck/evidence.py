@@ -31,7 +31,9 @@ from printcheck.errors import OptionError
 __all__ = [
     "EVIDENCE_FLOOR",
     "LevelMaps",
+    "CLIPPED",
     "compound_evidence",
+    "rebuilt_highlights",
     "choose_compound",
     "level_maps",
     "block_quantiles",
@@ -67,6 +69,55 @@ def compound_evidence(image: np.ndarray, compound: str) -> np.ndarray:
     if compound == "blue":
         return cv2.log(img[..., 0]) - cv2.log(img[..., 2])
     return cv2.log(img[..., 2]) - cv2.log(np.float32(0.5) * (img[..., 0] + img[..., 1]))
+
+
+#: An 8-bit channel at or above this is taken as at its ceiling (clipped).
+CLIPPED = 250
+
+
+def rebuilt_highlights(
+    evidence: np.ndarray, image: np.ndarray, compound: str, where: np.ndarray
+) -> np.ndarray:
+    """``evidence`` (:func:`compound_evidence` of ``image``), read again where a channel
+    it divides by is at its ceiling; ``where``: the pixels to learn the metal's colour on.
+
+    A channel at its ceiling only says that the light was at least that bright.  Under a
+    warm light the red of the brightest metal burns out first; read as blue over red,
+    such a highlight looks bluer than the metal is, and a highlight that brightens
+    towards its middle looks like a broad contact.  Where the divisor is clipped and the
+    channel next to it is not, the divisor is rebuilt from that channel by the ratio the
+    two have over the photo's unclipped pixels (the metal's colour under this light,
+    what raw converters do to reconstruct highlights), but never below what was
+    recorded.  Compound lowers the divisor against its neighbour, so over a pale spot
+    in a highlight the rebuilt divisor is too high and the spot reads paler than it is,
+    never the reverse.  Pixels with two channels clipped are glare (unseen) and left.
+    """
+    b, g, r = cv2.split(image)
+    if compound == "blue":
+        pairs = [(2, 1)]  # red, rebuilt from green
+    else:
+        pairs = [(1, 0), (0, 1)]  # green from blue, blue from green
+    chans = [b, g, r]
+    clipped = [c >= CLIPPED for c in chans]
+    rebuilt = [c.astype(np.float32) + np.float32(_EPS) for c in chans]
+    changed = False
+    for lost, kept in pairs:
+        lone = clipped[lost] & ~clipped[kept]
+        if not lone.any():
+            continue
+        sel = where & ~clipped[lost] & ~clipped[kept]
+        if np.count_nonzero(sel) < 64:
+            continue
+        ratio = np.float32(np.median(rebuilt[lost][sel] / rebuilt[kept][sel]))
+        rebuilt[lost] = np.where(
+            lone, np.maximum(rebuilt[lost], ratio * rebuilt[kept]), rebuilt[lost]
+        )
+        changed = True
+    if not changed:
+        return evidence
+    if compound == "blue":
+        return cv2.log(rebuilt[0]) - cv2.log(rebuilt[2])
+    return cv2.log(rebuilt[2]) - cv2.log(np.float32(0.5) * (rebuilt[0] + rebuilt[1]))
 
 
 def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> tuple[str, float]:

@@ -107,7 +107,7 @@ def _measure_rectified(
         alternates=seg.alternates,
         photo_px_per_mm=rect.calibration.photo_px_per_mm,
         photo_blur_px=rect.calibration.photo_blur_px,
-        unseen=seg.glare,
+        unseen=seg.unseen,
     )
     if meas.spot_count == 0:
         raise NoCompoundError(_no_compound(options, seg.compound))

@@ -41,9 +41,11 @@ from printcheck.contacts import (
 )
 from printcheck.errors import OptionError, PhotoError
 from printcheck.evidence import (
+    CLIPPED,
     EVIDENCE_FLOOR,
     choose_compound,
     compound_evidence,
+    rebuilt_highlights,
 )
 from printcheck.field import Field, contact_field
 
@@ -175,6 +177,11 @@ class Segmentation:
     warnings : tuple of str
     glare : (M, N) bool ndarray or None
         The burnt-out pixels (no colour: what they hide cannot be seen).
+    washed : (M, N) bool ndarray or None
+        Pixels, not burnt out, whose compound's own channel is at its ceiling (blue of
+        blue compound, red of red): the colour read there is only a lower bound, so a
+        pale contact there may be missed.  Outside the contacts, the measure stage
+        counts them, with the glare, as surface it could not see (its range).
     """
 
     mask: np.ndarray
@@ -188,6 +195,14 @@ class Segmentation:
     glare_fraction: float
     warnings: tuple[str, ...] = ()
     glare: np.ndarray | None = None
+    washed: np.ndarray | None = None
+
+    @property
+    def unseen(self) -> np.ndarray | None:
+        """Where contact could not be seen, or only partly: the glare and the washed."""
+        if self.glare is None or self.washed is None:
+            return self.glare
+        return self.glare | self.washed
 
 
 def segment(
@@ -227,7 +242,19 @@ def segment(
             "there cannot be seen: shade the light or move it and retake the photo"
         )
     evidence = compound_evidence(image, compound)
-    if config.compound_on == "work":
+    washed = None
+    if config.compound_on == "reference":
+        evidence = rebuilt_highlights(evidence, image, compound, stat)
+        own = image[..., 0 if compound == "blue" else 2] >= CLIPPED
+        washed = own & visible & ~glare
+        washed_fraction = float(np.count_nonzero(washed & analysed)) / max(int(analysed.sum()), 1)
+        if washed_fraction > 0.05:
+            warnings.append(
+                f"the {compound} of the compound is at its brightest over "
+                f"{100 * washed_fraction:.0f}% of the window, where pale spots may be "
+                "missed (the range allows for them): lower the exposure or the light"
+            )
+    else:
         evidence = -evidence
     evidence = cv2.GaussianBlur(evidence, (0, 0), 0.4)  # pixel noise; an edge moves < 0.4 px
 
@@ -246,6 +273,7 @@ def segment(
             glare_fraction=glare_fraction,
             warnings=tuple(warnings),
             glare=glare,
+            washed=washed,
         )
 
     if np.count_nonzero(stat) < 64:
@@ -336,8 +364,8 @@ def _decisions(calls: list[tuple[Any, ...]]) -> list[np.ndarray]:
 
 
 def _burnt_out(image: np.ndarray) -> np.ndarray:
-    """Pixels with at least two of their three channels at 250 or more (burnt out)."""
-    b, g, r = (c >= 250 for c in cv2.split(image))
+    """Pixels with at least two of their three channels at their ceiling (burnt out)."""
+    b, g, r = (c >= CLIPPED for c in cv2.split(image))
     return np.asarray((b & (g | r)) | (g & r), dtype=bool)
 
 

@@ -8,6 +8,7 @@ Each condition is one that a photo from a shop shows and a method can be fooled 
 - pieces of spots cut by a card's window edge, with a layout that states a margin;
 - a thin smear of compound wiped over areas wider than any local level is read over;
 - broad bright facets of scraped metal (not glare);
+- light so bright that the compound's own channel burns out over much of the window;
 - compound on the work, seen through a card, with a ring of compound pushed up round
   each contact;
 - red compound with the default (automatic) colour;
@@ -68,7 +69,7 @@ def _measure(scene: Scene, seed: int, **segment_options):  # type: ignore[no-unt
         alternates=seg.alternates,
         photo_px_per_mm=rect.calibration.photo_px_per_mm,
         photo_blur_px=rect.calibration.photo_blur_px,
-        unseen=seg.glare,
+        unseen=seg.unseen,
     )
     return shot.truth, meas, seg
 
@@ -113,6 +114,23 @@ def test_broad_bright_facets_are_metal_not_glare() -> None:
     truth, meas, seg = _measure(scene, seed=33)
     _within(truth, meas)
     assert seg.glare_fraction < 0.05
+
+
+def test_light_so_bright_that_the_compound_channel_burns_out_widens_the_range() -> None:
+    # a lamp close to the part: the light rises across the window until the red channel
+    # of red compound reaches its ceiling over much of it (green and blue do not): the
+    # colour read there is only a lower bound, so the photo says so, and the range
+    # allows for pale spots missed there
+    scene = _scene(
+        20, dict(gradient=1.4, exposure=1.6, white_balance=(0.9, 1.0, 1.1)), compound="red"
+    )
+    truth, meas, seg = _measure(scene, seed=52)
+    assert seg.washed is not None and seg.washed.mean() > 0.1  # the condition is there
+    assert any("at its brightest" in w for w in seg.warnings)
+    _within(truth, meas)
+    c = meas.confidence
+    assert c is not None and c.count_low <= truth.spot_count <= c.count_high, (c, truth)
+    assert c.bearing_low <= truth.bearing_percent <= c.bearing_high, (c, truth)
 
 
 @pytest.mark.xfail(

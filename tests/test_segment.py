@@ -386,3 +386,30 @@ def test_evidence_quantiles_are_numpys(compound: str) -> None:
     got = _evidence_quantiles(cv2.split(image), where, compound, qs)
     want = np.quantile(compound_evidence(image, compound)[where], list(qs))
     assert got == [float(v) for v in want]
+
+
+def test_a_clipped_divisor_is_rebuilt_from_its_neighbour_channel() -> None:
+    # grey metal under a warm light (channel gains B, G, R = 0.8, 1.0, 1.2), brightening
+    # across the image until red passes its ceiling while green does not: the colour
+    # ratio of the metal is the same everywhere (it is one colour under one light), so
+    # the evidence read where red is clipped must be the one read without a ceiling
+    # (computed here from the unclipped values, by numpy), not bluer
+    from printcheck.evidence import rebuilt_highlights
+
+    level = np.linspace(120.0, 245.0, 200)[None, :].repeat(40, axis=0)
+    gains = np.array([0.8, 1.0, 1.2])
+    true = level[..., None] * gains  # what the sensor saw, BGR, past 255 in red
+    image = np.clip(np.rint(true), 0, 255).astype(np.uint8)
+    red_clipped = image[..., 2] == 255
+    assert red_clipped.mean() > 0.2 and not (image[..., 1] >= 250).any()
+    everywhere = np.ones(level.shape, bool)
+    raw = compound_evidence(image, "blue")
+    fixed = rebuilt_highlights(raw, image, "blue", everywhere)
+    want = np.log(np.rint(true[..., 0]) + 4) - np.log(np.rint(true[..., 2]) + 4)
+    assert (raw - want)[red_clipped].max() > 0.05  # read as is, the highlight looks blue
+    np.testing.assert_allclose(fixed, want, atol=0.01)
+    # a speck of blue compound in the highlight still reads bluer than the metal there
+    spot = image.copy()
+    spot[20, 180] = (240, 200, 255)
+    got = rebuilt_highlights(compound_evidence(spot, "blue"), spot, "blue", everywhere)
+    assert got[20, 180] > want[20, 180] + 0.1
