@@ -104,10 +104,26 @@ class BatchItem:
     path: Path
     taken: datetime | None
     file_time: datetime
+    name: str = ""  # the photo's name in the job (default: its file name)
+
+    @property
+    def photo(self) -> str:
+        """The photo's name in its results and the history (see :func:`photo_name`)."""
+        return self.name or self.path.name
 
     @property
     def sort_key(self) -> tuple[datetime, datetime, str]:
         return (self.taken or self.file_time, self.file_time, self.path.name)
+
+
+def photo_name(path: Path, folder: Path) -> str:
+    """A batch photo's name in its results and the history: its path from the batch's
+    folder (``pass2/IMG_0042.jpg`` for a photo in a pass's subfolder, where names repeat
+    from pass to pass), or its file name when it is not under ``folder``."""
+    try:
+        return path.relative_to(folder).as_posix()
+    except ValueError:
+        return path.name
 
 
 def list_photos(folder: Path) -> tuple[list[BatchItem], list[Skipped]]:
@@ -161,9 +177,15 @@ def list_photos(folder: Path) -> tuple[list[BatchItem], list[Skipped]]:
 
 
 def _work(
-    path: Path, options: InspectOptions, out: Path, single_thread: bool, preview: bool = True
+    path: Path,
+    options: InspectOptions,
+    out: Path,
+    single_thread: bool,
+    preview: bool = True,
+    name: str | None = None,
 ) -> Outcome:
-    """Inspect one photo and write its JSON and overlay (and make a report's preview)."""
+    """Inspect one photo and write its JSON and overlay (and make a report's preview);
+    ``name``: the photo's name in its results (default: its file name)."""
     if single_thread:  # one worker per core: the cores are busy
         import cv2
 
@@ -180,7 +202,7 @@ def _work(
     from printcheck.serde import summarize, summary_to_dict
 
     try:
-        result = inspect_photo(path, options=options)
+        result = inspect_photo(path, options=options, name=name)
         summary = summarize(result)
         overlay = draw_overlay(result)
         write_json(out, output_name(result.photo, ".json"), summary_to_dict(summary))
@@ -601,7 +623,9 @@ def _measure_and_record(
             )
         elif tally.unchanged:
             say(f"{tally.unchanged} photos unchanged since recorded; not measured again")
-        items = [BatchItem(p.path, p.taken, p.file_time) for p in to_measure]
+        items = [
+            BatchItem(p.path, p.taken, p.file_time, photo_name(p.path, folder)) for p in to_measure
+        ]
         workers = max(1, min(jobs or cores_available(), max(1, len(items))))
         warming = _Warming()
         outcomes: dict[int, Outcome] = {}
@@ -885,12 +909,12 @@ def _alive(pid: int) -> bool:
     return True
 
 
-def _work_in_pool(index: int, path: Path, options: InspectOptions, out: Path) -> Outcome:
+def _work_in_pool(index: int, path: Path, options: InspectOptions, out: Path, name: str) -> Outcome:
     """:func:`_work` in a worker process, its photo marked as being measured by this one."""
     slots = _InWorker.slots
     slots[index] = os.getpid()
     try:
-        return _work(path, options, out, True)
+        return _work(path, options, out, True, name=name)
     finally:
         slots[index] = _DONE
 
@@ -944,7 +968,12 @@ class _Runner:
         )
         self._futures = {
             self._pool.submit(
-                _work_in_pool, index, self._items[index].path, self._options, self._out
+                _work_in_pool,
+                index,
+                self._items[index].path,
+                self._options,
+                self._out,
+                self._items[index].photo,
             ): index
             for index in indices
         }
@@ -959,7 +988,7 @@ class _Runner:
     def __iter__(self) -> Iterator[tuple[int, Outcome]]:
         if self._pool is None:
             for index, item in enumerate(self._items):
-                yield index, _work(item.path, self._options, self._out, False)
+                yield index, _work(item.path, self._options, self._out, False, name=item.photo)
             return
         from concurrent.futures import as_completed
         from concurrent.futures.process import BrokenProcessPool

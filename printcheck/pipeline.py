@@ -144,12 +144,14 @@ def _no_compound(options: InspectOptions, chosen: str) -> str:
     )
 
 
-def inspect_photo(path: str | Path, *, options: InspectOptions) -> Result:
-    """Load the photo at ``path`` and inspect it (see :func:`inspect_image`)."""
+def inspect_photo(path: str | Path, *, options: InspectOptions, name: str | None = None) -> Result:
+    """Load the photo at ``path`` and inspect it (see :func:`inspect_image`); ``name``:
+    the photo's name in the result (default: its file name)."""
     from printcheck.load import load_photo
 
     photo = load_photo(path)
-    name, where, sha256 = photo.name, photo.path, photo.sha256
+    where, sha256 = photo.path, photo.sha256
+    name = name or photo.name
     taken = photo.taken if photo.taken is not None else photo.file_time
     try:
         rect = _rectify(photo.image, options)

@@ -13,6 +13,7 @@ memory); EXIF DateTimeOriginal (tag 36867, EXIF 2.3).
 
 from __future__ import annotations
 
+import csv
 import json
 import math
 import os
@@ -143,7 +144,8 @@ def test_three_passes_of_three_stations(
         assert list(got) == list(STATIONS)  # photographed in this order (EXIF times)
         for name in STATIONS:
             true = truth[name][k]
-            assert got[name]["photo"] == f"station-{name}.jpg"
+            # a photo in a pass's subfolder is named by its path from the job's folder
+            assert got[name]["photo"] == f"pass{k + 1}/station-{name}.jpg"
             assert got[name]["density"] == pytest.approx(true.density, rel=COUNT_TOLERANCE, abs=1.0)
         # every station must meet; the pass's figure is its worst station's
         assert row["meets"] == all(s["meets"] for s in row["stations"])
@@ -154,6 +156,20 @@ def test_three_passes_of_three_stations(
         truth[n][2].density * (1 - COUNT_TOLERANCE) for n in ("headstock", "middle")
     )
     assert last["worst_station"] == "tailstock" and last["meets"] is False
+    # the file names repeat from pass to pass: each photo keeps its own result files and
+    # its own line of results.csv (one JSON of the three used to overwrite the others)
+    names = [f"pass{k}_station-{n}" for k in (1, 2, 3) for n in STATIONS]
+    assert sorted(p.name for p in out.glob("*.json")) == sorted(f"{n}.json" for n in names)
+    assert sorted(p.name for p in out.glob("*.overlay.png")) == sorted(
+        f"{n}.overlay.png" for n in names
+    )
+    for k in (1, 2, 3):
+        saved = json.loads((out / f"pass{k}_station-tailstock.json").read_text("utf-8"))
+        assert saved["photo"] == f"pass{k}/station-tailstock.jpg"
+        assert saved["spot_count"] == row_station(data["passes"][k - 1], "tailstock")["spot_count"]
+    with (out / "results.csv").open(encoding="utf-8", newline="") as f:
+        photos = [row["photo"] for row in csv.DictReader(f)]
+    assert sorted(photos) == sorted(f"{n.replace('_', '/', 1)}.jpg" for n in names)
     # progress per station: each station's own trend, against scipy's line fit
     target = data["targets"]["density"]
     per_station = {s["station"]: s for s in data["stations"]}
