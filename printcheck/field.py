@@ -50,6 +50,7 @@ class Field:
     visible: np.ndarray
     glare: np.ndarray  # burnt out
     noise: float  # median spot-scale noise
+    edge: np.ndarray | None = None  # visible, within EDGE_MM of where the surface is hidden
 
 
 def contact_field(

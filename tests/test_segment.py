@@ -413,3 +413,40 @@ def test_a_clipped_divisor_is_rebuilt_from_its_neighbour_channel() -> None:
     spot[20, 180] = (240, 200, 255)
     got = rebuilt_highlights(compound_evidence(spot, "blue"), spot, "blue", everywhere)
     assert got[20, 180] > want[20, 180] + 0.1
+
+
+def test_a_pale_piece_at_the_card_edge_is_a_contact_where_a_pale_blob_inside_is_not() -> None:
+    # A card's cut-out hides the middle of a spot it cuts: what shows is often only the
+    # spot's pale rim, its colour diluted further by the blurred white paper next to it.
+    # Dark contacts set the compound's level high; half-discs as pale as a thin rim touch
+    # the card's edge on the left, and whole discs just as pale lie inside, well away
+    # from any contact.  The pieces are contacts (docs/formats.md: a spot the card cuts
+    # is its visible piece); the pale discs inside are a smear of compound, not contact.
+    h, w = SHAPE
+    edge = 60  # the card's edge: paper left of it
+    dark = np.zeros(SHAPE, bool)
+    yy, xx = np.mgrid[:h, :w]
+    for cy, cx in [(80, 200), (200, 320), (330, 180), (380, 360), (120, 380)]:
+        dark |= np.hypot(yy - cy, xx - cx) < 1.6 * S
+    pieces = np.zeros(SHAPE, bool)
+    for cy in (60, 150, 240, 330):  # half-discs 1.8 mm across, centred on the edge
+        pieces |= (np.hypot(yy - cy, xx - edge) < 0.9 * S) & (xx >= edge)
+    inside = np.zeros(SHAPE, bool)
+    for cy, cx in [(60, 140), (240, 250), (400, 250)]:  # whole discs 1.8 mm across
+        inside |= np.hypot(yy - cy, xx - cx) < 0.9 * S
+    rng = np.random.default_rng(5)
+    bare = 0.55 * (1 + 0.03 * ndimage.gaussian_filter(rng.standard_normal(SHAPE), 0.05 * S))
+    refl = bare[..., None] * np.array([0.97, 1.0, 1.03])
+    for where, opacity in ((dark, 0.9), (pieces, 0.2), (inside, 0.2)):
+        refl = np.where(where[..., None], refl * (1 - opacity) + BLUE * opacity * 0.9, refl)
+    refl[:, :edge] = 0.85  # white paper
+    img = np.clip(refl, 0, 1) ** (1 / 2.2) * 255
+    img = cv2.GaussianBlur(img, (0, 0), 0.12 * S)  # the lens blurs paper into the edge
+    img = np.clip(img + rng.normal(0, 1.5, img.shape), 0, 255).astype(np.uint8)
+    visible = xx >= edge
+    seg = segment(img, visible=visible, config=SegmentConfig(px_per_mm=S, compound="blue"))
+    labels, n = ndimage.label(seg.mask, structure=np.ones((3, 3)))
+    found_pieces = {int(v) for v in np.unique(labels[pieces]) if v}
+    assert len(found_pieces) == 4, found_pieces  # every piece, each apart
+    assert not (seg.mask & inside).any()  # the pale discs inside are not contact
+    assert _count(seg.mask) == 5 + 4
