@@ -205,7 +205,7 @@ def finish(
     kept[idx] = lab
     kept = kept.reshape(labels.shape)
     idx = idx[~_carved(kept, idx, height)]
-    return _drop_crumbs(idx, kept, height)
+    return _drop_crumbs(idx, kept, height, seeds=seeds, lobe_px=_LOBE_SPOTS * min_core_px)
 
 
 def _mass_px(lab: np.ndarray, score: np.ndarray, level: np.ndarray, n: int) -> np.ndarray:
@@ -218,10 +218,26 @@ def _mass_px(lab: np.ndarray, score: np.ndarray, level: np.ndarray, n: int) -> n
     return np.asarray(mass / np.maximum(at, 1e-6))
 
 
-def _drop_crumbs(idx: np.ndarray, labels: np.ndarray, height: np.ndarray) -> np.ndarray:
+#: A piece the rim cut parts from the rest of its contact is a lobe, not a crumb of its
+#: halo, when it holds a seed and at least this many smallest spots' area ...
+_LOBE_SPOTS = 10.0
+#: ... and this share of the contact's area.
+_LOBE_SHARE = 0.25
+
+
+def _drop_crumbs(
+    idx: np.ndarray,
+    labels: np.ndarray,
+    height: np.ndarray,
+    *,
+    seeds: np.ndarray | None = None,
+    lobe_px: float = 0.0,
+) -> np.ndarray:
     """The mask of the contact pixels ``idx`` (flat) of ``labels``: cutting a contact's
-    rim may leave crumbs of its halo apart from it: only the piece holding the contact's
-    highest point is the contact."""
+    rim may leave crumbs of its halo apart from it: the piece holding the contact's
+    highest point is the contact.  A large piece with a seed (``lobe_px`` pixels and
+    :data:`_LOBE_SHARE` of the contact) is a lobe whose neck thins below the rim's
+    share: it is contact too (the rim says where contact ends), not a crumb to drop."""
     mask = np.zeros(labels.shape, bool)
     mask.ravel()[idx] = True
     n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
@@ -244,6 +260,12 @@ def _drop_crumbs(idx: np.ndarray, labels: np.ndarray, height: np.ndarray) -> np.
     keep = np.ones(n, bool)
     keep[np.unique(piece[sel])] = False
     keep[pieces.ravel()[flat[order][last]]] = True
+    if seeds is not None and lobe_px > 0:
+        seeded = np.zeros(n, bool)
+        seeded[piece[seeds.ravel()[idx]]] = True
+        size = np.bincount(piece, minlength=n)
+        whole = np.bincount(lab, minlength=int(labels.max()) + 1)[owner]
+        keep |= seeded & (size >= np.maximum(lobe_px, _LOBE_SHARE * whole))
     mask.ravel()[idx[~keep[piece]]] = False
     return mask
 
@@ -299,12 +321,14 @@ def merge_regions(
     min_dip: float,
     px_per_mm: float,
     large_lobes_deeper: bool = True,
+    min_low: float = -math.inf,
 ) -> np.ndarray:
     """Join neighbouring watershed regions unless the valley between them is deep.
 
     Regions are merged in order of their highest shared boundary point (the saddle), as
     water rising from the peaks would join them; two stay apart when the saddle is below
-    ``split_share`` of the lower peak and at least ``min_dip`` below it.
+    ``split_share`` of the lower peak and at least ``min_dip`` below it (and, with
+    ``min_low``, the lower peak reaches that).
     """
     if n <= 1:
         return regions
@@ -339,7 +363,7 @@ def merge_regions(
         if large_lobes_deeper:
             across = math.sqrt(min(area[a], area[b]) / small_px)
             share *= min(max(2.0 - across, 0.4), 1.0)
-        if saddle < share * low and low - saddle >= min_dip:
+        if saddle < share * low and low - saddle >= min_dip and low >= min_low:
             continue
         parent[b] = a
         top[a] = max(top[a], top[b])

@@ -10,7 +10,7 @@ from the coat to bare metal (with compound on the work).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import cv2
 import numpy as np
@@ -25,7 +25,7 @@ from printcheck.evidence import (
     upsample,
 )
 
-__all__ = ["Field", "contact_field"]
+__all__ = ["Field", "contact_field", "with_relief"]
 
 _BROAD_MM2 = 64.0  # no contact island is larger (an 8 mm square)
 # A faint film: a mark under this share of the compound's level nearby ...
@@ -51,6 +51,8 @@ class Field:
     glare: np.ndarray  # burnt out
     noise: float  # median spot-scale noise
     edge: np.ndarray | None = None  # visible, within EDGE_MM of where the surface is hidden
+    relief: np.ndarray | None = None  # how much darker than the bare metal (see relief())
+    relief_noise: float = 0.0  # its spread over the bare metal
 
 
 def contact_field(
@@ -224,3 +226,57 @@ def _coat_depth(
     clear = stat & (smooth >= 0.5 * top)
     metal = float(np.median(evidence[clear])) if clear.any() else float(np.max(evidence[stat]))
     return np.maximum(metal - coat, 0.05).astype(np.float32)
+
+
+#: The compound must darken the metal by this many of the brightness's noise levels (in
+#: the middles of the strong contacts) for the brightness to cut contacts apart.
+_RELIEF_CONTRAST = 5.0
+
+
+def with_relief(
+    field: Field,
+    image: np.ndarray,
+    stat: np.ndarray,
+    *,
+    px_per_mm: float,
+    spot_mm: float,
+    background_mm: float,
+) -> Field:
+    """``field`` with its :attr:`Field.relief`: how much darker than the bare metal
+    round it each pixel is (log brightness), where the compound darkens the metal.
+
+    A phone stores brightness at full resolution but colour at a quarter of it (JPEG's
+    4:2:0 sampling) and then smooths the colour to hide its noise: two contacts 0.2 mm
+    apart are one blur in the colour evidence while the bright metal between them still
+    shows in the brightness.  The colour says where compound is; inside what it finds,
+    the brightness says where one contact ends and the next begins.  Compound darkens
+    the metal (it absorbs most of the light it does not reflect in its own colour); a
+    photo in which the strong contacts are not clearly darker than the metal round them
+    (bright compound, or glare over it) keeps the colour evidence for that
+    (``relief`` None).
+
+    The bare level is the median log brightness of the bare pixels block by block
+    (``background_mm``), as for the evidence; the noise is the spread of the bare
+    pixels' brightness above it (scrape facets, sensor noise), its 95th percentile less
+    the median over 1.645.
+    """
+    s = px_per_mm
+    bright = cv2.cvtColor(image, cv2.COLOR_BGR2GRAY).astype(np.float32)
+    log_b = cv2.GaussianBlur(
+        cv2.log(bright + np.float32(4.0)), (0, 0), max(0.5 * spot_mm * s, 0.35)
+    )
+    bare = stat & (field.z < 2.0)
+    block = max(4, int(round(background_mm * s)))
+    q, count = block_quantiles(log_b, bare, block, (0.5, 0.95))
+    ok = count >= 0.25 * block * block
+    if not ok.any():
+        return field
+    level = upsample(fill_and_smooth(q[0], ok.astype(np.float32), 1.5), block, log_b.shape)
+    relief = (level - log_b).astype(np.float32)
+    noise = max(float(np.median((q[1] - q[0])[ok])) / 1.645, 1e-4)
+    # the middles of the strongly coloured marks (their colour, blurred wider than their
+    # darkness, reaches past their edges)
+    strong = (field.zs >= 10.0) & field.valid
+    if np.count_nonzero(strong) < 20 or np.quantile(relief[strong], 0.9) < _RELIEF_CONTRAST * noise:
+        return field
+    return replace(field, relief=relief, relief_noise=noise)

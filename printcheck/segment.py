@@ -48,7 +48,7 @@ from printcheck.evidence import (
     compound_evidence,
     rebuilt_highlights,
 )
-from printcheck.field import Field, contact_field
+from printcheck.field import Field, contact_field, with_relief
 
 __all__ = ["SegmentConfig", "Segmentation", "segment", "compound_evidence"]
 
@@ -307,7 +307,14 @@ def segment(
         compound_on=config.compound_on,
     )
     if config.compound_on == "reference":
-        field = with_edge(field, s)
+        field = with_relief(
+            with_edge(field, s),
+            image,
+            stat,
+            px_per_mm=s,
+            spot_mm=config.spot_mm,
+            background_mm=config.background_mm,
+        )
     level = float(np.median(field.local[stat]))
     if level / field.noise < _NO_COMPOUND_CONTRAST:
         # the strongest marks are no stronger than the metal's own colour noise: there is
@@ -325,7 +332,7 @@ def segment(
     if config.compound_on == "reference":
         # the loosest decision's seeds and growth, and its watershed, serve all three
         loose = _seeds_and_growth(field, more)
-        cut = watershed_regions(loose[1], field.smooth, px_per_mm=s, seeds=loose[0])
+        cut = watershed_regions(loose[1], _cut_height(field), px_per_mm=s, seeds=loose[0])
     # the rim share decides the bearing: its step sets how wide the bearing's range is
     rim_step = 1.0 + 0.4 * config.nudge
     mask, *alternates = _decisions(
@@ -435,10 +442,12 @@ def _decide(
         labels = merge_regions(
             np.where(grown_px, regions, 0),
             n,
-            field.smooth,
+            _cut_height(field),
             split_share=config.split_share,
-            min_dip=3.0 * field.noise,
+            min_dip=3.0 * (field.noise if field.relief is None else field.relief_noise),
             px_per_mm=s,
+            # by the brightness, each lobe must itself be dark, not a fringe of colour
+            min_low=-math.inf if field.relief is None else 5.0 * field.relief_noise,
         )
         mask = finish(
             labels,
@@ -482,6 +491,13 @@ def with_edge(field: Field, px_per_mm: float) -> Field:
     r = max(1, int(round(EDGE_MM * px_per_mm)))
     inner = cv2.erode(field.visible.view(np.uint8), disc(r), borderType=cv2.BORDER_REPLICATE)
     return replace(field, edge=field.visible & ~inner.view(bool))
+
+
+def _cut_height(field: Field) -> np.ndarray:
+    """What contacts are cut apart on: the brightness's relief where the compound
+    darkens the metal (it keeps the detail the colour lost), else the colour evidence
+    smoothed at spot scale."""
+    return field.smooth if field.relief is None else field.relief
 
 
 def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, np.ndarray]:

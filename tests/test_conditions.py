@@ -251,17 +251,17 @@ def test_a_photo_too_far_away_for_its_contacts_is_flagged(fine_field) -> None:  
 
 
 def test_contacts_closer_than_the_photo_can_part_widen_the_range(fine_field) -> None:  # type: ignore[no-untyped-def]
-    # the fine print from a little too far (9 px/mm): its 0.2-0.35 mm gaps are 2-3 photo
-    # pixels, under the 3 that colour at half resolution needs; neighbours merge and the
-    # count falls short, so the range must reach up to the truth and the photo be doubtful
+    # the fine print from too far (6 px/mm): its 0.2-0.35 mm gaps are 1-2 photo pixels,
+    # under the 2 that even the brightness needs; neighbours merge and the count falls
+    # short, so the range must reach up to the truth and the photo be doubtful
     truth, meas, _ = _square_on(
-        fine_field, 9.0, 39, blur_sigma_px=1.0, jpeg_quality=80, **PALE_THIN
+        fine_field, 6.0, 39, blur_sigma_px=1.0, jpeg_quality=80, **PALE_THIN
     )
     c = meas.confidence
     n = truth.spot_count
     assert meas.spot_count < 0.95 * n  # the merges this test is about do happen
     assert c is not None and c.doubtful
-    assert "closer than this photo can part (3 px at 9 px/mm): move closer" in c.reason
+    assert "closer than this photo can part (2 px at 6 px/mm): move closer" in c.reason
     assert c.count_low <= n <= c.count_high, (c, n)
 
 
