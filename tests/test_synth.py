@@ -400,3 +400,22 @@ def test_write_job_writes_dated_photos_and_layout(job, tmp_path):
     assert [p.density for p in photos] == pytest.approx(list(job.densities))
     total = sum((tmp_path / n).stat().st_size for n in names)
     assert total < 3_000_000
+
+
+def test_colour_smoothing_blurs_the_chroma_and_keeps_the_brightness():
+    # a phone's colour noise reduction: the chroma of YCrCb (cv2's conversion, ITU-R
+    # BT.601) is smoothed, the luma is not; rendered without JPEG, with the same seed
+    def shot(colour_blur_px: float) -> np.ndarray:
+        light = Lighting(colour_blur_px=colour_blur_px, jpeg_quality=None)
+        scene = Scene(density=20, camera=None, px_per_mm=10.0, lighting=light)
+        ycc = cv2.cvtColor(render_photo(scene, seed=3).image, cv2.COLOR_BGR2YCrCb)
+        return ycc.astype(np.float64)
+
+    sharp, smoothed = shot(0.0), shot(2.0)
+    # luma: the same to the 8-bit rounding of the round trip through YCrCb
+    assert np.abs(smoothed[..., 0] - sharp[..., 0]).mean() < 1.0
+    # chroma: its pixel-to-pixel changes (a Laplacian's energy) fall several-fold
+    for k in (1, 2):
+        before = ndimage.laplace(sharp[..., k]).std()
+        after = ndimage.laplace(smoothed[..., k]).std()
+        assert after < 0.3 * before, (k, before, after)

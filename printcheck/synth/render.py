@@ -135,6 +135,10 @@ class Lighting:
         Gains of (B, G, R).
     blur_sigma_px : float
         Gaussian blur (focus and lens), in photo pixels.
+    colour_blur_px : float
+        Gaussian blur of the colour alone (the chroma of YCrCb), in photo pixels, after
+        the sensor noise: a phone's colour noise reduction, which smooths colour far
+        more than brightness (0: none; phones smooth it over 1-3 px).
     noise_sigma : float
         Sensor noise at mid grey, in 8-bit levels.
     jpeg_quality : int or None
@@ -157,6 +161,7 @@ class Lighting:
     ring: float = 0.0
     white_balance: tuple[float, float, float] = (1.0, 1.0, 1.0)
     blur_sigma_px: float = 0.7
+    colour_blur_px: float = 0.0
     noise_sigma: float = 2.0
     jpeg_quality: int | None = 90
 
@@ -699,6 +704,11 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
     if light.noise_sigma > 0:
         sigma = np.sqrt(np.maximum(img, f32(1.0)) * f32(light.noise_sigma**2 / 128.0))
         img += sigma * rng.standard_normal(img.shape, dtype=f32)
+    if light.colour_blur_px > 0:
+        ycc = cv2.cvtColor(np.clip(img, 0, 255).astype(f32) / f32(255.0), cv2.COLOR_BGR2YCrCb)
+        for k in (1, 2):
+            ycc[..., k] = cv2.GaussianBlur(ycc[..., k], (0, 0), light.colour_blur_px)
+        img = cv2.cvtColor(ycc, cv2.COLOR_YCrCb2BGR) * f32(255.0)
     out = np.clip(np.rint(img), 0, 255).astype(np.uint8)
 
     jpeg: bytes | None = None
