@@ -9,11 +9,15 @@ The steps (see :mod:`printcheck.evidence`, :mod:`printcheck.field` and
 
 1. the compound's colour, from ``config.compound`` or, with "auto", from the photo;
 2. the colour evidence of every pixel, lightly smoothed; burnt-out highlights carry no
-   colour and are left out;
+   colour and are left out, and a divisor channel clipped alone is rebuilt from its
+   neighbour (:func:`printcheck.evidence.rebuilt_highlights`);
 3. the local bare level and noise of the evidence, over the pixels that are not contact
    (what stands clearly above a coarse first estimate is left out of the fine one);
-4. the local level of the compound, from the strongest marks nearby;
-5. contacts: seeds, growth, separation, clean-up.
+4. the local level of the compound, from the strongest marks nearby; and, where the
+   compound darkens the metal, the brightness's relief (:func:`printcheck.field.with_relief`),
+   kept at the photo's full resolution where the colour is not;
+5. contacts: seeds (at half the share along the edge of what the photo shows, where a
+   card cuts spots), growth, separation (on the relief where there is one), clean-up.
 
 A surface covered in compound nearly everywhere has no bare level to judge against; it
 is thresholded on the evidence itself, with a warning.
