@@ -92,12 +92,13 @@ def rebuilt_highlights(
     in a highlight the rebuilt divisor is too high and the spot reads paler than it is,
     never the reverse.  Pixels with two channels clipped are glare (unseen) and left.
     """
-    b, g, r = cv2.split(image)
+    chans = cv2.split(image)
     if compound == "blue":
         pairs = [(2, 1)]  # red, rebuilt from green
     else:
         pairs = [(1, 0), (0, 1)]  # green from blue, blue from green
-    chans = [b, g, r]
+    if max(int(chans[lost].max()) for lost, _ in pairs) < CLIPPED:
+        return evidence  # nothing clipped: the common case, decided in one pass
     clipped = [c >= CLIPPED for c in chans]
     rebuilt = [c.astype(np.float32) + np.float32(_EPS) for c in chans]
     changed = False

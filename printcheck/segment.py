@@ -39,6 +39,7 @@ from printcheck.contacts import (
     drop_edge_slivers,
     fill_small_holes,
     finish,
+    flat_where,
     merge_regions,
     seeds_and_growth,
     separate,
@@ -514,10 +515,13 @@ def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, 
     further: there the share asked is half (the significance over the noise, which
     keeps noise out, is asked in full).
     """
-    share = config.seed_share * field.local
+    strong = field.zs >= config.seed_sigma
+    seeds = strong & (field.smooth >= config.seed_share * field.local)
     if field.edge is not None:
-        share = np.where(field.edge, np.float32(0.5) * share, share)
-    seeds = (field.zs >= config.seed_sigma) & (field.smooth >= share)
+        # on the edge band's pixels alone (a thin strip of the frame)
+        at = flat_where(field.edge & strong & ~seeds)
+        half = np.float32(0.5 * config.seed_share)
+        seeds.ravel()[at[field.smooth.ravel()[at] >= half * field.local.ravel()[at]]] = True
     grown = seeds_and_growth(seeds & field.valid, (field.z >= config.grow_sigma) & field.valid)
     return seeds, grown
 
