@@ -170,6 +170,7 @@ def finish(
     score: np.ndarray | None = None,
     min_core_px: float = 0.0,
     level: np.ndarray | None = None,
+    rejoin_px: int = 0,
 ) -> np.ndarray:
     """Cut each contact at ``rim_share`` of its peak, keep those with a seed (and, with
     ``min_core_px``, at least that many pixels above half their peak, or with ``level``
@@ -180,7 +181,10 @@ def finish(
     blur's; but a small contact whose film thins to its rim (a dome) keeps only a part
     of its area above half its peak.  Its evidence in all, over the compound's level
     where it lies (``level``, (M, N)), is its area whatever the blur: blur spreads the
-    evidence but keeps its sum."""
+    evidence but keeps its sum.
+
+    With ``rejoin_px``, lobes of one contact that the rim cut parted are joined again
+    across a neck up to twice that wide (:func:`_rejoined`)."""
     # on the contact pixels alone, by their flat indices (row-major, as numpy orders them)
     idx = flat_where(labels > 0)
     lab = labels.ravel()[idx]
@@ -205,7 +209,36 @@ def finish(
     kept[idx] = lab
     kept = kept.reshape(labels.shape)
     idx = idx[~_carved(kept, idx, height)]
-    return _drop_crumbs(idx, kept, height, seeds=seeds, lobe_px=_LOBE_SPOTS * min_core_px)
+    mask = _drop_crumbs(idx, kept, height, seeds=seeds, lobe_px=_LOBE_SPOTS * min_core_px)
+    if rejoin_px > 0:
+        mask = _rejoined(mask, labels, height, rejoin_px)
+    return mask
+
+
+def _rejoined(mask: np.ndarray, labels: np.ndarray, height: np.ndarray, r: int) -> np.ndarray:
+    """``mask`` with the lobes of one contact (``labels``) that the rim cut parted joined
+    again across a neck narrower than ``2 r`` pixels (a morphological closing of those
+    lobes, kept to their contact's own pixels; a gap is carved again wherever the
+    closing made two contacts touch): the valleys between them decided they are one
+    contact, and the rim alone does not part it in two."""
+    n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    if n <= 2:
+        return mask
+    idx = flat_where(mask)
+    owner = np.zeros(n, np.int64)
+    owner[pieces.ravel()[idx]] = labels.ravel()[idx]
+    multi = np.bincount(owner[1:], minlength=int(labels.max()) + 1) > 1
+    multi[0] = False
+    if not multi.any():
+        return mask
+    lobes = mask & multi[labels]
+    closed = cv2.morphologyEx(lobes.view(np.uint8), cv2.MORPH_CLOSE, disc(r)).view(bool)
+    joined = mask | (closed & multi[labels])
+    kept = np.where(joined, labels, 0)
+    idx = flat_where(joined)
+    out = np.zeros(mask.shape, bool)
+    out.ravel()[idx[~_carved(kept, idx, height)]] = True
+    return out
 
 
 def _mass_px(lab: np.ndarray, score: np.ndarray, level: np.ndarray, n: int) -> np.ndarray:

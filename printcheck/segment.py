@@ -462,6 +462,7 @@ def _decide(
             score=field.score,
             min_core_px=config.min_spot_mm2 * s * s,
             level=field.local,
+            rejoin_px=max(1, int(round(_REJOIN_MM * s))),
         )
     else:
         worn = field.score / field.local
@@ -496,6 +497,11 @@ def with_edge(field: Field, px_per_mm: float) -> Field:
     r = max(1, int(round(EDGE_MM * px_per_mm)))
     inner = cv2.erode(field.visible.view(np.uint8), disc(r), borderType=cv2.BORDER_REPLICATE)
     return replace(field, edge=field.visible & ~inner.view(bool))
+
+
+#: Lobes of one contact that its rim cut parts are joined again across a neck of film up
+#: to twice this wide (mm): a neck thinner than the rim's share, not a gap of bare metal.
+_REJOIN_MM = 0.25
 
 
 def _cut_height(field: Field) -> np.ndarray:

@@ -450,3 +450,29 @@ def test_a_pale_piece_at_the_card_edge_is_a_contact_where_a_pale_blob_inside_is_
     assert len(found_pieces) == 4, found_pieces  # every piece, each apart
     assert not (seg.mask & inside).any()  # the pale discs inside are not contact
     assert _count(seg.mask) == 5 + 4
+
+
+def test_a_lobe_the_rim_cut_parts_is_kept_and_joined_again() -> None:
+    # one contact (a single label, as the valleys decided) of two lobes whose film joins
+    # through a neck under the rim's share of the peak: the rim cut parts them.  The
+    # lobe without the highest point is contact, not a crumb of halo (an earlier rule
+    # dropped it whole), and the two are joined again across the narrow neck: one
+    # contact, both lobes, as scipy.ndimage.label counts it.
+    from printcheck.contacts import finish
+
+    yy, xx = np.mgrid[:60, :90]
+    left = np.hypot(yy - 30, xx - 30) < 12
+    right = np.hypot(yy - 30, xx - 58) < 12
+    neck = (np.abs(yy - 30) <= 1) & (xx >= 30) & (xx <= 58)
+    score = np.where(left, 1.0, 0.0) + np.where(right & ~left, 0.9, 0.0)
+    score = np.where(neck & ~left & ~right, 0.1, score).astype(np.float32)  # 0.1 < 0.175
+    region = left | right | neck
+    labels = region.astype(np.int32)
+    seeds = (np.hypot(yy - 30, xx - 30) < 3) | (np.hypot(yy - 30, xx - 58) < 3)
+    kw = dict(rim_share=0.175, score=score, min_core_px=6.4)
+    parted = finish(labels, seeds, score, **kw)
+    assert parted[right].mean() > 0.95 and parted[left].mean() > 0.95  # both lobes
+    assert ndimage.label(parted, structure=np.ones((3, 3)))[1] == 2  # parted by the rim
+    joined = finish(labels, seeds, score, rejoin_px=3, **kw)  # the neck: 4 px long
+    assert joined[right].mean() > 0.95 and joined[left].mean() > 0.95
+    assert ndimage.label(joined, structure=np.ones((3, 3)))[1] == 1  # joined again
