@@ -64,13 +64,13 @@ def groove_layout() -> Layout:
             "units": "mm",
             "window": {"x": 0.0, "y": 0.0, "width": 76.2, "height": 50.8, "margin": 4.0},
             "marker": [
-                {"id": 4, "corners": [[-16, -16], [-16 + m, -16], [-16 + m, -16 + m],
-                                      [-16, -16 + m]]},
-                {"id": 5, "corners": [[82, -16], [82 + m, -16], [82 + m, -16 + m],
-                                      [82, -16 + m]]},
+                {
+                    "id": 4,
+                    "corners": [[-16, -16], [-16 + m, -16], [-16 + m, -16 + m], [-16, -16 + m]],
+                },
+                {"id": 5, "corners": [[82, -16], [82 + m, -16], [82 + m, -16 + m], [82, -16 + m]]},
                 {"id": 6, "corners": [[82, 56], [82 + m, 56], [82 + m, 56 + m], [82, 56 + m]]},
-                {"id": 7, "corners": [[-16, 56], [-16 + m, 56], [-16 + m, 56 + m],
-                                      [-16, 56 + m]]},
+                {"id": 7, "corners": [[-16, 56], [-16 + m, 56], [-16 + m, 56 + m], [-16, 56 + m]]},
             ],
             "exclude": [{"points": [[30.0, -4.0], [36.0, -4.0], [42.0, 54.8], [36.0, 54.8]]}],
         },
@@ -109,9 +109,12 @@ def cases() -> list[Case]:
         on = "reference" if i % 3 != 2 else "work"
         px = 16.0 if d >= 36 else 12.0
         out.append(
-            Case(f"square-{d}ppi-{colour}-{on}",
-                 Scene(density=d, compound=colour, compound_on=on, camera=None, px_per_mm=px),
-                 5000 + k, ("square", colour, on))
+            Case(
+                f"square-{d}ppi-{colour}-{on}",
+                Scene(density=d, compound=colour, compound_on=on, camera=None, px_per_mm=px),
+                5000 + k,
+                ("square", colour, on),
+            )
         )
         k += 1
     # 2. camera photos with tilt and rotation, across densities
@@ -120,13 +123,21 @@ def cases() -> list[Case]:
         rot = float(rng.uniform(-180, 180))
         colour = "red" if i % 3 == 0 else "blue"
         on = "work" if i % 4 == 1 else "reference"
-        cam = Camera(tilt_deg=tilt, rotation_deg=rot, window_fraction=0.45,
-                     tilt_axis_deg=float(rng.uniform(0, 180)))
+        cam = Camera(
+            tilt_deg=tilt,
+            rotation_deg=rot,
+            window_fraction=0.45,
+            tilt_axis_deg=float(rng.uniform(0, 180)),
+        )
         out.append(
-            Case(f"tilt{tilt:.0f}-{d}ppi-{colour}-{on}",
-                 Scene(density=d, compound=colour, compound_on=on, camera=cam,
-                       image_size=(1600, 1200)),
-                 5000 + k, ("tilt", colour, on))
+            Case(
+                f"tilt{tilt:.0f}-{d}ppi-{colour}-{on}",
+                Scene(
+                    density=d, compound=colour, compound_on=on, camera=cam, image_size=(1600, 1200)
+                ),
+                5000 + k,
+                ("tilt", colour, on),
+            )
         )
         k += 1
     # 3. harsh photos
@@ -134,34 +145,65 @@ def cases() -> list[Case]:
         for d in (10, 30):
             colour = "blue" if (j + d) % 2 == 0 else "red"
             on = "work" if (j == 2 and d == 30) or (j == 4 and d == 10) else "reference"
-            cam = Camera(tilt_deg=float(rng.uniform(0, 20)),
-                         rotation_deg=float(rng.uniform(-30, 30)), window_fraction=0.45)
+            cam = Camera(
+                tilt_deg=float(rng.uniform(0, 20)),
+                rotation_deg=float(rng.uniform(-30, 30)),
+                window_fraction=0.45,
+            )
             out.append(
-                Case(f"{hname}-{d}ppi-{colour}-{on}",
-                     Scene(density=d, compound=colour, compound_on=on, camera=cam,
-                           image_size=(1600, 1200), lighting=light),
-                     5000 + k, ("harsh", hname, colour, on))
+                Case(
+                    f"{hname}-{d}ppi-{colour}-{on}",
+                    Scene(
+                        density=d,
+                        compound=colour,
+                        compound_on=on,
+                        camera=cam,
+                        image_size=(1600, 1200),
+                        lighting=light,
+                    ),
+                    5000 + k,
+                    ("harsh", hname, colour, on),
+                )
             )
             k += 1
     # 4. 8 MP frames with a small window
     for d in (20, 45):
         cam = Camera(tilt_deg=12.0, rotation_deg=float(rng.uniform(-90, 90)), window_fraction=0.22)
         out.append(
-            Case(f"8mp-small-window-{d}ppi",
-                 Scene(density=d, camera=cam, image_size=(3264, 2448)),
-                 5000 + k, ("8mp",))
+            Case(
+                f"8mp-small-window-{d}ppi",
+                Scene(density=d, camera=cam, image_size=(3264, 2448)),
+                5000 + k,
+                ("8mp",),
+            )
         )
         k += 1
     # 5. exclusions: a slideway with an oil groove, marker labels on the surface
-    for d, colour, on in ((8, "blue", "reference"), (22, "red", "reference"), (35, "blue", "work"),
-                          (14, "blue", "reference")):
-        cam = Camera(tilt_deg=float(rng.uniform(0, 25)), rotation_deg=float(rng.uniform(-20, 20)),
-                     window_fraction=0.55)
+    for d, colour, on in (
+        (8, "blue", "reference"),
+        (22, "red", "reference"),
+        (35, "blue", "work"),
+        (14, "blue", "reference"),
+    ):
+        cam = Camera(
+            tilt_deg=float(rng.uniform(0, 25)),
+            rotation_deg=float(rng.uniform(-20, 20)),
+            window_fraction=0.55,
+        )
         out.append(
-            Case(f"groove-{d}ppi-{colour}-{on}",
-                 Scene(layout=groove, density=d, compound=colour, compound_on=on, camera=cam,
-                       image_size=(1600, 1200)),
-                 5000 + k, ("exclusion", colour, on))
+            Case(
+                f"groove-{d}ppi-{colour}-{on}",
+                Scene(
+                    layout=groove,
+                    density=d,
+                    compound=colour,
+                    compound_on=on,
+                    camera=cam,
+                    image_size=(1600, 1200),
+                ),
+                5000 + k,
+                ("exclusion", colour, on),
+            )
         )
         k += 1
     del card
@@ -212,9 +254,13 @@ def rectify_known(image: np.ndarray, hom: np.ndarray, layout: Layout, px_per_mm:
     s = px_per_mm
     rect_to_mm = np.array([[1 / s, 0, x0 + 0.5 / s], [0, 1 / s, y0 + 0.5 / s], [0, 0, 1.0]])
     m_dst_to_src = hom @ rect_to_mm
-    img = cv2.warpPerspective(image, m_dst_to_src, (cols, rows),
-                              flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
-                              borderMode=cv2.BORDER_REPLICATE)
+    img = cv2.warpPerspective(
+        image,
+        m_dst_to_src,
+        (cols, rows),
+        flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
+        borderMode=cv2.BORDER_REPLICATE,
+    )
     frame = Frame(px_per_mm=s, origin_mm=(x0, y0), shape=(rows, cols), window=w)
     visible, analysed = layout_masks(layout, frame)
     return img, frame, visible, analysed
@@ -255,8 +301,9 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
         s = scene.px_per_mm
         w = layout.window
         b = scene.border_mm
-        frame = Frame(px_per_mm=s, origin_mm=(w.x_mm - b, w.y_mm - b),
-                      shape=image.shape[:2], window=w)
+        frame = Frame(
+            px_per_mm=s, origin_mm=(w.x_mm - b, w.y_mm - b), shape=image.shape[:2], window=w
+        )
         visible, analysed = layout_masks(layout, frame)
         rect_img, method, photo_ppm = image, "square-on", s
     else:
@@ -276,18 +323,27 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
             method = f"homography ({type(exc).__name__})"
             photo_ppm = _photo_px_per_mm(rendered["homography"], layout)
     s = frame.px_per_mm
-    seg = segment(rect_img, visible=visible, analysed=analysed,
-                  config=SegmentConfig(compound=scene.compound, compound_on=scene.compound_on,
-                                       px_per_mm=s))
+    seg = segment(
+        rect_img,
+        visible=visible,
+        analysed=analysed,
+        config=SegmentConfig(compound=scene.compound, compound_on=scene.compound_on, px_per_mm=s),
+    )
     meas = measure(
-        seg.mask, frame=frame, analysed=analysed, config=MeasureConfig(cell_mm=25.4),
-        alternates=seg.alternates, photo_px_per_mm=photo_ppm, unseen=seg.glare,
+        seg.mask,
+        frame=frame,
+        analysed=analysed,
+        config=MeasureConfig(cell_mm=25.4, part_px=seg.part_px),
+        alternates=seg.alternates,
+        photo_px_per_mm=photo_ppm,
+        unseen=seg.glare,
     )
     warnings.extend(seg.warnings)
     if meas.confidence is not None and meas.confidence.doubtful:
         warnings.append(f"doubtful: {meas.confidence.reason}")
-    return Outcome(case, rendered["truth"], meas, method, s, time.perf_counter() - t0,
-                   tuple(warnings))
+    return Outcome(
+        case, rendered["truth"], meas, method, s, time.perf_counter() - t0, tuple(warnings)
+    )
 
 
 def _pct(values: list[float], q: float) -> float:
@@ -311,8 +367,10 @@ def main(argv: list[str] | None = None) -> int:
                 chosen.append(int(part))
     if args.cache:
         args.cache.mkdir(parents=True, exist_ok=True)
-    print(f"{'#':>2} {'photo':34s} {'rect':10s} {'px/mm':>5} {'truth':>5} {'found':>5} "
-          f"{'range':>9} {'cnt%':>6} {'bear':>5} {'got':>5} {'d':>5} {'cell%':>5} {'s':>5}")
+    print(
+        f"{'#':>2} {'photo':34s} {'rect':10s} {'px/mm':>5} {'truth':>5} {'found':>5} "
+        f"{'range':>9} {'cnt%':>6} {'bear':>5} {'got':>5} {'d':>5} {'cell%':>5} {'s':>5}"
+    )
     outcomes: list[Outcome] = []
     for i in chosen:
         case = all_cases[i]
@@ -347,8 +405,10 @@ def main(argv: list[str] | None = None) -> int:
         ok = value <= TARGETS[key]
         ok_all &= ok
         unit = "points" if key.startswith("bearing") else "%"
-        print(f"  {key:15s} {value:6.2f} {unit:6s} target <= {TARGETS[key]:g}  "
-              f"{'ok' if ok else 'MISSED'}")
+        print(
+            f"  {key:15s} {value:6.2f} {unit:6s} target <= {TARGETS[key]:g}  "
+            f"{'ok' if ok else 'MISSED'}"
+        )
     held = [o for o in outcomes if o.measurement.confidence is not None]
     confs = [(o, o.measurement.confidence) for o in held]
     c_in = sum(c.count_low <= o.truth.spot_count <= c.count_high for o, c in confs)  # type: ignore[union-attr]
@@ -357,12 +417,16 @@ def main(argv: list[str] | None = None) -> int:
         for o, c in confs
     )
     doubtful = sum(c.doubtful for _, c in confs)  # type: ignore[union-attr]
-    print(f"  ranges holding the truth: count {c_in}/{len(held)}, bearing {b_in}/{len(held)}; "
-          f"doubtful photos: {doubtful}")
+    print(
+        f"  ranges holding the truth: count {c_in}/{len(held)}, bearing {b_in}/{len(held)}; "
+        f"doubtful photos: {doubtful}"
+    )
     methods = sorted({o.method for o in outcomes})
     print(f"  rectification: {', '.join(methods)}")
-    print(f"  seconds per photo (segment + measure, incl. locate): median "
-          f"{_pct([o.seconds for o in outcomes], 50):.2f}")
+    print(
+        f"  seconds per photo (segment + measure, incl. locate): median "
+        f"{_pct([o.seconds for o in outcomes], 50):.2f}"
+    )
     return 0 if ok_all else 1
 
 

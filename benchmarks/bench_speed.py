@@ -237,8 +237,9 @@ def time_stages(shot: Shot, repeat: int) -> dict[str, Any]:
             px_per_mm=rect.frame.px_per_mm,
         )
         t["segment"], seg = _median(
-            lambda: segment(rect.image, visible=rect.visible, analysed=rect.analysed,
-                            config=seg_config),
+            lambda: segment(
+                rect.image, visible=rect.visible, analysed=rect.analysed, config=seg_config
+            ),
             repeat,
         )
         alternates = seg.alternates

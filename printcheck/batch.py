@@ -392,7 +392,7 @@ def run_batch(
             say=say,
             warn=warn,
             show_progress=show_progress,
-            announce=lambda skipped: _say_order(planned, order, skipped, warn=warn),
+            announce=lambda skipped: _say_order(planned, order, skipped, folder, warn=warn),
             announce_groups=lambda: _say_groups(planned, rule, order, say=say),
             same_surface=same_surface,
             remeasure=remeasure,
@@ -403,7 +403,13 @@ def run_batch(
             warn(f"batch {folder}: none of the {tally.total} photos could be measured")
             return EXIT_UNUSABLE
         _write_outputs(
-            out, surface=surface, spec=options.spec, tally=tally, progress=progress, shown=shown
+            out,
+            surface=surface,
+            spec=options.spec,
+            tally=tally,
+            progress=progress,
+            shown=shown,
+            folder=folder,
         )
     except KeyboardInterrupt as exc:
         raise Interrupted(
@@ -481,10 +487,17 @@ def _say_groups(
 
 
 def _say_order(
-    planned: Sequence[Any], order: str, skipped: set[Path], *, warn: Callable[[str], None]
+    planned: Sequence[Any],
+    order: str,
+    skipped: set[Path],
+    folder: Path,
+    *,
+    warn: Callable[[str], None],
 ) -> None:
     """Name the photos without a camera time (not the skipped ones) and the order used."""
-    untimed = [p.path.name for p in planned if p.taken is None and p.path not in skipped]
+    untimed = [
+        photo_name(p.path, folder) for p in planned if p.taken is None and p.path not in skipped
+    ]
     if untimed and order == "time":
         shown = ", ".join(untimed[:12]) + (
             f" and {len(untimed) - 12} more" if len(untimed) > 12 else ""
@@ -596,7 +609,10 @@ def _measure_and_record(
                 continue
             was_settings, was_method, removed = seen
             if removed:
-                say(f"{p.path.name}: removed from {surface!r} earlier; not recorded again")
+                say(
+                    f"{photo_name(p.path, folder)}: removed from {surface!r} earlier; "
+                    "not recorded again"
+                )
                 continue
             changes = settings_changes(was_settings, settings)
             if was_method < METHOD_VERSION:
@@ -677,7 +693,7 @@ def _measure_and_record(
                                             summary_to_dict(outcome.summary), ensure_ascii=False
                                         )
                                     )
-                            bar.advance(items[index].path.name)
+                            bar.advance(items[index].photo)
         except KeyboardInterrupt:
             tally.in_history = _photos_in_history(
                 history, surface, [hashes[p.path] for p in planned]
@@ -830,6 +846,7 @@ def _write_outputs(
     tally: _Tally,
     progress: Progress,
     shown: Sequence[tuple[PassSummary, bytes | None]],
+    folder: Path,
 ) -> None:
     """``results.csv`` and ``report.html`` of the batch's photos with their current
     figures (naming the skipped), the surface's stations and notes under the header."""
@@ -844,7 +861,7 @@ def _write_outputs(
         spec=spec,
         passes=list(shown),
         progress=progress,
-        skipped=[(s.path.name, s.reason) for s in tally.skipped],
+        skipped=[(photo_name(s.path, folder), s.reason) for s in tally.skipped],
         extra_html=stations_section(progress),
     )
 

@@ -217,10 +217,10 @@ def finish(
 
 def _rejoined(mask: np.ndarray, labels: np.ndarray, height: np.ndarray, r: int) -> np.ndarray:
     """``mask`` with the lobes of one contact (``labels``) that the rim cut parted joined
-    again across a neck narrower than ``2 r`` pixels (a morphological closing of those
-    lobes, kept to their contact's own pixels; a gap is carved again wherever the
-    closing made two contacts touch): the valleys between them decided they are one
-    contact, and the rim alone does not part it in two."""
+    again across a neck narrower than ``2 r`` pixels (what a morphological closing of
+    those lobes adds of their contact's own pixels, where it touches two lobes of it; a
+    gap is carved again wherever two contacts would touch): the valleys between them
+    decided they are one contact, and the rim alone does not part it in two."""
     n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     if n <= 2:
         return mask
@@ -233,7 +233,27 @@ def _rejoined(mask: np.ndarray, labels: np.ndarray, height: np.ndarray, r: int) 
         return mask
     lobes = mask & multi[labels]
     closed = cv2.morphologyEx(lobes.view(np.uint8), cv2.MORPH_CLOSE, disc(r)).view(bool)
-    joined = mask | (closed & multi[labels])
+    added = closed & multi[labels] & ~mask
+    # only the necks: an added piece that touches two lobes or more of its own contact
+    # (not a bay filled, nor two contacts grown toward each other)
+    m, bits = cv2.connectedComponents(added.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    if m <= 1:
+        return mask
+    bits_p = np.pad(bits, 1)
+    pieces_p = np.pad(pieces, 1)
+    labels_p = np.pad(labels, 1)
+    width = bits_p.shape[1]
+    at = flat_where(bits_p > 0)
+    here, lab_here = bits_p.ravel()[at], labels_p.ravel()[at]
+    pairs = []
+    for off in (-width - 1, -width, -width + 1, -1, 1, width - 1, width, width + 1):
+        nb = pieces_p.ravel()[at + off]
+        same = (nb > 0) & (owner[nb] == lab_here)
+        pairs.append(np.stack([here[same], nb[same]]))
+    touch = np.unique(np.concatenate(pairs, axis=1), axis=1)
+    necks = np.bincount(touch[0], minlength=m) >= 2
+    necks[0] = False
+    joined = mask | necks[bits]
     kept = np.where(joined, labels, 0)
     idx = flat_where(joined)
     out = np.zeros(mask.shape, bool)

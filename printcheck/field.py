@@ -51,7 +51,7 @@ class Field:
     glare: np.ndarray  # burnt out
     noise: float  # median spot-scale noise
     edge: np.ndarray | None = None  # visible, within EDGE_MM of where the surface is hidden
-    relief: np.ndarray | None = None  # how much darker than the bare metal (see relief())
+    relief: np.ndarray | None = None  # how much darker than the bare metal (see with_relief())
     relief_noise: float = 0.0  # its spread over the bare metal
 
 

@@ -74,10 +74,12 @@ class MeasureConfig:
         come out merged, larger than they are.
     part_px : float
         Photo pixels of bare metal two neighbouring contacts need between them to be
-        seen apart.  Two: the segment stage parts contacts on the brightness, which a
-        photo keeps at its full resolution (the colour, at half of it in JPEG and HEIC
-        4:2:0, would need three), and a gap the blur of two edges has not filled in
-        needs a pixel between them.
+        seen apart: what the segmentation parted them on needs
+        (:attr:`printcheck.segment.Segmentation.part_px`; the pipeline passes it).
+        Three by default: a photo keeps colour at half the resolution of brightness
+        (JPEG and HEIC 4:2:0), so a gap of three pixels is one and a half colour
+        samples wide, the least in which the colour can come back to bare metal; two
+        where the contacts were cut apart on the brightness, kept at full resolution.
     crowded_share : float
         When more than this share of the contacts lie closer than ``part_px`` to a
         neighbour, the print is as fine as the photo's pixels: each such contact may
@@ -99,7 +101,7 @@ class MeasureConfig:
     doubtful_change: float = 0.15
     doubtful_bearing: float = 5.0
     resolution_px: float = 8.0
-    part_px: float = 2.0
+    part_px: float = 3.0
     crowded_share: float = 0.25
     oversize_factor: float = 4.0
     heavy_bearing_factor: float = 1.5

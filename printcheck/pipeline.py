@@ -103,6 +103,7 @@ def _measure_rectified(
             cell_mm=options.cell_mm,
             min_spot_mm2=options.min_spot_mm2,
             max_bare_mm=None if spec is None else spec.max_bare_mm,
+            part_px=seg.part_px,
         ),
         alternates=seg.alternates,
         photo_px_per_mm=rect.calibration.photo_px_per_mm,

@@ -188,6 +188,11 @@ class Segmentation:
         blue compound, red of red): the colour read there is only a lower bound, so a
         pale contact there may be missed.  Outside the contacts, the measure stage
         counts them, with the glare, as surface it could not see (its range).
+    part_px : float
+        Photo pixels of bare metal two neighbouring contacts needed between them for
+        this segmentation to part them (the measure stage's ``part_px``):
+        :data:`PART_ON_BRIGHTNESS_PX` where they were cut apart on the brightness,
+        :data:`PART_ON_COLOUR_PX` where on the colour.
     """
 
     mask: np.ndarray
@@ -202,6 +207,7 @@ class Segmentation:
     warnings: tuple[str, ...] = ()
     glare: np.ndarray | None = None
     washed: np.ndarray | None = None
+    part_px: float = 3.0
 
     @property
     def unseen(self) -> np.ndarray | None:
@@ -265,7 +271,11 @@ def segment(
     evidence = cv2.GaussianBlur(evidence, (0, 0), 0.4)  # pixel noise; an edge moves < 0.4 px
 
     def result(
-        mask: np.ndarray, alternates: tuple[np.ndarray, ...], level: float, noise: float
+        mask: np.ndarray,
+        alternates: tuple[np.ndarray, ...],
+        level: float,
+        noise: float,
+        part_px: float = PART_ON_COLOUR_PX,
     ) -> Segmentation:
         return Segmentation(
             mask=mask & visible,
@@ -280,6 +290,7 @@ def segment(
             warnings=tuple(warnings),
             glare=glare,
             washed=washed,
+            part_px=part_px,
         )
 
     if np.count_nonzero(stat) < 64:
@@ -347,7 +358,8 @@ def segment(
             (field, more, s, rim / rim_step, cut, loose),
         ]
     )
-    return result(mask, tuple(alternates), level, field.noise)
+    parted_on = PART_ON_COLOUR_PX if field.relief is None else PART_ON_BRIGHTNESS_PX
+    return result(mask, tuple(alternates), level, field.noise, parted_on)
 
 
 _THREADS: list[ThreadPoolExecutor] = []  # made on first use, one per process
@@ -486,6 +498,16 @@ def _decide(
     return mask
 
 
+#: Photo pixels of bare metal two contacts need between them to be cut apart on the
+#: colour: a photo keeps colour at half the resolution of brightness (JPEG and HEIC
+#: 4:2:0), so three pixels are one and a half colour samples, the least in which the
+#: colour comes back to bare metal between them ...
+PART_ON_COLOUR_PX = 3.0
+#: ... and on the brightness, kept at full resolution: a pixel between two blurred edges
+#: and one for the blur.
+PART_ON_BRIGHTNESS_PX = 2.0
+
+
 #: How near the edge of the visible surface (a card's cut-out) a piece's seed may lie to be
 #: judged as a piece of a spot the card cuts (see :func:`_seeds_and_growth`).
 EDGE_MM = 0.4
@@ -493,7 +515,8 @@ EDGE_MM = 0.4
 
 def with_edge(field: Field, px_per_mm: float) -> Field:
     """``field`` with its :attr:`Field.edge` band: visible pixels within :data:`EDGE_MM`
-    of surface that is not visible (a card's edge, an exclusion's, the photo's)."""
+    of surface that is not visible (a card's edge, an exclusion's, glare's; the frame's
+    own border is not an edge)."""
     r = max(1, int(round(EDGE_MM * px_per_mm)))
     inner = cv2.erode(field.visible.view(np.uint8), disc(r), borderType=cv2.BORDER_REPLICATE)
     return replace(field, edge=field.visible & ~inner.view(bool))
@@ -527,7 +550,7 @@ def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, 
         # on the edge band's pixels alone (a thin strip of the frame)
         at = flat_where(field.edge & strong & ~seeds)
         half = np.float32(0.5 * config.seed_share)
-        seeds.ravel()[at[field.smooth.ravel()[at] >= half * field.local.ravel()[at]]] = True
+        np.put(seeds, at[field.smooth.ravel()[at] >= half * field.local.ravel()[at]], True)
     grown = seeds_and_growth(seeds & field.valid, (field.z >= config.grow_sigma) & field.valid)
     return seeds, grown
 

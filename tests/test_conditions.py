@@ -66,7 +66,7 @@ def _measure(scene: Scene, seed: int, **segment_options):  # type: ignore[no-unt
         seg.mask,
         frame=rect.frame,
         analysed=rect.analysed,
-        config=MeasureConfig(cell_mm=25.4),
+        config=MeasureConfig(cell_mm=25.4, part_px=seg.part_px),
         alternates=seg.alternates,
         photo_px_per_mm=rect.calibration.photo_px_per_mm,
         photo_blur_px=rect.calibration.photo_blur_px,
@@ -202,7 +202,7 @@ def _square_on(field, px_per_mm: float, seed: int, **lighting):  # type: ignore[
         seg.mask,
         frame=rect.frame,
         analysed=rect.analysed,
-        config=MeasureConfig(cell_mm=25.4),
+        config=MeasureConfig(cell_mm=25.4, part_px=seg.part_px),
         alternates=seg.alternates,
         photo_px_per_mm=px_per_mm,
     )

@@ -476,3 +476,20 @@ def test_a_lobe_the_rim_cut_parts_is_kept_and_joined_again() -> None:
     joined = finish(labels, seeds, score, rejoin_px=3, **kw)  # the neck: 4 px long
     assert joined[right].mean() > 0.95 and joined[left].mean() > 0.95
     assert ndimage.label(joined, structure=np.ones((3, 3)))[1] == 1  # joined again
+
+
+def test_the_segmentation_says_what_its_contacts_need_between_them(spots, visible) -> None:
+    # blue compound on the reference darkens the metal: touching contacts are cut apart
+    # on the brightness (full resolution), which needs 2 bare pixels between them; with
+    # compound on the work the contacts are bright metal and are cut on the colour,
+    # which a JPEG keeps at half resolution: 3 (the measure stage's part_px)
+    from printcheck.segment import PART_ON_BRIGHTNESS_PX, PART_ON_COLOUR_PX
+
+    ref = segment(_render(spots, seed=3), visible=visible, config=SegmentConfig(px_per_mm=S))
+    assert ref.part_px == PART_ON_BRIGHTNESS_PX == 2.0
+    work = segment(
+        _render(spots, seed=3, on="work"),
+        visible=visible,
+        config=SegmentConfig(px_per_mm=S, compound_on="work"),
+    )
+    assert work.part_px == PART_ON_COLOUR_PX == 3.0
