@@ -32,6 +32,7 @@ __all__ = [
     "EVIDENCE_FLOOR",
     "LevelMaps",
     "CLIPPED",
+    "OWN_CHANNEL",
     "compound_evidence",
     "rebuilt_highlights",
     "choose_compound",
@@ -66,10 +67,18 @@ def compound_evidence(image: np.ndarray, compound: str) -> np.ndarray:
     if compound not in ("blue", "red"):
         raise OptionError(f"compound must be 'blue' or 'red', got {compound!r}")
     img = image.astype(np.float32) + np.float32(_EPS)
-    if compound == "blue":
-        return cv2.log(img[..., 0]) - cv2.log(img[..., 2])
-    return cv2.log(img[..., 2]) - cv2.log(np.float32(0.5) * (img[..., 0] + img[..., 1]))
+    return _log_ratio(img[..., 0], img[..., 1], img[..., 2], compound)
 
+
+def _log_ratio(b: np.ndarray, g: np.ndarray, r: np.ndarray, compound: str) -> np.ndarray:
+    """The evidence from channels already offset by ``_EPS`` (see :func:`compound_evidence`)."""
+    if compound == "blue":
+        return cv2.log(b) - cv2.log(r)
+    return cv2.log(r) - cv2.log(np.float32(0.5) * (b + g))
+
+
+#: The BGR channel each compound's colour is strongest in.
+OWN_CHANNEL = {"blue": 0, "red": 2}
 
 #: An 8-bit channel at or above this is taken as at its ceiling (clipped).
 CLIPPED = 250
@@ -116,9 +125,7 @@ def rebuilt_highlights(
         changed = True
     if not changed:
         return evidence
-    if compound == "blue":
-        return cv2.log(rebuilt[0]) - cv2.log(rebuilt[2])
-    return cv2.log(rebuilt[2]) - cv2.log(np.float32(0.5) * (rebuilt[0] + rebuilt[1]))
+    return _log_ratio(rebuilt[0], rebuilt[1], rebuilt[2], compound)
 
 
 def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> tuple[str, float]:

@@ -49,6 +49,7 @@ from printcheck.errors import OptionError, PhotoError
 from printcheck.evidence import (
     CLIPPED,
     EVIDENCE_FLOOR,
+    OWN_CHANNEL,
     choose_compound,
     compound_evidence,
     rebuilt_highlights,
@@ -247,7 +248,7 @@ def segment(
     glare = _burnt_out(image) & visible
     valid = visible & ~glare
     stat = analysed & valid
-    glare_fraction = float(np.count_nonzero(glare & analysed)) / max(int(analysed.sum()), 1)
+    glare_fraction = _share(glare, analysed)
     if glare_fraction > 0.05:
         warnings.append(
             f"highlights are burnt out over {100 * glare_fraction:.0f}% of the window; spots "
@@ -257,9 +258,9 @@ def segment(
     washed = None
     if config.compound_on == "reference":
         evidence = rebuilt_highlights(evidence, image, compound, stat)
-        own = image[..., 0 if compound == "blue" else 2] >= CLIPPED
+        own = image[..., OWN_CHANNEL[compound]] >= CLIPPED
         washed = own & visible & ~glare
-        washed_fraction = float(np.count_nonzero(washed & analysed)) / max(int(analysed.sum()), 1)
+        washed_fraction = _share(washed, analysed)
         if washed_fraction > 0.05:
             warnings.append(
                 f"the {compound} of the compound is at its brightest over "
@@ -388,6 +389,11 @@ def _decisions(calls: list[tuple[Any, ...]]) -> list[np.ndarray]:
         _THREADS.append(ThreadPoolExecutor(max_workers=2, thread_name_prefix="decide"))
     later = [_THREADS[0].submit(_decide, *c) for c in calls[1:]]
     return [_decide(*calls[0])] + [f.result() for f in later]
+
+
+def _share(pixels: np.ndarray, of: np.ndarray) -> float:
+    """The share of the ``of`` pixels that ``pixels`` holds."""
+    return float(np.count_nonzero(pixels & of)) / max(int(np.count_nonzero(of)), 1)
 
 
 def _burnt_out(image: np.ndarray) -> np.ndarray:
