@@ -186,9 +186,10 @@ class Segmentation:
         The burnt-out pixels (no colour: what they hide cannot be seen).
     washed : (M, N) bool ndarray or None
         Pixels, not burnt out, whose compound's own channel is at its ceiling (blue of
-        blue compound, red of red): the colour read there is only a lower bound, so a
-        pale contact there may be missed.  Outside the contacts, the measure stage
-        counts them, with the glare, as surface it could not see (its range).
+        blue compound, red of red) and whose colour still reads above the bare metal's:
+        the colour read there is only a lower bound, so more of a pale contact may lie
+        there than was found.  Outside the contacts, the measure stage counts them,
+        with the glare, as surface it could not see (its range).
     part_px : float
         Photo pixels of bare metal two neighbouring contacts needed between them for
         this segmentation to part them (the measure stage's ``part_px``):
@@ -323,6 +324,10 @@ def segment(
         local_mm=config.local_mm,
         compound_on=config.compound_on,
     )
+    if washed is not None:
+        # of the washed pixels, those whose colour reads above the bare metal's: a trace
+        # of compound, of which the ceiling may hide more
+        washed = washed & (field.z >= 2.0)
     if config.compound_on == "reference":
         field = with_relief(
             with_edge(field, s),
