@@ -38,6 +38,7 @@ __all__ = [
     "choose_compound",
     "level_maps",
     "block_quantiles",
+    "block_read",
     "fill_and_smooth",
 ]
 
@@ -252,6 +253,12 @@ def block_quantiles(
     return out, count
 
 
+def block_read(block: int) -> int:
+    """How many pixels of a full block of ``block`` pixels :func:`block_quantiles`
+    reads (every k-th row and column of a block over 24)."""
+    return len(range(0, block, max(1, block // 24))) ** 2
+
+
 def fill_and_smooth(grid: np.ndarray, weight: np.ndarray, sigma: float) -> np.ndarray:
     """Normalised convolution: ``grid`` smoothed where ``weight`` > 0 and filled elsewhere.
 
@@ -317,7 +324,7 @@ def level_maps(
         their neighbours.
     """
     q, count = block_quantiles(evidence, bare, block, (0.05, 0.5))
-    ok = count >= 0.25 * block * block
+    ok = count >= 0.25 * block_read(block)
     if not ok.any():
         ok = count > 0
     weight = ok.astype(np.float32)
@@ -326,7 +333,7 @@ def level_maps(
     qs, count_s = block_quantiles(
         smoothed - upsample(level, block, evidence.shape), bare, block, (0.05, 0.5)
     )
-    ok_s = count_s >= 0.25 * block * block
+    ok_s = count_s >= 0.25 * block_read(block)
     if not ok_s.any():
         ok_s = count_s > 0
     sigma_s = _noise_grid(qs[1] - qs[0], ok_s)

@@ -493,3 +493,17 @@ def test_the_segmentation_says_what_its_contacts_need_between_them(spots, visibl
         config=SegmentConfig(px_per_mm=S, compound_on="work"),
     )
     assert work.part_px == PART_ON_COLOUR_PX == 3.0
+
+
+@pytest.mark.parametrize("block", [8, 24, 25, 48, 80, 100])
+def test_a_full_block_is_read_as_block_read_says(block: int) -> None:
+    # the share-of-bare tests compare a block's read pixels with what a full block reads:
+    # over 24 px a block is read on every k-th row and column, so a full block counts
+    # len(range(0, block, k)) squared pixels (k = block // 24), not block squared
+    from printcheck.evidence import block_quantiles, block_read
+
+    values = np.random.default_rng(1).random((2 * block, 3 * block)).astype(np.float32)
+    _, count = block_quantiles(values, np.ones(values.shape, bool), block, (0.5,))
+    assert (count == block_read(block)).all()
+    k = max(1, block // 24)
+    assert block_read(block) == values[:block:k, :block:k].size
