@@ -221,14 +221,7 @@ def _rejoined(mask: np.ndarray, labels: np.ndarray, height: np.ndarray, r: int) 
     those lobes adds of their contact's own pixels, where it touches two lobes of it; a
     gap is carved again wherever two contacts would touch): the valleys between them
     decided they are one contact, and the rim alone does not part it in two."""
-    n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
-    if n <= 2:
-        return mask
-    idx = flat_where(mask)
-    owner = np.zeros(n, np.int64)
-    owner[pieces.ravel()[idx]] = labels.ravel()[idx]
-    multi = np.bincount(owner[1:], minlength=int(labels.max()) + 1) > 1
-    multi[0] = False
+    n, pieces, _, owner, multi = _pieces_of(mask, flat_where(mask), labels)
     if not multi.any():
         return mask
     lobes = mask & multi[labels]
@@ -293,18 +286,10 @@ def _drop_crumbs(
     share: it is contact too (the rim says where contact ends), not a crumb to drop."""
     mask = np.zeros(labels.shape, bool)
     mask.ravel()[idx] = True
-    n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
-    if n <= 1:
-        return mask
-    piece = pieces.ravel()[idx]
-    lab = labels.ravel()[idx]
-    owner = np.zeros(n, np.int64)
-    owner[piece] = lab
-    per_label = np.bincount(owner[1:], minlength=int(labels.max()) + 1)
-    split = per_label > 1
-    split[0] = False
+    n, pieces, piece, owner, split = _pieces_of(mask, idx, labels)
     if not split.any():
         return mask
+    lab = labels.ravel()[idx]
     sel = split[lab]
     flat = idx[sel]
     lab_f = lab[sel]
@@ -321,6 +306,22 @@ def _drop_crumbs(
         keep |= seeded & (size >= np.maximum(lobe_px, _LOBE_SHARE * whole))
     mask.ravel()[idx[~keep[piece]]] = False
     return mask
+
+
+def _pieces_of(
+    mask: np.ndarray, idx: np.ndarray, labels: np.ndarray
+) -> tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The 8-connected pieces of ``mask`` (its pixels ``idx``, flat) and the contacts of
+    ``labels`` they belong to: (number of pieces with the background, the pieces' label
+    image, each pixel's piece, each piece's contact, which contacts are in more than one
+    piece)."""
+    n, pieces = cv2.connectedComponents(mask.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    piece = pieces.ravel()[idx]
+    owner = np.zeros(n, np.int64)
+    owner[piece] = labels.ravel()[idx]
+    split = np.bincount(owner[1:], minlength=int(labels.max()) + 1) > 1
+    split[0] = False
+    return n, pieces, piece, owner, split
 
 
 def _label_max(lab: np.ndarray, values: np.ndarray, n: int) -> np.ndarray:
