@@ -354,7 +354,7 @@ def segment(
     if config.compound_on == "reference":
         # the loosest decision's seeds and growth, and its watershed, serve all three
         loose = _seeds_and_growth(field, more)
-        cut = watershed_regions(loose[1], _cut_height(field), px_per_mm=s, seeds=loose[0])
+        cut = watershed_regions(loose[1], _cut_on(field).height, px_per_mm=s, seeds=loose[0])
     # the rim share decides the bearing: its step sets how wide the bearing's range is
     rim_step = 1.0 + 0.4 * config.nudge
     mask, *alternates = _decisions(
@@ -364,8 +364,7 @@ def segment(
             (field, more, s, rim / rim_step, cut, loose),
         ]
     )
-    parted_on = PART_ON_COLOUR_PX if field.relief is None else PART_ON_BRIGHTNESS_PX
-    return result(mask, tuple(alternates), level, field.noise, parted_on)
+    return result(mask, tuple(alternates), level, field.noise, _cut_on(field).part_px)
 
 
 _THREADS: list[ThreadPoolExecutor] = []  # made on first use, one per process
@@ -467,15 +466,15 @@ def _decide(
         assert cut is not None
         seeds, grown_px = grown if grown is not None else _seeds_and_growth(field, config)
         regions, n = cut
+        on = _cut_on(field)
         labels = merge_regions(
             np.where(grown_px, regions, 0),
             n,
-            _cut_height(field),
+            on.height,
             split_share=config.split_share,
-            min_dip=3.0 * (field.noise if field.relief is None else field.relief_noise),
+            min_dip=3.0 * on.noise,
             px_per_mm=s,
-            # by the brightness, each lobe must itself be dark, not a fringe of colour
-            min_low=-math.inf if field.relief is None else 5.0 * field.relief_noise,
+            min_low=on.min_low,
         )
         mask = finish(
             labels,
@@ -538,11 +537,24 @@ def with_edge(field: Field, px_per_mm: float) -> Field:
 _REJOIN_MM = 0.25
 
 
-def _cut_height(field: Field) -> np.ndarray:
-    """What contacts are cut apart on: the brightness's relief where the compound
-    darkens the metal (it keeps the detail the colour lost), else the colour evidence
-    smoothed at spot scale."""
-    return field.smooth if field.relief is None else field.relief
+@dataclass(frozen=True)
+class _CutOn:
+    """What touching contacts are cut apart on: a height, its noise, and how high the
+    lower of two lobes must itself stand (-inf: no bound)."""
+
+    height: np.ndarray
+    noise: float
+    min_low: float
+    part_px: float
+
+
+def _cut_on(field: Field) -> _CutOn:
+    """The brightness's relief where the compound darkens the metal (it keeps the
+    detail the colour lost; each lobe must itself be dark there, not a fringe of
+    colour), else the colour evidence smoothed at spot scale."""
+    if field.relief is None:
+        return _CutOn(field.smooth, field.noise, -math.inf, PART_ON_COLOUR_PX)
+    return _CutOn(field.relief, field.relief_noise, 5.0 * field.relief_noise, PART_ON_BRIGHTNESS_PX)
 
 
 def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, np.ndarray]:
