@@ -39,6 +39,7 @@ __all__ = [
     "level_maps",
     "block_quantiles",
     "block_read",
+    "well_read",
     "fill_and_smooth",
 ]
 
@@ -259,6 +260,16 @@ def block_read(block: int) -> int:
     return len(range(0, block, max(1, block // 24))) ** 2
 
 
+def well_read(count: np.ndarray, block: int, *, any_if_none: bool = True) -> np.ndarray:
+    """The blocks a level may be read from: those of which :func:`block_quantiles` read
+    at least a quarter of a full block's pixels (``count``); where there is none, with
+    ``any_if_none``, every block with a pixel."""
+    ok = count >= 0.25 * block_read(block)
+    if any_if_none and not ok.any():
+        return np.asarray(count > 0)
+    return np.asarray(ok)
+
+
 def fill_and_smooth(grid: np.ndarray, weight: np.ndarray, sigma: float) -> np.ndarray:
     """Normalised convolution: ``grid`` smoothed where ``weight`` > 0 and filled elsewhere.
 
@@ -324,18 +335,14 @@ def level_maps(
         their neighbours.
     """
     q, count = block_quantiles(evidence, bare, block, (0.05, 0.5))
-    ok = count >= 0.25 * block_read(block)
-    if not ok.any():
-        ok = count > 0
+    ok = well_read(count, block)
     weight = ok.astype(np.float32)
     level = fill_and_smooth(q[1], weight, 1.5)
     sigma = _noise_grid(q[1] - q[0], ok)
     qs, count_s = block_quantiles(
         smoothed - upsample(level, block, evidence.shape), bare, block, (0.05, 0.5)
     )
-    ok_s = count_s >= 0.25 * block_read(block)
-    if not ok_s.any():
-        ok_s = count_s > 0
+    ok_s = well_read(count_s, block)
     sigma_s = _noise_grid(qs[1] - qs[0], ok_s)
     shape = evidence.shape
     return LevelMaps(

@@ -20,10 +20,10 @@ from printcheck.evidence import (
     EVIDENCE_FLOOR,
     LevelMaps,
     block_quantiles,
-    block_read,
     fill_and_smooth,
     level_maps,
     upsample,
+    well_read,
 )
 
 __all__ = ["Field", "contact_field", "with_relief"]
@@ -88,9 +88,7 @@ def contact_field(
     shape = evidence.shape
     coarse = max(8, int(round(5.0 * s)))
     q, count = block_quantiles(evidence, stat, coarse, (0.05, 0.5))
-    ok = count >= 0.25 * block_read(coarse)
-    if not ok.any():
-        ok = count > 0
+    ok = well_read(count, coarse)
     first = upsample(fill_and_smooth(q[1], ok.astype(np.float32), 1.0), coarse, shape)
     noise0 = max(float(np.median((q[1] - q[0])[ok])) / 1.645, EVIDENCE_FLOOR)
     smoothed = cv2.GaussianBlur(evidence, (0, 0), max(spot_mm * s, 0.35))
@@ -269,7 +267,7 @@ def with_relief(
     bare = stat & (field.z < 2.0)
     block = max(4, int(round(background_mm * s)))
     q, count = block_quantiles(log_b, bare, block, (0.5, 0.95))
-    ok = count >= 0.25 * block_read(block)
+    ok = well_read(count, block, any_if_none=False)
     if not ok.any():
         return field
     level = upsample(fill_and_smooth(q[0], ok.astype(np.float32), 1.5), block, log_b.shape)
