@@ -51,7 +51,7 @@ from printcheck.records import (
 )
 from printcheck.spec import Spec
 from printcheck.units import to_mm
-from printcheck.wording import density_words, num
+from printcheck.wording import cell_words, num
 
 __all__ = [
     "MIN_PASSES",
@@ -307,8 +307,7 @@ def build_progress(
 
 
 def _per(progress: Progress) -> str:
-    unit = progress.unit or "in"
-    return density_words(to_mm(progress.cell or 1.0, unit), unit)
+    return cell_words(progress.cell, progress.unit)
 
 
 def projection_words(progress: Progress) -> str:

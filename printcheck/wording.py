@@ -22,7 +22,7 @@ import math
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from printcheck.units import MM_PER_IN, convert_density
+from printcheck.units import MM_PER_IN, convert_density, to_mm
 
 if TYPE_CHECKING:
     from printcheck.guidance import Advice
@@ -114,6 +114,22 @@ def density_words(cell_mm: float, unit: str = "mm") -> str:
     if unit == "in":
         return f"points per {num(cell_mm / MM_PER_IN, 3)} in square"
     return f"points per {num(cell_mm, 2)} mm square"
+
+
+def cell_words(cell: float | None, unit: str | None) -> str:
+    """The density unit in words for a counting square of side ``cell`` in ``unit``
+    (a job's or a record's; None: the 1 in square and inches).
+
+    >>> cell_words(25.0, "mm"), cell_words(None, None)
+    ('points per 25 mm square', 'points per square inch')
+    """
+    u = unit or "in"
+    return density_words(to_mm(cell or 1.0, u), u)
+
+
+def sentence(words: str) -> str:
+    """``words`` with a capital first letter (a line made of words for people)."""
+    return words[:1].upper() + words[1:]
 
 
 def length_words(value_mm: float, unit: str) -> str:

@@ -71,6 +71,12 @@ CSV_COLUMNS: tuple[str, ...] = (
 _FORBIDDEN = set('/\\\x00:*?"<>|')
 
 
+def plain_name(text: str) -> str:
+    """``text`` with the characters that could leave a folder or upset another system
+    (``/ \\ : * ? " < > |`` and control characters) made ``_``, stripped of spaces."""
+    return "".join("_" if (ch in _FORBIDDEN or ord(ch) < 32) else ch for ch in text).strip()
+
+
 def output_name(photo: str, suffix: str) -> str:
     """The output file name for ``photo``: its stem plus ``suffix`` (e.g. ``".json"``).
 
@@ -87,7 +93,7 @@ def output_name(photo: str, suffix: str) -> str:
     base = str(photo)
     head, dot, ext = base.rpartition(".")
     stem = head if dot and head.strip(".") and not set(ext) & {"/", "\\"} else base
-    clean = "".join("_" if (ch in _FORBIDDEN or ord(ch) < 32) else ch for ch in stem).strip()
+    clean = plain_name(stem)
     if not clean.strip("."):
         clean = "_"
     return clean + suffix

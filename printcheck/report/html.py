@@ -55,7 +55,7 @@ def render_report(
     from printcheck.progress import projection_words
     from printcheck.report.plots import trend_png
     from printcheck.report.templating import render
-    from printcheck.wording import fixed
+    from printcheck.wording import fixed, sentence
 
     folder_path = None if folder is None else Path(folder)
     numbers, stations = _places(passes, progress)
@@ -75,7 +75,7 @@ def render_report(
     projection = trend_src = None
     if progress is not None:
         words = projection_words(progress)
-        projection = words[:1].upper() + words[1:]
+        projection = sentence(words)
         if progress.passes:
             trend_src = data_uri(trend_png(progress))
     csv = folder_path is not None and (folder_path / CSV_NAME).is_file()

@@ -12,7 +12,7 @@ from typing import Any
 
 from printcheck.records import Progress, ProgressRow
 from printcheck.units import to_mm
-from printcheck.wording import density_words, num
+from printcheck.wording import cell_words, density_words, num
 
 __all__ = ["trend_png", "warm_up"]
 
@@ -124,8 +124,7 @@ def _density_panel(ax: Any, progress: Progress) -> None:
                 color=_BLUE,
             )
         ax.plot(mid, target, "D", ms=6, color=_BLUE)
-    unit = progress.unit or "in"
-    ax.set_ylabel(density_words(to_mm(progress.cell or 1.0, unit), unit))
+    ax.set_ylabel(cell_words(progress.cell, progress.unit))
     ax.set_title("Density", loc="left", fontsize=10)
     tops = [p.density for p in passes if p.density is not None]
     if target is not None:

@@ -31,7 +31,14 @@ from printcheck.errors import OptionError, ReportError
 from printcheck.records import CellSummary, PassSummary, Progress, ProgressRow, StoredPass
 from printcheck.report.views import data_uri
 from printcheck.spec import Spec
-from printcheck.wording import TargetLine, cell_share_words, fixed, target_lines
+from printcheck.wording import (
+    TargetLine,
+    cell_share_words,
+    cell_words,
+    fixed,
+    sentence,
+    target_lines,
+)
 
 if TYPE_CHECKING:
     from jinja2 import Environment
@@ -67,7 +74,6 @@ CHROMIUM_ENV = "PRINTCHECK_CHROMIUM"
 CHROMIUM_NAMES = ("chromium", "chromium-browser", "google-chrome")
 
 _VERDICT = {True: ("meets", "ok"), False: ("does not meet", "short"), None: ("not judged", "none")}
-_FORBIDDEN = set('/\\\x00:*?"<>|')
 _PRINT_TIMEOUT_S = 120.0
 
 
@@ -139,8 +145,9 @@ def sheet_name(surface: str, suffix: str) -> str:
     |`` and control characters) become ``_``: ``lathe-1/front-way`` gives
     ``sheet-lathe-1_front-way.html``.
     """
-    clean = "".join("_" if (ch in _FORBIDDEN or ord(ch) < 32) else ch for ch in surface).strip()
-    return f"sheet-{clean or '_'}{suffix}"
+    from printcheck.report.files import plain_name
+
+    return f"sheet-{plain_name(surface) or '_'}{suffix}"
 
 
 def _when(taken: datetime | None, *, time: bool = True) -> str:
@@ -219,14 +226,12 @@ def _spec_lines(spec: Spec | None) -> list[TargetLine]:
 
 def _job_target(progress: Progress, spec: Spec | None) -> str:
     """The spec's density targets in the job's own unit and cell, in words (or ``""``)."""
-    from printcheck.units import to_mm
-    from printcheck.wording import density_words, num
+    from printcheck.wording import num
 
     t = progress.targets
     if spec is None or t.density is None:
         return ""
-    unit = progress.unit or "in"
-    per = density_words(to_mm(progress.cell or 1.0, unit), unit)
+    per = cell_words(progress.cell, progress.unit)
     words = f"at least {num(t.density, 1)} {per}"
     if spec.min_density is not None:
         words += " on average"
@@ -248,9 +253,9 @@ def _cell_map(
     from printcheck.guidance import cell_label
     from printcheck.report.views import CELL_COLOURS, density_class, drawn_cells
     from printcheck.units import to_mm
-    from printcheck.wording import density_words, num
+    from printcheck.wording import num
 
-    per = density_words(to_mm(summary.cell, summary.unit), summary.unit)
+    per = cell_words(summary.cell, summary.unit)
     if not cells:
         return (), (), f"no cells ({per})"
     target = None
@@ -375,8 +380,6 @@ def render_sheet(
     from printcheck import __version__
     from printcheck.progress import projection_words
     from printcheck.report.plots import trend_png
-    from printcheck.units import to_mm
-    from printcheck.wording import density_words
 
     if paper not in PAPERS:
         raise OptionError(f"--paper must be one of {', '.join(PAPERS)}, got {paper!r}")
@@ -385,7 +388,6 @@ def render_sheet(
     size, margins = PAPERS[paper]
     machine, _, name = surface.rpartition("/")
     rows = progress.passes
-    unit = progress.unit or "in"
     latest = rows[-1]
     verdict, state = _VERDICT[latest.meets]
     words = projection_words(progress)
@@ -406,8 +408,8 @@ def render_sheet(
         "verdict": verdict,
         "state": state,
         "worst_station": latest.worst_station if len(latest.stations) > 1 else None,
-        "projection": words[:1].upper() + words[1:] + ".",
-        "per": density_words(to_mm(progress.cell or 1.0, unit), unit),
+        "projection": sentence(words) + ".",
+        "per": cell_words(progress.cell, progress.unit),
         "job_target": _job_target(progress, spec),
         "lines": _verdict_lines(progress, stored),
         "prints": _latest_prints(progress, stored, spec, out),

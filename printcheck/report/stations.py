@@ -86,10 +86,9 @@ def _station_projection(progress: Progress, s: StationProgress) -> str:
 
 def stations_view(progress: Progress) -> StationsView:
     """The stations strip and notes of ``progress``, for the ``stations`` macro."""
-    from printcheck.units import to_mm
-    from printcheck.wording import density_words
+    from printcheck.wording import cell_words
 
-    per = density_words(to_mm(progress.cell or 1.0, progress.unit or "in"), progress.unit or "in")
+    per = cell_words(progress.cell, progress.unit)
     if not progress.stations:
         notes = [(r.number, r.note) for r in progress.passes if r.note]
         return StationsView([], per, [], "", [], notes)

@@ -21,8 +21,8 @@ from printcheck.units import to_mm
 from printcheck.wording import (
     advice_words,
     bearing_words,
+    cell_words,
     check_label,
-    density_words,
     fixed,
     num,
     range_words,
@@ -124,7 +124,7 @@ def _bearing_colour(value: float, lo: float | None, hi: float | None) -> str:
 
 def _per(summary: PassSummary) -> str:
     """The density unit of ``summary`` in words."""
-    return density_words(to_mm(summary.cell, summary.unit), summary.unit)
+    return cell_words(summary.cell, summary.unit)
 
 
 def _points(n: int) -> str:

@@ -29,6 +29,7 @@ from printcheck.report.views import legend_items
 from printcheck.web.measurer import DONE, FAILED, Measurer
 from printcheck.web.security import AccessCode, csrf_ok, csrf_token, keep_csrf
 from printcheck.web.uploads import UploadIndex, check_photo_bytes, store_upload
+from printcheck.wording import sentence
 
 __all__ = ["WebConfig", "create_app"]
 
@@ -81,8 +82,7 @@ class SurfaceView:
 
 def _surface_view(history: Any, name: str) -> SurfaceView | None:
     from printcheck.progress import history_progress, projection_words, surface_spec
-    from printcheck.units import to_mm
-    from printcheck.wording import density_words
+    from printcheck.wording import cell_words
 
     stored = history.passes(name)
     if not stored:
@@ -91,10 +91,9 @@ def _surface_view(history: Any, name: str) -> SurfaceView | None:
     spec = surface_spec(stored)
     progress = history_progress(name, stored, spec=spec)
     words = projection_words(progress)
-    unit = progress.unit or "in"
-    per = density_words(to_mm(progress.cell or 1.0, unit), unit)
+    per = cell_words(progress.cell, progress.unit)
     latest = progress.passes[-1]
-    return SurfaceView(name, stored, progress, words[:1].upper() + words[1:], latest, spec, per)
+    return SurfaceView(name, stored, progress, sentence(words), latest, spec, per)
 
 
 def _read(db: Path, work: Any) -> Any:
@@ -265,7 +264,7 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
             path = await run_in_threadpool(store_upload, config.out, data, checked)
         except PhotoError as exc:
             text = str(exc)
-            return problem(request, text[:1].upper() + text[1:] + ".", 415)
+            return problem(request, sentence(text) + ".", 415)
         except PrintcheckError as exc:
             return problem(request, str(exc), 500)
         await run_in_threadpool(
