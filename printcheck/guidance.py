@@ -45,8 +45,7 @@ __all__ = [
     "largest_bare",
 ]
 
-#: The kinds of place the advice names, in the words the outputs use.
-#: What to do at each kind of place.
+#: What to do at each kind of place the advice names, in the words the outputs use.
 ACTIONS = {
     "heavy bearing": "break up",
     "oversized spot": "split it",
