@@ -222,6 +222,28 @@ def test_the_pass_page_lays_the_print_on_the_pass_before(server: Server, small_j
     assert (maps / f"{hashlib.sha256(second).hexdigest()}.png").is_file()
 
 
+def test_a_photo_sent_at_a_station_keeps_its_place_in_its_contact_map(
+    server: Server, small_job: Any
+) -> None:
+    # batch records each photo's station and pass in its contact map, and the change
+    # since the pass before is only drawn between maps of one station; a photo sent from
+    # the phone keeps its place there too, or it would never be compared with a pass
+    # that batch recorded at that station
+    from printcheck.compare import CONTACTS_FOLDER, contacts_name, read_contacts
+
+    folder, photos = small_job
+    body = _reencoded(folder / photos[0].file, 91)
+    with server.client() as client:
+        location = _send(client, body, surface="placed-way", station="middle").headers[
+            "location"
+        ]
+        assert _wait(client, location)["state"] == "done"
+    sha = hashlib.sha256(body).hexdigest()
+    cmap = read_contacts(server.out / CONTACTS_FOLDER / contacts_name(sha))
+    assert cmap.station == "middle"
+    assert cmap.pass_key is not None
+
+
 def test_stations_sent_one_after_another_make_one_pass(server: Server, small_job: Any) -> None:
     # the fitter walks the bed after a pass, station by station, then scrapes and walks
     # it again: the first round is one pass of two stations, the next starts a pass

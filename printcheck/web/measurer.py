@@ -198,13 +198,14 @@ class Measurer:
         """Record the photo for ``job.surface`` (at ``job.station``, in the pass
         :func:`web_pass` gives), with the settings and method it was measured by, as
         ``batch`` records a photo."""
+        from printcheck.compare import place_contacts
         from printcheck.history import open_history
         from printcheck.method import METHOD_VERSION
         from printcheck.stations import settings_key
 
         with self._record_lock, open_history(self.db) as history:
             key = web_pass(history.passes(job.surface), job, time.time())
-            return history.record(
+            recorded = history.record(
                 summary,
                 surface=job.surface,
                 spec=options.spec,
@@ -213,6 +214,12 @@ class Measurer:
                 settings=settings_key(options),
                 method=METHOD_VERSION,
             )
+        if summary.sha256:
+            # where the photo stands, in its contact map as batch keeps it: a photo sent
+            # from the phone at a station is compared with that station's pass before,
+            # whether batch or the phone recorded it
+            place_contacts(self.out, summary.sha256, station=job.station, pass_key=key)
+        return recorded
 
     def _fail(self, job: Job, message: str) -> None:
         with self._lock:
