@@ -439,22 +439,22 @@ def _saddles(
     """
     padded = np.pad(regions, 1)
     flat = padded.ravel()
-    hf = np.pad(height, 1).ravel().astype(np.float64)
+    hf = np.pad(height, 1).ravel()  # in its own type: the saddles are its values
     width = padded.shape[1]
     idx = at + 2 * (at // regions.shape[1]) + width + 1
-    here = flat[idx].astype(np.int64)
+    here = flat[idx]
     keys_l, vals_l = [], []
     for off in (1, width - 1, width, width + 1):
-        nb = flat[idx + off].astype(np.int64)
+        nb = flat[idx + off]
         sel = (nb != 0) & (nb != here)
         if sel.any():
-            a, b = here[sel], nb[sel]
+            a, b = here[sel].astype(np.int64), nb[sel].astype(np.int64)
             keys_l.append(np.minimum(a, b) * (n + 1) + np.maximum(a, b))
             vals_l.append(np.minimum(hf[idx[sel]], hf[idx[sel] + off]))
     if not keys_l:
         return np.zeros(0, np.int64), np.zeros(0)
     keys = np.concatenate(keys_l)
-    vals = np.concatenate(vals_l)
+    vals = np.concatenate(vals_l).astype(np.float64)
     order = np.argsort(keys, kind="stable")
     keys, vals = keys[order], vals[order]
     starts = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])

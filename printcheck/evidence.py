@@ -27,6 +27,7 @@ import cv2
 import numpy as np
 
 from printcheck.errors import OptionError
+from printcheck.ranks import median
 
 __all__ = [
     "EVIDENCE_FLOOR",
@@ -120,7 +121,7 @@ def rebuilt_highlights(
         sel = where & ~clipped[lost] & ~clipped[kept]
         if np.count_nonzero(sel) < 64:
             continue
-        ratio = np.float32(np.median(rebuilt[lost][sel] / rebuilt[kept][sel]))
+        ratio = np.float32(median(rebuilt[lost][sel] / rebuilt[kept][sel]))
         rebuilt[lost] = np.where(
             lone, np.maximum(rebuilt[lost], ratio * rebuilt[kept]), rebuilt[lost]
         )
@@ -234,10 +235,17 @@ def block_quantiles(
     rows, cols = values.shape
     by, bx = max(1, math.ceil(rows / block)), max(1, math.ceil(cols / block))
     step = max(1, block // 24)
-    padded = np.full((by * block, bx * block), np.inf, np.float32)
-    padded[:rows, :cols] = np.where(where, values, np.inf)
-    sub = padded.reshape(by, block, bx, block)[:, ::step, :, ::step]
-    blocks = sub.transpose(0, 2, 1, 3).reshape(by, bx, -1)
+    # the rows and columns read: every step-th of each block, those inside the image
+    # picked before anything is masked (a fraction 1 / step**2 of the pixels)
+    read = np.arange(0, block, step)
+    r_at = (np.arange(by)[:, None] * block + read).ravel()
+    c_at = (np.arange(bx)[:, None] * block + read).ravel()
+    r_in, c_in = r_at[r_at < rows], c_at[c_at < cols]
+    if step > 1:
+        values, where = values[np.ix_(r_in, c_in)], where[np.ix_(r_in, c_in)]
+    padded = np.full((r_at.size, c_at.size), np.inf, np.float32)
+    padded[: r_in.size, : c_in.size] = np.where(where, values, np.inf)
+    blocks = padded.reshape(by, read.size, bx, read.size).transpose(0, 2, 1, 3).reshape(by, bx, -1)
     count = np.count_nonzero(np.isfinite(blocks), axis=2)
     ordered = np.sort(blocks, axis=2)  # the pixels outside ``where`` (inf) sort last
     out = np.full((len(quantiles), by, bx), np.nan, np.float32)

@@ -25,6 +25,7 @@ from printcheck.evidence import (
     upsample,
     well_read,
 )
+from printcheck.ranks import median, quantile
 
 __all__ = ["Field", "contact_field", "with_relief"]
 
@@ -108,7 +109,7 @@ def contact_field(
         )
     score = evidence - maps.bare
     smooth = smoothed - maps.bare
-    noise = float(np.median(maps.sigma_spot[stat]))
+    noise = median(maps.sigma_spot[stat])
     zs = (smooth / maps.sigma_spot).astype(np.float32)
     if compound_on == "reference":
         strong = zs >= 2.0 * seed_sigma
@@ -198,7 +199,7 @@ def _compound_level(
     # the top 2 % of the window, or on a sparse print the share that is clearly marked
     # (ten noise levels up), so that a print of a few spots is not judged by its noise
     top = min(max(float(np.count_nonzero(strong[stat])) / max(v.size, 1), 0.002), 0.02)
-    typical = float(np.median(v[v >= np.quantile(v, 1.0 - top)])) if v.size else 0.0
+    typical = median(v[v >= quantile(v, 1.0 - top)]) if v.size else 0.0
     block = max(8, int(round(local_mm * s)))
     q, count = block_quantiles(smooth, valid, block, (0.98,))
     has = (count > 0) & (np.nan_to_num(q[0]) > 0.3 * typical)
@@ -221,9 +222,9 @@ def _coat_depth(
     deepest); the depth is the local coat level less it.
     """
     v = smooth[stat]
-    top = float(np.median(v[v >= np.quantile(v, 0.98)])) if v.size else 0.0
+    top = median(v[v >= quantile(v, 0.98)]) if v.size else 0.0
     clear = stat & (smooth >= 0.5 * top)
-    metal = float(np.median(evidence[clear])) if clear.any() else float(np.max(evidence[stat]))
+    metal = median(evidence[clear]) if clear.any() else float(np.max(evidence[stat]))
     return np.maximum(metal - coat, 0.05).astype(np.float32)
 
 
@@ -276,6 +277,6 @@ def with_relief(
     # the middles of the strongly coloured marks (their colour, blurred wider than their
     # darkness, reaches past their edges)
     strong = (field.zs >= 10.0) & field.valid
-    if np.count_nonzero(strong) < 20 or np.quantile(relief[strong], 0.9) < _RELIEF_CONTRAST * noise:
+    if np.count_nonzero(strong) < 20 or quantile(relief[strong], 0.9) < _RELIEF_CONTRAST * noise:
         return field
     return replace(field, relief=relief, relief_noise=noise)

@@ -26,8 +26,6 @@ is thresholded on the evidence itself, with a warning.
 from __future__ import annotations
 
 import math
-import os
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
 from typing import Any, Literal
 
@@ -55,6 +53,8 @@ from printcheck.evidence import (
     rebuilt_highlights,
 )
 from printcheck.field import Field, contact_field, with_relief
+from printcheck.ranks import median, quantile, quantiles
+from printcheck.sparecore import on_spare_core
 
 __all__ = ["SegmentConfig", "Segmentation", "segment", "compound_evidence"]
 
@@ -337,7 +337,7 @@ def segment(
             spot_mm=config.spot_mm,
             background_mm=config.background_mm,
         )
-    level = float(np.median(field.local[stat]))
+    level = median(field.local[stat])
     if level / field.noise < _NO_COMPOUND_CONTRAST:
         # the strongest marks are no stronger than the metal's own colour noise: there is
         # no compound to find (a print that was not spotted, or a photo without colour)
@@ -367,31 +367,12 @@ def segment(
     return result(mask, tuple(alternates), level, field.noise, _cut_on(field).part_px)
 
 
-_THREADS: list[ThreadPoolExecutor] = []  # made on first use, one per process
-# Two decisions at once hold two sets of temporaries, about 45 bytes a pixel more: only
-# up to 3 MP (a card's window at phone resolution; not a whole way's, which would pass
-# 1 GB in a 24 MP photo).
-_PARALLEL_MAX_PX = 3_000_000
-
-
 def _decisions(calls: list[tuple[Any, ...]]) -> list[np.ndarray]:
-    """:func:`_decide` of each of ``calls``; side by side on two threads where OpenCV may
-    use more than one (not in a batch's workers, which hold it to one: one photo a core)
-    and the window is small enough (:data:`_PARALLEL_MAX_PX`).
-
-    The decisions only read the shared field, and NumPy and OpenCV release the GIL in
-    their loops, so the threads overlap (about 0.7 times the time on 2 cores).
-    """
-    field = calls[0][0]
-    if (
-        cv2.getNumThreads() <= 1
-        or (os.cpu_count() or 1) <= 1
-        or field.score.size > _PARALLEL_MAX_PX
-    ):
-        return [_decide(*c) for c in calls]
-    if not _THREADS:
-        _THREADS.append(ThreadPoolExecutor(max_workers=2, thread_name_prefix="decide"))
-    later = [_THREADS[0].submit(_decide, *c) for c in calls[1:]]
+    """:func:`_decide` of each of ``calls``, the alternates on a spare core where one
+    helps (:func:`printcheck.sparecore.on_spare_core`: the decisions only read the shared
+    field; about 0.7 times the time on 2 cores)."""
+    pixels = calls[0][0].score.size
+    later = [on_spare_core(pixels, _decide, *c) for c in calls[1:]]
     return [_decide(*calls[0])] + [f.result() for f in later]
 
 
@@ -440,9 +421,9 @@ def _colour(
 def _covered(evidence: np.ndarray, stat: np.ndarray) -> tuple[float, float, float] | None:
     """Thresholds (main, fewer, more) when compound covers the window, else None."""
     v = evidence[stat]
-    if not np.quantile(v[::7], 0.2) > _COVERED_EVIDENCE:
+    if not quantile(v[::7], 0.2) > _COVERED_EVIDENCE:
         return None
-    q20, q50 = np.quantile(v, [0.2, 0.5])
+    q20, q50 = quantiles(v, (0.2, 0.5))
     if not q20 > _COVERED_EVIDENCE:
         return None
     t = 0.5 * float(q50)
@@ -497,7 +478,7 @@ def _decide(
             worn_s,
             px_per_mm=s,
             split_share=config.split_share,
-            min_dip=3.0 * float(np.median(field.noise / field.local[field.valid])),
+            min_dip=3.0 * median(field.noise / field.local[field.valid]),
             rim_share=None,
             large_lobes_deeper=False,
         )

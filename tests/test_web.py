@@ -234,9 +234,7 @@ def test_a_photo_sent_at_a_station_keeps_its_place_in_its_contact_map(
     folder, photos = small_job
     body = _reencoded(folder / photos[0].file, 91)
     with server.client() as client:
-        location = _send(client, body, surface="placed-way", station="middle").headers[
-            "location"
-        ]
+        location = _send(client, body, surface="placed-way", station="middle").headers["location"]
         assert _wait(client, location)["state"] == "done"
     sha = hashlib.sha256(body).hexdigest()
     cmap = read_contacts(server.out / CONTACTS_FOLDER / contacts_name(sha))

@@ -1,0 +1,50 @@
+"""Work handed to a second core while the caller goes on, where that helps.
+
+Inspect runs one photo at a time in a terminal or the web application, on a machine with
+two cores or more; parts of the segment and measure stages are independent of each other
+(the decisions nudged for the range, and what is measured of them) and NumPy and OpenCV
+release the GIL in their loops, so a thread beside the caller's overlaps them.  Not in a
+batch's workers, which hold OpenCV to one thread (one photo a core): there, and for
+windows too large to hold two sets of temporaries at once, the work is done at once in
+the caller's thread, with the same result.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from concurrent.futures import Future, ThreadPoolExecutor
+from typing import ParamSpec, TypeVar
+
+import cv2
+
+__all__ = ["PARALLEL_MAX_PX", "on_spare_core"]
+
+P = ParamSpec("P")
+T = TypeVar("T")
+
+#: Two decisions at once hold two sets of temporaries, about 45 bytes a pixel more: only
+#: up to 3 MP (a card's window at phone resolution; not a whole way's, which would pass
+#: 1 GB in a 24 MP photo).
+PARALLEL_MAX_PX = 3_000_000
+
+_POOL: list[ThreadPoolExecutor] = []  # made on first use, one per process
+
+
+def on_spare_core(pixels: int, fn: Callable[P, T], *args: P.args, **kwargs: P.kwargs) -> Future[T]:
+    """``fn(*args, **kwargs)`` on a thread of a shared pool of two, or, where that does
+    not help (one core, OpenCV held to one thread, more than :data:`PARALLEL_MAX_PX`
+    ``pixels``), at once in this thread; its result (or exception) from ``.result()``.
+
+    ``fn`` must only read what it shares with the caller.
+    """
+    if cv2.getNumThreads() <= 1 or (os.cpu_count() or 1) <= 1 or pixels > PARALLEL_MAX_PX:
+        done: Future[T] = Future()
+        try:
+            done.set_result(fn(*args, **kwargs))
+        except BaseException as exc:  # handed on, as the pool would, by .result()
+            done.set_exception(exc)
+        return done
+    if not _POOL:
+        _POOL.append(ThreadPoolExecutor(max_workers=2, thread_name_prefix="spare-core"))
+    return _POOL[0].submit(fn, *args, **kwargs)
