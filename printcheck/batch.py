@@ -469,7 +469,38 @@ def _list_job(
             if items:
                 sub[name] = items
             skipped += not_photos
-    return top, sub, skipped
+    return _apart_in_outputs(top, sub, skipped, folder)
+
+
+def _apart_in_outputs(
+    top: list[BatchItem], sub: dict[str, list[BatchItem]], skipped: list[Skipped], folder: Path
+) -> tuple[list[BatchItem], dict[str, list[BatchItem]], list[Skipped]]:
+    """The photos less those whose results would be written over another's: two photos
+    named alike but for the extension (a phone's HEIC and its JPEG copy) or for the
+    folder (``pass2/a.jpg`` and ``pass2_a.jpg``) share their output files.  The first
+    taken keeps them; the others are skipped with the reason, nothing is overwritten."""
+    from printcheck.report.files import output_name
+
+    every = sorted(
+        [(item, top) for item in top] + [(item, items) for items in sub.values() for item in items],
+        key=lambda pair: pair[0].sort_key,
+    )
+    owner: dict[str, tuple[Path, str]] = {}
+    for item, holder in every:
+        stem = output_name(photo_name(item.path, folder), "")
+        # the output folder may fold case (a memory card, Windows, macOS)
+        first, first_stem = owner.setdefault(stem.casefold(), (item.path, stem))
+        if first != item.path:
+            holder.remove(item)
+            skipped.append(
+                Skipped(
+                    item.path,
+                    f"photo {item.path}: its results would be written over those of "
+                    f"{photo_name(first, folder)} ({first_stem}.json and its overlay); "
+                    "rename one of the two",
+                )
+            )
+    return top, {name: items for name, items in sub.items() if items}, skipped
 
 
 def _say_groups(

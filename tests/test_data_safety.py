@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import hashlib
 import html.parser
+import json
 import os
 import random
 import resource
@@ -39,6 +40,7 @@ import numpy as np
 import pytest
 
 from printcheck.layout import card_layout
+from printcheck.report.files import output_name
 
 PX_PER_MM = 6.0
 BORDER_MM = 24.0
@@ -729,3 +731,48 @@ def test_out_in_the_photo_folder_is_not_taken_for_photos(
     csv = (photos / "results.csv").read_text(encoding="utf-8").splitlines()
     assert [row.split(",")[0] for row in csv[1:]] == names[:3]
     assert {p.name: _sha(p) for p in photos.iterdir() if p.name in names} == before
+
+
+def test_photos_that_would_share_their_output_files_are_not_written_over(
+    tmp_path: Path, job: tuple[Path, list[str]]
+) -> None:
+    """A phone's HEIC and its JPEG copy (``IMG_0000.jpg`` and ``img_0000.png`` here: an
+    output folder on a memory card folds case), or photos whose paths differ only where
+    the output names have ``_`` (``pass2/IMG_0001.jpg`` and ``pass2_IMG/0001.jpg``),
+    would write one ``<stem>.json`` and overlay: the first taken keeps them, the other
+    is skipped with the reason, and every result written is its own photo's."""
+    folder, names = job
+    photos = tmp_path / "way"
+    for sub in ("pass1", "pass2", "pass2_IMG"):
+        (photos / sub).mkdir(parents=True)
+    shutil.copy2(folder / names[0], photos / "pass1" / names[0])
+    ok, png = cv2.imencode(".png", cv2.imread(str(folder / names[0])))
+    assert ok
+    later = photos / "pass1" / "img_0000.png"
+    later.write_bytes(png.tobytes())
+    os.utime(later, (1_900_000_000, 1_900_000_000))  # no camera time: its file time, later
+    shutil.copy2(folder / names[1], photos / "pass2" / names[1])
+    shutil.copy2(folder / names[2], photos / "pass2_IMG" / "0001.jpg")  # taken an hour later
+    out = tmp_path / "out"
+    proc = _batch(photos, tmp_path / "h.sqlite", out, "--group", "folder", jobs=1)
+    lines = _ended_cleanly(proc.returncode, proc.stderr)
+    assert proc.returncode == 0, proc.stderr
+    said = [line for line in lines if "written over" in line]
+    assert sorted(said) == [
+        f"printcheck: photo {later}: its results would be written over those of "
+        f"pass1/{names[0]} (pass1_IMG_0000.json and its overlay); rename one of the two; "
+        "skipped",
+        f"printcheck: photo {photos / 'pass2_IMG' / '0001.jpg'}: its results would be "
+        f"written over those of pass2/{names[1]} (pass2_IMG_0001.json and its overlay); "
+        "rename one of the two; skipped",
+    ]
+    assert "2 of 4 photos measured, 2 skipped" in proc.stdout
+    written = sorted(p.name for p in out.glob("*.json"))
+    assert written == ["pass1_IMG_0000.json", "pass2_IMG_0001.json"]
+    for name in written:
+        photo = json.loads((out / name).read_text(encoding="utf-8"))["photo"]
+        assert output_name(photo, ".json") == name
+    assert sorted(item.split(":")[0] for item in _skipped_in_report(out / "report.html")) == [
+        "pass1/img_0000.png",
+        "pass2_IMG/0001.jpg",
+    ]
