@@ -19,6 +19,7 @@ too coarse for its contacts is flagged doubtful, with the resolution it would ne
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import cv2
@@ -195,7 +196,7 @@ def measure(
     frame: Frame,
     analysed: np.ndarray,
     config: MeasureConfig = MeasureConfig(),
-    alternates: tuple[np.ndarray, ...] = (),
+    alternates: Sequence[np.ndarray] = (),
     photo_px_per_mm: float | None = None,
     unseen: np.ndarray | None = None,
     photo_blur_px: float | None = None,
@@ -211,9 +212,10 @@ def measure(
     analysed : (M, N) bool ndarray
         The window less exclusions (and less what the photo does not show).
     config : MeasureConfig
-    alternates : tuple of (M, N) bool ndarray
+    alternates : sequence of (M, N) bool ndarray
         The segment stage's masks with its thresholds nudged; with none, the range holds
-        only what the mask itself says.
+        only what the mask itself says.  Read last (they may still be in the making on a
+        spare core).
     photo_px_per_mm : float, optional
         What the photo itself resolves at the window, for the resolution check.
     photo_blur_px : float, optional
@@ -231,7 +233,7 @@ def measure(
     """
     mask = np.asarray(mask, dtype=bool)
     analysed = np.asarray(analysed, dtype=bool)
-    _check_shapes(mask, analysed, frame, alternates)
+    _check_shapes(mask, analysed, frame, ())  # the alternates when they are read, last
     s = float(frame.px_per_mm)
     px_area = 1.0 / (s * s)
     found = components(mask, config.min_spot_mm2 * s * s)
@@ -252,18 +254,35 @@ def measure(
     cells = cells_of(frame, grid, c_mm, cell_area_px, cell_contact_px, cell_count, px_area)
     bare = in_an & ~contact
     largest, bare_radius = largest_bare(bare, frame)
-    alts = tuple(_count_and_bearing(a, frame, in_an, config) for a in alternates)
+    advice = guidance(
+        spots=spots,
+        contact=contact,
+        in_an=in_an,
+        frame=frame,
+        bare_edt=bare_radius,
+        bearing=bearing,
+        oversize_factor=config.oversize_factor,
+        heavy_bearing_factor=config.heavy_bearing_factor,
+        cell_mm=c_mm,
+        max_bare_mm=config.max_bare_mm,
+    )
     resolves = resolving_px_per_mm(photo_px_per_mm, photo_blur_px)
+    crowded = _crowded(labels, spots, s, resolves, config)
+    marginal = _marginal(found, in_an, frame, config)
+    unseen_share = _unseen_share(unseen, bare, analysed_px)
+    # the alternates last: the segment stage may still be deciding them on a spare core
+    _check_shapes(mask, analysed, frame, alternates)
+    alts = tuple(_count_and_bearing(a, frame, in_an, config) for a in alternates)
     confidence = _confidence(
         spot_count,
         bearing,
         alts,
-        _marginal(found, in_an, frame, config),
+        marginal,
         spots,
         resolves,
         config,
-        crowded=_crowded(labels, spots, s, resolves, config),
-        unseen_share=_unseen_share(unseen, bare, analysed_px),
+        crowded=crowded,
+        unseen_share=unseen_share,
         blur_px=photo_blur_px if _blurred(photo_blur_px) else None,
     )
     return Measurement(
@@ -279,25 +298,14 @@ def measure(
         cols=grid.cols,
         cell_mm=c_mm,
         confidence=confidence,
-        guidance=guidance(
-            spots=spots,
-            contact=contact,
-            in_an=in_an,
-            frame=frame,
-            bare_edt=bare_radius,
-            bearing=bearing,
-            oversize_factor=config.oversize_factor,
-            heavy_bearing_factor=config.heavy_bearing_factor,
-            cell_mm=c_mm,
-            max_bare_mm=config.max_bare_mm,
-        ),
+        guidance=advice,
         size_stats=_size_stats(spots),
         alternates=alts,
     )
 
 
 def _check_shapes(
-    mask: np.ndarray, analysed: np.ndarray, frame: Frame, alternates: tuple[np.ndarray, ...]
+    mask: np.ndarray, analysed: np.ndarray, frame: Frame, alternates: Sequence[np.ndarray]
 ) -> None:
     if mask.ndim != 2 or mask.shape != analysed.shape:
         raise OptionError(

@@ -26,8 +26,9 @@ is thresholded on the evidence itself, with a warning.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
-from typing import Any, Literal
+from typing import Literal
 
 import cv2
 import numpy as np
@@ -54,7 +55,7 @@ from printcheck.evidence import (
 )
 from printcheck.field import Field, contact_field, with_relief
 from printcheck.ranks import median, quantile, quantiles
-from printcheck.sparecore import on_spare_core
+from printcheck.sparecore import Later, on_spare_core
 
 __all__ = ["SegmentConfig", "Segmentation", "segment", "compound_evidence"]
 
@@ -167,9 +168,11 @@ class Segmentation:
     mask : (M, N) bool ndarray
         The contacts, only where ``visible``; touching contacts are separated by a gap
         of at least one pixel (8-connected components are contacts).
-    alternates : tuple of (M, N) bool ndarray
+    alternates : sequence of (M, N) bool ndarray
         The contacts decided with every threshold nudged toward less contact, and toward
-        more (the measure stage's range).
+        more (the measure stage's range).  They may still be in the making on a spare
+        core when :func:`segment` returns (:class:`printcheck.sparecore.Later`): reading
+        one waits for it.
     visible : (M, N) bool ndarray
         Where contact may be found.
     compound : {"blue", "red"}
@@ -198,7 +201,7 @@ class Segmentation:
     """
 
     mask: np.ndarray
-    alternates: tuple[np.ndarray, ...]
+    alternates: Sequence[np.ndarray]
     visible: np.ndarray
     compound: str
     compound_on: str
@@ -274,14 +277,18 @@ def segment(
 
     def result(
         mask: np.ndarray,
-        alternates: tuple[np.ndarray, ...],
+        alternates: Sequence[np.ndarray],
         level: float,
         noise: float,
         part_px: float = PART_ON_COLOUR_PX,
     ) -> Segmentation:
         return Segmentation(
             mask=mask & visible,
-            alternates=tuple(a & visible for a in alternates),
+            alternates=(
+                alternates  # masked as they are read
+                if isinstance(alternates, Later)
+                else tuple(a & visible for a in alternates)
+            ),
             visible=visible,
             compound=compound,
             compound_on=config.compound_on,
@@ -357,23 +364,21 @@ def segment(
         cut = watershed_regions(loose[1], _cut_on(field).height, px_per_mm=s, seeds=loose[0])
     # the rim share decides the bearing: its step sets how wide the bearing's range is
     rim_step = 1.0 + 0.4 * config.nudge
-    mask, *alternates = _decisions(
-        [
-            (field, config, s, rim, cut, None),
-            (field, fewer, s, min(rim_step * rim, 0.9), cut, None),
-            (field, more, s, rim / rim_step, cut, loose),
-        ]
+    # the alternates are decided on a spare core where one helps (they only read the
+    # shared field), and the measure stage goes on with the mask meanwhile
+    pixels = field.score.size
+    alternates = [
+        on_spare_core(pixels, _decide, field, fewer, s, min(rim_step * rim, 0.9), cut, None),
+        on_spare_core(pixels, _decide, field, more, s, rim / rim_step, cut, loose),
+    ]
+    mask = _decide(field, config, s, rim, cut, None)
+    return result(
+        mask,
+        Later(alternates, lambda a: a & visible),
+        level,
+        field.noise,
+        _cut_on(field).part_px,
     )
-    return result(mask, tuple(alternates), level, field.noise, _cut_on(field).part_px)
-
-
-def _decisions(calls: list[tuple[Any, ...]]) -> list[np.ndarray]:
-    """:func:`_decide` of each of ``calls``, the alternates on a spare core where one
-    helps (:func:`printcheck.sparecore.on_spare_core`: the decisions only read the shared
-    field; about 0.7 times the time on 2 cores)."""
-    pixels = calls[0][0].score.size
-    later = [on_spare_core(pixels, _decide, *c) for c in calls[1:]]
-    return [_decide(*calls[0])] + [f.result() for f in later]
 
 
 def _share(pixels: np.ndarray, of: np.ndarray) -> float:

@@ -12,13 +12,13 @@ the caller's thread, with the same result.
 from __future__ import annotations
 
 import os
-from collections.abc import Callable
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
-from typing import ParamSpec, TypeVar
+from typing import Any, ParamSpec, TypeVar, overload
 
 import cv2
 
-__all__ = ["PARALLEL_MAX_PX", "on_spare_core"]
+__all__ = ["PARALLEL_MAX_PX", "Later", "on_spare_core"]
 
 P = ParamSpec("P")
 T = TypeVar("T")
@@ -48,3 +48,39 @@ def on_spare_core(pixels: int, fn: Callable[P, T], *args: P.args, **kwargs: P.kw
     if not _POOL:
         _POOL.append(ThreadPoolExecutor(max_workers=2, thread_name_prefix="spare-core"))
     return _POOL[0].submit(fn, *args, **kwargs)
+
+
+class Later(Sequence[T]):
+    """Results still being worked out on a spare core, read as a sequence: reading an
+    item waits for it (and hands on its exception), so that the caller may go on with
+    what does not need them.  ``then`` is applied to each result once, when it is read.
+    Pickled, it is the tuple of its results."""
+
+    def __init__(self, futures: Sequence[Future[T]], then: Callable[[T], T] | None = None):
+        self._futures = tuple(futures)
+        self._then = then
+        self._read: dict[int, T] = {}
+
+    def __len__(self) -> int:
+        return len(self._futures)
+
+    @overload
+    def __getitem__(self, index: int) -> T: ...
+
+    @overload
+    def __getitem__(self, index: slice) -> tuple[T, ...]: ...
+
+    def __getitem__(self, index: int | slice) -> T | tuple[T, ...]:
+        if isinstance(index, slice):
+            return tuple(self[i] for i in range(len(self))[index])
+        i = range(len(self))[index]  # IndexError as a tuple's
+        if i not in self._read:
+            value = self._futures[i].result()
+            self._read[i] = value if self._then is None else self._then(value)
+        return self._read[i]
+
+    def __iter__(self) -> Iterator[T]:
+        return (self[i] for i in range(len(self)))
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        return (tuple, (tuple(self),))
