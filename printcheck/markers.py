@@ -137,10 +137,14 @@ def _fit_line(points: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
         if len(pts) < 5:
             return None
         centre = pts.mean(axis=0)
-        _, _, vt = np.linalg.svd(pts - centre, full_matrices=False)
-        direction = vt[0]
+        d = pts - centre
+        # the principal axis of the 2 x 2 scatter, in closed form (what an SVD of the
+        # centred points gives as its first right singular vector, but for its sign)
+        sxx, syy, sxy = float(d[:, 0] @ d[:, 0]), float(d[:, 1] @ d[:, 1]), float(d[:, 0] @ d[:, 1])
+        angle = 0.5 * math.atan2(2.0 * sxy, sxx - syy)
+        direction = np.array([math.cos(angle), math.sin(angle)])
         normal = np.array([-direction[1], direction[0]])
-        dist = (pts - centre) @ normal
+        dist = d @ normal
         mad = float(np.median(np.abs(dist - np.median(dist)))) * 1.4826
         keep = np.abs(dist) <= max(3.0 * mad, 0.05)
         if keep.all():
