@@ -57,6 +57,13 @@ class Field:
     relief_noise: float = 0.0  # its spread over the bare metal
 
 
+def map_median(level: np.ndarray, where: np.ndarray) -> float:
+    """The median of a smooth map (upsampled from blocks) over ``where``, read on every
+    4th row and column (a 16th of the pixels; all of them where that misses ``where``)."""
+    sub = level[::4, ::4][where[::4, ::4]]
+    return median(sub if sub.size else level[where])
+
+
 def contact_field(
     evidence: np.ndarray,
     valid: np.ndarray,
@@ -109,7 +116,7 @@ def contact_field(
         )
     score = evidence - maps.bare
     smooth = smoothed - maps.bare
-    noise = median(maps.sigma_spot[stat])
+    noise = map_median(maps.sigma_spot, stat)
     zs = (smooth / maps.sigma_spot).astype(np.float32)
     if compound_on == "reference":
         strong = zs >= 2.0 * seed_sigma

@@ -53,7 +53,7 @@ from printcheck.evidence import (
     compound_evidence,
     rebuilt_highlights,
 )
-from printcheck.field import Field, contact_field, with_relief
+from printcheck.field import Field, contact_field, map_median, with_relief
 from printcheck.ranks import median, quantile, quantiles
 from printcheck.sparecore import Later, on_spare_core
 
@@ -344,7 +344,7 @@ def segment(
             spot_mm=config.spot_mm,
             background_mm=config.background_mm,
         )
-    level = median(field.local[stat])
+    level = map_median(field.local, stat)
     if level / field.noise < _NO_COMPOUND_CONTRAST:
         # the strongest marks are no stronger than the metal's own colour noise: there is
         # no compound to find (a print that was not spotted, or a photo without colour)
