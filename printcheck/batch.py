@@ -194,7 +194,7 @@ def _work(
     from printcheck.report.files import (
         OVERLAY_SUFFIX,
         encode_image,
-        output_name,
+        output_stem,
         write_bytes,
         write_json,
     )
@@ -205,8 +205,9 @@ def _work(
         result = inspect_photo(path, options=options, name=name)
         summary = summarize(result)
         overlay = draw_overlay(result)
-        write_json(out, output_name(result.photo, ".json"), summary_to_dict(summary))
-        write_bytes(out, output_name(result.photo, OVERLAY_SUFFIX), encode_image(overlay, ".png"))
+        stem = output_stem(out, result.photo, result.sha256)
+        write_json(out, stem + ".json", summary_to_dict(summary))
+        write_bytes(out, stem + OVERLAY_SUFFIX, encode_image(overlay, ".png"))
         shown = encode_image(_shrink(overlay, 1400), ".jpg", jpeg_quality=85) if preview else None
         _keep_contacts(result, out)
     except PrintcheckError as exc:
@@ -752,7 +753,7 @@ def _measure_and_record(
             shown.append((fresh[p.path].summary, fresh[p.path].preview))
         elif hashes[p.path] in by_sha:
             summary = by_sha[hashes[p.path]]
-            shown.append((summary, stored_preview(out, summary.photo)))
+            shown.append((summary, stored_preview(out, summary.photo, summary.sha256)))
     return progress, shown, stored
 
 

@@ -40,7 +40,7 @@ import numpy as np
 import pytest
 
 from printcheck.layout import card_layout
-from printcheck.report.files import output_name
+from printcheck.report.files import output_name, output_stem
 
 PX_PER_MM = 6.0
 BORDER_MM = 24.0
@@ -776,3 +776,39 @@ def test_photos_that_would_share_their_output_files_are_not_written_over(
         "pass1/img_0000.png",
         "pass2_IMG/0001.jpg",
     ]
+
+
+def test_a_name_used_again_for_a_new_photo_keeps_the_earlier_photos_files(
+    tmp_path: Path, job: tuple[Path, list[str]]
+) -> None:
+    """A phone that numbers afresh (or a retake saved over the first) brings a new photo
+    under a name already measured: its results go beside the earlier ones
+    (``IMG_0000~<hash>.json``), not over them, and each pass of the report shows its own
+    overlay and result JSON."""
+    folder, names = job
+    photos = tmp_path / "way"
+    photos.mkdir()
+    shutil.copy2(folder / names[0], photos / names[0])
+    out, db = tmp_path / "out", tmp_path / "h.sqlite"
+    first = _batch(photos, db, out, jobs=1)
+    assert first.returncode == 0, first.stderr
+    before = (out / "IMG_0000.json").read_bytes(), (out / "IMG_0000.overlay.png").read_bytes()
+    shutil.copy2(folder / names[1], photos / names[0])  # another photo, the same name
+    os.utime(photos / names[0], (1_900_000_000, 1_900_000_000))
+    second = _batch(photos, db, out, jobs=1)
+    assert second.returncode == 0, second.stderr
+    new_sha = _sha(photos / names[0])
+    stem = f"IMG_0000~{new_sha[:10]}"
+    old_sha = _sha(folder / names[0])
+    assert json.loads(before[0])["sha256"] == old_sha
+    assert (
+        (out / "IMG_0000.json").read_bytes(),
+        (out / "IMG_0000.overlay.png").read_bytes(),
+    ) == before
+    assert json.loads((out / f"{stem}.json").read_text(encoding="utf-8"))["sha256"] == new_sha
+    assert (out / f"{stem}.overlay.png").read_bytes() != before[1]
+    # each photo's own files, as the report, the sheet and the web pages look them up
+    assert output_stem(out, names[0], old_sha) == "IMG_0000"
+    assert output_stem(out, names[0], new_sha) == stem
+    report = (out / "report.html").read_text(encoding="utf-8")
+    assert f'href="{stem}.json"' in report and 'href="IMG_0000.json"' not in report

@@ -377,7 +377,7 @@ def test_colour_noise_blotches_do_not_stretch_the_count_range(seed: int) -> None
     # one noise level less, 30 to 50 of them came into the range: "49 (48-100)")
     from printcheck.frame import Frame
     from printcheck.layout import Window
-    from printcheck.measure import MeasureConfig, measure
+    from printcheck.measure import measure
 
     image = _blotchy_scene(seed)
     everywhere = np.ones(image.shape[:2], bool)

@@ -99,6 +99,35 @@ def output_name(photo: str, suffix: str) -> str:
     return clean + suffix
 
 
+def output_stem(folder: Path, photo: str, sha256: str | None) -> str:
+    """The stem of the output files of ``photo`` (its content ``sha256``) in ``folder``.
+
+    ``output_name(photo, "")``, unless the result JSON of that name holds another
+    photo's results: a name used again for new content (a phone that numbers its photos
+    afresh, two phones syncing into one folder, a photo replaced by a retake), whose
+    files must not be written over.  Then the stem is followed by ``~`` and the first 10
+    hex digits of ``sha256``.  Writers and readers both ask here, so that a report or
+    page of the earlier photo still shows its own overlay.
+
+    Examples
+    --------
+    >>> output_stem(Path("/nonexistent"), "IMG_0042.jpg", "ab" * 32)
+    'IMG_0042'
+    """
+    stem = output_name(photo, "")
+    if sha256 is None:
+        return stem
+    other = f"{stem}~{sha256[:10]}"
+    if (folder / (other + ".json")).is_file():
+        return other
+    try:
+        with open(folder / (stem + ".json"), encoding="utf-8") as fh:
+            owner = json.load(fh).get("sha256")
+    except (OSError, ValueError, AttributeError):
+        return stem  # none yet, or not readable: the name is this photo's
+    return stem if owner in (None, sha256) else other
+
+
 def is_output_name(name: str) -> bool:
     """True when a file called ``name`` is one printcheck writes that looks like a photo.
 
@@ -339,8 +368,7 @@ def write_photo_outputs(result: Result, folder: str | os.PathLike[str]) -> list[
     from printcheck.report.overlay import draw_overlay
     from printcheck.serde import result_to_dict
 
-    json_path = write_json(folder, output_name(result.photo, ".json"), result_to_dict(result))
-    png_path = write_bytes(
-        folder, output_name(result.photo, OVERLAY_SUFFIX), encode_image(draw_overlay(result))
-    )
+    stem = output_stem(Path(folder), result.photo, result.sha256)
+    json_path = write_json(folder, stem + ".json", result_to_dict(result))
+    png_path = write_bytes(folder, stem + OVERLAY_SUFFIX, encode_image(draw_overlay(result)))
     return [json_path, png_path]

@@ -15,11 +15,12 @@ from printcheck.errors import OptionError
 __all__ = ["stored_preview", "write_history_report"]
 
 
-def stored_preview(out: Path, photo: str) -> bytes | None:
-    """A JPEG preview of the overlay an earlier run wrote to ``out`` for ``photo``, or None."""
-    from printcheck.report.files import OVERLAY_SUFFIX, output_name
+def stored_preview(out: Path, photo: str, sha256: str | None = None) -> bytes | None:
+    """A JPEG preview of the overlay an earlier run wrote to ``out`` for ``photo`` (its
+    content ``sha256``), or None."""
+    from printcheck.report.files import OVERLAY_SUFFIX, output_stem
 
-    path = out / output_name(photo, OVERLAY_SUFFIX)
+    path = out / (output_stem(out, photo, sha256) + OVERLAY_SUFFIX)
     if not path.is_file():
         return None
     try:
@@ -84,7 +85,9 @@ def write_history_report(db: Path, surface: str, out: Path) -> Path:
         out / "report.html",
         surface=surface,
         spec=spec,
-        passes=[(p.summary, stored_preview(out, p.summary.photo)) for p in stored],
+        passes=[
+            (p.summary, stored_preview(out, p.summary.photo, p.summary.sha256)) for p in stored
+        ],
         progress=progress,
         extra_html=stations_section(progress),
     )

@@ -308,7 +308,7 @@ def _latest_prints(
         figure = figures.get(p.station or "1")
         meets = summary.meets if figure is None else figure.meets
         verdict, state = _VERDICT[meets]
-        preview = stored_preview(out, summary.photo)
+        preview = stored_preview(out, summary.photo, summary.sha256)
         columns, rows, caption = _cell_map(summary.cells, summary, spec)
         views.append(
             PrintView(

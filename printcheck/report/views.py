@@ -447,7 +447,7 @@ def pass_view(
         The output folder whose contact maps give where contacts appeared and
         disappeared (default ``folder``; the web app's pages link no files there).
     """
-    from printcheck.report.files import output_name
+    from printcheck.report.files import output_stem
 
     when = "time unknown"
     if summary.taken is not None:
@@ -460,8 +460,9 @@ def pass_view(
     links: list[tuple[str, str]] = []
     href = overlay_href
     if folder is not None and summary.photo:
+        stem = output_stem(folder, summary.photo, summary.sha256)
         for suffix, label in ((".json", "result JSON"), (".overlay.png", "full-size overlay")):
-            name = output_name(summary.photo, suffix)
+            name = stem + suffix
             if (folder / name).is_file():
                 links.append((quote(name), label))
                 if suffix == ".overlay.png" and href is None:

@@ -186,7 +186,7 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
         )
 
     async def overlay(request: Request) -> Response:
-        from printcheck.report.files import OVERLAY_SUFFIX, output_name
+        from printcheck.report.files import OVERLAY_SUFFIX, output_stem
 
         name = request.query_params.get("s", "")
         sha = request.query_params.get("sha", "")
@@ -197,7 +197,8 @@ def create_app(config: WebConfig, measurer: Measurer) -> Starlette:
         if stored is None:
             return Response(status_code=404)
         # the name printcheck gave the overlay, in the output folder, nowhere else
-        path = config.out / output_name(stored.summary.photo, OVERLAY_SUFFIX)
+        stem = output_stem(config.out, stored.summary.photo, stored.summary.sha256)
+        path = config.out / (stem + OVERLAY_SUFFIX)
         try:
             data = await run_in_threadpool(path.read_bytes)
         except OSError:
