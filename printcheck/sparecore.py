@@ -1,12 +1,12 @@
 """Work handed to a second core while the caller goes on, where that helps.
 
-Inspect runs one photo at a time in a terminal or the web application, on a machine with
-two cores or more; parts of the segment and measure stages are independent of each other
-(the decisions nudged for the range, and what is measured of them) and NumPy and OpenCV
-release the GIL in their loops, so a thread beside the caller's overlaps them.  Not in a
-batch's workers, which hold OpenCV to one thread (one photo a core): there, and for
-windows too large to hold two sets of temporaries at once, the work is done at once in
-the caller's thread, with the same result.
+``printcheck inspect`` measures one photo at a time on a machine with two cores or more.
+The segment stage's decisions nudged for the range do not depend on its main decision, nor
+the measure stage's work on the main mask on them, and NumPy and OpenCV release the GIL in
+their loops: a thread beside the caller's overlaps them.  Not in a batch's workers (nor
+the web application's), which hold OpenCV to one thread (one photo a core): there, and
+for windows too large to hold two sets of temporaries at once, the work is done at once
+in the caller's thread, with the same result.
 """
 
 from __future__ import annotations
