@@ -40,7 +40,8 @@ import numpy as np
 from printcheck.errors import PrintcheckError
 from printcheck.frame import Frame
 from printcheck.layout import Layout, card_layout, parse_layout
-from printcheck.measure import MeasureConfig, Measurement, measure
+from printcheck.measure import MeasureConfig, Measurement
+from printcheck.pipeline import measure_segmented
 from printcheck.segment import SegmentConfig, segment
 from printcheck.synth import Camera, Lighting, Scene, render_photo
 from printcheck.synth.truth import Truth, layout_masks
@@ -329,14 +330,12 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
         analysed=analysed,
         config=SegmentConfig(compound=scene.compound, compound_on=scene.compound_on, px_per_mm=s),
     )
-    meas = measure(
-        seg.mask,
+    meas = measure_segmented(
+        seg,
         frame=frame,
         analysed=analysed,
-        config=MeasureConfig(cell_mm=25.4, part_px=seg.part_px),
-        alternates=seg.alternates,
+        config=MeasureConfig(cell_mm=25.4),
         photo_px_per_mm=photo_ppm,
-        unseen=seg.glare,
     )
     warnings.extend(seg.warnings)
     if meas.confidence is not None and meas.confidence.doubtful:

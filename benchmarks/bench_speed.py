@@ -210,8 +210,8 @@ def time_stages(shot: Shot, repeat: int) -> dict[str, Any]:
     from printcheck.judge import judge
     from printcheck.load import load_photo
     from printcheck.locate import LocateConfig, detect_markers, locate
-    from printcheck.measure import MeasureConfig, measure
-    from printcheck.pipeline import inspect_photo
+    from printcheck.measure import MeasureConfig
+    from printcheck.pipeline import inspect_photo, measure_segmented
     from printcheck.segment import SegmentConfig, segment
 
     options = _options(shot.layout)
@@ -241,21 +241,18 @@ def time_stages(shot: Shot, repeat: int) -> dict[str, Any]:
             seg = segment(
                 rect.image, visible=rect.visible, analysed=rect.analysed, config=seg_config
             )
-            return seg, tuple(seg.alternates)
+            tuple(seg.alternates)
+            return seg
 
-        t["segment"], (seg, alternates) = _median(segment_whole, repeat)
+        t["segment"], seg = _median(segment_whole, repeat)
         meas_config = MeasureConfig(
             cell_mm=options.cell_mm,
             min_spot_mm2=options.min_spot_mm2,
             max_bare_mm=options.spec.max_bare_mm,
         )
         t["measure"], meas = _median(
-            lambda: measure(
-                seg.mask,
-                frame=rect.frame,
-                analysed=rect.analysed,
-                config=meas_config,
-                alternates=alternates,
+            lambda: measure_segmented(
+                seg, frame=rect.frame, analysed=rect.analysed, config=meas_config
             ),
             repeat,
         )
@@ -347,8 +344,8 @@ def _child_rss(path: str, layout_name: str) -> None:
     from printcheck.judge import judge
     from printcheck.load import load_photo
     from printcheck.locate import LocateConfig, locate
-    from printcheck.measure import MeasureConfig, measure
-    from printcheck.pipeline import inspect_photo
+    from printcheck.measure import MeasureConfig
+    from printcheck.pipeline import inspect_photo, measure_segmented
     from printcheck.segment import SegmentConfig, segment
 
     options = _options(layout_name)
@@ -368,10 +365,10 @@ def _child_rss(path: str, layout_name: str) -> None:
             analysed=rect.analysed,
             config=SegmentConfig(px_per_mm=rect.frame.px_per_mm),
         )
-        alternates = tuple(seg.alternates)  # decided on a spare core: wait for them
+        tuple(seg.alternates)  # decided on a spare core: wait for them
         peaks["segment"] = _peak_rss_mb()
-        meas = measure(
-            seg.mask,
+        meas = measure_segmented(
+            seg,
             frame=rect.frame,
             analysed=rect.analysed,
             config=MeasureConfig(
@@ -379,11 +376,10 @@ def _child_rss(path: str, layout_name: str) -> None:
                 min_spot_mm2=options.min_spot_mm2,
                 max_bare_mm=options.spec.max_bare_mm,
             ),
-            alternates=alternates,
         )
         peaks["measure"] = _peak_rss_mb()
         judge(meas, options.spec, unit=options.unit)
-        del photo, rect, seg, alternates, meas
+        del photo, rect, seg, meas
         result = inspect_photo(path, options=options)  # for the report (peak already counted)
         peaks["inspect"] = _peak_rss_mb()
     out = Path(tempfile.mkdtemp(prefix="printcheck-bench-"))

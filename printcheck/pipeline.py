@@ -16,9 +16,12 @@ from printcheck.options import InspectOptions
 from printcheck.result import Result
 
 if TYPE_CHECKING:
+    from printcheck.frame import Frame
     from printcheck.locate import Rectified
+    from printcheck.measure import MeasureConfig, Measurement
+    from printcheck.segment import Segmentation
 
-__all__ = ["InspectOptions", "inspect_image", "inspect_photo"]
+__all__ = ["InspectOptions", "inspect_image", "inspect_photo", "measure_segmented"]
 
 
 def inspect_image(
@@ -81,7 +84,7 @@ def _measure_rectified(
 ) -> Result:
     """Segment, measure and judge the rectified window; the photo itself is not needed."""
     from printcheck.judge import judge
-    from printcheck.measure import MeasureConfig, measure
+    from printcheck.measure import MeasureConfig
     from printcheck.segment import SegmentConfig, segment
 
     seg = segment(
@@ -95,20 +98,17 @@ def _measure_rectified(
         ),
     )
     spec = options.spec
-    meas = measure(
-        seg.mask,
+    meas = measure_segmented(
+        seg,
         frame=rect.frame,
         analysed=rect.analysed,
         config=MeasureConfig(
             cell_mm=options.cell_mm,
             min_spot_mm2=options.min_spot_mm2,
             max_bare_mm=None if spec is None else spec.max_bare_mm,
-            part_px=seg.part_px,
         ),
-        alternates=seg.alternates,
         photo_px_per_mm=rect.calibration.photo_px_per_mm,
         photo_blur_px=rect.calibration.photo_blur_px,
-        unseen=seg.unseen,
     )
     if meas.spot_count == 0:
         raise NoCompoundError(_no_compound(options, seg.compound))
@@ -129,6 +129,36 @@ def _measure_rectified(
         measurement=meas,
         verdict=verdict,
         warnings=warnings,
+    )
+
+
+def measure_segmented(
+    seg: Segmentation,
+    *,
+    frame: Frame,
+    analysed: np.ndarray,
+    config: MeasureConfig | None = None,
+    photo_px_per_mm: float | None = None,
+    photo_blur_px: float | None = None,
+) -> Measurement:
+    """The measure stage on what the segment stage found: its mask, with the alternates
+    for the range, the surface it could not see, and the bare pixels its contacts need
+    between them to be told apart (``config``'s ``part_px`` is the segmentation's).
+    The one place the two stages are joined (inspect, and the benchmarks and tests that
+    rectify a photo themselves)."""
+    from dataclasses import replace
+
+    from printcheck.measure import MeasureConfig, measure
+
+    return measure(
+        seg.mask,
+        frame=frame,
+        analysed=analysed,
+        config=replace(config or MeasureConfig(), part_px=seg.part_px),
+        alternates=seg.alternates,
+        photo_px_per_mm=photo_px_per_mm,
+        photo_blur_px=photo_blur_px,
+        unseen=seg.unseen,
     )
 
 

@@ -14,7 +14,8 @@ import numpy as np
 import pytest
 
 from printcheck.frame import Frame
-from printcheck.measure import MeasureConfig, measure
+from printcheck.measure import MeasureConfig
+from printcheck.pipeline import measure_segmented
 from printcheck.segment import SegmentConfig, segment
 from printcheck.synth import Camera, Lighting, Scene, render_photo
 from printcheck.synth.truth import layout_masks
@@ -82,12 +83,8 @@ def outcomes():
                 compound=scene.compound, compound_on=scene.compound_on, px_per_mm=s
             ),
         )
-        meas = measure(
-            seg.mask,
-            frame=frame,
-            analysed=analysed,
-            config=MeasureConfig(cell_mm=25.4),
-            alternates=seg.alternates,
+        meas = measure_segmented(
+            seg, frame=frame, analysed=analysed, config=MeasureConfig(cell_mm=25.4)
         )
         out[name] = (shot.truth, meas, seg)
     return out

@@ -32,7 +32,8 @@ import pytest
 
 from printcheck.layout import card_layout
 from printcheck.locate import locate
-from printcheck.measure import MeasureConfig, measure
+from printcheck.measure import MeasureConfig
+from printcheck.pipeline import measure_segmented
 from printcheck.segment import SegmentConfig, segment
 from printcheck.synth import Camera, Lighting, Scene, render_photo
 from printcheck.synth.fine import fine_surface
@@ -62,15 +63,13 @@ def _measure(scene: Scene, seed: int, **segment_options):  # type: ignore[no-unt
         analysed=rect.analysed,
         config=SegmentConfig(px_per_mm=rect.frame.px_per_mm, **options),
     )
-    meas = measure(
-        seg.mask,
+    meas = measure_segmented(
+        seg,
         frame=rect.frame,
         analysed=rect.analysed,
-        config=MeasureConfig(cell_mm=25.4, part_px=seg.part_px),
-        alternates=seg.alternates,
+        config=MeasureConfig(cell_mm=25.4),
         photo_px_per_mm=rect.calibration.photo_px_per_mm,
         photo_blur_px=rect.calibration.photo_blur_px,
-        unseen=seg.unseen,
     )
     return shot.truth, meas, seg
 
@@ -199,12 +198,11 @@ def _square_on(field, px_per_mm: float, seed: int, **lighting):  # type: ignore[
         analysed=rect.analysed,
         config=SegmentConfig(px_per_mm=rect.frame.px_per_mm),
     )
-    meas = measure(
-        seg.mask,
+    meas = measure_segmented(
+        seg,
         frame=rect.frame,
         analysed=rect.analysed,
-        config=MeasureConfig(cell_mm=25.4, part_px=seg.part_px),
-        alternates=seg.alternates,
+        config=MeasureConfig(cell_mm=25.4),
         photo_px_per_mm=px_per_mm,
     )
     return shot.truth, meas, rect

@@ -377,7 +377,7 @@ def test_colour_noise_blotches_do_not_stretch_the_count_range(seed: int) -> None
     # one noise level less, 30 to 50 of them came into the range: "49 (48-100)")
     from printcheck.frame import Frame
     from printcheck.layout import Window
-    from printcheck.measure import measure
+    from printcheck.pipeline import measure_segmented
 
     image = _blotchy_scene(seed)
     everywhere = np.ones(image.shape[:2], bool)
@@ -385,7 +385,7 @@ def test_colour_noise_blotches_do_not_stretch_the_count_range(seed: int) -> None
     frame = Frame(
         px_per_mm=10.0, origin_mm=(0.0, 0.0), shape=image.shape[:2], window=Window(0, 0, 50, 50)
     )
-    m = measure(seg.mask, frame=frame, analysed=everywhere, alternates=seg.alternates)
+    m = measure_segmented(seg, frame=frame, analysed=everywhere)
     c = m.confidence
     assert c is not None
     assert abs(m.spot_count - 49) <= 2
