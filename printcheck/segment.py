@@ -284,12 +284,8 @@ def segment(
         part_px: float = PART_ON_COLOUR_PX,
     ) -> Segmentation:
         return Segmentation(
-            mask=mask & visible,
-            alternates=(
-                alternates  # masked as they are read
-                if isinstance(alternates, Later)
-                else tuple(a & visible for a in alternates)
-            ),
+            mask=mask,
+            alternates=alternates,
             visible=visible,
             compound=compound,
             compound_on=config.compound_on,
@@ -315,8 +311,8 @@ def segment(
             )
             t, t_fewer, t_more = covered
             return result(
-                evidence > t,
-                (evidence > t_fewer, evidence > t_more),
+                (evidence > t) & visible,
+                ((evidence > t_fewer) & visible, (evidence > t_more) & visible),
                 level=2.0 * t,
                 noise=EVIDENCE_FLOOR,
             )
@@ -373,13 +369,7 @@ def segment(
         on_spare_core(pixels, _decide, field, more, s, rim / rim_step, cut, loose),
     ]
     mask = _decide(field, config, s, rim, cut, None)
-    return result(
-        mask,
-        Later(alternates, lambda a: a & visible),
-        level,
-        field.noise,
-        _cut_on(field).part_px,
-    )
+    return result(mask, Later(alternates), level, field.noise, _cut_on(field).part_px)
 
 
 def _share(pixels: np.ndarray, of: np.ndarray) -> float:
@@ -492,7 +482,7 @@ def _decide(
     if config.compound_on == "work":
         # paper shown by a card registered a fraction of a mm off looks like bare metal
         mask = drop_edge_slivers(mask & field.visible, field.visible, s)
-    return mask
+    return mask & field.visible  # field.visible: the segment's visible (valid or glare)
 
 
 #: Photo pixels of bare metal two contacts need between them to be cut apart on the

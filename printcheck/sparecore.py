@@ -53,13 +53,10 @@ def on_spare_core(pixels: int, fn: Callable[P, T], *args: P.args, **kwargs: P.kw
 class Later(Sequence[T]):
     """Results still being worked out on a spare core, read as a sequence: reading an
     item waits for it (and hands on its exception), so that the caller may go on with
-    what does not need them.  ``then`` is applied to each result once, when it is read.
-    Pickled, it is the tuple of its results."""
+    what does not need them.  Pickled, it is the tuple of its results."""
 
-    def __init__(self, futures: Sequence[Future[T]], then: Callable[[T], T] | None = None):
+    def __init__(self, futures: Sequence[Future[T]]):
         self._futures = tuple(futures)
-        self._then = then
-        self._read: dict[int, T] = {}
 
     def __len__(self) -> int:
         return len(self._futures)
@@ -73,11 +70,7 @@ class Later(Sequence[T]):
     def __getitem__(self, index: int | slice) -> T | tuple[T, ...]:
         if isinstance(index, slice):
             return tuple(self[i] for i in range(len(self))[index])
-        i = range(len(self))[index]  # IndexError as a tuple's
-        if i not in self._read:
-            value = self._futures[i].result()
-            self._read[i] = value if self._then is None else self._then(value)
-        return self._read[i]
+        return self._futures[range(len(self))[index]].result()  # IndexError as a tuple's
 
     def __iter__(self) -> Iterator[T]:
         return (self[i] for i in range(len(self)))

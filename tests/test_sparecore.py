@@ -19,14 +19,14 @@ def test_later_reads_as_the_tuple_of_its_results() -> None:
         gate.wait(5.0)
         return x * x
 
-    later = Later([on_spare_core(1, slow, i) for i in range(3)], then=lambda v: v + 1)
+    later = Later([on_spare_core(1, slow, i + 1) for i in range(3)])
     gate.set()
     assert len(later) == 3
-    assert list(later) == [1, 2, 5]
-    assert later[-1] == 5 and later[1:] == (2, 5)
+    assert list(later) == [1, 4, 9]
+    assert later[-1] == 9 and later[1:] == (4, 9)
     first, *rest = later
-    assert (first, rest) == (1, [2, 5])
-    assert pickle.loads(pickle.dumps(later)) == (1, 2, 5)
+    assert (first, rest) == (1, [4, 9])
+    assert pickle.loads(pickle.dumps(later)) == (1, 4, 9)
     with pytest.raises(IndexError):
         later[3]
 
