@@ -209,19 +209,30 @@ def finish(
     kept[idx] = lab
     kept = kept.reshape(labels.shape)
     idx = idx[~_carved(kept, idx, height)]
-    mask = _drop_crumbs(idx, kept, height, seeds=seeds, lobe_px=_LOBE_SPOTS * min_core_px)
+    mask, pieces, owner = _drop_crumbs(
+        idx, kept, height, seeds=seeds, lobe_px=_LOBE_SPOTS * min_core_px
+    )
     if rejoin_px > 0:
-        mask = _rejoined(mask, labels, height, rejoin_px)
+        mask = _rejoined(mask, labels, height, rejoin_px, pieces, owner)
     return mask
 
 
-def _rejoined(mask: np.ndarray, labels: np.ndarray, height: np.ndarray, r: int) -> np.ndarray:
+def _rejoined(
+    mask: np.ndarray,
+    labels: np.ndarray,
+    height: np.ndarray,
+    r: int,
+    pieces: np.ndarray,
+    owner: np.ndarray,
+) -> np.ndarray:
     """``mask`` with the lobes of one contact (``labels``) that the rim cut parted joined
     again across a neck narrower than ``2 r`` pixels (what a morphological closing of
     those lobes adds of their contact's own pixels, where it touches two lobes of it; a
     gap is carved again wherever two contacts would touch): the valleys between them
-    decided they are one contact, and the rim alone does not part it in two."""
-    n, pieces, _, owner, multi = _pieces_of(mask, flat_where(mask), labels)
+    decided they are one contact, and the rim alone does not part it in two.
+    ``pieces`` and ``owner``: the mask's pieces and their contacts (:func:`_drop_crumbs`)."""
+    multi = np.bincount(owner[1:], minlength=int(labels.max()) + 1) > 1
+    multi[0] = False
     if not multi.any():
         return mask
     lobes = mask & multi[labels]
@@ -278,17 +289,20 @@ def _drop_crumbs(
     *,
     seeds: np.ndarray | None = None,
     lobe_px: float = 0.0,
-) -> np.ndarray:
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The mask of the contact pixels ``idx`` (flat) of ``labels``: cutting a contact's
     rim may leave crumbs of its halo apart from it: the piece holding the contact's
     highest point is the contact.  A large piece with a seed (``lobe_px`` pixels and
     :data:`_LOBE_SHARE` of the contact) is a lobe whose neck thins below the rim's
-    share: it is contact too (the rim says where contact ends), not a crumb to drop."""
+    share: it is contact too (the rim says where contact ends), not a crumb to drop.
+
+    Also the mask's 8-connected pieces (label image) and each piece's contact (0 for a
+    crumb dropped): the pieces left are those of the mask, whole pieces being dropped."""
     mask = np.zeros(labels.shape, bool)
     mask.ravel()[idx] = True
     n, pieces, piece, owner, split = _pieces_of(mask, idx, labels)
     if not split.any():
-        return mask
+        return mask, pieces, owner
     lab = labels.ravel()[idx]
     sel = split[lab]
     flat = idx[sel]
@@ -305,7 +319,8 @@ def _drop_crumbs(
         whole = np.bincount(lab, minlength=int(labels.max()) + 1)[owner]
         keep |= seeded & (size >= np.maximum(lobe_px, _LOBE_SHARE * whole))
     mask.ravel()[idx[~keep[piece]]] = False
-    return mask
+    owner[~keep] = 0
+    return mask, pieces, owner
 
 
 def _pieces_of(
