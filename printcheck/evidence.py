@@ -32,6 +32,7 @@ from printcheck.ranks import median
 __all__ = [
     "EVIDENCE_FLOOR",
     "LevelMaps",
+    "LOG_OFFSET",
     "CLIPPED",
     "OWN_CHANNEL",
     "compound_evidence",
@@ -44,7 +45,9 @@ __all__ = [
     "fill_and_smooth",
 ]
 
-_EPS = 4.0  # added to 8-bit channel values before the log ratio (tames dark noise)
+#: Added to 8-bit channel values before a log (the colour ratio, the brightness): it
+#: tames the noise of dark pixels.
+LOG_OFFSET = 4.0
 
 #: Smallest noise level of the evidence.  One 8-bit step of a mid-grey channel moves the
 #: log ratio by about 1/150; JPEG smooths colour so much that a measured spread can come
@@ -69,12 +72,13 @@ def compound_evidence(image: np.ndarray, compound: str) -> np.ndarray:
     """
     if compound not in ("blue", "red"):
         raise OptionError(f"compound must be 'blue' or 'red', got {compound!r}")
-    img = image.astype(np.float32) + np.float32(_EPS)
+    img = image.astype(np.float32) + np.float32(LOG_OFFSET)
     return _log_ratio(img[..., 0], img[..., 1], img[..., 2], compound)
 
 
 def _log_ratio(b: np.ndarray, g: np.ndarray, r: np.ndarray, compound: str) -> np.ndarray:
-    """The evidence from channels already offset by ``_EPS`` (see :func:`compound_evidence`)."""
+    """The evidence from channels already offset by :data:`LOG_OFFSET` (see
+    :func:`compound_evidence`)."""
     if compound == "blue":
         return cv2.log(b) - cv2.log(r)
     return cv2.log(r) - cv2.log(np.float32(0.5) * (b + g))
@@ -112,7 +116,7 @@ def rebuilt_highlights(
     if max(int(chans[lost].max()) for lost, _ in pairs) < CLIPPED:
         return evidence  # nothing clipped: the common case, decided in one pass
     clipped = [c >= CLIPPED for c in chans]
-    rebuilt = [c.astype(np.float32) + np.float32(_EPS) for c in chans]
+    rebuilt = [c.astype(np.float32) + np.float32(LOG_OFFSET) for c in chans]
     changed = False
     for lost, kept in pairs:
         lone = clipped[lost] & ~clipped[kept]

@@ -18,6 +18,7 @@ import numpy as np
 from printcheck.contacts import disc, flat_where
 from printcheck.evidence import (
     EVIDENCE_FLOOR,
+    LOG_OFFSET,
     LevelMaps,
     block_quantiles,
     fill_and_smooth,
@@ -270,7 +271,7 @@ def with_relief(
     s = px_per_mm
     bright = cv2.cvtColor(image, cv2.COLOR_BGR2GRAY).astype(np.float32)
     log_b = cv2.GaussianBlur(
-        cv2.log(bright + np.float32(4.0)), (0, 0), max(0.5 * spot_mm * s, 0.35)
+        cv2.log(bright + np.float32(LOG_OFFSET)), (0, 0), max(0.5 * spot_mm * s, 0.35)
     )
     bare = stat & (field.z < 2.0)
     block = max(4, int(round(background_mm * s)))
