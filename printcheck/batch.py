@@ -482,17 +482,15 @@ def _apart_in_outputs(
     taken keeps them; the others are skipped with the reason, nothing is overwritten."""
     from printcheck.report.files import output_name
 
-    every = sorted(
-        [(item, top) for item in top] + [(item, items) for items in sub.values() for item in items],
-        key=lambda pair: pair[0].sort_key,
-    )
     owner: dict[str, tuple[Path, str]] = {}
-    for item, holder in every:
+    dropped: set[Path] = set()
+    every = top + [item for items in sub.values() for item in items]
+    for item in sorted(every, key=lambda i: i.sort_key):
         stem = output_name(photo_name(item.path, folder), "")
         # the output folder may fold case (a memory card, Windows, macOS)
         first, first_stem = owner.setdefault(stem.casefold(), (item.path, stem))
         if first != item.path:
-            holder.remove(item)
+            dropped.add(item.path)
             skipped.append(
                 Skipped(
                     item.path,
@@ -501,7 +499,14 @@ def _apart_in_outputs(
                     "rename one of the two",
                 )
             )
-    return top, {name: items for name, items in sub.items() if items}, skipped
+    if not dropped:
+        return top, sub, skipped
+    kept = {name: [i for i in items if i.path not in dropped] for name, items in sub.items()}
+    return (
+        [i for i in top if i.path not in dropped],
+        {name: items for name, items in kept.items() if items},
+        skipped,
+    )
 
 
 def _say_groups(
