@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import pickle
 import threading
 
@@ -40,6 +41,9 @@ def test_an_error_on_the_spare_core_is_raised_where_the_result_is_read() -> None
         later[0]
 
 
+@pytest.mark.skipif(
+    (os.cpu_count() or 1) < 2, reason="one core: the alternates are decided in place either way"
+)
 def test_segment_decides_the_same_on_one_thread_as_on_two() -> None:
     """The alternates decided on a spare core are those decided in place (a batch's
     workers hold OpenCV to one thread, and decide everything in place)."""
