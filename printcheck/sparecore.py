@@ -12,13 +12,14 @@ in the caller's thread, with the same result.
 from __future__ import annotations
 
 import os
+import threading
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any, ParamSpec, TypeVar, overload
 
 import cv2
 
-__all__ = ["PARALLEL_MAX_PX", "Later", "on_spare_core"]
+__all__ = ["PARALLEL_MAX_PX", "Later", "on_spare_core", "spare_core_helps"]
 
 P = ParamSpec("P")
 T = TypeVar("T")
@@ -29,16 +30,31 @@ T = TypeVar("T")
 PARALLEL_MAX_PX = 3_000_000
 
 _POOL: list[ThreadPoolExecutor] = []  # made on first use, one per process
+_ON_POOL = threading.local()  # .yes on the pool's own threads
+
+
+def spare_core_helps(pixels: int) -> bool:
+    """Whether :func:`on_spare_core` hands work of a window of ``pixels`` to another thread
+    (else it works at once in the caller's): two cores or more, OpenCV not held to one
+    thread, not more than :data:`PARALLEL_MAX_PX` ``pixels``, and not called from work
+    already on the pool (a pool thread waiting for work queued behind it, or behind its
+    sibling waiting likewise, would wait for ever)."""
+    return not (
+        cv2.getNumThreads() <= 1
+        or (os.cpu_count() or 1) <= 1
+        or pixels > PARALLEL_MAX_PX
+        or getattr(_ON_POOL, "yes", False)
+    )
 
 
 def on_spare_core(pixels: int, fn: Callable[P, T], *args: P.args, **kwargs: P.kwargs) -> Future[T]:
     """``fn(*args, **kwargs)`` on a thread of a shared pool of two, or, where that does
-    not help (one core, OpenCV held to one thread, more than :data:`PARALLEL_MAX_PX`
-    ``pixels``), at once in this thread; its result (or exception) from ``.result()``.
+    not help (:func:`spare_core_helps`), at once in this thread; its result (or
+    exception) from ``.result()``.
 
     ``fn`` must only read what it shares with the caller.
     """
-    if cv2.getNumThreads() <= 1 or (os.cpu_count() or 1) <= 1 or pixels > PARALLEL_MAX_PX:
+    if not spare_core_helps(pixels):
         done: Future[T] = Future()
         try:
             done.set_result(fn(*args, **kwargs))
@@ -46,8 +62,16 @@ def on_spare_core(pixels: int, fn: Callable[P, T], *args: P.args, **kwargs: P.kw
             done.set_exception(exc)
         return done
     if not _POOL:
-        _POOL.append(ThreadPoolExecutor(max_workers=2, thread_name_prefix="spare-core"))
+        _POOL.append(
+            ThreadPoolExecutor(
+                max_workers=2, thread_name_prefix="spare-core", initializer=_mark_pool_thread
+            )
+        )
     return _POOL[0].submit(fn, *args, **kwargs)
+
+
+def _mark_pool_thread() -> None:
+    _ON_POOL.yes = True
 
 
 class Later(Sequence[T]):

@@ -73,3 +73,47 @@ def test_segment_decides_the_same_on_one_thread_as_on_two() -> None:
         cv2.setNumThreads(before)
     assert all(np.array_equal(a, b) for a, b in zip(*got, strict=True))
     assert got[0][0].any() and not np.array_equal(got[0][1], got[0][2])
+
+
+def test_work_on_the_spare_core_that_hands_on_work_does_not_wait_for_ever() -> None:
+    """Both pool threads busy, each handing on work and waiting for it: the handed-on
+    work runs in place (a decision with compound on the work cuts its own watershed)."""
+    both = threading.Barrier(2, timeout=5.0)
+
+    def outer(x: int) -> int:
+        both.wait()  # both pool threads are taken
+        return on_spare_core(1, lambda: x + 1).result(timeout=5.0)
+
+    if (os.cpu_count() or 1) < 2 or cv2.getNumThreads() <= 1:
+        pytest.skip("one core or OpenCV on one thread: all work is done in place")
+    later = Later([on_spare_core(1, outer, i) for i in range(2)])
+    assert tuple(later) == (1, 2)
+
+
+@pytest.mark.skipif(
+    (os.cpu_count() or 1) < 2, reason="one core: the watershed floods in one piece either way"
+)
+def test_the_watershed_flooded_in_two_bands_is_the_watershed_in_one() -> None:
+    """Regions of touching discs flooded in two bands at once (two threads) are labelled
+    exactly as by one skimage watershed over all (one thread)."""
+    from printcheck.contacts import watershed_regions
+
+    rng = np.random.default_rng(5)
+    yy, xx = np.mgrid[0:400, 0:300]
+    height = np.zeros((400, 300), np.float32)
+    for _ in range(120):  # clusters of overlapping blurred discs
+        cy, cx, r = rng.uniform(0, 400), rng.uniform(0, 300), rng.uniform(3, 9)
+        height += np.exp(-((yy - cy) ** 2 + (xx - cx) ** 2) / (2 * r * r)).astype(np.float32)
+    height += rng.normal(0, 0.01, height.shape).astype(np.float32)
+    region = height > 0.3
+    before = cv2.getNumThreads()
+    try:
+        got = []
+        for threads in (1, 2):
+            cv2.setNumThreads(threads)
+            got.append(watershed_regions(region, height, px_per_mm=16.0))
+    finally:
+        cv2.setNumThreads(before)
+    (one, n_one), (two, n_two) = got
+    assert n_one == n_two and np.array_equal(one, two)
+    assert n_one > 60  # discs were cut apart, not only labelled
