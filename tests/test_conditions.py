@@ -179,6 +179,29 @@ def test_pale_rims_are_kept() -> None:
     _within(truth, meas)
 
 
+@pytest.mark.xfail(
+    strict=True,
+    reason="the phone smooths colour as differences (4:2:0 JPEG, colour noise "
+    "reduction): under a cool cast the white card's blue runs a few pixels into the "
+    "darker metal, and read as a ratio it is bluer there than on the paper itself; "
+    "against a thin film it adds false contacts along the window's edge (about 30 %)",
+)
+def test_a_cool_cast_adds_no_contacts_along_the_card_edge() -> None:
+    # the same print in the same dim, noisy, smoothed photo, once under a neutral light
+    # and once with blue up 15 % and red down 15 % (white balance some 1500 K off)
+    dim = dict(
+        compound_strength=0.3, exposure=0.6, noise_sigma=6.0, jpeg_quality=55, colour_blur_px=2.5
+    )
+    counts = []
+    for balance in ((1.0, 1.0, 1.0), (1.15, 1.0, 0.85)):
+        scene = _scene(20, dict(dim, white_balance=balance))
+        truth, meas, _ = _measure(scene, seed=1)
+        counts.append(meas.spot_count)
+    neutral, cool = counts
+    assert truth.spot_count > 10
+    assert abs(cool - neutral) <= max(2, 0.08 * truth.spot_count), (neutral, cool)
+
+
 @pytest.fixture(scope="module")
 def fine_field():  # type: ignore[no-untyped-def]
     return fine_surface(card_layout(), 50, seed=7)
