@@ -37,7 +37,7 @@ from printcheck.layout import (
     card_of_layout,
     card_shown,
 )
-from printcheck.markers import Detection, detect_markers
+from printcheck.markers import Coarse, Detection, detect_markers
 from printcheck.window import (
     check_partial,
     choose_px_per_mm,
@@ -154,7 +154,11 @@ def _as_bgr(image: np.ndarray) -> np.ndarray:
 
 
 def locate(
-    image: np.ndarray, *, layout: Layout, config: LocateConfig = LocateConfig()
+    image: np.ndarray,
+    *,
+    layout: Layout,
+    config: LocateConfig = LocateConfig(),
+    coarse: Coarse | None = None,
 ) -> Rectified:
     """Find ``layout``'s markers in ``image`` and rectify it to the layout frame.
 
@@ -165,6 +169,9 @@ def locate(
     layout : Layout
         Where the markers sit relative to the window.
     config : LocateConfig
+    coarse : Coarse, optional
+        The layout's markers already found on a reduced copy of the photo
+        (:func:`printcheck.markers.coarse_markers`); by default they are looked for here.
 
     Returns
     -------
@@ -181,7 +188,7 @@ def locate(
     """
     photo = _as_bgr(image)
     warnings: list[str] = []
-    h, used, residual, blur = _fit_markers(photo, layout, config, warnings)
+    h, used, residual, blur = _fit_markers(photo, layout, config, warnings, coarse)
     win = layout.window
     photo_ppm, _ = local_px_per_mm(
         np.linalg.inv(h), win.x_mm + win.width_mm / 2, win.y_mm + win.height_mm / 2
@@ -216,11 +223,11 @@ def locate(
 
 
 def _candidates(
-    photo: np.ndarray, layout: Layout, warnings: list[str]
+    photo: np.ndarray, layout: Layout, warnings: list[str], coarse: Coarse | None
 ) -> tuple[list[Candidate], dict[int, list[float]]]:
     """The layout's markers found in the photo, as (id, photo corners, layout corners),
     and each one's edge blur (:attr:`Detection.blur_px`) by id."""
-    detections = detect_markers(photo, dictionary=layout.dictionary)
+    detections = detect_markers(photo, dictionary=layout.dictionary, coarse=coarse)
     by_id = {m.id: m for m in layout.markers}
     blurs: dict[int, list[float]] = {}
     for d in detections:
@@ -294,11 +301,15 @@ def _say_which_card(photo: np.ndarray, layout: Layout, detections: tuple[Detecti
 
 
 def _fit_markers(
-    photo: np.ndarray, layout: Layout, config: LocateConfig, warnings: list[str]
+    photo: np.ndarray,
+    layout: Layout,
+    config: LocateConfig,
+    warnings: list[str],
+    coarse: Coarse | None = None,
 ) -> tuple[np.ndarray, tuple[int, ...], float, float | None]:
     """Homography (photo px -> layout mm), the marker ids it uses, its RMS residual, and
     the median edge blur of those markers (None where none could be read)."""
-    cands, blurs = _candidates(photo, layout, warnings)
+    cands, blurs = _candidates(photo, layout, warnings, coarse)
     h, kept, dropped = robust_fit(cands, 0.5 * config.max_residual_mm)
     kept_ids = {c[0] for c in kept}
     for marker_id, miss in dropped:

@@ -21,7 +21,7 @@ import numpy as np
 
 from printcheck.errors import LocateError
 
-__all__ = ["Detection", "detect_markers"]
+__all__ = ["Coarse", "Detection", "coarse_markers", "detect_markers", "reduction"]
 
 _DETECT_LONG_SIDE = 1600  # about the long side of the reduced copy markers are found on, px
 
@@ -207,7 +207,36 @@ def _refine_corners(
     return current
 
 
-def detect_markers(image: np.ndarray, *, dictionary: str) -> tuple[Detection, ...]:
+def reduction(shape: tuple[int, ...]) -> int:
+    """By how much a side markers are first looked for on a reduced copy of a photo of
+    ``shape`` (1: on the photo itself): a whole factor, to a long side of about 1600 px."""
+    return max(1, math.ceil(max(shape[0], shape[1]) / _DETECT_LONG_SIDE - 0.25))
+
+
+@dataclass(frozen=True)
+class Coarse:
+    """Markers found on a reduced copy of a photo: each (id, corners in the photo's
+    pixels), and how far (px) those corners may be off."""
+
+    found: tuple[tuple[int, np.ndarray], ...]
+    tolerance: float
+
+
+def coarse_markers(small: np.ndarray, scale: tuple[float, float], *, dictionary: str) -> Coarse:
+    """The markers of ``dictionary`` in ``small``, a grey copy of a photo reduced by
+    ``scale`` (photo pixels per copy pixel, x and y), in the photo's pixels."""
+    found = _detect_raw(small, _dictionary(dictionary))
+    fx, fy = scale
+    # pixel centres: small (x) <-> full ((x + 0.5) * f - 0.5)
+    return Coarse(
+        tuple((i, (c + 0.5) * np.array([fx, fy]) - 0.5) for i, c in found),
+        1.0 * max(fx, fy) + 1.0,
+    )
+
+
+def detect_markers(
+    image: np.ndarray, *, dictionary: str, coarse: Coarse | None = None
+) -> tuple[Detection, ...]:
     """Find the markers of ``dictionary`` in ``image`` and refine their corners.
 
     Parameters
@@ -216,6 +245,9 @@ def detect_markers(image: np.ndarray, *, dictionary: str) -> tuple[Detection, ..
         The photo (BGR or grey).
     dictionary : str
         One of OpenCV's predefined ArUco dictionary names, e.g. ``"DICT_4X4_50"``.
+    coarse : Coarse, optional
+        The markers already found on a reduced copy of the photo (:func:`coarse_markers`);
+        by default the photo is reduced by :func:`reduction` here.
 
     Returns
     -------
@@ -227,21 +259,16 @@ def detect_markers(image: np.ndarray, *, dictionary: str) -> tuple[Detection, ..
     grey_full = _grey(arr)
     rows, cols = grey_full.shape
     aruco_dict = _dictionary(dictionary)
-    factor = math.ceil(max(rows, cols) / _DETECT_LONG_SIDE - 0.25)
-    if factor >= 2:  # by a whole factor (OpenCV's area average is fastest so)
+    factor = reduction(grey_full.shape)
+    if coarse is None and factor >= 2:  # by a whole factor (OpenCV's area average is fastest so)
         crop = grey_full[: rows - rows % factor, : cols - cols % factor]
         small = cv2.resize(
             crop, (crop.shape[1] // factor, crop.shape[0] // factor), interpolation=cv2.INTER_AREA
         )
-        fx = fy = float(factor)
-        raw = _detect_raw(small, aruco_dict)
-        # pixel centres: small (x) <-> full ((x + 0.5) * f - 0.5)
-        raw = [(i, (c + 0.5) * np.array([fx, fy]) - 0.5) for i, c in raw]
-        tolerance = 1.0 * max(fx, fy) + 1.0
-        if not raw:  # small markers may only show at full resolution
-            raw = _detect_raw(grey_full, aruco_dict)
-            tolerance = 1.5
-    else:
+        coarse = coarse_markers(small, (float(factor), float(factor)), dictionary=dictionary)
+    if coarse is not None and coarse.found:
+        raw, tolerance = list(coarse.found), coarse.tolerance
+    else:  # small markers may only show at full resolution
         raw = _detect_raw(grey_full, aruco_dict)
         tolerance = 1.5
     bits = int(aruco_dict.markerSize)

@@ -17,7 +17,9 @@ from printcheck.result import Result
 
 if TYPE_CHECKING:
     from printcheck.frame import Frame
+    from printcheck.load import PhotoFile
     from printcheck.locate import Rectified
+    from printcheck.markers import Coarse
     from printcheck.measure import MeasureConfig, Measurement
     from printcheck.segment import Segmentation
 
@@ -60,8 +62,11 @@ def cores_available() -> int:
         return os.cpu_count() or 1
 
 
-def _rectify(image: np.ndarray, options: InspectOptions) -> Rectified:
-    """The locate stage: markers (or the explicit scale) to the rectified window."""
+def _rectify(
+    image: np.ndarray, options: InspectOptions, coarse: Coarse | None = None
+) -> Rectified:
+    """The locate stage: markers (or the explicit scale) to the rectified window;
+    ``coarse``: the markers already found on a reduced copy (see :func:`inspect_photo`)."""
     from printcheck.locate import LocateConfig, locate, rectify_scale
 
     loc_config = LocateConfig(allow_partial=options.allow_partial)
@@ -70,7 +75,7 @@ def _rectify(image: np.ndarray, options: InspectOptions) -> Rectified:
             image, px_per_mm=options.px_per_mm, window=options.scale_window, config=loc_config
         )
     layout = options.layout_in_use
-    return locate(image, layout=layout, config=loc_config)
+    return locate(image, layout=layout, config=loc_config, coarse=coarse)
 
 
 def _measure_rectified(
@@ -175,17 +180,39 @@ def _no_compound(options: InspectOptions, chosen: str) -> str:
     )
 
 
+def _coarse_markers(file: PhotoFile, dictionary: str) -> Coarse | None:
+    """The markers on a reduced grey copy of the photo file, or None where libjpeg cannot
+    make one (not a plain JPEG, or too small to reduce): then locate reduces the photo."""
+    from printcheck.load import reduced_grey
+    from printcheck.markers import coarse_markers, reduction
+
+    by = reduction((file.height, file.width))
+    copy = reduced_grey(file, by) if by >= 2 else None
+    if copy is None:
+        return None
+    return coarse_markers(*copy, dictionary=dictionary)
+
+
 def inspect_photo(path: str | Path, *, options: InspectOptions, name: str | None = None) -> Result:
     """Load the photo at ``path`` and inspect it (see :func:`inspect_image`); ``name``:
     the photo's name in the result (default: its file name)."""
-    from printcheck.load import load_photo
+    from printcheck.load import decode_photo, read_photo
+    from printcheck.sparecore import on_spare_core, spare_core_helps
 
-    photo = load_photo(path)
+    file = read_photo(path)
+    # the markers are first looked for on a copy a few times smaller; where a spare core
+    # helps, libjpeg decodes that copy there (scaled as it decodes) and the markers are
+    # found on it while the photo decodes here (the copy is small: any photo may)
+    early = None
+    if options.px_per_mm is None and spare_core_helps(0):
+        early = on_spare_core(0, _coarse_markers, file, options.layout_in_use.dictionary)
+    photo = decode_photo(file)
+    del file
     where, sha256 = photo.path, photo.sha256
     name = name or photo.name
     taken = photo.taken if photo.taken is not None else photo.file_time
     try:
-        rect = _rectify(photo.image, options)
+        rect = _rectify(photo.image, options, None if early is None else early.result())
         # the decoded photo is not needed past locate: let it go before segment and measure
         # (36 MB for 12 MP, 72 MB for 24 MP off the peak memory)
         del photo

@@ -220,3 +220,36 @@ def test_a_named_pipe_is_refused_without_waiting_for_a_writer(tmp_path: Path) ->
         link.symlink_to("/dev/zero")  # would read for ever
         with pytest.raises(PhotoError, match=r"zero\.jpg: is a device, not a photo"):
             load_photo(link)
+
+
+@pytest.mark.parametrize("orientation", [1, 6, 8])
+def test_a_reduced_grey_copy_is_the_area_average_of_the_photo(
+    tmp_path: Path, orientation: int
+) -> None:
+    # libjpeg's scaled decode against OpenCV's reduction by area (cv2.INTER_AREA) of the
+    # full decode's grey, the right way up; 3/8 is the smallest n/8 keeping a third
+    from printcheck.load import decode_photo, read_photo, reduced_grey
+
+    rng = np.random.default_rng(orientation)
+    rgb = cv2.GaussianBlur(rng.integers(0, 256, (240, 320, 3), dtype=np.uint8), (0, 0), 4.0)
+    exif = Image.Exif()
+    exif[0x0112] = orientation
+    path = tmp_path / f"photo{orientation}.jpg"
+    Image.fromarray(rgb).save(path, quality=95, exif=exif)
+    file = read_photo(path)
+    copy = reduced_grey(file, 3)
+    assert copy is not None
+    grey, (fx, fy) = copy
+    full = cv2.cvtColor(decode_photo(file).image, cv2.COLOR_BGR2GRAY)
+    assert (fx, fy) == (full.shape[1] / grey.shape[1], full.shape[0] / grey.shape[0])
+    assert fx == pytest.approx(8 / 3, abs=0.02) and fy == pytest.approx(8 / 3, abs=0.02)
+    ref = cv2.resize(full, (grey.shape[1], grey.shape[0]), interpolation=cv2.INTER_AREA)
+    assert np.abs(grey.astype(int) - ref.astype(int)).mean() <= 1.5
+
+
+def test_no_reduced_copy_of_a_photo_that_is_not_a_jpeg(tmp_path: Path) -> None:
+    from printcheck.load import read_photo, reduced_grey
+
+    path = tmp_path / "photo.png"
+    Image.fromarray(_pattern(120, 160)).save(path)
+    assert reduced_grey(read_photo(path), 2) is None
