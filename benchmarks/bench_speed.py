@@ -318,6 +318,11 @@ def print_stages(named: list[tuple[str, dict[str, Any]]]) -> None:
         f"{'(stages one after another)':32s}"
         + "".join(f"{sum(r['times'][k] for k in stage_sum):8.3f} s{'':7s}" for _, r in named)
     )
+    print(
+        "  (the whole inspect overlaps work on a second core: the coarse marker search with\n"
+        "  the decode, half the watershed and the range's decisions with segment and measure;\n"
+        "  the stage rows time each stage alone)"
+    )
     for name, r in named:
         rows, cols = r["rect_shape"]
         print(
