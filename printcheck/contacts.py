@@ -381,15 +381,14 @@ def _watershed(
     # floods in does not depend on the others: where a spare core helps, the parts are
     # flooded in two bands of rows at once (skimage's flooding releases the GIL), those
     # reaching above the row that halves the work and the rest
-    bands = [multi]
+    bands = [cut]
     if spare_core_helps(region.size):
         half = int(np.searchsorted(np.cumsum(np.count_nonzero(cut, axis=1)), cut.sum() // 2))
         upper = np.zeros(n, bool)
         upper[comp[:half][cut[:half]]] = True
-        bands = [part for part in (multi & upper, multi & ~upper) if part.any()]
+        bands = [part[comp] for part in (multi & upper, multi & ~upper) if part.any()]
 
-    def flood(part: np.ndarray) -> tuple[slice, np.ndarray, np.ndarray]:
-        mask = cut if part is multi else part[comp]
+    def flood(mask: np.ndarray) -> tuple[slice, np.ndarray, np.ndarray]:
         used = np.flatnonzero(mask.any(axis=1))
         rows = slice(int(used[0]), int(used[-1]) + 1)
         mask, seeds_in = mask[rows], markers[rows]
@@ -399,7 +398,7 @@ def _watershed(
         )
         return rows, mask, ws
 
-    later = [on_spare_core(region.size, flood, part) for part in bands[1:]]
+    later = [on_spare_core(region.size, flood, band) for band in bands[1:]]
     for rows, mask, ws in [flood(bands[0])] + [f.result() for f in later]:
         labels[rows][mask] = ws[mask]
     return labels, int(labels.max())

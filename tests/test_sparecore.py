@@ -93,10 +93,21 @@ def test_work_on_the_spare_core_that_hands_on_work_does_not_wait_for_ever() -> N
 @pytest.mark.skipif(
     (os.cpu_count() or 1) < 2, reason="one core: the watershed floods in one piece either way"
 )
-def test_the_watershed_flooded_in_two_bands_is_the_watershed_in_one() -> None:
+def test_the_watershed_flooded_in_two_bands_is_the_watershed_in_one(monkeypatch) -> None:  # type: ignore[no-untyped-def]
     """Regions of touching discs flooded in two bands at once (two threads) are labelled
     exactly as by one skimage watershed over all (one thread)."""
+    import skimage.segmentation
+
     from printcheck.contacts import watershed_regions
+
+    floods = []
+    flood = skimage.segmentation.watershed
+
+    def counted(*args, **kwargs):  # type: ignore[no-untyped-def]
+        floods.append(threading.current_thread().name)
+        return flood(*args, **kwargs)
+
+    monkeypatch.setattr(skimage.segmentation, "watershed", counted)
 
     rng = np.random.default_rng(5)
     yy, xx = np.mgrid[0:400, 0:300]
@@ -111,9 +122,12 @@ def test_the_watershed_flooded_in_two_bands_is_the_watershed_in_one() -> None:
         got = []
         for threads in (1, 2):
             cv2.setNumThreads(threads)
+            floods.clear()
             got.append(watershed_regions(region, height, px_per_mm=16.0))
+            assert len(floods) == threads  # one flood over all; then two bands
     finally:
         cv2.setNumThreads(before)
+    assert any(name.startswith("spare-core") for name in floods)  # the second band beside
     (one, n_one), (two, n_two) = got
     assert n_one == n_two and np.array_equal(one, two)
     assert n_one > 60  # discs were cut apart, not only labelled
