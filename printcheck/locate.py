@@ -305,7 +305,7 @@ def _fit_markers(
     layout: Layout,
     config: LocateConfig,
     warnings: list[str],
-    coarse: Coarse | None = None,
+    coarse: Coarse | None,
 ) -> tuple[np.ndarray, tuple[int, ...], float, float | None]:
     """Homography (photo px -> layout mm), the marker ids it uses, its RMS residual, and
     the median edge blur of those markers (None where none could be read)."""
