@@ -37,6 +37,7 @@ __all__ = [
     "OWN_CHANNEL",
     "compound_evidence",
     "rebuilt_highlights",
+    "divisor_clipped",
     "choose_compound",
     "level_maps",
     "block_quantiles",
@@ -133,6 +134,27 @@ def rebuilt_highlights(
     if not changed:
         return evidence
     return _log_ratio(rebuilt[0], rebuilt[1], rebuilt[2], compound)
+
+
+#: The channels each compound's evidence divides by (BGR indices).
+_DIVISORS = {"blue": (2,), "red": (0, 1)}
+
+
+def divisor_clipped(image: np.ndarray, compound: str) -> np.ndarray:
+    """Pixels at which a channel the evidence of ``compound`` divides by is at its
+    ceiling (red for blue compound; green or blue for red compound).
+
+    There the evidence is only a bound: the divisor was at least what was recorded, so
+    the colour is at most as strong as it reads, and :func:`rebuilt_highlights` can only
+    guess the rest from the metal's usual colour.  A highlight lit by a second, cooler
+    light (a window beside a warm lamp) is whiter than the metal round it and reads as
+    compound there.  The compound itself absorbs exactly that channel: a contact whose
+    divisor still burns out is too pale to tell from the metal anyway.
+    """
+    out = np.zeros(image.shape[:2], bool)
+    for k in _DIVISORS[compound]:
+        out |= image[..., k] >= CLIPPED
+    return out
 
 
 def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> tuple[str, float]:

@@ -10,7 +10,8 @@ The steps (see :mod:`printcheck.evidence`, :mod:`printcheck.field` and
 1. the compound's colour, from ``config.compound`` or, with "auto", from the photo;
 2. the colour evidence of every pixel, lightly smoothed; burnt-out highlights carry no
    colour and are left out, and a divisor channel clipped alone is rebuilt from its
-   neighbour (:func:`printcheck.evidence.rebuilt_highlights`);
+   neighbour (:func:`printcheck.evidence.rebuilt_highlights`), a guess no contact may
+   start from;
 3. the local bare level and noise of the evidence, over the pixels that are not contact
    (what stands clearly above a coarse first estimate is left out of the fine one);
 4. the local level of the compound, from the strongest marks nearby; and, where the
@@ -51,6 +52,7 @@ from printcheck.evidence import (
     OWN_CHANNEL,
     choose_compound,
     compound_evidence,
+    divisor_clipped,
     rebuilt_highlights,
 )
 from printcheck.field import Field, contact_field, map_median, with_relief
@@ -328,6 +330,8 @@ def segment(
         local_mm=config.local_mm,
         compound_on=config.compound_on,
     )
+    if config.compound_on == "reference":
+        field = _unsure_where_divisor_clipped(field, image, compound)
     if washed is not None:
         # of the washed pixels, those whose colour reads above the bare metal's: a trace
         # of compound, of which the ceiling may hide more
@@ -370,6 +374,25 @@ def segment(
     ]
     mask = _decide(field, config, s, rim, cut, None)
     return result(mask, Later(alternates), level, field.noise, _cut_on(field).part_px)
+
+
+#: How far (px) the colour of a pixel reaches its neighbours: JPEG keeps the colour of
+#: 2 x 2 pixels as one and spreads it again over a pixel more when it decodes; the
+#: rectified frame is never finer than the photo.
+_COLOUR_REACH_PX = 2
+
+
+def _unsure_where_divisor_clipped(field: Field, image: np.ndarray, compound: str) -> Field:
+    """``field`` with no significance left where its colour is only a bound: at pixels
+    whose divisor channel is clipped, and those that share their colour
+    (:func:`printcheck.evidence.divisor_clipped`; glare is not valid anyway).  No seed
+    starts there; a contact seeded beside them may still grow into them."""
+    bound = divisor_clipped(image, compound) & field.valid
+    if not bound.any():
+        return field
+    side = 2 * _COLOUR_REACH_PX + 1
+    bound = cv2.dilate(bound.view(np.uint8), np.ones((side, side), np.uint8)).view(bool)
+    return replace(field, zs=np.where(bound, np.minimum(field.zs, 0.0), field.zs))
 
 
 def _share(pixels: np.ndarray, of: np.ndarray) -> float:
