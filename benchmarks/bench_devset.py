@@ -28,7 +28,7 @@ Run::
 
 A method tuned to these photos would not carry over to others of the same kinds.
 ``--retake`` asks how it does on the same prints photographed otherwise: farther off,
-darker and noisier, under a warmer light, a little out of focus (see :func:`_retaken`).
+darker and noisier, under a warmer or a cooler light, a little out of focus (see :func:`_retaken`).
 
 This is a script, not a test: it prints figures and exits 0.
 """
@@ -105,8 +105,9 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
     """The photo as if taken again otherwise (the same print, other pixels), JPEG-encoded
     again: ``farther`` (0.8 of the size, as from a quarter further off), ``darker``
     (underexposed by a quarter, a steeper tone curve and more sensor noise), ``warmer``
-    (white balance off the other way: blue x 0.85, red x 1.12, so bright metal burns its
-    red out first) or ``softer`` (focus a little off, a 1 px Gaussian)."""
+    (white balance off toward red: blue x 0.85, red x 1.12, so bright metal burns its red
+    out first), ``cooler`` (off toward blue: blue x 1.12, red x 0.88) or ``softer``
+    (focus a little off, a 1 px Gaussian)."""
     import zlib
 
     import cv2
@@ -121,8 +122,8 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
         f = f**1.25 * 0.75 + rng.normal(0.0, 0.012, f.shape).astype(np.float32)
         out = (np.clip(f, 0.0, 1.0) * 255.0).astype(np.uint8)
         quality = 70
-    elif how == "warmer":
-        gains = np.array([0.85, 1.0, 1.12], np.float32)
+    elif how in ("warmer", "cooler"):
+        gains = np.array([0.85, 1.0, 1.12] if how == "warmer" else [1.12, 1.0, 0.88], np.float32)
         out = np.clip(image.astype(np.float32) * gains, 0, 255).astype(np.uint8)
     elif how == "softer":
         out = cv2.GaussianBlur(image, (0, 0), 1.0)
@@ -133,7 +134,7 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
     return np.asarray(cv2.imdecode(buf, cv2.IMREAD_COLOR))
 
 
-RETAKES = ("farther", "darker", "warmer", "softer")
+RETAKES = ("farther", "darker", "warmer", "cooler", "softer")
 
 
 def score_scene(truth_path: Path, retake: str | None = None) -> Row:
@@ -281,7 +282,7 @@ def main(argv: list[str] | None = None) -> int:
         "--retake",
         choices=RETAKES,
         help="score the photos as if taken again otherwise (the same print, other "
-        "pixels): farther, darker, warmer or softer",
+        "pixels): farther, darker, warmer, cooler or softer",
     )
     args = ap.parse_args(argv)
     if not args.devset.is_dir():
