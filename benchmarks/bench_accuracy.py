@@ -297,6 +297,7 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
     image = rendered["image"]
     t0 = time.perf_counter()
     warnings: list[str] = []
+    paper = None  # the markers' white paper, where locate reads it (as inspect does)
     if scene.camera is None:
         # square-on: the photo is the layout frame at px_per_mm
         s = scene.px_per_mm
@@ -314,6 +315,7 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
             rect = locate(image, layout=layout)
             rect_img, frame, visible, analysed = rect.image, rect.frame, rect.visible, rect.analysed
             method = "locate"
+            paper = rect.paper_bgr
             photo_ppm = rect.calibration.photo_px_per_mm
             warnings.extend(rect.warnings)
         except (PrintcheckError, NotImplementedError) as exc:
@@ -328,7 +330,9 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
         rect_img,
         visible=visible,
         analysed=analysed,
-        config=SegmentConfig(compound=scene.compound, compound_on=scene.compound_on, px_per_mm=s),
+        config=SegmentConfig(
+            compound=scene.compound, compound_on=scene.compound_on, px_per_mm=s, paper_bgr=paper
+        ),
     )
     meas = measure_segmented(
         seg,

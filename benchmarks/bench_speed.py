@@ -235,6 +235,7 @@ def time_stages(shot: Shot, repeat: int) -> dict[str, Any]:
             compound=options.compound,  # type: ignore[arg-type]
             compound_on=options.compound_on,  # type: ignore[arg-type]
             px_per_mm=rect.frame.px_per_mm,
+            paper_bgr=rect.paper_bgr,
         )
 
         def segment_whole():  # noqa: ANN202 - the alternates too (inspect overlaps them)
@@ -368,7 +369,7 @@ def _child_rss(path: str, layout_name: str) -> None:
             rect.image,
             visible=rect.visible,
             analysed=rect.analysed,
-            config=SegmentConfig(px_per_mm=rect.frame.px_per_mm),
+            config=SegmentConfig(px_per_mm=rect.frame.px_per_mm, paper_bgr=rect.paper_bgr),
         )
         tuple(seg.alternates)  # decided on a spare core: wait for them
         peaks["segment"] = _peak_rss_mb()

@@ -38,6 +38,7 @@ __all__ = [
     "compound_evidence",
     "rebuilt_highlights",
     "divisor_clipped",
+    "neutral_evidence",
     "choose_compound",
     "level_maps",
     "block_quantiles",
@@ -136,6 +137,16 @@ def rebuilt_highlights(
     return _log_ratio(rebuilt[0], rebuilt[1], rebuilt[2], compound)
 
 
+def neutral_evidence(paper_bgr: tuple[float, float, float] | None, compound: str) -> float:
+    """:func:`compound_evidence` of a neutral under the photo's light: of the white
+    paper's colour ``paper_bgr`` (B, G, R, 8-bit) as the photo shows it, or 0 (grey)
+    when it is not known.  A white-balance error offsets every pixel's evidence by it."""
+    if paper_bgr is None:
+        return 0.0
+    b, g, r = (np.array([v + LOG_OFFSET], np.float32) for v in paper_bgr)
+    return float(_log_ratio(b, g, r, compound)[0])
+
+
 #: The channels each compound's evidence divides by (BGR indices).
 _DIVISORS = {"blue": (2,), "red": (0, 1)}
 
@@ -157,7 +168,13 @@ def divisor_clipped(image: np.ndarray, compound: str) -> np.ndarray:
     return out
 
 
-def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> tuple[str, float]:
+def choose_compound(
+    image: np.ndarray,
+    where: np.ndarray,
+    compound_on: str,
+    *,
+    paper_bgr: tuple[float, float, float] | None = None,
+) -> tuple[str, float]:
     """The compound colour the photo shows, and how clearly (a ratio >= 1).
 
     With compound on the reference the spots are the strongly coloured tail of the
@@ -172,6 +189,9 @@ def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> t
     where : (M, N) bool ndarray
         The pixels to judge by (the analysed window).
     compound_on : {"reference", "work"}
+    paper_bgr : (float, float, float), optional
+        The white paper as the photo shows it: a window is coloured all over when its
+        bulk is far from the paper's colour (default: from grey).
     """
     # every k-th row and column, some 60 000 pixels or more: the 0.5 % tails read on 300
     step = max(1, int(math.sqrt(max(int(where.sum()), 1) / 60_000.0)))
@@ -185,10 +205,12 @@ def choose_compound(image: np.ndarray, where: np.ndarray, compound_on: str) -> t
             continue
         lo, mid, hi = _evidence_quantiles(channels, sel, name, (0.005, 0.5, 0.995))
         tails[name] = float(hi - mid) if compound_on == "reference" else float(mid - lo)
-        if compound_on == "reference" and mid > 0.4:
+        bulk = float(mid) - neutral_evidence(paper_bgr, name)
+        if compound_on == "reference" and bulk > 0.4:
             # the window is coloured all over (a surface covered in compound): no white
-            # balance error moves grey metal this far, so the bulk itself tells the colour
-            tails[name] = max(tails[name], float(mid))
+            # balance error the paper does not tell moves grey metal this far, so the
+            # bulk itself tells the colour
+            tails[name] = max(tails[name], bulk)
     best = max(tails, key=lambda k: tails[k])
     other = tails["red" if best == "blue" else "blue"]
     return best, tails[best] / max(other, 1e-6)

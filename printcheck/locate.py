@@ -37,7 +37,7 @@ from printcheck.layout import (
     card_of_layout,
     card_shown,
 )
-from printcheck.markers import Coarse, Detection, detect_markers
+from printcheck.markers import Coarse, Detection, detect_markers, paper_colour
 from printcheck.window import (
     check_partial,
     choose_px_per_mm,
@@ -127,6 +127,9 @@ class Rectified:
     homography : (3, 3) float ndarray or None
         Photo pixel (x=col, y=row) to layout mm.
     warnings : tuple of str
+    paper_bgr : (float, float, float) or None
+        The white paper of the markers as the photo shows it (a neutral under its light,
+        :func:`printcheck.markers.paper_colour`); None where there is none to read.
     """
 
     image: np.ndarray
@@ -136,6 +139,7 @@ class Rectified:
     calibration: Calibration
     homography: np.ndarray | None
     warnings: tuple[str, ...] = ()
+    paper_bgr: tuple[float, float, float] | None = None
 
 
 def _as_bgr(image: np.ndarray) -> np.ndarray:
@@ -219,7 +223,13 @@ def locate(
         photo_px_per_mm=photo_ppm,
         photo_blur_px=blur,
     )
-    return Rectified(rect, frame, visible, analysed, calibration, h, tuple(warnings))
+    paper = paper_colour(
+        photo,
+        [(m.id, np.asarray(m.corners_mm, np.float64)) for m in layout.markers if m.id in used],
+        np.linalg.inv(h),
+        dictionary=layout.dictionary,
+    )
+    return Rectified(rect, frame, visible, analysed, calibration, h, tuple(warnings), paper)
 
 
 def _candidates(

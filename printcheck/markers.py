@@ -21,7 +21,7 @@ import numpy as np
 
 from printcheck.errors import LocateError
 
-__all__ = ["Coarse", "Detection", "coarse_markers", "detect_markers", "reduction"]
+__all__ = ["Coarse", "Detection", "coarse_markers", "detect_markers", "paper_colour", "reduction"]
 
 _DETECT_LONG_SIDE = 1600  # about the long side of the reduced copy markers are found on, px
 
@@ -346,3 +346,75 @@ def edge_blur_px(grey: np.ndarray, corners: np.ndarray, bits: int) -> float | No
     if len(rises) < 12:
         return None
     return float(np.median(rises)) / _RISE_PER_SIGMA
+
+
+#: A channel of the paper at or above this (8-bit) is at its ceiling.
+_PAPER_CLIPPED = 250
+
+
+def paper_colour(
+    photo: np.ndarray,
+    markers_mm: list[tuple[int, np.ndarray]],
+    photo_from_layout: np.ndarray,
+    *,
+    dictionary: str,
+) -> tuple[float, float, float] | None:
+    """The colour (B, G, R, 8-bit) of the white paper the markers are printed on, as this
+    photo shows it: a neutral under the photo's light, or None where it cannot be read.
+
+    The white cells of each marker are known from its dictionary; each is read at nine
+    points in its middle half (clear of the blurred edges of its black neighbours).
+    White paper is often the brightest thing in a photo, and under a colour cast one of
+    its channels may burn out: that channel is read at its ceiling, which only
+    understates the cast (a channel at 255 was at least that).  Samples with two
+    channels or more at the ceiling carry no colour and are left out, and so are those
+    much darker than the brightest (a cell the fit placed on ink).  The median of at
+    least nine samples is the paper's colour.
+
+    Parameters
+    ----------
+    photo : (H, W, 3) uint8 ndarray, BGR
+    markers_mm : list of (id, (4, 2) ndarray)
+        The markers to read: id and layout corners (mm) in OpenCV's order.
+    photo_from_layout : (3, 3) ndarray
+        Layout mm (x, y) to photo pixels (x, y).
+    dictionary : str
+        The markers' ArUco dictionary, e.g. "DICT_4X4_50".
+    """
+    d = _dictionary(dictionary)
+    n = int(d.markerSize)
+    side = n + 2
+    square = np.array([[0, 0], [side, 0], [side, side], [0, side]], np.float32)
+    sub = np.array([0.25, 0.5, 0.75])
+    points = []
+    for marker_id, corners in markers_mm:
+        if not 0 <= marker_id < d.bytesList.shape[0]:
+            continue
+        bits = cv2.aruco.Dictionary.getBitsFromByteList(
+            d.bytesList[marker_id : marker_id + 1], n
+        )
+        rows, cols = np.nonzero(bits)
+        if rows.size == 0:
+            continue
+        # cell coordinates (col, row) of nine points in the middle of each white cell
+        u = (cols[:, None, None] + 1 + sub[None, None, :]).repeat(3, axis=1)
+        v = (rows[:, None, None] + 1 + sub[None, :, None]).repeat(3, axis=2)
+        cells = np.stack([u.ravel(), v.ravel()], axis=1).astype(np.float32)
+        to_mm = cv2.getPerspectiveTransform(square, np.asarray(corners, np.float32))
+        points.append(cv2.perspectiveTransform(cells[None], to_mm)[0])
+    if not points:
+        return None
+    mm = np.concatenate(points).astype(np.float64)
+    px = cv2.perspectiveTransform(mm[None], np.asarray(photo_from_layout, np.float64))[0]
+    xs, ys = np.rint(px[:, 0]).astype(int), np.rint(px[:, 1]).astype(int)
+    inside = (xs >= 0) & (ys >= 0) & (xs < photo.shape[1]) & (ys < photo.shape[0])
+    samples = photo[ys[inside], xs[inside]].astype(np.float64)
+    samples = samples[(samples >= _PAPER_CLIPPED).sum(axis=1) <= 1]
+    if samples.shape[0] < 9:
+        return None
+    grey = samples.mean(axis=1)
+    samples = samples[grey >= 0.6 * float(np.percentile(grey, 90))]
+    if samples.shape[0] < 9:
+        return None
+    b, g, r = np.median(samples, axis=0)
+    return float(b), float(g), float(r)

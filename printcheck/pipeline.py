@@ -100,6 +100,7 @@ def _measure_rectified(
             compound=options.compound,  # type: ignore[arg-type]
             compound_on=options.compound_on,  # type: ignore[arg-type]
             px_per_mm=rect.frame.px_per_mm,
+            paper_bgr=rect.paper_bgr,
         ),
     )
     spec = options.spec

@@ -53,6 +53,7 @@ from printcheck.evidence import (
     choose_compound,
     compound_evidence,
     divisor_clipped,
+    neutral_evidence,
     rebuilt_highlights,
 )
 from printcheck.field import Field, contact_field, map_median, with_relief
@@ -64,8 +65,9 @@ __all__ = ["SegmentConfig", "Segmentation", "segment", "compound_evidence"]
 Compound = Literal["blue", "red", "auto"]
 CompoundOn = Literal["reference", "work"]
 
-# Evidence of a surface that is compound nearly everywhere: bare metal reads near 0
-# (about +-0.2 under a white-balance error), a compound mark 0.7-1.8.
+# Evidence of a surface that is compound nearly everywhere, against a neutral: bare metal
+# reads near 0 (about +-0.2 under a white-balance error the paper does not tell), a
+# compound mark 0.7-1.8.
 _COVERED_EVIDENCE = 0.4
 # The compound's typical level in noise units below which no compound is there at all:
 # bare scraped metal photographed without compound gives 2-3, the palest prints in the
@@ -119,6 +121,11 @@ class SegmentConfig:
         0.4 times again, the split share and the coat shares by 0.1; the default 1.5
         times that); they bound the range the measure stage reports.  Toward more, the
         seed keeps its significance over the noise (see :func:`_nudged`).
+    paper_bgr : (float, float, float) or None
+        The white paper of the markers as this photo shows it (B, G, R, 8-bit), a
+        neutral under its light: whether the window is coloured all over is judged
+        against it, so that a strong colour cast is not taken for compound everywhere.
+        None: judged against grey.
     """
 
     compound: Compound = "auto"
@@ -136,6 +143,7 @@ class SegmentConfig:
     coat_share: float = 0.5
     coat_seed: float = 0.6
     nudge: float = 1.5
+    paper_bgr: tuple[float, float, float] | None = None
 
     def __post_init__(self) -> None:
         if self.compound not in ("auto", "blue", "red"):
@@ -156,6 +164,11 @@ class SegmentConfig:
                 raise OptionError(f"{name} must be a number greater than zero, got {value!r}")
         if not (isinstance(self.min_spot_mm2, int | float) and self.min_spot_mm2 >= 0):
             raise OptionError(f"min_spot_mm2 must be zero or more, got {self.min_spot_mm2!r}")
+        paper = self.paper_bgr
+        if paper is not None and not (
+            len(paper) == 3 and all(isinstance(v, int | float) and 0 <= v <= 255 for v in paper)
+        ):
+            raise OptionError(f"paper_bgr must be three levels from 0 to 255, got {paper!r}")
         for name in ("seed_share", "rim_share", "split_share", "coat_share", "coat_seed"):
             value = getattr(self, name)
             if not (isinstance(value, int | float) and 0 <= value < 1):
@@ -305,7 +318,7 @@ def segment(
         empty = np.zeros(visible.shape, bool)
         return result(empty, (empty, empty), 0.0, EVIDENCE_FLOOR)
     if config.compound_on == "reference":
-        covered = _covered(evidence, stat)
+        covered = _covered(evidence, stat, neutral_evidence(config.paper_bgr, compound))
         if covered is not None:
             warnings.append(
                 f"{compound} compound covers nearly the whole surface: a film too thick, "
@@ -429,7 +442,9 @@ def _colour(
     """The compound's colour: as configured, or read from the photo ("auto")."""
     if config.compound != "auto":
         return config.compound
-    compound, clarity = choose_compound(image, analysed, config.compound_on)
+    compound, clarity = choose_compound(
+        image, analysed, config.compound_on, paper_bgr=config.paper_bgr
+    )
     if clarity < 1.5:
         warnings.append(
             f"the compound's colour is uncertain (chose {compound}); name it: blue or red"
@@ -437,16 +452,19 @@ def _colour(
     return compound
 
 
-def _covered(evidence: np.ndarray, stat: np.ndarray) -> tuple[float, float, float] | None:
-    """Thresholds (main, fewer, more) when compound covers the window, else None."""
+def _covered(
+    evidence: np.ndarray, stat: np.ndarray, neutral: float
+) -> tuple[float, float, float] | None:
+    """Thresholds (main, fewer, more) when compound covers the window, else None;
+    ``neutral``: the evidence of a neutral under the photo's light."""
     v = evidence[stat]
-    if not quantile(v[::7], 0.2) > _COVERED_EVIDENCE:
+    if not quantile(v[::7], 0.2) - neutral > _COVERED_EVIDENCE:
         return None
     q20, q50 = quantiles(v, (0.2, 0.5))
-    if not q20 > _COVERED_EVIDENCE:
+    if not q20 - neutral > _COVERED_EVIDENCE:
         return None
-    t = 0.5 * float(q50)
-    return t, 1.15 * t, 0.85 * t
+    half = 0.5 * (float(q50) - neutral)  # halfway from a neutral to the coat
+    return neutral + half, neutral + 1.15 * half, neutral + 0.85 * half
 
 
 def _decide(

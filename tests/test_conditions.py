@@ -12,6 +12,7 @@ Each condition is one that a photo from a shop shows and a method can be fooled 
 - compound on the work, seen through a card, with a ring of compound pushed up round
   each contact;
 - red compound with the default (automatic) colour;
+- a white balance so far off that bare metal looks as coloured as a coat of compound;
 - a film that thins to nothing at the rim of each contact (pale rims);
 - a phone's colour smoothing, which blurs the gaps of a fine print shut in colour alone;
 - a fine print: 40-60 points per square inch of sub-millimetre contacts, many in chains
@@ -56,7 +57,7 @@ def _scene(density: float, light: dict[str, float] | None = None, **scene: Any) 
 def _measure(scene: Scene, seed: int, **segment_options):  # type: ignore[no-untyped-def]
     shot = render_photo(scene, seed=seed)
     rect = locate(shot.image, layout=scene.layout)
-    options = {"compound_on": scene.compound_on, **segment_options}
+    options = {"compound_on": scene.compound_on, "paper_bgr": rect.paper_bgr, **segment_options}
     seg = segment(
         rect.image,
         visible=rect.visible,
@@ -164,6 +165,30 @@ def test_red_compound_is_found_by_default() -> None:
     scene = _scene(20, compound="red")
     truth, meas, seg = _measure(scene, seed=35)  # compound left to its default, auto
     assert seg.compound == "red"
+    _within(truth, meas)
+
+
+@pytest.mark.parametrize(
+    ("compound", "balance"), [("blue", (1.3, 1.0, 0.75)), ("red", (0.75, 1.0, 1.3))]
+)
+def test_a_strong_colour_cast_is_not_compound_all_over(
+    compound: str, balance: tuple[float, float, float]
+) -> None:
+    # a white balance far off toward the compound's own colour (blue up 30 % and red down
+    # 25 %, or the reverse; twice the cast of the test below) tints the bare metal as
+    # much as a coat of compound would; read against grey the window looked covered all
+    # over (1 spot, bearing 100 %).  The markers' white paper shows the same cast:
+    # judged against it, the print is measured as under a neutral light.
+    counts = []
+    for light in ((1.0, 1.0, 1.0), balance):
+        scene = _scene(20, dict(white_balance=light), compound=compound)
+        truth, meas, seg = _measure(scene, seed=2)
+        assert not any("covers nearly the whole" in w for w in seg.warnings)
+        assert seg.compound == compound
+        assert abs(meas.bearing_percent - truth.bearing_percent) <= 3.0
+        counts.append(meas.spot_count)
+    neutral, cast = counts
+    assert abs(cast - neutral) <= max(2, 0.08 * truth.spot_count), (neutral, cast)
     _within(truth, meas)
 
 

@@ -723,3 +723,48 @@ def test_markers_found_first_on_a_reduced_decode_give_the_same_fit(
     assert max(np.abs(here[i] - early[i]).max() for i in here) < 0.01
     rect = locate(image, layout=card, coarse=coarse)
     assert _homography_error(big_photo, rect.homography)[1] < 0.1
+
+
+def _card_on_paper(
+    paper: tuple[int, int, int], around: tuple[int, int, int] | None = None, ppm: float = 10.0
+) -> tuple[np.ndarray, np.ndarray]:
+    """The built-in card's markers, drawn by OpenCV's own marker generator in black ink
+    on paper of colour ``paper`` (BGR), and ``around`` them (default: the same paper),
+    photographed square-on at ``ppm`` px/mm: the photo and its layout-mm -> photo-px
+    homography."""
+    layout = card_layout()
+    dictionary = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
+    shift = 20.0  # mm of paper beyond the outermost marker
+    h = np.array([[ppm, 0.0, shift * ppm], [0.0, ppm, shift * ppm], [0.0, 0.0, 1.0]])
+    side = int(round((50.8 + 2 * shift) * ppm))
+    photo = np.empty((side, side, 3), np.uint8)
+    photo[:] = paper if around is None else around
+    for m in layout.markers:
+        (x0, y0) = np.asarray(m.corners_mm)[0]
+        n = int(round(12.0 * ppm))
+        bits = cv2.aruco.generateImageMarker(dictionary, m.id, n) > 127
+        r0, c0 = int(round((y0 + shift) * ppm)), int(round((x0 + shift) * ppm))
+        patch = photo[r0 : r0 + n, c0 : c0 + n]
+        patch[bits] = paper
+        patch[~bits] = (20, 20, 20)
+    return photo, h
+
+
+def test_the_paper_is_read_off_the_markers_white_cells() -> None:
+    from printcheck.markers import paper_colour
+
+    layout = card_layout()
+    markers = [(m.id, np.asarray(m.corners_mm)) for m in layout.markers]
+    paper = (200, 180, 150)  # a warm light on white paper
+    photo, h = _card_on_paper(paper)
+    got = paper_colour(photo, markers, h, dictionary="DICT_4X4_50")
+    assert got is not None and np.allclose(got, paper, atol=0.5), got
+    # only the white cells are read, not what lies round the markers
+    grey, _ = _card_on_paper(paper, around=(90, 90, 90))
+    inside = paper_colour(grey, markers, h, dictionary="DICT_4X4_50")
+    assert inside is not None and np.allclose(inside, paper, atol=0.5), inside
+    # a channel at its ceiling is read at it (the cast is then a bound); two are no colour
+    one, _ = _card_on_paper((255, 200, 160))
+    assert paper_colour(one, markers, h, dictionary="DICT_4X4_50") == (255.0, 200.0, 160.0)
+    two, _ = _card_on_paper((255, 252, 200))
+    assert paper_colour(two, markers, h, dictionary="DICT_4X4_50") is None
