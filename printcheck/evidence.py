@@ -140,11 +140,15 @@ def rebuilt_highlights(
 def neutral_evidence(paper_bgr: tuple[float, float, float] | None, compound: str) -> float:
     """:func:`compound_evidence` of a neutral under the photo's light: of the white
     paper's colour ``paper_bgr`` (B, G, R, 8-bit) as the photo shows it, or 0 (grey)
-    when it is not known.  A white-balance error offsets every pixel's evidence by it."""
+    when it is not known.  A white-balance error offsets every pixel's evidence by it.
+
+    Never below 0: markers may be printed on tinted labels (a yellowish paper reads as
+    less blue than grey), so the paper may only say that the light leans toward the
+    compound's colour, never make a grey window look coloured all over."""
     if paper_bgr is None:
         return 0.0
     b, g, r = (np.array([v + LOG_OFFSET], np.float32) for v in paper_bgr)
-    return float(_log_ratio(b, g, r, compound)[0])
+    return max(0.0, float(_log_ratio(b, g, r, compound)[0]))
 
 
 #: The channels each compound's evidence divides by (BGR indices).

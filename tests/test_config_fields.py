@@ -66,6 +66,9 @@ SEGMENT_CHANGES = {
     "coat_share": (0.9, "work"),
     "coat_seed": (0.95, "work"),
     "nudge": (4.0, "reference"),
+    # a bluish paper: the coat that covers the "work" photo is then no bluer than the
+    # light, and the window is no longer taken as covered in compound all over
+    "paper_bgr": ((240.0, 200.0, 150.0), "reference"),
 }
 
 
@@ -77,7 +80,7 @@ def test_every_segment_field_is_covered() -> None:
 @pytest.mark.parametrize("name", sorted(SEGMENT_CHANGES))
 def test_segment_field_changes_the_result(name: str) -> None:
     value, on = SEGMENT_CHANGES[name]
-    image = _photo(on)
+    image = _photo("work" if name == "paper_bgr" else on)  # paper: a window coloured all over
     base = SegmentConfig(compound="blue", compound_on=on, px_per_mm=S)  # type: ignore[arg-type]
     if name == "local_mm":  # the local level gates the seeds by their share of it
         base = dataclasses.replace(base, seed_share=0.6)

@@ -10,6 +10,8 @@ scipy.ndimage.label (8-connected), independently of printcheck.measure.
 
 from __future__ import annotations
 
+import math
+
 import cv2
 import numpy as np
 import pytest
@@ -584,3 +586,17 @@ def test_a_whiter_highlight_where_red_burns_out_is_not_blue_compound(seed: int) 
     assert len(on_bands) <= 2, len(on_bands)
     found = set(np.unique(labels[spots])) - {0}
     assert len(found) >= _count(spots) - 2  # the contacts themselves are all there
+
+
+def test_the_papers_evidence_is_its_log_ratio_and_never_below_grey() -> None:
+    from printcheck.evidence import neutral_evidence
+
+    # white paper under a cool light: blue over red, as compound_evidence reads a pixel
+    cool = (230.0, 200.0, 170.0)
+    want = math.log(230 + 4) - math.log(170 + 4)
+    assert neutral_evidence(cool, "blue") == pytest.approx(want, abs=1e-6)
+    want_red = math.log(230 + 4) - math.log((200 + 170) / 2 + 4)
+    assert neutral_evidence(cool[::-1], "red") == pytest.approx(want_red, abs=1e-6)
+    # a yellowish label reads less blue than grey: it may not make grey metal look blue
+    assert neutral_evidence((150.0, 225.0, 235.0), "blue") == 0.0
+    assert neutral_evidence(None, "blue") == 0.0
