@@ -28,6 +28,7 @@ import sqlite3
 import stat
 import subprocess
 import sys
+import textwrap
 import threading
 import time
 from collections.abc import Callable
@@ -812,3 +813,32 @@ def test_a_name_used_again_for_a_new_photo_keeps_the_earlier_photos_files(
     assert output_stem(out, names[0], new_sha) == stem
     report = (out / "report.html").read_text(encoding="utf-8")
     assert f'href="{stem}.json"' in report and 'href="IMG_0000.json"' not in report
+
+
+def test_ctrl_c_while_the_native_libraries_load_waits_until_they_are_whole() -> None:
+    # A Ctrl-C in the middle of OpenCV's start-up left it half made ("ImportError:
+    # initialization failed"), reported as an internal error, and the interpreter then
+    # aborted on its way out (signal 6).  Here the Ctrl-C comes exactly as cv2 begins to
+    # load: it must take effect only once cv2 is whole, as an ordinary interrupt.
+    script = textwrap.dedent(
+        """
+        import builtins, os, signal, sys
+        from printcheck import __main__ as entry
+        real = builtins.__import__
+        def hooked(name, *args, **kwargs):
+            if name == "cv2" and "cv2" not in sys.modules:
+                os.kill(os.getpid(), signal.SIGINT)
+            return real(name, *args, **kwargs)
+        builtins.__import__ = hooked
+        try:
+            entry._load_native_libraries()
+        except KeyboardInterrupt:
+            cv2 = sys.modules.get("cv2")
+            print("interrupted; cv2 whole:", cv2 is not None and hasattr(cv2, "imread"))
+        """
+    )
+    proc = subprocess.run(
+        [sys.executable, "-c", script], capture_output=True, text=True, timeout=120
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip() == "interrupted; cv2 whole: True", proc.stdout
