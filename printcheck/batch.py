@@ -1099,13 +1099,61 @@ class _Runner:
             self._pool.shutdown(wait=True)
             return
         # Ctrl-C or an error: stop now, without waiting for the photos being measured.
-        # No future is cancelled from here: the pool's own thread cancels the waiting ones
-        # (cancel_futures), and one cancelled from this thread while that thread fails the
-        # killed pool's futures makes it raise (InvalidStateError, Python 3.11).
-        for process in self._processes:
-            with contextlib.suppress(OSError):
-                process.kill()  # a no-op for one already ended
-        self._pool.shutdown(wait=True, cancel_futures=True)
+        end_pool_now(self._pool, self._processes)
+
+
+#: How long the pool's own thread is given to notice that its workers were killed (s).
+_POOL_THREAD_GRACE_S = 2.0
+
+
+def end_pool_now(pool: ProcessPoolExecutor, processes: set[Any]) -> None:
+    """Kill the pool's worker ``processes`` and end the pool, without waiting for the
+    photos being measured.
+
+    No future is cancelled from here: the pool's own thread cancels the waiting ones
+    (``cancel_futures``), and one cancelled from this thread while that thread fails the
+    killed pool's futures makes it raise (InvalidStateError, Python 3.11).
+
+    A worker killed half-way through sending its result leaves the rest of the message
+    missing from the pool's result pipe, and the pool's thread waits for it for ever
+    (then so would the batch, Ctrl-C or not).  When the thread has not ended within a
+    moment, filler is written into the pipe until it has: the message is then whole but
+    meaningless, the thread cannot read it, takes the pool as broken and ends.
+    """
+    for process in processes:
+        with contextlib.suppress(OSError):
+            process.kill()  # a no-op for one already ended
+    thread = getattr(pool, "_executor_manager_thread", None)
+    results = getattr(pool, "_result_queue", None)
+    pool.shutdown(wait=False, cancel_futures=True)
+    if thread is None:
+        return
+    thread.join(_POOL_THREAD_GRACE_S)
+    if thread.is_alive() and results is not None:
+        _fill_until_ended(results._writer.fileno(), thread)
+    thread.join()
+
+
+def _fill_until_ended(fd: int, thread: Any) -> None:
+    """Write zeros into the pipe ``fd`` until ``thread`` ends (never blocking on a full
+    pipe: it waits a moment and looks at the thread again)."""
+    import time
+
+    os.set_blocking(fd, False)
+    chunk = bytes(65536)
+    written = 0
+    while thread.is_alive() and written < _MOST_FILLER:
+        try:
+            written += os.write(fd, chunk)
+        except BlockingIOError:
+            time.sleep(0.01)
+        except OSError:  # the pipe is gone: nothing is left to wait for
+            return
+        thread.join(0.01)
+
+
+#: More than any result a worker sends (bytes): past it, the thread waits for something else.
+_MOST_FILLER = 1 << 28
 
 
 def _killed_photo(path: Path) -> Skipped:

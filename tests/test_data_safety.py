@@ -842,3 +842,36 @@ def test_ctrl_c_while_the_native_libraries_load_waits_until_they_are_whole() -> 
     )
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.strip() == "interrupted; cv2 whole: True", proc.stdout
+
+
+def test_a_worker_killed_half_way_through_its_result_does_not_hang_the_batch() -> None:
+    # Found by the random Ctrl-C test (1 run in 10 hung for ever): Ctrl-C kills the
+    # workers, and one killed while sending its result left half a message in the pool's
+    # result pipe; the pool's own thread then waited for the rest for ever, and the batch
+    # with it (its stack: ProcessPoolExecutor.shutdown -> join -> the thread in recv).
+    # Here half a message is put into the pipe by hand (the length header of the
+    # multiprocessing connection protocol, then 10 of the 1000 bytes it promises) while a
+    # worker is busy; ending the pool must still end.
+    import multiprocessing as mp
+    import struct
+    import threading
+    from concurrent.futures import CancelledError, ProcessPoolExecutor
+    from concurrent.futures.process import BrokenProcessPool
+
+    from printcheck.batch import end_pool_now
+
+    before = set(mp.active_children())
+    pool = ProcessPoolExecutor(max_workers=1, mp_context=mp.get_context("spawn"))
+    future = pool.submit(time.sleep, 60)
+    _wait_for(lambda: bool(set(mp.active_children()) - before), 30.0, "the worker to start")
+    workers = set(mp.active_children()) - before
+    writer = pool._result_queue._writer  # type: ignore[attr-defined]
+    os.write(writer.fileno(), struct.pack("!i", 1000) + b"x" * 10)
+    time.sleep(0.3)  # the pool's thread is reading it now, and waits for the rest
+    ended = threading.Thread(target=end_pool_now, args=(pool, workers), daemon=True)
+    ended.start()
+    ended.join(30.0)
+    assert not ended.is_alive(), "ending the pool hung"
+    assert all(not w.is_alive() for w in workers)
+    with pytest.raises((BrokenProcessPool, CancelledError)):
+        future.result(timeout=5)
