@@ -12,17 +12,11 @@ def _load_native_libraries() -> None:
     abort on its way out.  Held back, a Ctrl-C that came meanwhile takes effect as soon
     as they are loaded, as an ordinary interrupt.
     """
-    if not hasattr(signal, "pthread_sigmask"):  # pragma: no cover - not on Windows
-        import cv2  # noqa: F401
-        import numpy  # noqa: F401
+    from printcheck.signalmask import signals_blocked
 
-        return
-    old = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
-    try:
+    with signals_blocked(signal.SIGINT, signal.SIGTERM):
         import cv2  # noqa: F401
         import numpy  # noqa: F401
-    finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, old)
 
 
 def run() -> None:

@@ -31,6 +31,7 @@ from printcheck.errors import Interrupted, OptionError, PrintcheckError, ReportE
 from printcheck.options import InspectOptions
 from printcheck.pipeline import cores_available
 from printcheck.records import PassSummary, Progress, StoredPass
+from printcheck.signalmask import signals_blocked
 from printcheck.spec import Spec
 
 __all__ = [
@@ -1134,6 +1135,10 @@ def end_pool_now(pool: ProcessPoolExecutor, processes: set[Any]) -> None:
     thread.join()
 
 
+#: More than any result a worker sends (bytes): past it, the thread waits for something else.
+_MOST_FILLER = 1 << 28
+
+
 def _fill_until_ended(fd: int, thread: Any) -> None:
     """Write zeros into the pipe ``fd`` until ``thread`` ends (never blocking on a full
     pipe: it waits a moment and looks at the thread again)."""
@@ -1151,9 +1156,6 @@ def _fill_until_ended(fd: int, thread: Any) -> None:
             return
         thread.join(0.01)
 
-
-#: More than any result a worker sends (bytes): past it, the thread waits for something else.
-_MOST_FILLER = 1 << 28
 
 
 def _killed_photo(path: Path) -> Skipped:
@@ -1198,26 +1200,12 @@ def _start_helpers(context: Any) -> None:
     """
     from multiprocessing import resource_tracker
 
-    with _stderr_to_null(), _signals_blocked(signal.SIGINT):
+    with _stderr_to_null(), signals_blocked(signal.SIGINT):
         resource_tracker.ensure_running()
         if context.get_start_method() == "forkserver":
             from multiprocessing import forkserver
 
             forkserver.ensure_running()
-
-
-@contextlib.contextmanager
-def _signals_blocked(*signums: int) -> Iterator[None]:
-    """Block ``signums`` in this thread (and so in processes started meanwhile); a signal
-    that arrives meanwhile is delivered when they are unblocked, not lost."""
-    if not hasattr(signal, "pthread_sigmask"):  # pragma: no cover - not POSIX
-        yield
-        return
-    old = signal.pthread_sigmask(signal.SIG_BLOCK, signums)
-    try:
-        yield
-    finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, old)
 
 
 @contextlib.contextmanager
