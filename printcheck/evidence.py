@@ -93,6 +93,12 @@ OWN_CHANNEL = {"blue": 0, "red": 2}
 CLIPPED = 250
 
 
+#: The channels each compound's evidence divides by, and the neighbour each is rebuilt
+#: from where it alone is clipped (BGR indices): red from green for blue compound; green
+#: from blue and blue from green for red compound.
+_REBUILT_FROM = {"blue": ((2, 1),), "red": ((1, 0), (0, 1))}
+
+
 def rebuilt_highlights(
     evidence: np.ndarray, image: np.ndarray, compound: str, where: np.ndarray
 ) -> np.ndarray:
@@ -111,10 +117,7 @@ def rebuilt_highlights(
     never the reverse.  Pixels with two channels clipped are glare (unseen) and left.
     """
     chans = cv2.split(image)
-    if compound == "blue":
-        pairs = [(2, 1)]  # red, rebuilt from green
-    else:
-        pairs = [(1, 0), (0, 1)]  # green from blue, blue from green
+    pairs = _REBUILT_FROM[compound]
     if max(int(chans[lost].max()) for lost, _ in pairs) < CLIPPED:
         return evidence  # nothing clipped: the common case, decided in one pass
     clipped = [c >= CLIPPED for c in chans]
@@ -151,10 +154,6 @@ def neutral_evidence(paper_bgr: tuple[float, float, float] | None, compound: str
     return max(0.0, float(_log_ratio(b, g, r, compound)[0]))
 
 
-#: The channels each compound's evidence divides by (BGR indices).
-_DIVISORS = {"blue": (2,), "red": (0, 1)}
-
-
 def divisor_clipped(image: np.ndarray, compound: str) -> np.ndarray:
     """Pixels at which a channel the evidence of ``compound`` divides by is at its
     ceiling (red for blue compound; green or blue for red compound).
@@ -167,8 +166,8 @@ def divisor_clipped(image: np.ndarray, compound: str) -> np.ndarray:
     divisor still burns out is too pale to tell from the metal anyway.
     """
     out = np.zeros(image.shape[:2], bool)
-    for k in _DIVISORS[compound]:
-        out |= image[..., k] >= CLIPPED
+    for divisor, _ in _REBUILT_FROM[compound]:
+        out |= image[..., divisor] >= CLIPPED
     return out
 
 
