@@ -20,6 +20,7 @@ import cv2
 import numpy as np
 
 from printcheck.errors import LocateError
+from printcheck.evidence import CLIPPED
 
 __all__ = ["Coarse", "Detection", "coarse_markers", "detect_markers", "paper_colour", "reduction"]
 
@@ -348,10 +349,6 @@ def edge_blur_px(grey: np.ndarray, corners: np.ndarray, bits: int) -> float | No
     return float(np.median(rises)) / _RISE_PER_SIGMA
 
 
-#: A channel of the paper at or above this (8-bit) is at its ceiling.
-_PAPER_CLIPPED = 250
-
-
 def paper_colour(
     photo: np.ndarray,
     markers_mm: list[tuple[int, np.ndarray]],
@@ -382,34 +379,30 @@ def paper_colour(
         The markers' ArUco dictionary, e.g. "DICT_4X4_50".
     """
     d = _dictionary(dictionary)
+    to_photo = np.asarray(photo_from_layout, np.float64)
     n = int(d.markerSize)
-    side = n + 2
+    side = n + 2  # cells across, the black border included
     square = np.array([[0, 0], [side, 0], [side, side], [0, side]], np.float32)
-    sub = np.array([0.25, 0.5, 0.75])
+    # nine points in the middle half of a cell, (x, y) from its corner, in cells
+    nine = np.stack(np.meshgrid([0.25, 0.5, 0.75], [0.25, 0.5, 0.75]), axis=-1).reshape(-1, 2)
     points = []
     for marker_id, corners in markers_mm:
         if not 0 <= marker_id < d.bytesList.shape[0]:
             continue
-        bits = cv2.aruco.Dictionary.getBitsFromByteList(
-            d.bytesList[marker_id : marker_id + 1], n
-        )
-        rows, cols = np.nonzero(bits)
+        bits = cv2.aruco.Dictionary.getBitsFromByteList(d.bytesList[marker_id : marker_id + 1], n)
+        rows, cols = np.nonzero(bits)  # the white cells, inside the border
         if rows.size == 0:
             continue
-        # cell coordinates (col, row) of nine points in the middle of each white cell
-        u = (cols[:, None, None] + 1 + sub[None, None, :]).repeat(3, axis=1)
-        v = (rows[:, None, None] + 1 + sub[None, :, None]).repeat(3, axis=2)
-        cells = np.stack([u.ravel(), v.ravel()], axis=1).astype(np.float32)
+        cells = (np.stack([cols, rows], axis=1)[:, None, :] + 1 + nine[None]).reshape(-1, 2)
         to_mm = cv2.getPerspectiveTransform(square, np.asarray(corners, np.float32))
-        points.append(cv2.perspectiveTransform(cells[None], to_mm)[0])
+        points.append(cv2.perspectiveTransform(cells[None], to_photo @ to_mm)[0])
     if not points:
         return None
-    mm = np.concatenate(points).astype(np.float64)
-    px = cv2.perspectiveTransform(mm[None], np.asarray(photo_from_layout, np.float64))[0]
-    xs, ys = np.rint(px[:, 0]).astype(int), np.rint(px[:, 1]).astype(int)
+    px = np.rint(np.concatenate(points)).astype(int)
+    xs, ys = px[:, 0], px[:, 1]
     inside = (xs >= 0) & (ys >= 0) & (xs < photo.shape[1]) & (ys < photo.shape[0])
     samples = photo[ys[inside], xs[inside]].astype(np.float64)
-    samples = samples[(samples >= _PAPER_CLIPPED).sum(axis=1) <= 1]
+    samples = samples[(samples >= CLIPPED).sum(axis=1) <= 1]
     if samples.shape[0] < 9:
         return None
     grey = samples.mean(axis=1)
