@@ -335,18 +335,33 @@ def edge_blur_px(grey: np.ndarray, corners: np.ndarray, bits: int) -> float | No
     dark = np.median(prof[:, :k], axis=1)
     light = np.median(prof[:, -k:], axis=1)
     ok = light - dark >= 20.0  # a clear step (8-bit levels)
-    frac = (prof - dark[:, None]) / np.where(ok, light - dark, 1.0)[:, None]
-    rises = []
-    for f in frac[ok]:
-        i10, i90 = int(np.argmax(f >= 0.1)), int(np.argmax(f >= 0.9))
-        if i10 == 0 or i90 <= i10 or f[i90] < 0.9:
-            continue
-        x10 = offsets[i10 - 1] + (0.1 - f[i10 - 1]) / (f[i10] - f[i10 - 1]) * step
-        x90 = offsets[i90 - 1] + (0.9 - f[i90 - 1]) / (f[i90] - f[i90 - 1]) * step
-        rises.append(x90 - x10)
-    if len(rises) < 12:
+    frac = ((prof - dark[:, None]) / np.where(ok, light - dark, 1.0)[:, None])[ok]
+    # on each profile, the first sample at 10 % and at 90 % of the step, and the run
+    # from each sample before them: linear interpolation between the two
+    i10 = np.argmax(frac >= 0.1, axis=1)
+    i90 = np.argmax(frac >= 0.9, axis=1)
+    rows = np.arange(frac.shape[0])
+    clear = (i10 > 0) & (i90 > i10) & (frac[rows, i90] >= 0.9)
+    rows, i10, i90 = rows[clear], i10[clear], i90[clear]
+    if rows.size < 12:
         return None
-    return float(np.median(rises)) / _RISE_PER_SIGMA
+    x10 = _crossing(frac, rows, i10, 0.1, offsets, step)
+    x90 = _crossing(frac, rows, i90, 0.9, offsets, step)
+    return float(np.median(x90 - x10)) / _RISE_PER_SIGMA
+
+
+def _crossing(
+    frac: np.ndarray,
+    rows: np.ndarray,
+    at: np.ndarray,
+    level: float,
+    offsets: np.ndarray,
+    step: float,
+) -> np.ndarray:
+    """Where each profile ``frac[rows]`` crosses ``level`` between samples ``at - 1`` and
+    ``at`` (linear interpolation), in the units of ``offsets``."""
+    before, after = frac[rows, at - 1], frac[rows, at]
+    return offsets[at - 1] + (level - before) / (after - before) * step
 
 
 def paper_colour(
