@@ -12,6 +12,7 @@ Ctrl-C: 130 (SIGTERM: 143), with one line saying what was kept.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import signal
@@ -850,6 +851,29 @@ def main(argv: Sequence[str] | None = None) -> int:
         return _main(argv)
 
 
+#: How long after a hook has returned a signal is sent again (s).
+_AGAIN_AFTER_S = 0.05
+
+
+def _signal_main_thread_soon(signum: int) -> None:
+    """Send ``signum`` to the main thread a moment from now, from another thread.
+
+    Not from here and now: Python runs a signal's handler at the next step of the main
+    thread, which would be inside the caller (an unraisable hook, whose exceptions are
+    printed and lost).  At the interpreter's exit no thread can be started: the process
+    is ending anyway, with the status it chose.
+    """
+    import threading
+
+    main = threading.main_thread().ident
+    if main is None:
+        return
+    timer = threading.Timer(_AGAIN_AFTER_S, signal.pthread_kill, (main, signum))
+    timer.daemon = True
+    with contextlib.suppress(RuntimeError):  # "can't create new thread at interpreter shutdown"
+        timer.start()
+
+
 class _InterruptsOnce:
     """Ctrl-C (SIGINT) and SIGTERM raise KeyboardInterrupt once; further ones are ignored
     while the run cleans up (stops its workers, closes the history) and says what it kept.
@@ -883,7 +907,7 @@ class _InterruptsOnce:
         value = unraisable.exc_value
         if isinstance(value, Interrupted) and value.signum in self._old:
             signal.signal(value.signum, self._handler)
-            signal.raise_signal(value.signum)
+            _signal_main_thread_soon(value.signum)
             return
         self._old_hook(unraisable)
 
