@@ -1045,18 +1045,19 @@ class _Runner:
             for index, item in enumerate(self._items):
                 yield index, _work(item.path, self._options, self._out, False, name=item.photo)
             return
-        from concurrent.futures import as_completed
+        from concurrent.futures import CancelledError
         from concurrent.futures.process import BrokenProcessPool
 
         fruitless = 0
         while self._futures:
             broken: list[int] = []
             delivered = 0
-            for future in as_completed(self._futures):
+            stuck = _Stuck()
+            for future in finished(self._futures, self._pool, self._processes, stuck):
                 index = self._futures[future]
                 try:
                     outcome = future.result()
-                except BrokenProcessPool:
+                except (BrokenProcessPool, CancelledError):  # cancelled: a stuck pool's
                     broken.append(index)
                     continue
                 delivered += 1
@@ -1065,7 +1066,7 @@ class _Runner:
             self._futures = {}
             if not broken:
                 return
-            killed = self._killed(broken)
+            killed = self._killed(broken, stuck.died)
             for index in killed:
                 yield index, _killed_photo(self._items[index].path)
             rest = sorted(set(broken) - set(killed))
@@ -1077,20 +1078,18 @@ class _Runner:
             if rest:
                 self._start(rest)
 
-    def _killed(self, broken: list[int]) -> list[int]:
+    def _killed(self, broken: list[int], died: set[int] | None = None) -> list[int]:
         """Of the photos a broken pool did not finish, those whose worker was killed.
 
         The pool ends every worker it has left with SIGTERM once one dies; a worker that
         died otherwise (SIGKILL from the out-of-memory killer, a crash) while its photo
-        was marked as being measured by it, was killed measuring that photo.
+        was marked as being measured by it, was killed measuring that photo.  ``died``:
+        the workers found dead before a stuck pool was ended (which kills the rest).
         """
         assert self._pool is not None
         self._pool.shutdown(wait=True)  # the broken pool's own end: its workers joined
-        died = {
-            p.pid
-            for p in self._processes
-            if p.exitcode is not None and p.exitcode not in (0, -signal.SIGTERM)
-        }
+        if died is None:
+            died = _died(self._processes)
         return [index for index in broken if self._slots[index] in died]
 
     def __exit__(self, exc_type: object, *exc: object) -> None:
@@ -1101,6 +1100,72 @@ class _Runner:
             return
         # Ctrl-C or an error: stop now, without waiting for the photos being measured.
         end_pool_now(self._pool, self._processes)
+
+
+def _died(processes: set[Any]) -> set[int]:
+    """The ids of ``processes`` that ended otherwise than by finishing or by SIGTERM."""
+    return {
+        p.pid
+        for p in processes
+        if p.exitcode is not None and p.exitcode not in (0, -signal.SIGTERM)
+    }
+
+
+#: How long a pool may go without finishing a photo after one of its workers died before
+#: it is taken as stuck (s).  The pool's own thread notices a dead worker at once and
+#: fails its photos; it cannot when the worker died half-way through sending a result.
+STUCK_AFTER_S = 10.0
+
+
+@dataclass
+class _Stuck:
+    """What :func:`finished` found: the workers dead when it ended a stuck pool."""
+
+    died: set[int] | None = None
+
+
+def finished(
+    futures: Mapping[Future[Any], int],
+    pool: ProcessPoolExecutor,
+    processes: set[Any],
+    stuck: _Stuck,
+) -> Iterator[Future[Any]]:
+    """``futures`` as they finish, like ``as_completed``, but never waiting for ever.
+
+    A worker killed half-way through sending its result (the out-of-memory killer, a
+    ``kill -9``) leaves half a message in the pool's result pipe: the pool's thread waits
+    for the rest, never sees that the worker died, and no photo of the pool ever
+    finishes.  When a worker of ``processes`` has died and nothing finished for
+    :data:`STUCK_AFTER_S`, the pool is ended (:func:`end_pool_now`): its photos then
+    finish as failed (broken or cancelled), and ``stuck.died`` holds the workers that
+    had died before.
+    """
+    import time
+    from concurrent.futures import FIRST_COMPLETED, InvalidStateError, wait
+    from concurrent.futures.process import BrokenProcessPool
+
+    earlier = _died(processes)  # workers of pools before this one
+    pending = set(futures)
+    dead_since: float | None = None
+    while pending:
+        done, pending = wait(pending, timeout=1.0, return_when=FIRST_COMPLETED)
+        yield from done
+        if done or not (_died(processes) - earlier):
+            dead_since = None
+            continue
+        now = time.monotonic()
+        dead_since = now if dead_since is None else dead_since
+        if now - dead_since >= STUCK_AFTER_S:
+            stuck.died = _died(processes) - earlier
+            end_pool_now(pool, processes)
+            done, pending = wait(pending, timeout=STUCK_AFTER_S)
+            yield from done
+            for future in pending:  # not once the pool's thread has ended, as it has
+                if not future.cancel():
+                    with contextlib.suppress(InvalidStateError):
+                        future.set_exception(BrokenProcessPool("the pool was stuck"))
+                yield future
+            return
 
 
 #: How long the pool's own thread is given to notice that its workers were killed (s).

@@ -875,3 +875,112 @@ def test_a_worker_killed_half_way_through_its_result_does_not_hang_the_batch() -
     assert all(not w.is_alive() for w in workers)
     with pytest.raises((BrokenProcessPool, CancelledError)):
         future.result(timeout=5)
+
+
+def test_a_pool_stuck_on_half_a_result_is_ended_and_its_photos_fail(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # A worker killed half-way through sending its result (the out-of-memory killer, a
+    # kill -9) leaves half a message in the pool's result pipe.  The pool's own thread
+    # then waits for the rest and never sees that the worker died, so no photo of the
+    # pool ever finished and the batch waited for ever.  Here half a message is put into
+    # the pipe by hand while two workers are busy, and one of them is killed: every
+    # photo must come out as failed, and the dead worker be the one reported.
+    import multiprocessing as mp
+    import signal as sig
+    import struct
+    import threading
+    from concurrent.futures import CancelledError, ProcessPoolExecutor
+    from concurrent.futures.process import BrokenProcessPool
+
+    from printcheck import batch
+
+    monkeypatch.setattr(batch, "STUCK_AFTER_S", 2.0)
+    before = set(mp.active_children())
+    pool = ProcessPoolExecutor(max_workers=2, mp_context=mp.get_context("spawn"))
+    futures = {pool.submit(time.sleep, 60): i for i in range(3)}
+    _wait_for(lambda: len(set(mp.active_children()) - before) == 2, 30.0, "the workers to start")
+    workers = set(mp.active_children()) - before
+    writer = pool._result_queue._writer  # type: ignore[attr-defined]
+    os.write(writer.fileno(), struct.pack("!i", 1000) + b"x" * 10)
+    time.sleep(0.3)  # the pool's thread is reading it now, and waits for the rest
+    victim = min(workers, key=lambda w: w.pid)
+    os.kill(victim.pid, sig.SIGKILL)
+    stuck = batch._Stuck()
+    out: list[object] = []
+    reading = threading.Thread(
+        target=lambda: out.extend(batch.finished(futures, pool, workers, stuck)), daemon=True
+    )
+    reading.start()
+    reading.join(60.0)
+    assert not reading.is_alive(), "waiting for the photos of a stuck pool hung"
+    assert set(out) == set(futures)
+    for future in futures:
+        with pytest.raises((BrokenProcessPool, CancelledError)):
+            future.result(timeout=0)
+    assert stuck.died == {victim.pid}
+    assert all(not w.is_alive() for w in workers)
+
+
+def test_a_pool_is_not_taken_as_stuck_for_a_worker_of_an_earlier_pool(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # After a worker was killed, the batch measures the rest in a new pool; the dead
+    # worker of the first pool must not make the second look stuck while its photos
+    # take their time.
+    import multiprocessing as mp
+    import signal as sig
+    from concurrent.futures import ProcessPoolExecutor
+
+    from printcheck import batch
+
+    monkeypatch.setattr(batch, "STUCK_AFTER_S", 1.0)
+    ctx = mp.get_context("spawn")
+    dead = ctx.Process(target=time.sleep, args=(60,))
+    dead.start()
+    os.kill(dead.pid, sig.SIGKILL)
+    dead.join(30.0)
+    assert dead.exitcode == -sig.SIGKILL
+    before = set(mp.active_children())
+    with ProcessPoolExecutor(max_workers=1, mp_context=ctx) as pool:
+        futures = {pool.submit(time.sleep, 3.5): 0}
+        _wait_for(lambda: bool(set(mp.active_children()) - before), 30.0, "the worker")
+        workers = (set(mp.active_children()) - before) | {dead}
+        stuck = batch._Stuck()
+        assert list(batch.finished(futures, pool, workers, stuck)) == list(futures)
+        assert next(iter(futures)).result(timeout=0) is None
+        assert stuck.died is None
+
+
+def test_ctrl_c_that_lands_in_a_finalizer_reaches_the_run() -> None:
+    # Found by the random Ctrl-C test (1 run in 8): an interrupt that landed in a
+    # finalizer was sent again from inside the unraisable hook, where Python ran its
+    # handler at once; the exception was printed ("Exception ignored in
+    # sys.unraisablehook", a traceback) and the run never heard of it.  Here an object's
+    # finalizer is interrupted: the run must be interrupted after, and nothing printed.
+    script = textwrap.dedent(
+        """
+        import os, signal, sys, time
+        from printcheck.cli import _InterruptsOnce
+        from printcheck.errors import Interrupted
+
+        class Finalized:
+            def __del__(self):
+                os.kill(os.getpid(), signal.SIGINT)
+                for _ in range(1000):  # the handler runs here, in the finalizer
+                    pass
+
+        try:
+            with _InterruptsOnce(last_word=False):
+                Finalized()
+                deadline = time.monotonic() + 10
+                while time.monotonic() < deadline:
+                    time.sleep(0.01)
+                print("never interrupted")
+        except Interrupted:
+            print("interrupted")
+        """
+    )
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=60)
+    assert proc.stdout.strip() == "interrupted", (proc.stdout, proc.stderr)
+    assert proc.stderr == "", proc.stderr
