@@ -904,7 +904,8 @@ def test_a_pool_stuck_on_half_a_result_is_ended_and_its_photos_fail(
     writer = pool._result_queue._writer  # type: ignore[attr-defined]
     os.write(writer.fileno(), struct.pack("!i", 1000) + b"x" * 10)
     time.sleep(0.3)  # the pool's thread is reading it now, and waits for the rest
-    victim = min(workers, key=lambda w: w.pid)
+    victim = min(workers, key=lambda w: w.pid or 0)
+    assert victim.pid is not None
     os.kill(victim.pid, sig.SIGKILL)
     stuck = batch._Stuck()
     out: list[object] = []
@@ -938,6 +939,7 @@ def test_a_pool_is_not_taken_as_stuck_for_a_worker_of_an_earlier_pool(
     ctx = mp.get_context("spawn")
     dead = ctx.Process(target=time.sleep, args=(60,))
     dead.start()
+    assert dead.pid is not None
     os.kill(dead.pid, sig.SIGKILL)
     dead.join(30.0)
     assert dead.exitcode == -sig.SIGKILL
@@ -981,6 +983,82 @@ def test_ctrl_c_that_lands_in_a_finalizer_reaches_the_run() -> None:
             print("interrupted")
         """
     )
-    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=60)
+    proc = subprocess.run(
+        [sys.executable, "-c", script], capture_output=True, text=True, timeout=60
+    )
     assert proc.stdout.strip() == "interrupted", (proc.stdout, proc.stderr)
     assert proc.stderr == "", proc.stderr
+
+
+def test_a_batch_whose_pool_sticks_on_half_a_result_measures_the_rest(
+    tmp_path: Path, job: tuple[Path, list[str]], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # The whole batch, in this process: while a worker is inside a photo, that worker is
+    # killed as if half-way through sending its result (the pipe's lock held, half a
+    # message in the pipe; no other worker can then send).  The batch must end, not wait
+    # for ever, name that photo as not measured (exit 3), and measure and record every
+    # other photo.
+    import signal as sig
+    import struct
+    import threading
+
+    from printcheck import batch
+    from printcheck.options import InspectOptions
+
+    monkeypatch.setattr(batch, "STUCK_AFTER_S", 2.0)
+    folder, names = job
+    runners: list[Any] = []
+
+    class Watched(batch._Runner):
+        def __enter__(self) -> Any:
+            runners.append(super().__enter__())
+            return runners[-1]
+
+    monkeypatch.setattr(batch, "_Runner", Watched)
+    victim: list[int] = []
+
+    def stick() -> None:
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline:
+            runner = runners[0] if runners else None
+            busy = [] if runner is None else [p for p in runner._slots if p > 0]
+            if runner is not None and busy:
+                queue = runner._pool._result_queue
+                # as the killed worker would: the pipe's lock held, half a message sent
+                queue._wlock.acquire()
+                os.write(queue._writer.fileno(), struct.pack("!i", 1000) + b"x")
+                os.kill(busy[0], sig.SIGKILL)
+                victim.append(busy[0])
+                return
+            time.sleep(0.005)
+
+    sticking = threading.Thread(target=stick, daemon=True)
+    sticking.start()
+    said: list[str] = []
+    db = tmp_path / "history.sqlite"
+    status: list[int] = []
+    running = threading.Thread(
+        target=lambda: status.append(
+            batch.run_batch(
+                folder,
+                options=InspectOptions(surface=SURFACE),
+                out=tmp_path / "out",
+                db=db,
+                jobs=2,
+                echo=said.append,
+                warn=said.append,
+                show_progress=False,
+            )
+        ),
+        daemon=True,
+    )
+    running.start()
+    running.join(120.0)
+    assert not running.is_alive(), "the batch waited for ever on a stuck pool"
+    sticking.join(5.0)
+    assert victim, "no busy worker was found"
+    assert status == [3], said
+    lost = [line for line in said if "worker process measuring it was killed" in line]
+    assert len(lost) == 1, said
+    recorded = [photo for photo, _ in _integrity(db)]
+    assert len(recorded) == len(names) - 1 and set(recorded) < set(names)
