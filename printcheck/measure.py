@@ -13,13 +13,15 @@ as in :meth:`printcheck.frame.Frame.window_slices`).
 The range ("24 (22-26)") comes from what is really uncertain in the photo: the segment
 stage's decision redone with its thresholds nudged both ways, specks near the minimum
 spot area, and the resolution of the photo against the size of its contacts.  A photo
-too coarse for its contacts is flagged doubtful, with the resolution it would need.
+too coarse for its contacts is flagged doubtful, with the resolution it would need; its
+bearing's range then reaches down by the contacts' outermost pixel all round (their
+outlines may lie that far out: see :func:`_outline_share`).
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 
 import cv2
@@ -284,6 +286,7 @@ def measure(
         crowded=crowded,
         unseen_share=unseen_share,
         blur_px=photo_blur_px if _blurred(photo_blur_px) else None,
+        outline=lambda: _outline_share(contact, in_an, s / resolves if resolves else 1.0),
     )
     return Measurement(
         spots=spots,
@@ -489,6 +492,27 @@ def _crowded(
     return int(np.count_nonzero(near[1:][spots.in_window]))
 
 
+def _outline_share(contact: np.ndarray, in_an: np.ndarray, width_px: float) -> float:
+    """Percentage points of the analysed window (``in_an``) in the ``contact`` pixels
+    whose centres lie within ``width_px`` of the contacts' outline.
+
+    A contact a few of the photo's pixels across is seen through the blur of the photo's
+    colour, which spreads its colour a pixel or so past its edge: the share of its peak
+    at which its outline is drawn lies outside it, by up to a pixel of what the photo
+    resolves all round (``width_px``, rectified pixels).  On contacts large against the
+    pixels that ring is a small part of them; on a print as fine as the pixels it can be
+    half of what is found, and the bearing is that much over.
+    """
+    if not contact.any():
+        return 0.0
+    padded = np.pad(contact.view(np.uint8), 1)  # the frame's border is not an outline
+    inside = cv2.distanceTransform(padded, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)[1:-1, 1:-1]
+    # an outline pixel's centre lies half a pixel inside the outline, 1 from the outside
+    ring = contact & in_an & (inside <= width_px + 0.5)
+    analysed_px = int(np.count_nonzero(in_an))
+    return 100.0 * int(np.count_nonzero(ring)) / analysed_px if analysed_px else 0.0
+
+
 def _confidence(
     count: int,
     bearing: float,
@@ -501,9 +525,12 @@ def _confidence(
     crowded: int = 0,
     unseen_share: float = 0.0,
     blur_px: float | None = None,
+    outline: Callable[[], float] | None = None,
 ) -> Confidence:
     """The range and the doubtful flag (see the module docstring); ``photo_px_per_mm``
-    is what the photo resolves, ``blur_px`` its blur where that lowered it."""
+    is what the photo resolves, ``blur_px`` its blur where that lowered it, ``outline``
+    the bearing in the contacts' outermost resolved pixel (:func:`_outline_share`, read
+    only for a photo too coarse for its contacts)."""
     counts = [count] + [a for a, _ in alts]
     bears = [bearing] + [b for _, b in alts]
     spread = max(1, int(round(config.count_spread * count))) if count else 0
@@ -541,6 +568,7 @@ def _confidence(
             f"closer than this photo can part ({config.part_px:g} px at "
             f"{photo_px_per_mm:.0f} px/mm): {why}{how}"
         )
+    coarse = bool(reasons)  # too coarse for its contacts: too small, or too close together
     if unseen_share > 0:
         # what the burnt-out share of the window would hold at the density seen elsewhere
         hi = max(hi, count + math.ceil(count * unseen_share / (1.0 - unseen_share)))
@@ -549,6 +577,9 @@ def _confidence(
     if excess >= 1 and excess / max(count, 1) > config.doubtful_change and not reasons:
         reasons.append(f"the count could be anything from {lo} to {hi}")
     blo, bhi = min(bears), max(bears)
+    if coarse and outline is not None:
+        # the contacts' outlines may each lie a resolved pixel out
+        blo = min(blo, max(bearing - outline(), 0.0))
     if unseen_share > 0:
         bhi = max(bhi, bearing / (1.0 - unseen_share))
     if max(bearing - blo, bhi - bearing) > config.doubtful_bearing:

@@ -327,6 +327,44 @@ def test_confidence_range_from_alternates():
     assert (exact.confidence.count_low, exact.confidence.count_high) == (1, 3)
 
 
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 2**31 - 1), width=st.sampled_from([0.5, 1.0, 1.3, 2.0]))
+def test_the_outermost_ring_of_the_contacts_by_scipy(seed: int, width: float) -> None:
+    # the contact pixels whose centres lie within ``width`` of the outline, against
+    # scipy's exact Euclidean distance transform (distance to the nearest pixel outside,
+    # the frame's border not an outline): those at most width + 0.5 from outside
+    from printcheck.measure import _outline_share
+
+    rng = np.random.default_rng(seed)
+    mask = ndimage.gaussian_filter(rng.random((60, 70)), 2.0) > 0.52
+    an = np.zeros(mask.shape, bool)
+    an[5:55, 3:66] = True
+    inside = ndimage.distance_transform_edt(np.pad(mask, 1))[1:-1, 1:-1]
+    expected = 100.0 * np.count_nonzero(mask & an & (inside <= width + 0.5)) / an.sum()
+    assert _outline_share(mask, an, width) == pytest.approx(expected, abs=1e-9)
+
+
+def test_a_print_too_fine_for_the_photo_reaches_down_by_its_outermost_ring() -> None:
+    # contacts of 1.2 mm in a photo resolving 5 px/mm (the resolution check asks 8 px
+    # across the smaller contacts): the bearing's range reaches down by the contact
+    # pixels within one resolved pixel of their outlines
+    from printcheck.measure import _outline_share
+
+    frame = _frame((100, 100))  # 10 px/mm
+    an = _window_mask(frame)
+    mask = np.zeros((100, 100), bool)
+    for r in range(15, 90, 15):
+        for c in range(15, 90, 15):
+            mask |= _disc((100, 100), r, c, 6)
+    m = measure(mask, frame=frame, analysed=an, photo_px_per_mm=5.0)
+    c = m.confidence
+    assert c.doubtful and "this photo has 5: move closer" in c.reason
+    ring = _outline_share(mask, _window_mask(frame), 10.0 / 5.0)
+    assert c.bearing_low == pytest.approx(m.bearing_percent - ring)
+    sharp = measure(mask, frame=frame, analysed=an, photo_px_per_mm=40.0).confidence
+    assert not sharp.doubtful and sharp.bearing_low == pytest.approx(m.bearing_percent)
+
+
 def test_alternates_counted_by_scipy_rules():
     # each alternate's count and bearing against scipy: 8-connected components of at
     # least the minimum area, counted where the pixel holding the centroid is analysed
