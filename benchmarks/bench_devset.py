@@ -28,7 +28,8 @@ Run::
 
 A method tuned to these photos would not carry over to others of the same kinds.
 ``--retake`` asks how it does on the same prints photographed otherwise: farther off,
-darker and noisier, under a warmer or a cooler light, a little out of focus (see :func:`_retaken`).
+darker and noisier, under a warmer or a cooler light, a little out of focus, or sent on
+through a chat app that shrinks and recompresses it (see :func:`_retaken`).
 
 This is a script, not a test: it prints figures and exits 0.
 """
@@ -106,8 +107,10 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
     again: ``farther`` (0.8 of the size, as from a quarter further off), ``darker``
     (underexposed by a quarter, a steeper tone curve and more sensor noise), ``warmer``
     (white balance off toward red: blue x 0.85, red x 1.12, so bright metal burns its red
-    out first), ``cooler`` (off toward blue: blue x 1.12, red x 0.88) or ``softer``
-    (focus a little off, a 1 px Gaussian)."""
+    out first), ``cooler`` (off toward blue: blue x 1.12, red x 0.88), ``softer``
+    (focus a little off, a 1 px Gaussian) or ``shared`` (sent on through a chat app:
+    shrunk to 1600 px on its long side and saved again at JPEG quality 75; the layout's
+    markers still give the scale)."""
     import zlib
 
     import cv2
@@ -127,6 +130,10 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
         out = np.clip(image.astype(np.float32) * gains, 0, 255).astype(np.uint8)
     elif how == "softer":
         out = cv2.GaussianBlur(image, (0, 0), 1.0)
+    elif how == "shared":
+        f = 1600.0 / max(image.shape[:2])
+        out = cv2.resize(image, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
+        quality = 75
     else:
         raise ValueError(f"unknown retake {how!r}")
     ok, buf = cv2.imencode(".jpg", out, [cv2.IMWRITE_JPEG_QUALITY, quality])
@@ -134,7 +141,7 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
     return np.asarray(cv2.imdecode(buf, cv2.IMREAD_COLOR))
 
 
-RETAKES = ("farther", "darker", "warmer", "cooler", "softer")
+RETAKES = ("farther", "darker", "warmer", "cooler", "softer", "shared")
 
 
 def score_scene(truth_path: Path, retake: str | None = None) -> Row:
