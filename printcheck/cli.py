@@ -855,20 +855,27 @@ def main(argv: Sequence[str] | None = None) -> int:
 _AGAIN_AFTER_S = 0.05
 
 
-def _signal_main_thread_soon(signum: int) -> None:
-    """Send ``signum`` to the main thread a moment from now, from another thread.
+def _signal_main_thread_soon(signum: int, handler: Callable[[int, Any], None]) -> None:
+    """Send ``signum`` to the main thread a moment from now, from another thread, if
+    ``handler`` still handles it then.
 
     Not from here and now: Python runs a signal's handler at the next step of the main
     thread, which would be inside the caller (an unraisable hook, whose exceptions are
-    printed and lost).  At the interpreter's exit no thread can be started: the process
-    is ending anyway, with the status it chose.
+    printed and lost).  Not once the run has put its handlers back (the signal then
+    came too late for it).  At the interpreter's exit no thread can be started: the
+    process is ending anyway, with the status it chose.
     """
     import threading
 
     main = threading.main_thread().ident
     if main is None:
         return
-    timer = threading.Timer(_AGAIN_AFTER_S, signal.pthread_kill, (main, signum))
+
+    def again() -> None:
+        if signal.getsignal(signum) == handler:
+            signal.pthread_kill(main, signum)
+
+    timer = threading.Timer(_AGAIN_AFTER_S, again)
     timer.daemon = True
     with contextlib.suppress(RuntimeError):  # "can't create new thread at interpreter shutdown"
         timer.start()
@@ -907,7 +914,7 @@ class _InterruptsOnce:
         value = unraisable.exc_value
         if isinstance(value, Interrupted) and value.signum in self._old:
             signal.signal(value.signum, self._handler)
-            _signal_main_thread_soon(value.signum)
+            _signal_main_thread_soon(value.signum, self._handler)
             return
         self._old_hook(unraisable)
 

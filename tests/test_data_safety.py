@@ -877,6 +877,34 @@ def test_a_worker_killed_half_way_through_its_result_does_not_hang_the_batch() -
         future.result(timeout=5)
 
 
+def test_ctrl_c_in_a_finalizer_as_the_run_ends_does_not_reach_past_it() -> None:
+    # The interrupt of a finalizer is sent again a moment later; if the run has put its
+    # handlers back by then, it came too late for the run and must not surface after it
+    # (as a KeyboardInterrupt in whatever the caller does next).
+    script = textwrap.dedent(
+        """
+        import os, signal, time
+        from printcheck.cli import _InterruptsOnce
+
+        class Finalized:
+            def __del__(self):
+                os.kill(os.getpid(), signal.SIGINT)
+                for _ in range(1000):
+                    pass
+
+        with _InterruptsOnce(last_word=False):
+            Finalized()
+        time.sleep(0.5)  # past the moment the signal would be sent again
+        print("quiet")
+        """
+    )
+    proc = subprocess.run(
+        [sys.executable, "-c", script], capture_output=True, text=True, timeout=60
+    )
+    assert proc.stdout.strip() == "quiet", (proc.stdout, proc.stderr)
+    assert "Traceback" not in proc.stderr, proc.stderr
+
+
 def test_a_pool_stuck_on_half_a_result_is_ended_and_its_photos_fail(
     monkeypatch: pytest.MonkeyPatch,
 ) -> None:
