@@ -685,9 +685,9 @@ def _measure_and_record(
         outcomes: dict[int, Outcome] = {}
         try:
             if items:
-                with _Runner(items, options, out, workers) as finished:
+                with _Runner(items, options, out, workers) as runner:
                     with _Progress(len(items), enabled=show_progress) as bar:
-                        for index, outcome in finished:
+                        for index, outcome in runner:
                             outcomes[index] = outcome
                             if cores_available() > 1:
                                 warming.start()
@@ -999,6 +999,7 @@ class _Runner:
         self._futures: dict[Future[Outcome], int] = {}
         self._processes: set[Any] = set()  # every worker process any pool of this run had
         self._others: set[Any] = set()  # child processes that are not the pools'
+        self._dead_before: set[int] = set()  # workers of earlier pools that died
 
     def __enter__(self) -> _Runner:
         if self._workers > 1:
@@ -1012,6 +1013,7 @@ class _Runner:
 
     def _start(self, indices: list[int]) -> None:
         """A new pool, measuring the photos at ``indices``."""
+        self._dead_before = _died(self._processes)
         _start_helpers(self._context)
         for index in indices:
             self._slots[index] = _WAITING
@@ -1053,7 +1055,9 @@ class _Runner:
             broken: list[int] = []
             delivered = 0
             stuck = _Stuck()
-            for future in finished(self._futures, self._pool, self._processes, stuck):
+            for future in finished(
+                self._futures, self._pool, self._processes, stuck, earlier=self._dead_before
+            ):
                 index = self._futures[future]
                 try:
                     outcome = future.result()
@@ -1129,6 +1133,8 @@ def finished(
     pool: ProcessPoolExecutor,
     processes: set[Any],
     stuck: _Stuck,
+    *,
+    earlier: set[int] | None = None,
 ) -> Iterator[Future[Any]]:
     """``futures`` as they finish, like ``as_completed``, but never waiting for ever.
 
@@ -1138,13 +1144,18 @@ def finished(
     finishes.  When a worker of ``processes`` has died and nothing finished for
     :data:`STUCK_AFTER_S`, the pool is ended (:func:`end_pool_now`): its photos then
     finish as failed (broken or cancelled), and ``stuck.died`` holds the workers that
-    had died before.
+    had died before.  ``earlier``: the ids of workers of earlier pools that died, read
+    when this pool started (default: those dead now).
+
+    A worker marks its photo done before it sends the result, so the photo of one killed
+    while sending is measured again, not reported as killed; a photo is reported only
+    when its worker died inside it.
     """
     import time
     from concurrent.futures import FIRST_COMPLETED, InvalidStateError, wait
     from concurrent.futures.process import BrokenProcessPool
 
-    earlier = _died(processes)  # workers of pools before this one
+    earlier = _died(processes) if earlier is None else earlier
     pending = set(futures)
     dead_since: float | None = None
     while pending:
@@ -1220,7 +1231,6 @@ def _fill_until_ended(fd: int, thread: Any) -> None:
         except OSError:  # the pipe is gone: nothing is left to wait for
             return
         thread.join(0.01)
-
 
 
 def _killed_photo(path: Path) -> Skipped:

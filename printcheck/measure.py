@@ -505,7 +505,8 @@ def _outline_share(contact: np.ndarray, in_an: np.ndarray, width_px: float) -> f
     """
     if not contact.any():
         return 0.0
-    padded = np.pad(contact.view(np.uint8), 1)  # the frame's border is not an outline
+    # beyond the frame's border the contact goes on (it is no outline): padded with ones
+    padded = np.pad(contact.view(np.uint8), 1, constant_values=1)
     inside = cv2.distanceTransform(padded, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)[1:-1, 1:-1]
     # an outline pixel's centre lies half a pixel inside the outline, 1 from the outside
     ring = contact & in_an & (inside <= width_px + 0.5)

@@ -884,7 +884,10 @@ def test_ctrl_c_in_a_finalizer_as_the_run_ends_does_not_reach_past_it() -> None:
     script = textwrap.dedent(
         """
         import os, signal, time
+        from printcheck import cli
         from printcheck.cli import _InterruptsOnce
+
+        cli._AGAIN_AFTER_S = 0.5  # surely after the run below has ended, on a busy machine
 
         class Finalized:
             def __del__(self):
@@ -894,7 +897,7 @@ def test_ctrl_c_in_a_finalizer_as_the_run_ends_does_not_reach_past_it() -> None:
 
         with _InterruptsOnce(last_word=False):
             Finalized()
-        time.sleep(0.5)  # past the moment the signal would be sent again
+        time.sleep(1.5)  # past the moment the signal would be sent again
         print("quiet")
         """
     )
@@ -1049,11 +1052,15 @@ def test_a_batch_whose_pool_sticks_on_half_a_result_measures_the_rest(
         deadline = time.monotonic() + 60
         while time.monotonic() < deadline:
             runner = runners[0] if runners else None
-            busy = [] if runner is None else [p for p in runner._slots if p > 0]
-            if runner is not None and busy:
+            if runner is not None and any(p > 0 for p in runner._slots):
                 queue = runner._pool._result_queue
-                # as the killed worker would: the pipe's lock held, half a message sent
+                # as a worker killed while sending leaves them: the pipe's lock held (taken
+                # first, so that no result goes out meanwhile), half a message sent
                 queue._wlock.acquire()
+                busy = [p for p in runner._slots if p > 0]
+                if not busy:  # the photo was done meanwhile: try again
+                    queue._wlock.release()
+                    continue
                 os.write(queue._writer.fileno(), struct.pack("!i", 1000) + b"x")
                 os.kill(busy[0], sig.SIGKILL)
                 victim.append(busy[0])

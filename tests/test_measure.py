@@ -331,15 +331,16 @@ def test_confidence_range_from_alternates():
 @given(seed=st.integers(0, 2**31 - 1), width=st.sampled_from([0.5, 1.0, 1.3, 2.0]))
 def test_the_outermost_ring_of_the_contacts_by_scipy(seed: int, width: float) -> None:
     # the contact pixels whose centres lie within ``width`` of the outline, against
-    # scipy's exact Euclidean distance transform (distance to the nearest pixel outside,
-    # the frame's border not an outline): those at most width + 0.5 from outside
+    # scipy's exact Euclidean distance transform (distance to the nearest pixel outside;
+    # the frame's border is no outline, the contact goes on past it): those at most
+    # width + 0.5 from outside
     from printcheck.measure import _outline_share
 
     rng = np.random.default_rng(seed)
     mask = ndimage.gaussian_filter(rng.random((60, 70)), 2.0) > 0.52
     an = np.zeros(mask.shape, bool)
     an[5:55, 3:66] = True
-    inside = ndimage.distance_transform_edt(np.pad(mask, 1))[1:-1, 1:-1]
+    inside = ndimage.distance_transform_edt(np.pad(mask, 1, constant_values=True))[1:-1, 1:-1]
     expected = 100.0 * np.count_nonzero(mask & an & (inside <= width + 0.5)) / an.sum()
     assert _outline_share(mask, an, width) == pytest.approx(expected, abs=1e-9)
 
