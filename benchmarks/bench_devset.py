@@ -289,7 +289,7 @@ def main(argv: list[str] | None = None) -> int:
         "--retake",
         choices=RETAKES,
         help="score the photos as if taken again otherwise (the same print, other "
-        "pixels): farther, darker, warmer, cooler or softer",
+        "pixels): " + ", ".join(RETAKES),
     )
     args = ap.parse_args(argv)
     if not args.devset.is_dir():

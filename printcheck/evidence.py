@@ -167,7 +167,9 @@ def divisor_clipped(image: np.ndarray, compound: str) -> np.ndarray:
     """
     out = np.zeros(image.shape[:2], bool)
     for divisor, _ in _REBUILT_FROM[compound]:
-        out |= image[..., divisor] >= CLIPPED
+        channel = cv2.extractChannel(image, divisor)
+        if int(channel.max()) >= CLIPPED:  # else none: the common case, in one pass
+            out |= channel >= CLIPPED
     return out
 
 

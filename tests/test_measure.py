@@ -348,9 +348,8 @@ def test_the_outermost_ring_of_the_contacts_by_scipy(seed: int, width: float) ->
 def test_a_print_too_fine_for_the_photo_reaches_down_by_its_outermost_ring() -> None:
     # contacts of 1.2 mm in a photo resolving 5 px/mm (the resolution check asks 8 px
     # across the smaller contacts): the bearing's range reaches down by the contact
-    # pixels within one resolved pixel of their outlines
-    from printcheck.measure import _outline_share
-
+    # pixels within one resolved pixel (2 px here) of their outlines, counted here with
+    # scipy's exact distance transform
     frame = _frame((100, 100))  # 10 px/mm
     an = _window_mask(frame)
     mask = np.zeros((100, 100), bool)
@@ -360,7 +359,9 @@ def test_a_print_too_fine_for_the_photo_reaches_down_by_its_outermost_ring() -> 
     m = measure(mask, frame=frame, analysed=an, photo_px_per_mm=5.0)
     c = m.confidence
     assert c.doubtful and "this photo has 5: move closer" in c.reason
-    ring = _outline_share(mask, _window_mask(frame), 10.0 / 5.0)
+    inside = ndimage.distance_transform_edt(np.pad(mask, 1, constant_values=True))[1:-1, 1:-1]
+    ring = 100.0 * np.count_nonzero(mask & an & (inside <= 2.0 + 0.5)) / an.sum()
+    assert ring > 5.0  # a real part of the bearing
     assert c.bearing_low == pytest.approx(m.bearing_percent - ring)
     sharp = measure(mask, frame=frame, analysed=an, photo_px_per_mm=40.0).confidence
     assert not sharp.doubtful and sharp.bearing_low == pytest.approx(m.bearing_percent)
