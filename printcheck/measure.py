@@ -15,7 +15,10 @@ stage's decision redone with its thresholds nudged both ways, specks near the mi
 spot area, and the resolution of the photo against the size of its contacts.  A photo
 too coarse for its contacts is flagged doubtful, with the resolution it would need; its
 bearing's range then reaches down by the contacts' outermost pixel all round (their
-outlines may lie that far out: see :func:`_outline_share`).
+outlines may lie that far out: see :func:`_outline`).  Where the contacts are large
+enough for the photo but crowd closer together than it parts, the blur of both
+neighbours fills the gaps between them: the bearing counts that outermost pixel as half
+contact, and its range reaches up to the mask's own reading.
 """
 
 from __future__ import annotations
@@ -23,6 +26,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from statistics import NormalDist
 
 import cv2
 import numpy as np
@@ -83,6 +87,11 @@ class MeasureConfig:
         (JPEG and HEIC 4:2:0), so a gap of three pixels is one and a half colour
         samples wide, the least in which the colour can come back to bare metal; two
         where the contacts were cut apart on the brightness, kept at full resolution.
+    outline_share : float
+        Where on a contact's edge the segmentation drew its outline, as a share of the
+        way from bare metal to the contact (:attr:`printcheck.segment.Segmentation.
+        outline_share`; the pipeline passes it): low on the edge, the outline lies out
+        by the blur (see :func:`spill`).
     crowded_share : float
         When more than this share of the contacts lie closer than ``part_px`` to a
         neighbour, the print is as fine as the photo's pixels: each such contact may
@@ -105,6 +114,7 @@ class MeasureConfig:
     doubtful_bearing: float = 5.0
     resolution_px: float = 8.0
     part_px: float = 3.0
+    outline_share: float = 0.175
     crowded_share: float = 0.25
     oversize_factor: float = 4.0
     heavy_bearing_factor: float = 1.5
@@ -130,6 +140,8 @@ class MeasureConfig:
             value = getattr(self, name)
             if not (math.isfinite(value) and value > 0):
                 raise OptionError(f"{name} must be greater than zero, got {value!r}")
+        if not (math.isfinite(self.outline_share) and 0 < self.outline_share < 1):
+            raise OptionError(f"outline_share must be between 0 and 1, got {self.outline_share!r}")
 
 
 @dataclass(frozen=True)
@@ -251,9 +263,29 @@ def measure(
     spot_count = int(spots.in_window.sum())
     c_mm = float(config.cell_mm)
     density = spot_count * c_mm**2 / window_area if window_area > 0 else 0.0
-    bearing = 100.0 * int(cell_contact_px.sum()) / analysed_px if analysed_px else 0.0
+    resolves = resolving_px_per_mm(photo_px_per_mm, photo_blur_px)
+    crowded = _crowded(labels, spots, s, resolves, config)
+    too_small = _too_small(spots, resolves, config)
+    ring_px = s / resolves if resolves else 1.0
+    read = 100.0 * int(cell_contact_px.sum()) / analysed_px if analysed_px else 0.0
+    bearing = read
+    cell_bearing_px = cell_contact_px.astype(np.float64)
+    ring = None
+    out = spill(config.outline_share)
+    if out > 0 and too_small is None and _is_crowded(crowded, spot_count, resolves, config):
+        # contacts closer together than the photo parts, large enough to be seen: the
+        # blur of both neighbours fills the gaps between them, and no bare metal is left
+        # there to draw the outline against; that part of the outermost resolved pixel
+        # that the blur spills over is not contact (where the frame is coarser than the
+        # photo, a pixel's share of its outermost pixel)
+        width = max(ring_px, 1.0)
+        edge = _outline(contact, in_an, width)
+        ring = edge if width == ring_px else None
+        share = out * ring_px / width
+        cell_bearing_px -= share * cell_sums(edge, grid.row_idx, grid.col_idx, grid.rows, grid.cols)
+        bearing = 100.0 * float(cell_bearing_px.sum()) / analysed_px
     cell_count = np.bincount(grid.cell_of(spots), minlength=grid.rows * grid.cols)
-    cells = cells_of(frame, grid, c_mm, cell_area_px, cell_contact_px, cell_count, px_area)
+    cells = cells_of(frame, grid, c_mm, cell_area_px, cell_bearing_px, cell_count, px_area)
     bare = in_an & ~contact
     largest, bare_radius = largest_bare(bare, frame)
     advice = guidance(
@@ -268,8 +300,6 @@ def measure(
         cell_mm=c_mm,
         max_bare_mm=config.max_bare_mm,
     )
-    resolves = resolving_px_per_mm(photo_px_per_mm, photo_blur_px)
-    crowded = _crowded(labels, spots, s, resolves, config)
     marginal = _marginal(found, in_an, frame, config)
     unseen_share = _unseen_share(unseen, bare, analysed_px)
     # the alternates last: the segment stage may still be deciding them on a spare core
@@ -286,7 +316,10 @@ def measure(
         crowded=crowded,
         unseen_share=unseen_share,
         blur_px=photo_blur_px if _blurred(photo_blur_px) else None,
-        outline=lambda: _outline_share(contact, in_an, s / resolves if resolves else 1.0),
+        outline=lambda: _share_of(
+            _outline(contact, in_an, ring_px) if ring is None else ring, analysed_px
+        ),
+        read=read,
     )
     return Measurement(
         spots=spots,
@@ -492,9 +525,30 @@ def _crowded(
     return int(np.count_nonzero(near[1:][spots.in_window]))
 
 
-def _outline_share(contact: np.ndarray, in_an: np.ndarray, width_px: float) -> float:
-    """Percentage points of the analysed window (``in_an``) in the ``contact`` pixels
-    whose centres lie within ``width_px`` of the contacts' outline.
+#: The colour's blur (Gaussian sigma) in pixels of what the photo resolves: about half a
+#: resolved pixel, as the crowded fine prints of printcheck's renders and of an
+#: independent simulator's photos both show (the share of the outermost pixel their
+#: bearing is over by, read against their truth at 8-10 px/mm and at 14-24 px/mm).
+COLOUR_BLUR_RESOLVED_PX = 0.5
+
+
+def spill(outline_share: float) -> float:
+    """How far (resolved pixels) an outline drawn at ``outline_share`` of the way from
+    bare metal to a contact lies outside a sharp edge the colour's blur spread:
+    ``sigma * z`` with ``z`` the standard normal quantile of ``1 - outline_share``
+    (a Gaussian-blurred step crosses that share there); none at half or above.
+
+    Examples
+    --------
+    >>> round(spill(0.175), 3), spill(0.5)
+    (0.467, 0.0)
+    """
+    return max(NormalDist().inv_cdf(1.0 - outline_share), 0.0) * COLOUR_BLUR_RESOLVED_PX
+
+
+def _outline(contact: np.ndarray, in_an: np.ndarray, width_px: float) -> np.ndarray:
+    """The ``contact`` pixels of the analysed window (``in_an``) whose centres lie within
+    ``width_px`` of the contacts' outline, (M, N) bool.
 
     A contact a few of the photo's pixels across is seen through the blur of the photo's
     colour, which spreads its colour a pixel or so past its edge: the share of its peak
@@ -504,14 +558,40 @@ def _outline_share(contact: np.ndarray, in_an: np.ndarray, width_px: float) -> f
     half of what is found, and the bearing is that much over.
     """
     if not contact.any():
-        return 0.0
+        return np.zeros(contact.shape, bool)
     # beyond the frame's border the contact goes on (it is no outline): padded with ones
     padded = np.pad(contact.view(np.uint8), 1, constant_values=1)
     inside = cv2.distanceTransform(padded, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)[1:-1, 1:-1]
     # an outline pixel's centre lies half a pixel inside the outline, 1 from the outside
-    ring = contact & in_an & (inside <= width_px + 0.5)
-    analysed_px = int(np.count_nonzero(in_an))
-    return 100.0 * int(np.count_nonzero(ring)) / analysed_px if analysed_px else 0.0
+    return contact & in_an & (inside <= width_px + 0.5)
+
+
+def _share_of(pixels: np.ndarray, analysed_px: int) -> float:
+    """Percentage points of ``analysed_px`` pixels that ``pixels`` (bool) holds."""
+    return 100.0 * int(np.count_nonzero(pixels)) / analysed_px if analysed_px else 0.0
+
+
+def _too_small(
+    spots: Spots, photo_px_per_mm: float | None, config: MeasureConfig
+) -> tuple[float, float] | None:
+    """(diameter mm, px/mm it needs) of the smaller contacts (the lower quartile of the
+    counted spots' diameters) when the photo resolves fewer than ``config.resolution_px``
+    across them; None when it resolves enough, or cannot say (fewer than five spots, or
+    no resolution of the photo's own)."""
+    d_in = spots.diameter_mm[spots.in_window]
+    if photo_px_per_mm is None or d_in.size < 5:
+        return None
+    small = float(np.percentile(d_in, 25))
+    needed = config.resolution_px / max(small, 1e-6)
+    return (small, needed) if photo_px_per_mm < needed else None
+
+
+def _is_crowded(
+    crowded: int, count: int, photo_px_per_mm: float | None, config: MeasureConfig
+) -> bool:
+    """Whether so many contacts lie closer to a neighbour than the photo parts (``crowded``
+    of ``count``, :func:`_crowded`) that the print is as fine as the photo's pixels."""
+    return photo_px_per_mm is not None and crowded > config.crowded_share * count
 
 
 def _confidence(
@@ -527,38 +607,39 @@ def _confidence(
     unseen_share: float = 0.0,
     blur_px: float | None = None,
     outline: Callable[[], float] | None = None,
+    read: float | None = None,
 ) -> Confidence:
     """The range and the doubtful flag (see the module docstring); ``photo_px_per_mm``
     is what the photo resolves, ``blur_px`` its blur where that lowered it, ``outline``
-    the bearing in the contacts' outermost resolved pixel (:func:`_outline_share`, read
-    only for a photo too coarse for its contacts)."""
+    the bearing in the contacts' outermost resolved pixel (:func:`_outline`, read only
+    for a photo too coarse for its contacts), ``read`` the contact mask's own bearing
+    where ``bearing`` is not it (a print crowded closer than the photo parts)."""
+    read = bearing if read is None else read
     counts = [count] + [a for a, _ in alts]
-    bears = [bearing] + [b for _, b in alts]
+    bears = [bearing, read] + [b for _, b in alts]
     spread = max(1, int(round(config.count_spread * count))) if count else 0
     lo = min(min(counts) - marginal[0], count - spread)
     hi = max(max(counts) + marginal[1], count + spread)
     reasons = []
     how = "move closer" if blur_px is None else "hold the phone still and let it focus"
     blurred = None if blur_px is None else f"blurred (the card's edges spread {blur_px:.1f} px)"
-    d_in = spots.diameter_mm[spots.in_window]
-    if photo_px_per_mm is not None and d_in.size >= 5:
-        small = float(np.percentile(d_in, 25))
-        needed = config.resolution_px / max(small, 1e-6)
-        if photo_px_per_mm < needed:
-            # contacts the photo cannot part come out merged: how many there really are
-            # cannot be read from it, and the range says so (up to twice the count)
-            hi = max(hi, 2 * count)
-            has = (
-                f"has {photo_px_per_mm:.0f}"
-                if blurred is None
-                else f"is {blurred} and resolves like {photo_px_per_mm:.0f}"
-            )
-            reasons.append(
-                f"contacts of {small:.1f} mm need at least {needed:.0f} px/mm; this photo "
-                f"{has}: {how}"
-            )
-            blurred = None  # said once
-    if crowded > config.crowded_share * count and photo_px_per_mm is not None:
+    small = _too_small(spots, photo_px_per_mm, config)
+    if small is not None:
+        # contacts the photo cannot part come out merged: how many there really are
+        # cannot be read from it, and the range says so (up to twice the count)
+        hi = max(hi, 2 * count)
+        has = (
+            f"has {photo_px_per_mm:.0f}"
+            if blurred is None
+            else f"is {blurred} and resolves like {photo_px_per_mm:.0f}"
+        )
+        reasons.append(
+            f"contacts of {small[0]:.1f} mm need at least {small[1]:.0f} px/mm; this photo "
+            f"{has}: {how}"
+        )
+        blurred = None  # said once
+    if _is_crowded(crowded, count, photo_px_per_mm, config):
+        assert photo_px_per_mm is not None
         # a print as fine as the photo's pixels: each contact closer to a neighbour than
         # the photo can part may hide another merged into it
         hi = max(hi, count + crowded)
@@ -580,9 +661,9 @@ def _confidence(
     blo, bhi = min(bears), max(bears)
     if coarse and outline is not None:
         # the contacts' outlines may each lie a resolved pixel out
-        blo = min(blo, max(bearing - outline(), 0.0))
+        blo = min(blo, max(read - outline(), 0.0))
     if unseen_share > 0:
-        bhi = max(bhi, bearing / (1.0 - unseen_share))
+        bhi = max(bhi, read / (1.0 - unseen_share))
     if max(bearing - blo, bhi - bearing) > config.doubtful_bearing:
         reasons.append(f"the bearing could be anything from {blo:.1f} to {bhi:.1f}%")
     reason = "; ".join(reasons)

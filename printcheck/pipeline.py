@@ -149,7 +149,8 @@ def measure_segmented(
 ) -> Measurement:
     """The measure stage on what the segment stage found: its mask, with the alternates
     for the range, the surface it could not see, and the bare pixels its contacts need
-    between them to be told apart (``config``'s ``part_px`` is the segmentation's).
+    between them to be told apart and where it drew their outlines (``config``'s
+    ``part_px`` and ``outline_share`` are the segmentation's).
     The one place the two stages are joined (inspect, and the benchmarks and tests that
     rectify a photo themselves)."""
     from dataclasses import replace
@@ -160,7 +161,9 @@ def measure_segmented(
         seg.mask,
         frame=frame,
         analysed=analysed,
-        config=replace(config or MeasureConfig(), part_px=seg.part_px),
+        config=replace(
+            config or MeasureConfig(), part_px=seg.part_px, outline_share=seg.outline_share
+        ),
         alternates=seg.alternates,
         photo_px_per_mm=photo_px_per_mm,
         photo_blur_px=photo_blur_px,

@@ -214,6 +214,10 @@ class Segmentation:
         this segmentation to part them (the measure stage's ``part_px``):
         :data:`PART_ON_BRIGHTNESS_PX` where they were cut apart on the brightness,
         :data:`PART_ON_COLOUR_PX` where on the colour.
+    outline_share : float
+        Where on a contact's edge its outline is drawn, as a share of the way from bare
+        metal to the contact (the measure stage's ``outline_share``): the rim share of
+        its peak on the reference, low on the blurred edge; the coat share on the work.
     """
 
     mask: np.ndarray
@@ -229,6 +233,7 @@ class Segmentation:
     glare: np.ndarray | None = None
     washed: np.ndarray | None = None
     part_px: float = 3.0
+    outline_share: float = 0.5
 
     @property
     def unseen(self) -> np.ndarray | None:
@@ -312,6 +317,9 @@ def segment(
             glare=glare,
             washed=washed,
             part_px=part_px,
+            outline_share=(
+                config.rim_share if config.compound_on == "reference" else config.coat_share
+            ),
         )
 
     if np.count_nonzero(stat) < 64:

@@ -338,6 +338,33 @@ def test_contacts_closer_than_the_photo_can_part_widen_the_range(fine_field) -> 
     assert c.bearing_low <= truth.bearing_percent <= c.bearing_high, (c, truth.bearing_percent)
 
 
+@pytest.mark.parametrize(
+    ("px_per_mm", "seed", "lighting"),
+    [
+        (8.0, 40, {"blur_sigma_px": 1.0, "jpeg_quality": 80}),
+        (10.0, 41, {"blur_sigma_px": 1.2, "jpeg_quality": 75, "colour_blur_px": 1.5}),
+    ],
+)
+def test_a_fine_print_crowded_closer_than_the_photo_parts_reads_its_bearing(
+    fine_field, px_per_mm: float, seed: int, lighting: dict
+) -> None:  # type: ignore[no-untyped-def]
+    # the fine print at 8 and 10 px/mm: its 0.2-0.35 mm gaps are 2-3 photo pixels, and
+    # more than half its contacts lie closer to a neighbour than the photo parts.  The
+    # contacts themselves (0.5-1.5 mm) are large enough to be seen; the blur of both
+    # neighbours fills the gaps and the outlines lie out.  The mask's own bearing reads
+    # 8.9 % and 8.6 % against 6.6 %; the bearing is within the fine-print target (1.5
+    # points), the photo is doubtful, and both ranges hold the truth
+    truth, meas, _ = _square_on(fine_field, px_per_mm, seed, **lighting, **PALE_THIN)
+    c = meas.confidence
+    assert c is not None and c.doubtful and "closer than this photo can part" in c.reason
+    assert abs(meas.bearing_percent - truth.bearing_percent) <= 1.5, (
+        meas.bearing_percent,
+        truth.bearing_percent,
+    )
+    assert c.bearing_low <= truth.bearing_percent <= c.bearing_high, (c, truth.bearing_percent)
+    assert c.count_low <= truth.spot_count <= c.count_high, (c, truth.spot_count)
+
+
 def test_a_photo_without_compound_is_refused_and_nothing_of_it_is_recorded(tmp_path) -> None:  # type: ignore[no-untyped-def]
     """docs/formats.md, command line: a photo in which no marking compound can be found is
     not usable (exit 2), not a measurement of zero; in a batch it is reported and skipped,

@@ -136,6 +136,7 @@ MEASURE_CHANGES = {
     "resolution_px": 1.0,
     "part_px": 300.0,
     "crowded_share": 0.1,
+    "outline_share": 0.5,
     "oversize_factor": 100.0,
     "heavy_bearing_factor": 30.0,
 }
@@ -148,8 +149,10 @@ def test_every_measure_field_is_covered() -> None:
 @pytest.mark.parametrize("name", sorted(MEASURE_CHANGES))
 def test_measure_field_changes_the_result(name: str) -> None:
     coarse = name == "resolution_px"  # the check needs a photo coarser than its contacts
-    # the base photo's contacts are crowded, but not so many as to make it doubtful
-    base = MeasureConfig(cell_mm=10.0, crowded_share=0.9)
+    # the base photo's contacts are crowded, but not so many as to make it doubtful (but
+    # for where its outlines lie, which counts only in a photo that is)
+    crowded_share = 0.05 if name == "outline_share" else 0.9
+    base = MeasureConfig(cell_mm=10.0, crowded_share=crowded_share)
     changed = dataclasses.replace(base, **{name: MEASURE_CHANGES[name]})
     assert _measure_result(changed, coarse=coarse) != _measure_result(base, coarse=coarse)
 

@@ -7,13 +7,14 @@ skimage.measure.regionprops for the spots; plane geometry for the bare patch.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
-from scipy import ndimage
+from scipy import ndimage, stats
 from skimage.measure import regionprops
 
 from printcheck.errors import OptionError
@@ -334,7 +335,7 @@ def test_the_outermost_ring_of_the_contacts_by_scipy(seed: int, width: float) ->
     # scipy's exact Euclidean distance transform (distance to the nearest pixel outside;
     # the frame's border is no outline, the contact goes on past it): those at most
     # width + 0.5 from outside
-    from printcheck.measure import _outline_share
+    from printcheck.measure import _outline, _share_of
 
     rng = np.random.default_rng(seed)
     mask = ndimage.gaussian_filter(rng.random((60, 70)), 2.0) > 0.52
@@ -342,7 +343,7 @@ def test_the_outermost_ring_of_the_contacts_by_scipy(seed: int, width: float) ->
     an[5:55, 3:66] = True
     inside = ndimage.distance_transform_edt(np.pad(mask, 1, constant_values=True))[1:-1, 1:-1]
     expected = 100.0 * np.count_nonzero(mask & an & (inside <= width + 0.5)) / an.sum()
-    assert _outline_share(mask, an, width) == pytest.approx(expected, abs=1e-9)
+    assert _share_of(_outline(mask, an, width), int(an.sum())) == pytest.approx(expected, abs=1e-9)
 
 
 def test_a_print_too_fine_for_the_photo_reaches_down_by_its_outermost_ring() -> None:
@@ -365,6 +366,45 @@ def test_a_print_too_fine_for_the_photo_reaches_down_by_its_outermost_ring() -> 
     assert c.bearing_low == pytest.approx(m.bearing_percent - ring)
     sharp = measure(mask, frame=frame, analysed=an, photo_px_per_mm=40.0).confidence
     assert not sharp.doubtful and sharp.bearing_low == pytest.approx(m.bearing_percent)
+
+
+def test_a_print_crowded_closer_than_the_photo_parts_counts_its_outermost_pixel_as_half():
+    # contacts of 1.3 mm with 2 px (0.2 mm) of bare metal between neighbours, in a photo
+    # of 10 px/mm: closer than the 3 px a photo needs to part them on the colour.  The
+    # blur of both neighbours fills such gaps, and an outline drawn at 0.175 of the way up
+    # a Gaussian-blurred edge lies z(0.825) sigma out (scipy's normal quantile), sigma
+    # half a resolved pixel: that share of the contact pixels within one resolved pixel
+    # (1 px here) of their outlines, counted here with scipy's exact distance transform,
+    # is not contact; window and cells agree, and the range still holds the mask's own
+    # reading.  A sharp photo (40 px/mm) parts the gaps, and outlines drawn half way up
+    # the edge (compound on the work) lie on it: the mask's bearing as it is
+    frame = _frame((100, 100))  # 10 px/mm
+    an = _window_mask(frame)
+    mask = np.zeros((100, 100), bool)
+    for r in range(12, 95, 15):
+        for c in range(12, 95, 15):
+            mask |= _disc((100, 100), r, c, 6)
+    config = MeasureConfig(cell_mm=5.0)
+    m = measure(mask, frame=frame, analysed=an, config=config, photo_px_per_mm=10.0)
+    c = m.confidence
+    assert c.doubtful and "closer than this photo can part (3 px at 10 px/mm)" in c.reason
+    assert "need at least" not in c.reason  # not too small: 13 px across
+    inside = ndimage.distance_transform_edt(np.pad(mask, 1, constant_values=True))[1:-1, 1:-1]
+    ring = np.count_nonzero(mask & an & (inside <= 1.0 + 0.5))
+    read = 100.0 * np.count_nonzero(mask & an) / an.sum()
+    out = 0.5 * stats.norm.ppf(1.0 - 0.175)
+    assert m.bearing_percent == pytest.approx(read - 100.0 * out * ring / an.sum())
+    assert read - m.bearing_percent > 3.0  # a real part of the bearing
+    by_cells = sum(cell.bearing_percent * cell.area_mm2 for cell in m.cells)
+    assert by_cells / sum(cell.area_mm2 for cell in m.cells) == pytest.approx(m.bearing_percent)
+    assert c.bearing_low <= m.bearing_percent < read <= c.bearing_high
+    assert c.bearing_low == pytest.approx(read - 100.0 * ring / an.sum())
+    sharp = measure(mask, frame=frame, analysed=an, config=config, photo_px_per_mm=40.0)
+    assert not sharp.confidence.doubtful
+    assert sharp.bearing_percent == pytest.approx(read)
+    half_way = replace(config, outline_share=0.5)
+    on_work = measure(mask, frame=frame, analysed=an, config=half_way, photo_px_per_mm=10.0)
+    assert on_work.confidence.doubtful and on_work.bearing_percent == pytest.approx(read)
 
 
 def test_alternates_counted_by_scipy_rules():
