@@ -336,13 +336,22 @@ def edge_blur_px(grey: np.ndarray, corners: np.ndarray, bits: int) -> float | No
     light = np.median(prof[:, -k:], axis=1)
     ok = light - dark >= 20.0  # a clear step (8-bit levels)
     frac = ((prof - dark[:, None]) / np.where(ok, light - dark, 1.0)[:, None])[ok]
-    # on each profile, the first sample at 10 % and at 90 % of the step, and the run
-    # from each sample before them: linear interpolation between the two
-    i10 = np.argmax(frac >= 0.1, axis=1)
-    i90 = np.argmax(frac >= 0.9, axis=1)
-    rows = np.arange(frac.shape[0])
-    clear = (i10 > 0) & (i90 > i10) & (frac[rows, i90] >= 0.9)
-    rows, i10, i90 = rows[clear], i10[clear], i90[clear]
+    # on each profile, the rise's ends are sought outward from the edge's middle (its
+    # first sample at half the step): on a dim, noisy photo a sample of the dark side
+    # passes 10 % by noise alone, well before the edge, and read from the profile's
+    # start it was taken for the rise's beginning (a sharp marker read as blurred 3 px).
+    # The samples after the last one below 10 % before the middle, and the first at
+    # 90 % from the middle on; each crossing is interpolated from the sample before it
+    n = frac.shape[1]
+    i50 = np.argmax(frac >= 0.5, axis=1)
+    ahead = np.arange(n)[None, :] < i50[:, None]
+    below = (frac < 0.1) & ahead
+    above = (frac >= 0.9) & ~ahead
+    i10 = n - np.argmax(below[:, ::-1], axis=1)  # one past the last sample below 10 %
+    i90 = np.argmax(above, axis=1)
+    clear = (i50 > 0) & below.any(axis=1) & above.any(axis=1)
+    rows = np.arange(frac.shape[0])[clear]
+    i10, i90 = i10[clear], i90[clear]
     if rows.size < 12:
         return None
     x10 = _crossing(frac, rows, i10, 0.1, offsets, step)

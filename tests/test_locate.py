@@ -695,6 +695,30 @@ def test_edge_blur_is_the_gaussian_the_photo_was_blurred_by(sigma: float) -> Non
     assert estimate == pytest.approx(sigma, rel=0.08)
 
 
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_edge_blur_of_a_dim_noisy_photo_is_not_its_noise(seed: int) -> None:
+    # the same marker in a dim photo (a step of 100 levels over 30) with sensor noise of
+    # 10 levels, blurred by 1 px: on the dark side a sample passes 10 % of the step by
+    # noise alone now and then, well before the edge.  The estimate is still the
+    # Gaussian's sigma (an earlier reading took such a sample for the rise's start and
+    # gave 2-3 px, calling a sharp photo blurred)
+    from printcheck.markers import edge_blur_px
+
+    dictionary = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
+    side = 6 * 24
+    marker = cv2.aruco.generateImageMarker(dictionary, 7, side)
+    page = np.full((side + 120, side + 120), 130, np.uint8)
+    page[60 : 60 + side, 60 : 60 + side] = np.where(marker > 0, 130, 30)
+    blurred = cv2.GaussianBlur(page.astype(np.float32), (0, 0), 1.0)
+    noisy = blurred + np.random.default_rng(seed).normal(0.0, 10.0, blurred.shape)
+    corners = np.array(
+        [[59.5, 59.5], [59.5 + side, 59.5], [59.5 + side, 59.5 + side], [59.5, 59.5 + side]]
+    )
+    estimate = edge_blur_px(noisy.astype(np.float32), corners, 4)
+    assert estimate is not None
+    assert estimate == pytest.approx(1.0, abs=0.15)
+
+
 def test_markers_found_first_on_a_reduced_decode_give_the_same_fit(
     card: Layout, big_photo: _Photo, tmp_path
 ) -> None:  # type: ignore[no-untyped-def]
