@@ -17,8 +17,9 @@ too coarse for its contacts is flagged doubtful, with the resolution it would ne
 bearing's range then reaches down by the contacts' outermost pixel all round (their
 outlines may lie that far out: see :func:`_outline`).  Where the contacts are large
 enough for the photo but crowd closer together than it parts, the blur of both
-neighbours fills the gaps between them: the bearing counts that outermost pixel as half
-contact, and its range reaches up to the mask's own reading.
+neighbours fills the gaps between them: the bearing leaves out the share of that
+outermost pixel the blur spills over (:func:`spill`, a little under half where the
+outlines are drawn low on the edge), and its range reaches up to the mask's own reading.
 """
 
 from __future__ import annotations
