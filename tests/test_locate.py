@@ -672,6 +672,21 @@ def test_detect_markers_refines_corners_to_hundredths_of_a_pixel(photos: dict[st
         assert np.max(np.hypot(*(det.corners_px - truth).T)) < 0.1  # px
 
 
+def _drawn_marker(*, dark: int, light: int) -> tuple[np.ndarray, np.ndarray]:
+    """A marker drawn by OpenCV's own ArUco generator (DICT_4X4_50 id 7), 24 px a module,
+    in ``dark`` on a page of ``light`` (float32), and its outer corners: they lie on pixel
+    edges, 0.5 px off the pixel centres."""
+    dictionary = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
+    side = 6 * 24
+    marker = cv2.aruco.generateImageMarker(dictionary, 7, side)
+    page = np.full((side + 120, side + 120), light, np.float32)
+    page[60 : 60 + side, 60 : 60 + side] = np.where(marker > 0, light, dark)
+    corners = np.array(
+        [[59.5, 59.5], [59.5 + side, 59.5], [59.5 + side, 59.5 + side], [59.5, 59.5 + side]]
+    )
+    return page, corners
+
+
 @pytest.mark.parametrize("sigma", [1.0, 1.5, 2.5, 4.0])
 def test_edge_blur_is_the_gaussian_the_photo_was_blurred_by(sigma: float) -> None:
     # a marker drawn by OpenCV's own ArUco generator, 24 px a module, blurred by
@@ -680,16 +695,8 @@ def test_edge_blur_is_the_gaussian_the_photo_was_blurred_by(sigma: float) -> Non
     # nothing else spreads it
     from printcheck.markers import edge_blur_px
 
-    dictionary = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
-    side = 6 * 24
-    marker = cv2.aruco.generateImageMarker(dictionary, 7, side)
-    page = np.full((side + 120, side + 120), 235, np.uint8)
-    page[60 : 60 + side, 60 : 60 + side] = np.where(marker > 0, 235, 20)
-    blurred = cv2.GaussianBlur(page.astype(np.float32), (0, 0), sigma)
-    # pixel centres: the marker's outer corners lie on pixel edges, 0.5 px off the centres
-    corners = np.array(
-        [[59.5, 59.5], [59.5 + side, 59.5], [59.5 + side, 59.5 + side], [59.5, 59.5 + side]]
-    )
+    page, corners = _drawn_marker(dark=20, light=235)
+    blurred = cv2.GaussianBlur(page, (0, 0), sigma)
     estimate = edge_blur_px(blurred, corners, 4)
     assert estimate is not None
     assert estimate == pytest.approx(sigma, rel=0.08)
@@ -704,16 +711,9 @@ def test_edge_blur_of_a_dim_noisy_photo_is_not_its_noise(seed: int) -> None:
     # gave 2-3 px, calling a sharp photo blurred)
     from printcheck.markers import edge_blur_px
 
-    dictionary = cv2.aruco.getPredefinedDictionary(cv2.aruco.DICT_4X4_50)
-    side = 6 * 24
-    marker = cv2.aruco.generateImageMarker(dictionary, 7, side)
-    page = np.full((side + 120, side + 120), 130, np.uint8)
-    page[60 : 60 + side, 60 : 60 + side] = np.where(marker > 0, 130, 30)
-    blurred = cv2.GaussianBlur(page.astype(np.float32), (0, 0), 1.0)
+    page, corners = _drawn_marker(dark=30, light=130)
+    blurred = cv2.GaussianBlur(page, (0, 0), 1.0)
     noisy = blurred + np.random.default_rng(seed).normal(0.0, 10.0, blurred.shape)
-    corners = np.array(
-        [[59.5, 59.5], [59.5 + side, 59.5], [59.5 + side, 59.5 + side], [59.5, 59.5 + side]]
-    )
     estimate = edge_blur_px(noisy.astype(np.float32), corners, 4)
     assert estimate is not None
     assert estimate == pytest.approx(1.0, abs=0.15)
@@ -740,8 +740,7 @@ def test_markers_found_first_on_a_reduced_decode_give_the_same_fit(
     assert sorted(i for i, _ in coarse.found) == [0, 1, 2, 3]
     here = {d.id: d.corners_px for d in detect_markers(image, dictionary=card.dictionary)}
     early = {
-        d.id: d.corners_px
-        for d in detect_markers(image, dictionary=card.dictionary, coarse=coarse)
+        d.id: d.corners_px for d in detect_markers(image, dictionary=card.dictionary, coarse=coarse)
     }
     assert sorted(here) == sorted(early) == [0, 1, 2, 3]
     assert max(np.abs(here[i] - early[i]).max() for i in here) < 0.01

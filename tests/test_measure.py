@@ -341,9 +341,25 @@ def test_the_outermost_ring_of_the_contacts_by_scipy(seed: int, width: float) ->
     mask = ndimage.gaussian_filter(rng.random((60, 70)), 2.0) > 0.52
     an = np.zeros(mask.shape, bool)
     an[5:55, 3:66] = True
-    inside = ndimage.distance_transform_edt(np.pad(mask, 1, constant_values=True))[1:-1, 1:-1]
-    expected = 100.0 * np.count_nonzero(mask & an & (inside <= width + 0.5)) / an.sum()
+    expected = 100.0 * np.count_nonzero(an & _within_of_outline(mask, width)) / an.sum()
     assert _share_of(_outline(mask, an, width), int(an.sum())) == pytest.approx(expected, abs=1e-9)
+
+
+def _disc_grid(centres: range) -> np.ndarray:
+    """Discs of radius 6 px (13 px across) at every (row, col) of ``centres``, 100 x 100."""
+    mask = np.zeros((100, 100), bool)
+    for r in centres:
+        for c in centres:
+            mask |= _disc((100, 100), r, c, 6)
+    return mask
+
+
+def _within_of_outline(mask: np.ndarray, width: float) -> np.ndarray:
+    """The pixels of ``mask`` whose centres lie within ``width`` of its outline, by scipy's
+    exact distance transform (to the nearest pixel outside: at most width + 0.5); the
+    frame's border is no outline."""
+    inside = ndimage.distance_transform_edt(np.pad(mask, 1, constant_values=True))[1:-1, 1:-1]
+    return mask & (inside <= width + 0.5)
 
 
 def test_a_print_too_fine_for_the_photo_reaches_down_by_its_outermost_ring() -> None:
@@ -353,15 +369,11 @@ def test_a_print_too_fine_for_the_photo_reaches_down_by_its_outermost_ring() -> 
     # scipy's exact distance transform
     frame = _frame((100, 100))  # 10 px/mm
     an = _window_mask(frame)
-    mask = np.zeros((100, 100), bool)
-    for r in range(15, 90, 15):
-        for c in range(15, 90, 15):
-            mask |= _disc((100, 100), r, c, 6)
+    mask = _disc_grid(range(15, 90, 15))
     m = measure(mask, frame=frame, analysed=an, photo_px_per_mm=5.0)
     c = m.confidence
     assert c.doubtful and "this photo has 5: move closer" in c.reason
-    inside = ndimage.distance_transform_edt(np.pad(mask, 1, constant_values=True))[1:-1, 1:-1]
-    ring = 100.0 * np.count_nonzero(mask & an & (inside <= 2.0 + 0.5)) / an.sum()
+    ring = 100.0 * np.count_nonzero(an & _within_of_outline(mask, 2.0)) / an.sum()
     assert ring > 5.0  # a real part of the bearing
     assert c.bearing_low == pytest.approx(m.bearing_percent - ring)
     sharp = measure(mask, frame=frame, analysed=an, photo_px_per_mm=40.0).confidence
@@ -380,17 +392,13 @@ def test_a_print_crowded_closer_than_the_photo_parts_counts_its_outermost_pixel_
     # the edge (compound on the work) lie on it: the mask's bearing as it is
     frame = _frame((100, 100))  # 10 px/mm
     an = _window_mask(frame)
-    mask = np.zeros((100, 100), bool)
-    for r in range(12, 95, 15):
-        for c in range(12, 95, 15):
-            mask |= _disc((100, 100), r, c, 6)
+    mask = _disc_grid(range(12, 95, 15))
     config = MeasureConfig(cell_mm=5.0)
     m = measure(mask, frame=frame, analysed=an, config=config, photo_px_per_mm=10.0)
     c = m.confidence
     assert c.doubtful and "closer than this photo can part (3 px at 10 px/mm)" in c.reason
     assert "need at least" not in c.reason  # not too small: 13 px across
-    inside = ndimage.distance_transform_edt(np.pad(mask, 1, constant_values=True))[1:-1, 1:-1]
-    ring = np.count_nonzero(mask & an & (inside <= 1.0 + 0.5))
+    ring = np.count_nonzero(an & _within_of_outline(mask, 1.0))
     read = 100.0 * np.count_nonzero(mask & an) / an.sum()
     out = 0.5 * stats.norm.ppf(1.0 - 0.175)
     assert m.bearing_percent == pytest.approx(read - 100.0 * out * ring / an.sum())
