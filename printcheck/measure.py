@@ -527,9 +527,10 @@ def _crowded(
 
 
 #: The colour's blur (Gaussian sigma) in pixels of what the photo resolves: about half a
-#: resolved pixel, as the crowded fine prints of printcheck's renders and of an
-#: independent simulator's photos both show (the share of the outermost pixel their
-#: bearing is over by, read against their truth at 8-10 px/mm and at 14-24 px/mm).
+#: resolved pixel.  Read from the share of the outermost pixel by which the bearing of
+#: crowded fine prints is over against their truth: printcheck's own at 8 and 10 px/mm
+#: and two of an independent simulator's at 11-17 px/mm (and checked on that simulator's
+#: photos taken again farther off and softer, which it also brings within 1 point).
 COLOUR_BLUR_RESOLVED_PX = 0.5
 
 
