@@ -141,8 +141,10 @@ class MeasureConfig:
             value = getattr(self, name)
             if not (math.isfinite(value) and value > 0):
                 raise OptionError(f"{name} must be greater than zero, got {value!r}")
-        if not (math.isfinite(self.outline_share) and 0 < self.outline_share < 1):
-            raise OptionError(f"outline_share must be between 0 and 1, got {self.outline_share!r}")
+        if not (math.isfinite(self.outline_share) and 0 <= self.outline_share < 1):
+            raise OptionError(
+                f"outline_share must be from 0 to below 1, got {self.outline_share!r}"
+            )
 
 
 @dataclass(frozen=True)
@@ -539,14 +541,16 @@ def spill(outline_share: float) -> float:
     """How far (resolved pixels) an outline drawn at ``outline_share`` of the way from
     bare metal to a contact lies outside a sharp edge the colour's blur spread:
     ``sigma * z`` with ``z`` the standard normal quantile of ``1 - outline_share``
-    (a Gaussian-blurred step crosses that share there); none at half or above.
+    (a Gaussian-blurred step crosses that share there); none at half or above.  An
+    outline drawn at no share at all is taken as one at a thousandth (3.1 sigma out).
 
     Examples
     --------
-    >>> round(spill(0.175), 3), spill(0.5)
-    (0.467, 0.0)
+    >>> round(spill(0.175), 3), spill(0.5), round(spill(0.0), 2)
+    (0.467, 0.0, 1.55)
     """
-    return max(NormalDist().inv_cdf(1.0 - outline_share), 0.0) * COLOUR_BLUR_RESOLVED_PX
+    share = min(max(outline_share, 1e-3), 1.0 - 1e-3)
+    return max(NormalDist().inv_cdf(1.0 - share), 0.0) * COLOUR_BLUR_RESOLVED_PX
 
 
 def _outline(contact: np.ndarray, in_an: np.ndarray, width_px: float) -> np.ndarray:

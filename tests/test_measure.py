@@ -493,3 +493,15 @@ def test_shape_errors():
             analysed=np.ones((10, 10), bool),
             config=MeasureConfig(cell_mm=0.0),
         )
+
+
+def test_outline_share_from_nothing_to_below_one() -> None:
+    # as the segment stage's rim and coat shares: 0 is allowed (the outline at the first
+    # trace of compound, where the blur's spill is its whole tail), 1 and past are not
+    from printcheck.measure import spill
+
+    assert MeasureConfig(outline_share=0.0).outline_share == 0.0
+    assert 1.0 < spill(0.0) < 2.0
+    for bad in (1.0, -0.1, float("nan")):
+        with pytest.raises(OptionError, match="outline_share"):
+            MeasureConfig(outline_share=bad)
