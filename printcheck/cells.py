@@ -169,10 +169,13 @@ def cells_of(
     grid: Grid,
     c_mm: float,
     cell_area_px: np.ndarray,
-    cell_contact_px: np.ndarray,
+    cell_bearing_px: np.ndarray,
     cell_count: np.ndarray,
     px_area: float,
 ) -> tuple[Cell, ...]:
+    """The cells of ``grid``, from per-cell (flat, row-major) analysed pixels, contact
+    pixels (``cell_bearing_px``: a float where a pixel counts only in part as contact)
+    and spot counts."""
     s = float(frame.px_per_mm)
     win = frame.window
     cells: list[Cell] = []
@@ -207,7 +210,7 @@ def cells_of(
                     spot_count=n_here,
                     density=n_here * c_mm**2 / a_mm2 if a_mm2 > 0 else 0.0,
                     bearing_percent=(
-                        100.0 * float(cell_contact_px[k]) / float(cell_area_px[k])
+                        100.0 * float(cell_bearing_px[k]) / float(cell_area_px[k])
                         if cell_area_px[k]
                         else 0.0
                     ),

@@ -90,9 +90,11 @@ class MeasureConfig:
         where the contacts were cut apart on the brightness, kept at full resolution.
     outline_share : float
         Where on a contact's edge the segmentation drew its outline, as a share of the
-        way from bare metal to the contact (:attr:`printcheck.segment.Segmentation.
-        outline_share`; the pipeline passes it): low on the edge, the outline lies out
-        by the blur (see :func:`spill`).
+        way from the background (bare metal; the coat, with compound on the work) to
+        the contact (:attr:`printcheck.segment.Segmentation.outline_share`; the
+        pipeline passes it; the default is the rim share of compound on the
+        reference): low on the edge, the outline lies out by the blur (see
+        :func:`spill`).
     crowded_share : float
         When more than this share of the contacts lie closer than ``part_px`` to a
         neighbour, the print is as fine as the photo's pixels: each such contact may
@@ -279,12 +281,14 @@ def measure(
         # contacts closer together than the photo parts, large enough to be seen: the
         # blur of both neighbours fills the gaps between them, and no bare metal is left
         # there to draw the outline against; that part of the outermost resolved pixel
-        # that the blur spills over is not contact (where the frame is coarser than the
-        # photo, a pixel's share of its outermost pixel)
-        width = max(ring_px, 1.0)
+        # that the blur spills over is not contact: a band ``out * ring_px`` deep all
+        # round, taken as that share of a ring at least one frame pixel deep (where the
+        # frame is coarser than the photo) and no shallower than the band itself
+        deep = out * ring_px
+        width = max(ring_px, 1.0, deep)
         edge = _outline(contact, in_an, width)
         ring = edge if width == ring_px else None
-        share = out * ring_px / width
+        share = deep / width  # at most 1: no pixel loses more than itself
         cell_bearing_px -= share * cell_sums(edge, grid.row_idx, grid.col_idx, grid.rows, grid.cols)
         bearing = 100.0 * float(cell_bearing_px.sum()) / analysed_px
     cell_count = np.bincount(grid.cell_of(spots), minlength=grid.rows * grid.cols)
@@ -297,7 +301,7 @@ def measure(
         in_an=in_an,
         frame=frame,
         bare_edt=bare_radius,
-        bearing=bearing,
+        bearing=read,  # the guidance reads the mask's own local bearing against it
         oversize_factor=config.oversize_factor,
         heavy_bearing_factor=config.heavy_bearing_factor,
         cell_mm=c_mm,

@@ -215,9 +215,11 @@ class Segmentation:
         :data:`PART_ON_BRIGHTNESS_PX` where they were cut apart on the brightness,
         :data:`PART_ON_COLOUR_PX` where on the colour.
     outline_share : float
-        Where on a contact's edge its outline is drawn, as a share of the way from bare
-        metal to the contact (the measure stage's ``outline_share``): the rim share of
-        its peak on the reference, low on the blurred edge; the coat share on the work.
+        Where on a contact's edge its outline is drawn, as a share of the way from the
+        background (bare metal; the coat, with compound on the work) to the contact (the
+        measure stage's ``outline_share``): the rim share of its peak on the reference,
+        low on the blurred edge; the coat share on the work; half the compound's level
+        where the compound covers nearly everything.
     """
 
     mask: np.ndarray
@@ -302,6 +304,9 @@ def segment(
         level: float,
         noise: float,
         part_px: float = PART_ON_COLOUR_PX,
+        outline_share: float = (
+            config.rim_share if config.compound_on == "reference" else config.coat_share
+        ),
     ) -> Segmentation:
         return Segmentation(
             mask=mask,
@@ -317,9 +322,7 @@ def segment(
             glare=glare,
             washed=washed,
             part_px=part_px,
-            outline_share=(
-                config.rim_share if config.compound_on == "reference" else config.coat_share
-            ),
+            outline_share=outline_share,
         )
 
     if np.count_nonzero(stat) < 64:
@@ -338,6 +341,7 @@ def segment(
                 ((evidence > t_fewer) & visible, (evidence > t_more) & visible),
                 level=2.0 * t,
                 noise=EVIDENCE_FLOOR,
+                outline_share=0.5,  # drawn at t, half the level
             )
     field = contact_field(
         evidence,

@@ -353,7 +353,9 @@ def test_a_fine_print_crowded_closer_than_the_photo_parts_reads_its_bearing(
     # contacts themselves (0.5-1.5 mm) are large enough to be seen; the blur of both
     # neighbours fills the gaps and the outlines lie out.  The mask's own bearing reads
     # 8.9 % and 8.6 % against 6.6 %; the bearing is within the fine-print target (1.5
-    # points), the photo is doubtful, and both ranges hold the truth
+    # points), the photo is doubtful, and both ranges hold the truth.  (The colour's blur
+    # of half a resolved pixel was read from these two photos among others; the one above
+    # whose colour the phone smoothed, crowded too, was not: 7.17 % -> 5.95 % there)
     truth, meas, _ = _square_on(fine_field, px_per_mm, seed, **lighting, **PALE_THIN)
     c = meas.confidence
     assert c is not None and c.doubtful and "closer than this photo can part" in c.reason

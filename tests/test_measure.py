@@ -380,7 +380,7 @@ def test_a_print_too_fine_for_the_photo_reaches_down_by_its_outermost_ring() -> 
     assert not sharp.doubtful and sharp.bearing_low == pytest.approx(m.bearing_percent)
 
 
-def test_a_print_crowded_closer_than_the_photo_parts_counts_its_outermost_pixel_as_half():
+def test_a_print_crowded_closer_than_the_photo_parts_leaves_out_the_blurs_spill():
     # contacts of 1.3 mm with 2 px (0.2 mm) of bare metal between neighbours, in a photo
     # of 10 px/mm: closer than the 3 px a photo needs to part them on the colour.  The
     # blur of both neighbours fills such gaps, and an outline drawn at 0.175 of the way up
@@ -413,6 +413,93 @@ def test_a_print_crowded_closer_than_the_photo_parts_counts_its_outermost_pixel_
     half_way = replace(config, outline_share=0.5)
     on_work = measure(mask, frame=frame, analysed=an, config=half_way, photo_px_per_mm=10.0)
     assert on_work.confidence.doubtful and on_work.bearing_percent == pytest.approx(read)
+
+
+@pytest.mark.parametrize(
+    ("photo_px_per_mm", "outline_share"),
+    [(7.0, 0.175), (10.0, 0.0), (10.0, 0.02)],
+)
+def test_the_blurs_spill_of_a_crowded_print_by_scipy(
+    photo_px_per_mm: float, outline_share: float
+) -> None:
+    # the same crowded grid of discs (2 px apart), in a photo of 7 px/mm, where one
+    # resolved pixel is 1.43 frame pixels (the spill, a band 0.467 x 1.43 px deep, is
+    # that share of the ring 1.43 px deep), and with outlines drawn at no share or at
+    # 0.02 of the edge, where the spill (scipy's normal quantile x 0.5) is deeper than a
+    # resolved pixel: the whole ring as deep as the spill is left out, and no cell (of
+    # 0.5 mm, 5 x 5 px) goes below zero.  Cells agree with the window
+    frame = _frame((100, 100))  # 10 px/mm
+    an = _window_mask(frame)
+    mask = _disc_grid(range(12, 95, 15))
+    config = MeasureConfig(cell_mm=0.5, outline_share=outline_share)
+    m = measure(mask, frame=frame, analysed=an, config=config, photo_px_per_mm=photo_px_per_mm)
+    assert m.confidence.doubtful and "closer than this photo can part" in m.confidence.reason
+    ring_px = 10.0 / photo_px_per_mm
+    deep = 0.5 * stats.norm.ppf(1.0 - max(outline_share, 1e-3)) * ring_px
+    width = max(ring_px, 1.0, deep)
+    ring = np.count_nonzero(an & _within_of_outline(mask, width))
+    read = 100.0 * np.count_nonzero(mask & an) / an.sum()
+    assert m.bearing_percent == pytest.approx(read - 100.0 * deep / width * ring / an.sum())
+    assert min(cell.bearing_percent for cell in m.cells) >= 0.0
+    by_cells = sum(cell.bearing_percent * cell.area_mm2 for cell in m.cells)
+    assert by_cells / sum(cell.area_mm2 for cell in m.cells) == pytest.approx(m.bearing_percent)
+
+
+def test_the_guidance_of_a_crowded_print_reads_its_mask_as_before() -> None:
+    # the heavy-bearing areas compare the mask's own local bearing with the window's:
+    # the window's bearing less the blur's spill would make every crowded patch look
+    # heavy, so the guidance is the same whether the spill is left out or not
+    # (30 x 30 mm: the grid of discs all over, a 10 x 10 mm patch of bars 1 mm wide and
+    # 0.5 mm apart in its middle)
+    frame = _frame((300, 300))
+    an = _window_mask(frame)
+    mask = np.zeros((300, 300), bool)
+    for r in range(12, 295, 15):
+        for c in range(12, 295, 15):
+            mask |= _disc((300, 300), r, c, 6)
+    mask[100:200, 100:200] = (np.arange(100)[:, None] % 15) < 10
+    config = MeasureConfig(cell_mm=5.0)
+    on_edge = measure(mask, frame=frame, analysed=an, config=config, photo_px_per_mm=10.0)
+    half_way = measure(
+        mask,
+        frame=frame,
+        analysed=an,
+        config=replace(config, outline_share=0.5),
+        photo_px_per_mm=10.0,
+    )
+    assert any("bearing" in h.reason for h in half_way.guidance.high)  # the patch is heavy
+    assert on_edge.bearing_percent < half_way.bearing_percent  # the spill was left out
+    assert on_edge.guidance == half_way.guidance
+
+
+def test_the_segmentations_outline_share_reaches_the_measure_stage() -> None:
+    # the pipeline's one join of the two stages: a segmentation whose outlines lie half
+    # way up the edge (compound on the work) is measured without the spill
+    from printcheck.pipeline import measure_segmented
+    from printcheck.segment import Segmentation
+
+    frame = _frame((100, 100))
+    an = _window_mask(frame)
+    mask = _disc_grid(range(12, 95, 15))
+    read = 100.0 * np.count_nonzero(mask & an) / an.sum()
+    measured = []
+    for share in (0.5, 0.175):
+        seg = Segmentation(
+            mask=mask,
+            alternates=(mask, mask),
+            visible=np.ones(mask.shape, bool),
+            compound="blue",
+            compound_on="work" if share == 0.5 else "reference",
+            px_per_mm=10.0,
+            compound_level=1.0,
+            noise=0.1,
+            glare_fraction=0.0,
+            outline_share=share,
+        )
+        m = measure_segmented(seg, frame=frame, analysed=an, photo_px_per_mm=10.0)
+        measured.append(m.bearing_percent)
+    on_work, on_reference = measured
+    assert on_work == pytest.approx(read) and on_reference < read - 3.0
 
 
 def test_alternates_counted_by_scipy_rules():

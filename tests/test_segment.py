@@ -600,3 +600,22 @@ def test_the_papers_evidence_is_its_log_ratio_and_never_below_grey() -> None:
     # a yellowish label reads less blue than grey: it may not make grey metal look blue
     assert neutral_evidence((150.0, 225.0, 235.0), "blue") == 0.0
     assert neutral_evidence(None, "blue") == 0.0
+
+
+def test_the_outline_share_is_where_the_outlines_were_drawn(spots, visible):
+    # the measure stage reads from it how far the outlines lie out on a blurred edge:
+    # the rim share on the reference, the coat share on the work, and half the level
+    # where the compound covers nearly everything (cut at half its level)
+    ref = segment(_render(spots), visible=visible, config=SegmentConfig(px_per_mm=S, rim_share=0.2))
+    assert ref.outline_share == 0.2
+    work = segment(
+        _render(spots, on="work"),
+        visible=visible,
+        config=SegmentConfig(px_per_mm=S, compound_on="work", coat_share=0.4),
+    )
+    assert work.outline_share == 0.4
+    full = segment(
+        _render(np.ones(SHAPE, bool)), visible=visible, config=SegmentConfig(px_per_mm=S)
+    )
+    assert any("covers nearly the whole" in w for w in full.warnings)
+    assert full.outline_share == 0.5
