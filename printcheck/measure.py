@@ -24,6 +24,7 @@ outlines are drawn low on the edge), and its range reaches up to the mask's own 
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -269,15 +270,21 @@ def measure(
     c_mm = float(config.cell_mm)
     density = spot_count * c_mm**2 / window_area if window_area > 0 else 0.0
     resolves = resolving_px_per_mm(photo_px_per_mm, photo_blur_px)
-    crowded = _crowded(labels, spots, s, resolves, config)
     too_small = _too_small(spots, resolves, config)
+    crowded = _crowded(labels, spots, s, resolves, config)
+    if not _is_crowded(crowded, spot_count, resolves, config):
+        crowded = 0  # a few close pairs: the photo parts the print
     ring_px = s / resolves if resolves else 1.0
+
+    @functools.cache
+    def outline(width_px: float) -> np.ndarray:
+        return _outline(contact, in_an, width_px)
+
     read = 100.0 * int(cell_contact_px.sum()) / analysed_px if analysed_px else 0.0
     bearing = read
     cell_bearing_px = cell_contact_px.astype(np.float64)
-    ring = None
     out = spill(config.outline_share)
-    if out > 0 and too_small is None and _is_crowded(crowded, spot_count, resolves, config):
+    if out > 0 and too_small is None and crowded:
         # contacts closer together than the photo parts, large enough to be seen: the
         # blur of both neighbours fills the gaps between them, and no bare metal is left
         # there to draw the outline against; that part of the outermost resolved pixel
@@ -286,9 +293,8 @@ def measure(
         # frame is coarser than the photo) and no shallower than the band itself
         deep = out * ring_px
         width = max(ring_px, 1.0, deep)
-        edge = _outline(contact, in_an, width)
-        ring = edge if width == ring_px else None
         share = deep / width  # at most 1: no pixel loses more than itself
+        edge = outline(width)
         cell_bearing_px -= share * cell_sums(edge, grid.row_idx, grid.col_idx, grid.rows, grid.cols)
         bearing = 100.0 * float(cell_bearing_px.sum()) / analysed_px
     cell_count = np.bincount(grid.cell_of(spots), minlength=grid.rows * grid.cols)
@@ -317,15 +323,13 @@ def measure(
         bearing,
         alts,
         marginal,
-        spots,
         resolves,
         config,
+        small=too_small,
         crowded=crowded,
         unseen_share=unseen_share,
         blur_px=photo_blur_px if _blurred(photo_blur_px) else None,
-        outline=lambda: _share_of(
-            _outline(contact, in_an, ring_px) if ring is None else ring, analysed_px
-        ),
+        outline=lambda: _share_of(outline(ring_px), analysed_px),
         read=read,
     )
     return Measurement(
@@ -610,10 +614,10 @@ def _confidence(
     bearing: float,
     alts: tuple[tuple[int, float], ...],
     marginal: tuple[int, int],
-    spots: Spots,
     photo_px_per_mm: float | None,
     config: MeasureConfig,
     *,
+    small: tuple[float, float] | None = None,
     crowded: int = 0,
     unseen_share: float = 0.0,
     blur_px: float | None = None,
@@ -621,7 +625,10 @@ def _confidence(
     read: float | None = None,
 ) -> Confidence:
     """The range and the doubtful flag (see the module docstring); ``photo_px_per_mm``
-    is what the photo resolves, ``blur_px`` its blur where that lowered it, ``outline``
+    is what the photo resolves, ``small`` its contacts too small for it
+    (:func:`_too_small`), ``crowded`` how many lie closer to a neighbour than it parts
+    where so many do that the print is as fine as its pixels (:func:`_is_crowded`; 0
+    otherwise), ``blur_px`` its blur where that lowered it, ``outline``
     the bearing in the contacts' outermost resolved pixel (:func:`_outline`, read only
     for a photo too coarse for its contacts), ``read`` the contact mask's own bearing
     where ``bearing`` is not it (a print crowded closer than the photo parts)."""
@@ -634,7 +641,6 @@ def _confidence(
     reasons = []
     how = "move closer" if blur_px is None else "hold the phone still and let it focus"
     blurred = None if blur_px is None else f"blurred (the card's edges spread {blur_px:.1f} px)"
-    small = _too_small(spots, photo_px_per_mm, config)
     if small is not None:
         # contacts the photo cannot part come out merged: how many there really are
         # cannot be read from it, and the range says so (up to twice the count)
@@ -649,8 +655,7 @@ def _confidence(
             f"{has}: {how}"
         )
         blurred = None  # said once
-    if _is_crowded(crowded, count, photo_px_per_mm, config):
-        assert photo_px_per_mm is not None
+    if crowded and photo_px_per_mm is not None:
         # a print as fine as the photo's pixels: each contact closer to a neighbour than
         # the photo can part may hide another merged into it
         hi = max(hi, count + crowded)
