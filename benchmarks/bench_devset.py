@@ -311,10 +311,15 @@ def main(argv: list[str] | None = None) -> int:
         if args.rows:
             for r in rows:
                 rng = "" if r.count_range is None else f"{r.count_range[0]}-{r.count_range[1]}"
+                brng = (
+                    ""
+                    if r.bearing_range is None
+                    else f" ({r.bearing_range[0]:.2f}-{r.bearing_range[1]:.2f})"
+                )
                 print(
                     f"  {r.scene:14s} {r.count}/{r.true_count} ({rng}) bearing "
                     f"{r.bearing if r.bearing is None else round(r.bearing, 2)}/"
-                    f"{r.true_bearing:.2f} {'ok' if r.ok else 'NO'} {r.note}"
+                    f"{r.true_bearing:.2f}{brng} {'ok' if r.ok else 'NO'} {r.note}"
                 )
         print(summarise(folder.name, rows), flush=True)
     if everything:
