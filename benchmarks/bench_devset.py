@@ -108,9 +108,12 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
     (underexposed by a quarter, a steeper tone curve and more sensor noise), ``warmer``
     (white balance off toward red: blue x 0.85, red x 1.12, so bright metal burns its red
     out first), ``cooler`` (off toward blue: blue x 1.12, red x 0.88), ``softer``
-    (focus a little off, a 1 px Gaussian) or ``shared`` (sent on through a chat app:
+    (focus a little off, a 1 px Gaussian), ``shared`` (sent on through a chat app:
     shrunk to 1600 px on its long side and saved again at JPEG quality 75; the layout's
-    markers still give the scale)."""
+    markers still give the scale), ``shadowed`` (the shadow of the photographer's arm
+    across the photo: the light down to 0.45 beyond a line through its middle, at an
+    angle drawn per photo, its edge soft over a few pixels) or ``shaken`` (the phone
+    moved while the shutter was open: a 4 px streak in a direction drawn per photo)."""
     import zlib
 
     import cv2
@@ -130,6 +133,19 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
         out = np.clip(image.astype(np.float32) * gains, 0, 255).astype(np.uint8)
     elif how == "softer":
         out = cv2.GaussianBlur(image, (0, 0), 1.0)
+    elif how == "shadowed":
+        h, w = image.shape[:2]
+        a = rng.uniform(0.0, np.pi)
+        yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
+        d = (xx - w / 2) * np.cos(a) + (yy - h / 2) * np.sin(a)
+        light = 0.45 + 0.55 * 0.5 * (1.0 + np.tanh(d / 5.0))  # a logistic step 2.5 px soft
+        out = np.clip(image.astype(np.float32) * light[..., None], 0, 255).astype(np.uint8)
+    elif how == "shaken":
+        a = rng.uniform(0.0, np.pi)
+        k = np.zeros((9, 9), np.float32)
+        for t in np.linspace(-2.0, 2.0, 17):
+            k[int(round(4 + t * np.sin(a))), int(round(4 + t * np.cos(a)))] += 1.0
+        out = cv2.filter2D(image, -1, k / k.sum())
     elif how == "shared":
         f = 1600.0 / max(image.shape[:2])
         out = cv2.resize(image, None, fx=f, fy=f, interpolation=cv2.INTER_AREA)
@@ -141,7 +157,7 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
     return np.asarray(cv2.imdecode(buf, cv2.IMREAD_COLOR))
 
 
-RETAKES = ("farther", "darker", "warmer", "cooler", "softer", "shared")
+RETAKES = ("farther", "darker", "warmer", "cooler", "softer", "shared", "shadowed", "shaken")
 
 
 def score_scene(truth_path: Path, retake: str | None = None) -> Row:
