@@ -117,6 +117,19 @@ def test_broad_bright_facets_are_metal_not_glare() -> None:
     assert seg.glare_fraction < 0.05
 
 
+@pytest.mark.parametrize(("depth", "deg"), [(0.55, 30.0), (0.7, 120.0)])
+def test_a_shadow_across_the_window_is_not_contact(depth: float, deg: float) -> None:
+    # the photographer's arm between the light and the surface (common practice: the
+    # light is behind the phone): a hard-edged shadow across the window and the card,
+    # the light down to 0.45 or 0.3 beyond it; the bare level follows it on both sides
+    # and its edge raises no contacts
+    scene = _scene(16, dict(shadow=depth, shadow_deg=deg))
+    truth, meas, _ = _measure(scene, seed=47)
+    _within(truth, meas)
+    c = meas.confidence
+    assert c.count_low <= truth.spot_count <= c.count_high
+
+
 def test_light_so_bright_that_the_compound_channel_burns_out_widens_the_range() -> None:
     # a lamp close to the part: the light rises across the window until the red channel
     # of red compound reaches its ceiling over much of it (green and blue do not): the
