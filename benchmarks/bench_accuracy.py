@@ -381,13 +381,14 @@ def main(argv: list[str] | None = None) -> int:
         outcomes.append(o)
         c = o.measurement.confidence
         rng = f"{c.count_low}-{c.count_high}" if c else ""
+        brng = f" ({c.bearing_low:.1f}-{c.bearing_high:.1f})" if c else ""
         cells = o.cell_errors
         print(
             f"{i:2d} {case.name:34s} {o.method[:10]:10s} {o.px_per_mm:5.1f} "
             f"{o.truth.spot_count:5d} {o.measurement.spot_count:5d} {rng:>9} "
             f"{o.count_error:+6.1f} {o.truth.bearing_percent:5.1f} "
             f"{o.measurement.bearing_percent:5.1f} {o.bearing_error:+5.1f} "
-            f"{(np.median(cells) if cells else float('nan')):5.1f} {o.seconds:5.2f}"
+            f"{(np.median(cells) if cells else float('nan')):5.1f} {o.seconds:5.2f}{brng}"
             + (f"  [{'; '.join(w[:40] for w in o.warnings)}]" if o.warnings else ""),
             flush=True,
         )
