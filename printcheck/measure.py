@@ -12,10 +12,11 @@ as in :meth:`printcheck.frame.Frame.window_slices`).
 
 The range ("24 (22-26)") comes from what is really uncertain in the photo: the segment
 stage's decision redone with its thresholds nudged both ways, specks near the minimum
-spot area, and the resolution of the photo against the size of its contacts.  A photo
-too coarse for its contacts is flagged doubtful, with the resolution it would need; its
-bearing's range then reaches down by the contacts' outermost pixel all round (their
-outlines may lie that far out: see :func:`_outline`).  Where the contacts are large
+spot area, the contacts that barely stand out from the photo's noise (as many again may
+lie below it, unseen), and the resolution of the photo against the size of its
+contacts.  A photo too coarse for its contacts is flagged doubtful, with the resolution
+it would need; its bearing's range then reaches down by the contacts' outermost pixel
+all round (their outlines may lie that far out: see :func:`_outline`).  Where the contacts are large
 enough for the photo but crowd closer together than it parts, the blur of both
 neighbours fills the gaps between them: the bearing leaves out the share of that
 outermost pixel the blur spills over (:func:`spill`, a little under half where the
@@ -220,6 +221,7 @@ def measure(
     photo_px_per_mm: float | None = None,
     unseen: np.ndarray | None = None,
     photo_blur_px: float | None = None,
+    clear: np.ndarray | None = None,
 ) -> Measurement:
     """Measure the contact ``mask`` (M, N) bool on rectified ``frame``.
 
@@ -246,6 +248,11 @@ def measure(
         Pixels where the photo shows nothing of the print (burnt-out highlights): the
         contacts they hide are not counted, and the range reaches up by what they
         would hold at the print's density and bearing elsewhere.
+    clear : (M, N) bool ndarray, optional
+        Pixels whose colour stands clear of the noise
+        (:attr:`printcheck.segment.Segmentation.clear`).  The contacts without one
+        barely stand out from it: as many again, fainter still, may lie below it unseen,
+        and the count's range reaches up by them.
 
     Returns
     -------
@@ -313,6 +320,7 @@ def measure(
         cell_mm=c_mm,
         max_bare_mm=config.max_bare_mm,
     )
+    faint = _faint(labels, spots, clear)
     marginal = _marginal(found, in_an, frame, config)
     unseen_share = _unseen_share(unseen, bare, analysed_px)
     # the alternates last: the segment stage may still be deciding them on a spare core
@@ -331,6 +339,7 @@ def measure(
         blur_px=photo_blur_px if _blurred(photo_blur_px) else None,
         outline=lambda: _share_of(outline(ring_px), analysed_px),
         read=read,
+        faint=faint,
     )
     return Measurement(
         spots=spots,
@@ -463,6 +472,18 @@ def _marginal(
     just_in = inside & (area >= min_px) & (area < 1.5 * min_px)
     just_out = inside & (area < min_px) & (area >= min_px / 1.5)
     return int(just_in.sum()), int(just_out.sum())
+
+
+def _faint(labels: np.ndarray, spots: Spots, clear: np.ndarray | None) -> int:
+    """How many of the window's contacts have no pixel ``clear`` of the noise (0 without
+    ``clear``)."""
+    if clear is None or len(spots.in_window) == 0:
+        return 0
+    if clear.shape != labels.shape:
+        raise ValueError(f"clear map shape {clear.shape} != mask shape {labels.shape}")
+    stands = np.zeros(len(spots.in_window) + 1, bool)
+    stands[labels[clear & (labels > 0)]] = True
+    return int(np.count_nonzero(spots.in_window & ~stands[1:]))
 
 
 def _unseen_share(unseen: np.ndarray | None, bare: np.ndarray, analysed_px: int) -> float:
@@ -623,6 +644,7 @@ def _confidence(
     blur_px: float | None = None,
     outline: Callable[[], float] | None = None,
     read: float | None = None,
+    faint: int = 0,
 ) -> Confidence:
     """The range and the doubtful flag (see the module docstring); ``photo_px_per_mm``
     is what the photo resolves, ``small`` its contacts too small for it
@@ -631,7 +653,8 @@ def _confidence(
     otherwise), ``blur_px`` its blur where that lowered it, ``outline``
     the bearing in the contacts' outermost resolved pixel (:func:`_outline`, read only
     for a photo too coarse for its contacts), ``read`` the contact mask's own bearing
-    where ``bearing`` is not it (a print crowded closer than the photo parts)."""
+    where ``bearing`` is not it (a print crowded closer than the photo parts), ``faint``
+    how many contacts barely stand out from the noise (:func:`_faint`)."""
     read = bearing if read is None else read
     counts = [count] + [a for a, _ in alts]
     bears = [bearing, read] + [b for _, b in alts]
@@ -667,6 +690,15 @@ def _confidence(
             f"{photo_px_per_mm:.0f} px/mm): {why}{how}"
         )
     coarse = bool(reasons)  # too coarse for its contacts: too small, or too close together
+    if faint:
+        # contacts that barely stand out from the noise: where a print's contacts run on
+        # down to it, as many again, fainter still, lie below it unseen
+        hi = max(hi, count + faint)
+        if faint > config.doubtful_change * count:
+            reasons.append(
+                f"{faint} of {count} contacts barely stand out from the noise, and as many "
+                "again may be lost in it: retake the photo in brighter, even light"
+            )
     if unseen_share > 0:
         # what the burnt-out share of the window would hold at the density seen elsewhere
         hi = max(hi, count + math.ceil(count * unseen_share / (1.0 - unseen_share)))

@@ -148,7 +148,8 @@ def measure_segmented(
     photo_blur_px: float | None = None,
 ) -> Measurement:
     """The measure stage on what the segment stage found: its mask, with the alternates
-    for the range, the surface it could not see, and the bare pixels its contacts need
+    for the range, the surface it could not see, where its colour stands clear of the
+    noise, and the bare pixels its contacts need
     between them to be told apart and where it drew their outlines (``config``'s
     ``part_px`` and ``outline_share`` are the segmentation's).
     The one place the two stages are joined (inspect, and the benchmarks and tests that
@@ -168,6 +169,7 @@ def measure_segmented(
         photo_px_per_mm=photo_px_per_mm,
         photo_blur_px=photo_blur_px,
         unseen=seg.unseen,
+        clear=seg.clear,
     )
 
 

@@ -220,6 +220,14 @@ class Segmentation:
         measure stage's ``outline_share``): the rim share of its peak on the reference,
         low on the blurred edge; the coat share on the work; half the compound's level
         where the compound covers nearly everything.
+    clear : (M, N) bool ndarray or None
+        Pixels whose colour stands clear of the noise: at least :data:`CLEAR_STEP` times
+        the significance a seed needs (compound on the reference).  A contact with no
+        such pixel barely stands out: the measure stage counts those, and where many of
+        a print's contacts are that faint, as many again may lie below the noise, unseen
+        (its range).  None on the work, where a contact is judged by how much of the
+        coat is worn through rather than by its significance alone, and where the
+        compound covers nearly everything.
     """
 
     mask: np.ndarray
@@ -236,6 +244,7 @@ class Segmentation:
     washed: np.ndarray | None = None
     part_px: float = 3.0
     outline_share: float = 0.5
+    clear: np.ndarray | None = None
 
     @property
     def unseen(self) -> np.ndarray | None:
@@ -307,6 +316,7 @@ def segment(
         outline_share: float = (
             config.rim_share if config.compound_on == "reference" else config.coat_share
         ),
+        clear: np.ndarray | None = None,
     ) -> Segmentation:
         return Segmentation(
             mask=mask,
@@ -323,6 +333,7 @@ def segment(
             washed=washed,
             part_px=part_px,
             outline_share=outline_share,
+            clear=clear,
         )
 
     if np.count_nonzero(stat) < 64:
@@ -398,7 +409,10 @@ def segment(
         on_spare_core(pixels, _decide, field, more, s, rim / rim_step, cut, loose),
     ]
     mask = _decide(field, config, s, rim, cut, None)
-    return result(mask, Later(alternates), level, field.noise, _cut_on(field).part_px)
+    clear = (
+        field.zs >= CLEAR_STEP * config.seed_sigma if config.compound_on == "reference" else None
+    )
+    return result(mask, Later(alternates), level, field.noise, _cut_on(field).part_px, clear=clear)
 
 
 #: How far (px) the colour of a pixel reaches its neighbours: JPEG keeps the colour of
@@ -538,6 +552,13 @@ def _decide(
     return mask & field.visible  # field.visible: the segment's visible (valid or glare)
 
 
+#: How many times the seed's significance over the noise a contact's colour must reach
+#: somewhere to stand clear of it (:attr:`Segmentation.clear`): half again.  A contact
+#: between the seed's significance and this barely stands out; one as much fainter again
+#: is not seen at all.
+CLEAR_STEP = 1.5
+
+
 #: Photo pixels of bare metal two contacts need between them to be cut apart on the
 #: colour: a photo keeps colour at half the resolution of brightness (JPEG and HEIC
 #: 4:2:0), so three pixels are one and a half colour samples, the least in which the
@@ -620,8 +641,9 @@ def _nudged(config: SegmentConfig) -> tuple[SegmentConfig, SegmentConfig]:
     noise levels a noisy photo holds bumps of noise by the dozen (on a 2 in window of a
     dim or low-quality JPEG, 10 to 30 more "contacts", each at the smallest spot's
     size), and a range up to them says nothing of the print; on a clean photo the share
-    decides alone.  Toward fewer, the seed asks more: a contact barely over the noise
-    may be noise.
+    decides alone.  What lies below the seed's significance is reckoned instead from the
+    contacts found just above it (:attr:`Segmentation.clear`, the measure stage's range).
+    Toward fewer, the seed asks more: a contact barely over the noise may be noise.
     """
     k = config.nudge
     grow = 1.0 + 0.5 * k

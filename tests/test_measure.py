@@ -502,6 +502,70 @@ def test_the_segmentations_outline_share_reaches_the_measure_stage() -> None:
     assert on_work == pytest.approx(read) and on_reference < read - 3.0
 
 
+def test_contacts_that_barely_stand_out_reach_the_range_up_by_as_many() -> None:
+    # a contact with no pixel clear of the noise barely stands out from it; where a
+    # print's contacts run on down to the noise, as many again, fainter still, lie below
+    # it unseen (a count cut by a detection threshold: common practice in counting faint
+    # marks); which contacts have no clear pixel, by scipy's labels and maxima
+    frame = _frame((100, 100))
+    an = _window_mask(frame)
+    centres = [(15 + 14 * i, 15 + 14 * j) for i in range(6) for j in range(6)]
+    mask = np.zeros((100, 100), bool)
+    for cy, cx in centres:
+        mask |= _disc((100, 100), cy, cx, 4)
+    rng = np.random.default_rng(5)
+    for n_faint, doubtful in ((9, True), (3, False)):
+        faint = set(rng.choice(len(centres), n_faint, replace=False).tolist())
+        clear = np.zeros((100, 100), bool)
+        clear[2, 2] = True  # noise clear of the bare metal's own: no contact
+        for k, (cy, cx) in enumerate(centres):
+            if k not in faint:
+                clear[cy + 1, cx - 2] = True
+        lab, n = ndimage.label(mask, EIGHT)
+        stands = np.asarray(ndimage.maximum(clear, lab, np.arange(1, n + 1)), bool)
+        expected = int(np.count_nonzero(~stands))
+        assert expected == n_faint
+        m = measure(mask, frame=frame, analysed=an, alternates=(mask, mask), clear=clear)
+        c = m.confidence
+        assert c.count_high == n + expected and c.count_low == n - 1
+        assert c.doubtful == doubtful
+        assert (f"{expected} of {n} contacts barely stand out" in c.reason) == doubtful
+    # every contact clear of the noise, or no map at all: the range is the count's own
+    for clear in (mask.copy(), None):
+        c = measure(mask, frame=frame, analysed=an, alternates=(mask, mask), clear=clear)
+        assert (c.confidence.count_low, c.confidence.count_high) == (35, 37)
+    with pytest.raises(ValueError, match="clear map shape"):
+        measure(mask, frame=frame, analysed=an, clear=np.ones((10, 10), bool))
+
+
+def test_the_segmentations_clear_map_reaches_the_measure_stage() -> None:
+    # the pipeline's one join of the two stages hands on where the colour stands clear
+    from printcheck.pipeline import measure_segmented
+    from printcheck.segment import Segmentation
+
+    frame = _frame((100, 100))
+    an = _window_mask(frame)
+    mask = _disc_grid(range(12, 95, 15))
+    n = ndimage.label(mask, EIGHT)[1]
+    highs = []
+    for clear in (None, np.zeros(mask.shape, bool)):
+        seg = Segmentation(
+            mask=mask,
+            alternates=(mask, mask),
+            visible=np.ones(mask.shape, bool),
+            compound="blue",
+            compound_on="reference",
+            px_per_mm=10.0,
+            compound_level=1.0,
+            noise=0.1,
+            glare_fraction=0.0,
+            outline_share=0.5,
+            clear=clear,
+        )
+        highs.append(measure_segmented(seg, frame=frame, analysed=an).confidence.count_high)
+    assert highs == [n + 1, 2 * n]
+
+
 def test_alternates_counted_by_scipy_rules():
     # each alternate's count and bearing against scipy: 8-connected components of at
     # least the minimum area, counted where the pixel holding the centroid is analysed

@@ -619,3 +619,24 @@ def test_the_outline_share_is_where_the_outlines_were_drawn(spots, visible):
     )
     assert any("covers nearly the whole" in w for w in full.warnings)
     assert full.outline_share == 0.5
+
+
+def test_the_contacts_of_a_clean_photo_stand_clear_of_the_noise(spots, visible) -> None:
+    # each contact of a clean photo holds a pixel at least CLEAR_STEP times the seed's
+    # significance over the noise (none barely stands out, and the count's range does
+    # not reach up for unseen ones: scipy's labels and maxima); on the work a contact is
+    # judged by how much coat is worn through, and there is no such map
+    from printcheck.segment import CLEAR_STEP
+
+    assert CLEAR_STEP > 1.0
+    seg = segment(_render(spots), visible=visible, config=SegmentConfig(px_per_mm=S))
+    assert seg.clear is not None and seg.clear.shape == seg.mask.shape
+    lab, n = ndimage.label(seg.mask, structure=np.ones((3, 3)))
+    stands = np.asarray(ndimage.maximum(seg.clear, lab, np.arange(1, n + 1)), bool)
+    assert n > 50 and stands.all()
+    work = segment(
+        _render(spots, on="work"),
+        visible=visible,
+        config=SegmentConfig(px_per_mm=S, compound_on="work"),
+    )
+    assert work.clear is None
