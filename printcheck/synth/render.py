@@ -141,6 +141,11 @@ class Lighting:
         pushes up round each worn-through contact.
     compound_strength : float
         Compound thickness factor: 1 a normal film, 0.4 a thin pale one.
+    pale_patches : float
+        Share (0 to 1) of the surface, in broad patches 5-15 mm across, where the
+        compound on the reference was wiped on thin: there its film is down to a fifth
+        as thick, shading off at the patches' edges, pale contacts side by side with dark
+        ones and every shade between (0: an even film).
     white_balance : (float, float, float)
         Gains of (B, G, R).
     blur_sigma_px : float
@@ -168,6 +173,7 @@ class Lighting:
     glare_radius: float = 0.18
     haze: float = 0.3
     compound_strength: float = 1.0
+    pale_patches: float = 0.0
     haze_wide: float = 0.0
     facet_gloss: float = 0.0
     rim_film: float = 0.4
@@ -403,6 +409,14 @@ def _appearance(
             broad = _smooth_noise(rng, h.shape, 8.0 * s)
             haze = haze + 0.12 * lighting.haze_wide * np.clip(broad - 0.3, 0.0, None)
         thick = strength * (thick + np.clip(haze, 0.0, None))
+        if lighting.pale_patches > 0:
+            # the share of the surface above the patches' cut of smooth noise (its
+            # quantile), shading off over the noise's own spread: every shade between
+            # the pale film and the dark one
+            broad = _smooth_noise(rng, h.shape, 4.0 * s)
+            cut = float(np.quantile(broad, 1.0 - min(lighting.pale_patches, 1.0)))
+            pale = np.clip(broad - cut + 0.5, 0.0, 1.0)
+            thick = thick * (1.0 - 0.8 * pale)
         brighten = np.ones_like(q)
     else:
         # The work is coated; where the reference rubbed, the film is worn through to
