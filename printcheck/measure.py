@@ -697,7 +697,7 @@ def _confidence(
         if faint > config.doubtful_change * count:
             reasons.append(
                 f"{faint} of {count} contacts barely stand out from the noise, and as many "
-                "again may be lost in it: retake the photo in brighter, even light"
+                "again may be lost in it: light it brighter and more evenly"
             )
     if unseen_share > 0:
         # what the burnt-out share of the window would hold at the density seen elsewhere
