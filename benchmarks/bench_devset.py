@@ -134,11 +134,10 @@ def _retaken(image: np.ndarray, how: str, scene: str) -> np.ndarray:
     elif how == "softer":
         out = cv2.GaussianBlur(image, (0, 0), 1.0)
     elif how == "shadowed":
-        h, w = image.shape[:2]
-        a = rng.uniform(0.0, np.pi)
-        yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
-        d = (xx - w / 2) * np.cos(a) + (yy - h / 2) * np.sin(a)
-        light = 0.45 + 0.55 * 0.5 * (1.0 + np.tanh(d / 5.0))  # a logistic step 2.5 px soft
+        from printcheck.synth.render import shadow_light
+
+        # a logistic step 2.5 px soft (tanh over 5 px)
+        light = shadow_light(image.shape[:2], 0.55, float(rng.uniform(0.0, 180.0)), 5.0)
         out = np.clip(image.astype(np.float32) * light[..., None], 0, 255).astype(np.uint8)
     elif how == "shaken":
         a = rng.uniform(0.0, np.pi)

@@ -16,8 +16,9 @@ spot area, the contacts that barely stand out from the photo's noise (as many ag
 lie below it, unseen), and the resolution of the photo against the size of its
 contacts.  A photo too coarse for its contacts is flagged doubtful, with the resolution
 it would need; its bearing's range then reaches down by the contacts' outermost pixel
-all round (their outlines may lie that far out: see :func:`_outline`).  Where the contacts are large
-enough for the photo but crowd closer together than it parts, the blur of both
+all round (their outlines may lie that far out: see :func:`_outline`).  Where the
+contacts are large enough for the photo but crowd closer together than it parts, the
+blur of both
 neighbours fills the gaps between them: the bearing leaves out the share of that
 outermost pixel the blur spills over (:func:`spill`, a little under half where the
 outlines are drawn low on the edge), and its range reaches up to the mask's own reading.
@@ -260,7 +261,8 @@ def measure(
     """
     mask = np.asarray(mask, dtype=bool)
     analysed = np.asarray(analysed, dtype=bool)
-    _check_shapes(mask, analysed, frame, ())  # the alternates when they are read, last
+    clear = None if clear is None else np.asarray(clear, dtype=bool)
+    _check_shapes(mask, analysed, frame, (), clear)  # the alternates when read, last
     s = float(frame.px_per_mm)
     px_area = 1.0 / (s * s)
     found = components(mask, config.min_spot_mm2 * s * s)
@@ -361,7 +363,11 @@ def measure(
 
 
 def _check_shapes(
-    mask: np.ndarray, analysed: np.ndarray, frame: Frame, alternates: Sequence[np.ndarray]
+    mask: np.ndarray,
+    analysed: np.ndarray,
+    frame: Frame,
+    alternates: Sequence[np.ndarray],
+    clear: np.ndarray | None = None,
 ) -> None:
     if mask.ndim != 2 or mask.shape != analysed.shape:
         raise OptionError(
@@ -372,6 +378,11 @@ def _check_shapes(
         raise OptionError(
             f"frame shape {tuple(frame.shape)} does not match the mask {mask.shape}; "
             "pass the frame of the rectified image that was segmented"
+        )
+    if clear is not None and clear.shape != mask.shape:
+        raise OptionError(
+            f"clear map shape {clear.shape} != mask shape {mask.shape}; pass the map of "
+            "the rectified image that was segmented"
         )
     for i, alt in enumerate(alternates):
         if np.shape(alt) != mask.shape:
@@ -479,8 +490,6 @@ def _faint(labels: np.ndarray, spots: Spots, clear: np.ndarray | None) -> int:
     ``clear``)."""
     if clear is None or len(spots.in_window) == 0:
         return 0
-    if clear.shape != labels.shape:
-        raise ValueError(f"clear map shape {clear.shape} != mask shape {labels.shape}")
     stands = np.zeros(len(spots.in_window) + 1, bool)
     stands[labels[clear & (labels > 0)]] = True
     return int(np.count_nonzero(spots.in_window & ~stands[1:]))

@@ -149,9 +149,9 @@ def measure_segmented(
 ) -> Measurement:
     """The measure stage on what the segment stage found: its mask, with the alternates
     for the range, the surface it could not see, where its colour stands clear of the
-    noise, and the bare pixels its contacts need
-    between them to be told apart and where it drew their outlines (``config``'s
-    ``part_px`` and ``outline_share`` are the segmentation's).
+    noise, and the bare pixels its contacts need between them to be told apart and where
+    it drew their outlines (``config``'s ``part_px`` and ``outline_share`` are the
+    segmentation's).
     The one place the two stages are joined (inspect, and the benchmarks and tests that
     rectify a photo themselves)."""
     from dataclasses import replace

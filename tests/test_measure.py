@@ -505,8 +505,8 @@ def test_the_segmentations_outline_share_reaches_the_measure_stage() -> None:
 def test_contacts_that_barely_stand_out_reach_the_range_up_by_as_many() -> None:
     # a contact with no pixel clear of the noise barely stands out from it; where a
     # print's contacts run on down to the noise, as many again, fainter still, lie below
-    # it unseen (a count cut by a detection threshold: common practice in counting faint
-    # marks); which contacts have no clear pixel, by scipy's labels and maxima
+    # it unseen (our own model of a count cut by a detection threshold); which contacts
+    # have no clear pixel, by scipy's labels and maxima
     frame = _frame((100, 100))
     an = _window_mask(frame)
     centres = [(15 + 14 * i, 15 + 14 * j) for i in range(6) for j in range(6)]

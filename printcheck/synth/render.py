@@ -447,6 +447,21 @@ def _appearance(
     return colour.astype(np.float32)
 
 
+def shadow_light(shape: tuple[int, int], depth: float, deg: float, soft_px: float) -> np.ndarray:
+    """The light (M, N) float32 under a shadow across a photo of ``shape``: 1 - ``depth``
+    beyond a line through its middle, 1 before it, shading between over ``soft_px``
+    (the tanh's scale, photo pixels); ``deg`` as :attr:`Lighting.shadow_deg`."""
+    f32 = np.float32
+    height, width = shape
+    a = math.radians(deg)
+    px = (np.arange(width, dtype=f32) - f32((width - 1) / 2)) * f32(math.cos(a))
+    py = (np.arange(height, dtype=f32) - f32((height - 1) / 2)) * f32(math.sin(a))
+    # a soft step: lit where the distance past the edge is positive
+    soft = f32(max(soft_px, 0.1))
+    lit = f32(0.5) * (f32(1.0) + np.tanh((px[None, :] + py[:, None]) / soft))
+    return np.asarray(f32(1.0 - depth) + f32(depth) * lit, dtype=f32)
+
+
 def _blur(a: np.ndarray, sigma_px: float) -> np.ndarray:
     """Gaussian blur of a float32 image (reflecting edges)."""
     if sigma_px <= 0.3:
@@ -713,13 +728,9 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
     vignette = f32(1.0) - f32(light.vignetting) * np.minimum(radius2 / f32(1.5625), f32(1.0))
     illum = f32(light.exposure) * (f32(1.0) + ramp) * vignette
     if light.shadow > 0:
-        a = math.radians(light.shadow_deg)
-        px = (np.arange(width, dtype=f32) - f32((width - 1) / 2)) * f32(math.cos(a))
-        py = (np.arange(height, dtype=f32) - f32((height - 1) / 2)) * f32(math.sin(a))
-        # a soft step: lit where the distance past the edge is positive
-        soft = f32(max(light.shadow_soft_px, 0.1))
-        lit = f32(0.5) * (f32(1.0) + np.tanh((px[None, :] + py[:, None]) / soft))
-        illum = illum * (f32(1.0 - light.shadow) + f32(light.shadow) * lit)
+        illum = illum * shadow_light(
+            (height, width), light.shadow, light.shadow_deg, light.shadow_soft_px
+        )
     gain = np.asarray(light.white_balance, dtype=f32) * f32(255.0)
     if light.glare > 0:
         gx, gy = light.glare_at[0] * width, light.glare_at[1] * height
