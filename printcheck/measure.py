@@ -639,6 +639,13 @@ def _is_crowded(
     return photo_px_per_mm is not None and crowded > config.crowded_share * count
 
 
+def _beyond(excess: float, count: int, config: MeasureConfig) -> bool:
+    """Whether a range reaching ``excess`` points beyond the count's own spread reaches so
+    far from ``count`` that the photo is doubtful (at least a whole point, and more than
+    ``config.doubtful_change`` of the count)."""
+    return excess >= 1 and excess / max(count, 1) > config.doubtful_change
+
+
 def _confidence(
     count: int,
     bearing: float,
@@ -701,9 +708,10 @@ def _confidence(
     coarse = bool(reasons)  # too coarse for its contacts: too small, or too close together
     if faint:
         # contacts that barely stand out from the noise: where a print's contacts run on
-        # down to it, as many again, fainter still, lie below it unseen
+        # down to it, as many again, fainter still, lie below it unseen; doubtful by the
+        # same test as the whole range, beyond the count's own spread
         hi = max(hi, count + faint)
-        if faint > config.doubtful_change * count:
+        if _beyond(faint - spread, count, config):
             reasons.append(
                 f"{faint} of {count} contacts barely stand out from the noise, and as many "
                 "again may be lost in it: light it brighter and more evenly"
@@ -713,7 +721,7 @@ def _confidence(
         hi = max(hi, count + math.ceil(count * unseen_share / (1.0 - unseen_share)))
     # how far the range reaches beyond the count's own spread
     excess = max(count - lo, hi - count) - spread
-    if excess >= 1 and excess / max(count, 1) > config.doubtful_change and not reasons:
+    if _beyond(excess, count, config) and not reasons:
         reasons.append(f"the count could be anything from {lo} to {hi}")
     blo, bhi = min(bears), max(bears)
     if coarse and outline is not None:

@@ -538,6 +538,30 @@ def test_contacts_that_barely_stand_out_reach_the_range_up_by_as_many() -> None:
         measure(mask, frame=frame, analysed=an, clear=np.ones((10, 10), bool))
 
 
+def test_faint_contacts_make_a_small_print_doubtful_only_beyond_its_own_spread() -> None:
+    # a count is never surer than one point either way (MeasureConfig.count_spread): one
+    # faint contact of five reaches the range no further than that, and the photo is
+    # not doubtful for it; two of five reach one point beyond, a fifth of the count, more
+    # than the 15 % that makes any range doubtful.  Contacts by scipy's labels
+    frame = _frame((100, 100))
+    an = _window_mask(frame)
+    centres = [(20, 20), (20, 70), (50, 45), (80, 20), (80, 70)]
+    mask = np.zeros((100, 100), bool)
+    for cy, cx in centres:
+        mask |= _disc((100, 100), cy, cx, 5)
+    n = ndimage.label(mask, EIGHT)[1]
+    assert n == 5
+    for n_faint, doubtful in ((1, False), (2, True)):
+        clear = np.zeros((100, 100), bool)
+        for cy, cx in centres[n_faint:]:
+            clear[cy, cx] = True
+        c = measure(mask, frame=frame, analysed=an, alternates=(mask, mask), clear=clear)
+        c = c.confidence
+        assert (c.count_low, c.count_high) == (n - 1, n + max(n_faint, 1))
+        assert c.doubtful == doubtful
+        assert ("barely stand out" in c.reason) == doubtful
+
+
 def test_the_segmentations_clear_map_reaches_the_measure_stage() -> None:
     # the pipeline's one join of the two stages hands on where the colour stands clear
     from printcheck.pipeline import measure_segmented
