@@ -617,6 +617,15 @@ def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, 
     pale rim, its dark middle under the card, and the paper's blur dilutes its colour
     further: there the share asked is half (the significance over the noise, which
     keeps noise out, is asked in full).
+
+    A contact grows over the pixels ``grow_sigma`` noise levels up, and over those inside
+    a contact at spot scale: a pale contact in a noisy photo scatters round a level only a
+    few noise levels high, so that many of its own pixels fall under the growth's
+    threshold and it would break into crumbs, each counted; at spot scale the noise is
+    averaged down and the contact is whole.  Inside means as far above the noise as a
+    seed, and at least half the strongest evidence within two spot radii (a blurred
+    edge is at half its contact's level): the smoothing's spread past an edge is not
+    grown into, where the pixels' own noise would pass the rim share.
     """
     strong = field.zs >= config.seed_sigma
     seeds = strong & (field.smooth >= config.seed_share * field.local)
@@ -625,7 +634,10 @@ def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, 
         at = flat_where(field.edge & strong & ~seeds)
         half = np.float32(0.5 * config.seed_share)
         np.put(seeds, at[field.smooth.ravel()[at] >= half * field.local.ravel()[at]], True)
-    grown = seeds_and_growth(seeds & field.valid, (field.z >= config.grow_sigma) & field.valid)
+    reach = max(1, int(round(2.0 * config.spot_mm * config.px_per_mm)))
+    inside = strong & (field.smooth >= 0.5 * cv2.dilate(field.smooth, disc(reach)))
+    grow = (field.z >= config.grow_sigma) | inside
+    grown = seeds_and_growth(seeds & field.valid, grow & field.valid)
     return seeds, grown
 
 
