@@ -133,21 +133,19 @@ def test_a_shadow_across_the_window_is_not_contact(depth: float, deg: float) -> 
 
 _DIM_PALE = pytest.mark.xfail(
     strict=True,
-    reason="in dim, noisy light the thin patches' contacts sink into the noise whole: "
-    "none of them is found just above it to tell that more lie below, so half the "
-    "bearing is lost and its range does not reach it; not solved yet",
+    reason="in dim, noisy light a third of the thin patches' contacts sink into the "
+    "noise and the rest are outlined tight in it: the bearing reads 6.5 against 10.5 "
+    "and its range does not reach it (the count's does); not solved yet",
 )
+
+DIM_PALE = dict(pale_patches=0.6, compound_strength=0.5, exposure=0.5, noise_sigma=10.0)
 
 
 @pytest.mark.parametrize(
     "light",
     [
         dict(pale_patches=0.6),
-        pytest.param(
-            dict(pale_patches=0.6, compound_strength=0.5, exposure=0.5, noise_sigma=10.0),
-            marks=_DIM_PALE,
-            id="dim-noisy",
-        ),
+        pytest.param(DIM_PALE, marks=_DIM_PALE, id="dim-noisy"),
     ],
 )
 def test_pale_and_dark_compound_side_by_side_are_both_counted(light: dict[str, float]) -> None:
@@ -159,6 +157,18 @@ def test_pale_and_dark_compound_side_by_side_are_both_counted(light: dict[str, f
     assert c.bearing_low <= truth.bearing_percent <= c.bearing_high
     assert c.count_low <= truth.spot_count <= c.count_high
     _within(truth, meas)
+
+
+def test_contacts_lost_in_dim_noisy_light_are_said_and_the_count_range_reaches_them() -> None:
+    # the thin patches in dim, noisy light (the strict-xfail case above): many of the
+    # contacts found barely stand out from the noise, so more lie below it unseen; the
+    # photo is doubtful and says so, and its count's range reaches the truth (both
+    # because the photo is too coarse for its smallest contacts and by the faint ones)
+    truth, meas, _ = _measure(_scene(20, DIM_PALE), seed=37)
+    c = meas.confidence
+    assert meas.spot_count < truth.spot_count  # contacts were lost
+    assert c.doubtful and "barely stand out from the noise" in c.reason
+    assert c.count_low <= truth.spot_count <= c.count_high
 
 
 def test_a_pale_film_in_dim_noisy_light_is_not_broken_into_crumbs() -> None:
