@@ -41,7 +41,7 @@ from printcheck.errors import PrintcheckError
 from printcheck.frame import Frame
 from printcheck.layout import Layout, card_layout, parse_layout
 from printcheck.measure import MeasureConfig, Measurement
-from printcheck.pipeline import measure_segmented
+from printcheck.pipeline import frame_blur_px, measure_segmented
 from printcheck.segment import SegmentConfig, segment
 from printcheck.synth import Camera, Lighting, Scene, render_photo
 from printcheck.synth.truth import Truth, layout_masks
@@ -298,6 +298,7 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
     t0 = time.perf_counter()
     warnings: list[str] = []
     paper = None  # the markers' white paper, where locate reads it (as inspect does)
+    blur = None  # the photo's blur in the frame, where the card's edges tell it (as inspect)
     if scene.camera is None:
         # square-on: the photo is the layout frame at px_per_mm
         s = scene.px_per_mm
@@ -316,6 +317,7 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
             rect_img, frame, visible, analysed = rect.image, rect.frame, rect.visible, rect.analysed
             method = "locate"
             paper = rect.paper_bgr
+            blur = frame_blur_px(rect)
             photo_ppm = rect.calibration.photo_px_per_mm
             warnings.extend(rect.warnings)
         except (PrintcheckError, NotImplementedError) as exc:
@@ -331,7 +333,11 @@ def run_case(case: Case, cache: Path | None) -> Outcome:
         visible=visible,
         analysed=analysed,
         config=SegmentConfig(
-            compound=scene.compound, compound_on=scene.compound_on, px_per_mm=s, paper_bgr=paper
+            compound=scene.compound,
+            compound_on=scene.compound_on,
+            px_per_mm=s,
+            paper_bgr=paper,
+            blur_px=blur,
         ),
     )
     meas = measure_segmented(

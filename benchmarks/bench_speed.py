@@ -211,7 +211,7 @@ def time_stages(shot: Shot, repeat: int) -> dict[str, Any]:
     from printcheck.load import load_photo
     from printcheck.locate import LocateConfig, detect_markers, locate
     from printcheck.measure import MeasureConfig
-    from printcheck.pipeline import inspect_photo, measure_segmented
+    from printcheck.pipeline import frame_blur_px, inspect_photo, measure_segmented
     from printcheck.segment import SegmentConfig, segment
 
     options = _options(shot.layout)
@@ -236,6 +236,7 @@ def time_stages(shot: Shot, repeat: int) -> dict[str, Any]:
             compound_on=options.compound_on,  # type: ignore[arg-type]
             px_per_mm=rect.frame.px_per_mm,
             paper_bgr=rect.paper_bgr,
+            blur_px=frame_blur_px(rect),
         )
 
         def segment_whole():  # noqa: ANN202 - the alternates too (inspect overlaps them)
@@ -351,7 +352,7 @@ def _child_rss(path: str, layout_name: str) -> None:
     from printcheck.load import load_photo
     from printcheck.locate import LocateConfig, locate
     from printcheck.measure import MeasureConfig
-    from printcheck.pipeline import inspect_photo, measure_segmented
+    from printcheck.pipeline import frame_blur_px, inspect_photo, measure_segmented
     from printcheck.segment import SegmentConfig, segment
 
     options = _options(layout_name)
@@ -369,7 +370,11 @@ def _child_rss(path: str, layout_name: str) -> None:
             rect.image,
             visible=rect.visible,
             analysed=rect.analysed,
-            config=SegmentConfig(px_per_mm=rect.frame.px_per_mm, paper_bgr=rect.paper_bgr),
+            config=SegmentConfig(
+                px_per_mm=rect.frame.px_per_mm,
+                paper_bgr=rect.paper_bgr,
+                blur_px=frame_blur_px(rect),
+            ),
         )
         tuple(seg.alternates)  # decided on a spare core: wait for them
         peaks["segment"] = _peak_rss_mb()

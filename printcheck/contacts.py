@@ -173,6 +173,8 @@ def finish(
     min_core_px: float = 0.0,
     level: np.ndarray | None = None,
     rejoin_px: int = 0,
+    rim_of_film: float | None = None,
+    film_depth_px: float = 2.0,
 ) -> np.ndarray:
     """Cut each contact at ``rim_share`` of its peak, keep those with a seed (and, with
     ``min_core_px``, at least that many pixels above half their peak, or with ``level``
@@ -185,6 +187,10 @@ def finish(
     where it lies (``level``, (M, N)), is its area whatever the blur: blur spreads the
     evidence but keeps its sum.
 
+    With ``rim_of_film``, each contact's outline is drawn again at that share of its
+    film's level just inside the first outline (:func:`_film_shares`), where the film
+    lies ``film_depth_px`` inside it, clear of the blur.
+
     With ``rejoin_px``, lobes of one contact that the rim cut parted are joined again
     across a neck up to twice that wide (:func:`_rejoined`)."""
     # on the contact pixels alone, by their flat indices (row-major, as numpy orders them)
@@ -195,6 +201,12 @@ def finish(
         n = int(labels.max()) + 1
         peak = _label_max(lab, sc, n)
         keep = sc > (rim_share * peak)[lab]
+        if rim_of_film is not None:
+            of_peak = np.where(peak > 0, rim_of_film / np.where(peak > 0, peak, 1), np.nan)
+            share = _film_shares(
+                labels.shape, idx, lab, sc, keep, n, film_depth_px, of_peak, rim_share
+            )
+            keep = sc > (share * peak)[lab]
         if min_core_px > 0:
             core = np.bincount(lab[sc > (0.5 * peak)[lab]], minlength=n)
             if level is not None:
@@ -217,6 +229,42 @@ def finish(
     if rejoin_px > 0:
         mask = _rejoined(mask, labels, height, rejoin_px, pieces, owner)
     return mask
+
+
+def _film_shares(
+    shape: tuple[int, int],
+    idx: np.ndarray,
+    lab: np.ndarray,
+    sc: np.ndarray,
+    keep: np.ndarray,
+    n: int,
+    depth_px: float,
+    of_peak: np.ndarray,
+    default: float,
+) -> np.ndarray:
+    """Each of ``n`` labels' rim share of its peak: ``of_peak`` (the share of the film
+    asked, over each peak) times the mean value of its pixels between ``depth_px`` and a
+    pixel more inside its first outline (``keep`` of the pixels ``idx``, labelled
+    ``lab``, valued ``sc``); ``default`` where it has none so deep, never above half.
+
+    A contact's film thins towards its rim, by as much as a print's compound and its
+    pressure make it: one contact's middle is several times darker than its rim, the
+    next is almost flat.  The blur spreads the edge of the film where it ends, and the
+    edge lies where the blurred film has fallen to a share of its level just inside,
+    whatever its middle does; a share of the peak draws the outline of a contact with a
+    dark middle too far in.  The film's level is read where the blur no longer reaches
+    (two blur sigmas in), the share of it (:attr:`printcheck.segment.SegmentConfig.
+    rim_of_film`) holds on the prints of both renderers the project is measured on."""
+    first = np.zeros(shape[0] * shape[1], np.uint8)
+    first[idx[keep]] = 1
+    inside = cv2.distanceTransform(first.reshape(shape), cv2.DIST_L2, cv2.DIST_MASK_3)
+    depth = inside.ravel()[idx]
+    ring = keep & (depth >= depth_px) & (depth < depth_px + 1.0)
+    count = np.bincount(lab[ring], minlength=n)
+    total = np.bincount(lab[ring], sc[ring].astype(np.float64), minlength=n)
+    film = total / np.maximum(count, 1)
+    share = np.where((count > 0) & np.isfinite(of_peak), of_peak * film, default)
+    return np.minimum(share, 0.5).astype(np.float32)
 
 
 def _rejoined(

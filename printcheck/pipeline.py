@@ -23,7 +23,13 @@ if TYPE_CHECKING:
     from printcheck.measure import MeasureConfig, Measurement
     from printcheck.segment import Segmentation
 
-__all__ = ["InspectOptions", "inspect_image", "inspect_photo", "measure_segmented"]
+__all__ = [
+    "InspectOptions",
+    "frame_blur_px",
+    "inspect_image",
+    "inspect_photo",
+    "measure_segmented",
+]
 
 
 def inspect_image(
@@ -101,6 +107,7 @@ def _measure_rectified(
             compound_on=options.compound_on,  # type: ignore[arg-type]
             px_per_mm=rect.frame.px_per_mm,
             paper_bgr=rect.paper_bgr,
+            blur_px=frame_blur_px(rect),
         ),
     )
     spec = options.spec
@@ -171,6 +178,15 @@ def measure_segmented(
         unseen=seg.unseen,
         clear=seg.clear,
     )
+
+
+def frame_blur_px(rect: Rectified) -> float | None:
+    """The photo's blur (Gaussian sigma, where its card's edges tell it) in pixels of the
+    rectified frame; None where unknown."""
+    cal = rect.calibration
+    if cal.photo_blur_px is None or not cal.photo_px_per_mm:
+        return None
+    return float(cal.photo_blur_px * rect.frame.px_per_mm / cal.photo_px_per_mm)
 
 
 def _no_compound(options: InspectOptions, chosen: str) -> str:

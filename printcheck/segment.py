@@ -18,7 +18,9 @@ The steps (see :mod:`printcheck.evidence`, :mod:`printcheck.field` and
    compound darkens the metal, the brightness's relief (:func:`printcheck.field.with_relief`),
    kept at the photo's full resolution where the colour is not;
 5. contacts: seeds (at half the share along the edge of what the photo shows, where a
-   card cuts spots), growth, separation (on the relief where there is one), clean-up.
+   card cuts spots), growth, separation (on the relief where there is one), outlines (at
+   a share of each contact's film just inside its edge, beyond the blur's reach),
+   clean-up.
 
 A surface covered in compound nearly everywhere has no bare level to judge against; it
 is thresholded on the evidence itself, with a warning.
@@ -99,8 +101,19 @@ class SegmentConfig:
     grow_sigma : float
         A contact grows over connected pixels at least this many noise levels up.
     rim_share : float
-        A contact keeps its pixels above this share of its own peak (where its film
-        thins to nothing at the rim).
+        A contact's outline is first drawn at this share of its own peak (where its film
+        thins to nothing at the rim); a contact too small for the film's level inside
+        its edge to be read keeps that outline ...
+    rim_of_film : float
+        ... the others are drawn again at this share of the film's level just inside
+        their first outline, beyond the reach of the photo's blur (see
+        :func:`printcheck.contacts.finish`): how far a film thins towards its rim
+        differs from print to print, and a share of the peak puts the outline too far
+        in where the middle of a contact is much darker than its rim.
+    blur_px : float or None
+        The photo's blur (Gaussian sigma) in the rectified image's pixels, where known
+        (the card's edges say it): a contact's film is read two of it inside its first
+        outline, clear of the blur.  None, or under a pixel: a pixel.
     min_spot_mm2 : float
         A mark is a contact when the part of it above half its peak covers at least this
         area: a speck smaller than the blur of the photo looks wider than it is, but its
@@ -117,8 +130,8 @@ class SegmentConfig:
         ... and it holds a point worn through at least this share.
     nudge : float
         How far the alternates move every threshold (1: the seed by 1.5 noise levels up
-        toward fewer contacts, the seed share by half again either way, the rim share by
-        0.4 times again, the split share and the coat shares by 0.1; the default 1.5
+        toward fewer contacts, the seed share by half again either way, the rim shares
+        by 0.4 times again, the split share and the coat shares by 0.1; the default 1.5
         times that); they bound the range the measure stage reports.  Toward more, the
         seed keeps its significance over the noise (see :func:`_nudged`).
     paper_bgr : (float, float, float) or None
@@ -137,6 +150,7 @@ class SegmentConfig:
     seed_share: float = 0.2
     grow_sigma: float = 3.0
     rim_share: float = 0.175
+    rim_of_film: float = 0.3
     min_spot_mm2: float = 0.1
     split_share: float = 0.5
     local_mm: float = 8.0
@@ -144,6 +158,7 @@ class SegmentConfig:
     coat_seed: float = 0.6
     nudge: float = 1.5
     paper_bgr: tuple[float, float, float] | None = None
+    blur_px: float | None = None
 
     def __post_init__(self) -> None:
         if self.compound not in ("auto", "blue", "red"):
@@ -169,7 +184,19 @@ class SegmentConfig:
             len(paper) == 3 and all(isinstance(v, int | float) and 0 <= v <= 255 for v in paper)
         ):
             raise OptionError(f"paper_bgr must be three levels from 0 to 255, got {paper!r}")
-        for name in ("seed_share", "rim_share", "split_share", "coat_share", "coat_seed"):
+        blur = self.blur_px
+        if blur is not None and not (
+            isinstance(blur, int | float) and math.isfinite(blur) and blur >= 0
+        ):
+            raise OptionError(f"blur_px must be a number from 0 up, or None, got {blur!r}")
+        for name in (
+            "seed_share",
+            "rim_share",
+            "rim_of_film",
+            "split_share",
+            "coat_share",
+            "coat_seed",
+        ):
             value = getattr(self, name)
             if not (isinstance(value, int | float) and 0 <= value < 1):
                 raise OptionError(f"{name} must be from 0 to below 1, got {value!r}")
@@ -392,21 +419,21 @@ def segment(
             f"the compound barely stands out from the bare metal (contrast "
             f"{level / field.noise:.1f}); retake the photo in even, brighter light"
         )
-    rim = config.rim_share
+    rim = (config.rim_share, config.rim_of_film)
     fewer, more = _nudged(config)
     loose = cut = None
     if config.compound_on == "reference":
         # the loosest decision's seeds and growth, and its watershed, serve all three
         loose = _seeds_and_growth(field, more)
         cut = watershed_regions(loose[1], _cut_on(field).height, px_per_mm=s, seeds=loose[0])
-    # the rim share decides the bearing: its step sets how wide the bearing's range is
+    # the rim shares decide the bearing: their step sets how wide the bearing's range is
     rim_step = 1.0 + 0.4 * config.nudge
     # the alternates are decided on a spare core where one helps (they only read the
     # shared field), and the measure stage goes on with the mask meanwhile
     pixels = field.score.size
     alternates = [
-        on_spare_core(pixels, _decide, field, fewer, s, min(rim_step * rim, 0.9), cut, None),
-        on_spare_core(pixels, _decide, field, more, s, rim / rim_step, cut, loose),
+        on_spare_core(pixels, _decide, field, fewer, s, _rims(rim, rim_step), cut, None),
+        on_spare_core(pixels, _decide, field, more, s, _rims(rim, 1.0 / rim_step), cut, loose),
     ]
     mask = _decide(field, config, s, rim, cut, None)
     clear = (
@@ -497,11 +524,13 @@ def _decide(
     field: Field,
     config: SegmentConfig,
     s: float,
-    rim: float,
+    rim: tuple[float, float],
     cut: tuple[np.ndarray, int] | None,
     grown: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> np.ndarray:
-    """The contact mask from the field, by ``config``'s thresholds and a rim share.
+    """The contact mask from the field, by ``config``'s thresholds and the rim shares
+    (of a contact's peak, and of its film's level inside its edge: see
+    :func:`printcheck.contacts.finish`).
 
     ``cut`` is the watershed of the loosest decision (compound on the reference), shared
     by the three decisions; ``grown``, its seeds and growth when ``config`` is that one.
@@ -524,7 +553,10 @@ def _decide(
             labels,
             seeds,
             field.smooth,
-            rim_share=rim,
+            rim_share=rim[0],
+            rim_of_film=rim[1],
+            # two blur sigmas in, never under a pixel's (colour has half the resolution)
+            film_depth_px=2.0 * max(config.blur_px or 1.0, 1.0),
             score=field.score,
             min_core_px=config.min_spot_mm2 * s * s,
             level=field.local,
@@ -639,6 +671,11 @@ def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, 
     grow = (field.z >= config.grow_sigma) | inside
     grown = seeds_and_growth(seeds & field.valid, grow & field.valid)
     return seeds, grown
+
+
+def _rims(rim: tuple[float, float], step: float) -> tuple[float, float]:
+    """Both rim shares moved by ``step`` (toward fewer pixels above 1), kept below 0.9."""
+    return min(step * rim[0], 0.9), min(step * rim[1], 0.9)
 
 
 def _nudged(config: SegmentConfig) -> tuple[SegmentConfig, SegmentConfig]:

@@ -15,7 +15,7 @@ import pytest
 
 from printcheck.frame import Frame
 from printcheck.measure import MeasureConfig
-from printcheck.pipeline import measure_segmented
+from printcheck.pipeline import frame_blur_px, measure_segmented
 from printcheck.segment import SegmentConfig, segment
 from printcheck.synth import Camera, Lighting, Scene, render_photo
 from printcheck.synth.truth import layout_masks
@@ -58,6 +58,7 @@ def outcomes():
     for name, (scene, seed) in PHOTOS.items():
         shot = render_photo(scene, seed=seed)
         layout = scene.layout
+        blur = None  # the photo's blur, where the card's edges tell it
         if scene.camera is None:
             w = layout.window
             frame = Frame(
@@ -74,13 +75,14 @@ def outcomes():
             # locate must find the card: a locate regression fails this test too
             rect = locate(shot.image, layout=layout)
             img, frame, visible, analysed = rect.image, rect.frame, rect.visible, rect.analysed
+            blur = frame_blur_px(rect)  # as inspect passes it
         s = frame.px_per_mm
         seg = segment(
             img,
             visible=visible,
             analysed=analysed,
             config=SegmentConfig(
-                compound=scene.compound, compound_on=scene.compound_on, px_per_mm=s
+                compound=scene.compound, compound_on=scene.compound_on, px_per_mm=s, blur_px=blur
             ),
         )
         meas = measure_segmented(

@@ -35,7 +35,7 @@ import pytest
 from printcheck.layout import card_layout
 from printcheck.locate import locate
 from printcheck.measure import MeasureConfig
-from printcheck.pipeline import measure_segmented
+from printcheck.pipeline import frame_blur_px, measure_segmented
 from printcheck.segment import SegmentConfig, segment
 from printcheck.synth import Camera, Lighting, Scene, render_photo
 from printcheck.synth.fine import fine_surface
@@ -58,7 +58,12 @@ def _scene(density: float, light: dict[str, float] | None = None, **scene: Any) 
 def _measure(scene: Scene, seed: int, **segment_options):  # type: ignore[no-untyped-def]
     shot = render_photo(scene, seed=seed)
     rect = locate(shot.image, layout=scene.layout)
-    options = {"compound_on": scene.compound_on, "paper_bgr": rect.paper_bgr, **segment_options}
+    options = {
+        "compound_on": scene.compound_on,
+        "paper_bgr": rect.paper_bgr,
+        "blur_px": frame_blur_px(rect),  # as inspect passes them
+        **segment_options,
+    }
     seg = segment(
         rect.image,
         visible=rect.visible,
@@ -257,6 +262,34 @@ def test_a_strong_colour_cast_is_not_compound_all_over(
     neutral, cast = counts
     assert abs(cast - neutral) <= max(2, 0.08 * truth.spot_count), (neutral, cast)
     _within(truth, meas)
+
+
+@pytest.mark.parametrize(
+    ("rim_film", "density", "seed"),
+    [(0.0, 25, 12), (1.2, 20, 15)],
+    ids=["dark-middles-pale-rims", "even-film"],
+)
+def test_outlines_follow_the_film_whether_its_middle_is_dark_or_not(
+    rim_film: float, density: float, seed: int
+) -> None:
+    # a pale compound (thin enough that its colour grows with its thickness), once on
+    # contacts whose film thins to nothing at the rim, their middles several times
+    # darker than their rims, once on contacts evenly filmed to a distinct edge: an
+    # outline drawn at a fixed share of each contact's peak lay too far in on the first
+    # (bearing 16 % low, its range short of the truth) and too far out on the second
+    # (its range above the truth); the outline is drawn at a share of the film's level
+    # just inside the contact's edge.  The renderer's truth is the contact itself.
+    scene = _scene(density, dict(compound_strength=0.3, rim_film=rim_film))
+    truth, meas, _ = _measure(scene, seed=seed)
+    assert truth.spot_count > 10
+    err = meas.bearing_percent - truth.bearing_percent
+    assert abs(err) <= 0.12 * truth.bearing_percent, (meas.bearing_percent, truth.bearing_percent)
+    c = meas.confidence
+    assert c is not None and c.bearing_low <= truth.bearing_percent <= c.bearing_high, (
+        c.bearing_low,
+        c.bearing_high,
+        truth.bearing_percent,
+    )
 
 
 @pytest.mark.xfail(

@@ -60,6 +60,9 @@ SEGMENT_CHANGES = {
     "seed_share": (0.8, "reference"),
     "grow_sigma": (12.0, "reference"),
     "rim_share": (0.6, "reference"),
+    "rim_of_film": (0.8, "reference"),
+    # the film's level is read deeper inside a contact's first outline
+    "blur_px": (4.0, "reference"),
     "min_spot_mm2": (3.0, "reference"),
     "split_share": (0.95, "reference"),
     "local_mm": (0.5, "reference"),
