@@ -130,9 +130,10 @@ class SegmentConfig:
         ... and it holds a point worn through at least this share.
     nudge : float
         How far the alternates move every threshold (1: the seed by 1.5 noise levels up
-        toward fewer contacts, the seed share by half again either way, the rim shares
-        by 0.4 times again, the split share and the coat shares by 0.1; the default 1.5
-        times that); they bound the range the measure stage reports.  Toward more, the
+        toward fewer contacts, the seed share by half again either way, the rim share of
+        the peak by 0.4 times again and that of the film by 0.25 times again, the split
+        share and the coat shares by 0.1; the default 1.5 times that); they bound the
+        range the measure stage reports.  Toward more, the
         seed keeps its significance over the noise (see :func:`_nudged`).
     paper_bgr : (float, float, float) or None
         The white paper of the markers as this photo shows it (B, G, R, 8-bit), a
@@ -426,14 +427,19 @@ def segment(
         # the loosest decision's seeds and growth, and its watershed, serve all three
         loose = _seeds_and_growth(field, more)
         cut = watershed_regions(loose[1], _cut_on(field).height, px_per_mm=s, seeds=loose[0])
-    # the rim shares decide the bearing: their step sets how wide the bearing's range is
-    rim_step = 1.0 + 0.4 * config.nudge
+    # the rim shares decide the bearing: their steps set how wide the bearing's range is.
+    # Where a contact's edge lies varies less as a share of its film than of its peak
+    # (on both renderers' prints 0.22-0.5 of the film, 0.1-0.3 of the peak): the film's
+    # share moves by less
+    steps = (1.0 + 0.4 * config.nudge, 1.0 + 0.25 * config.nudge)
     # the alternates are decided on a spare core where one helps (they only read the
     # shared field), and the measure stage goes on with the mask meanwhile
     pixels = field.score.size
     alternates = [
-        on_spare_core(pixels, _decide, field, fewer, s, _rims(rim, rim_step), cut, None),
-        on_spare_core(pixels, _decide, field, more, s, _rims(rim, 1.0 / rim_step), cut, loose),
+        on_spare_core(pixels, _decide, field, fewer, s, _rims(rim, steps), cut, None),
+        on_spare_core(
+            pixels, _decide, field, more, s, _rims(rim, (1 / steps[0], 1 / steps[1])), cut, loose
+        ),
     ]
     mask = _decide(field, config, s, rim, cut, None)
     clear = (
@@ -673,9 +679,10 @@ def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, 
     return seeds, grown
 
 
-def _rims(rim: tuple[float, float], step: float) -> tuple[float, float]:
-    """Both rim shares moved by ``step`` (toward fewer pixels above 1), kept below 0.9."""
-    return min(step * rim[0], 0.9), min(step * rim[1], 0.9)
+def _rims(rim: tuple[float, float], steps: tuple[float, float]) -> tuple[float, float]:
+    """The rim shares (of the peak, of the film) moved by their ``steps`` (toward fewer
+    pixels above 1), kept below 0.9."""
+    return min(steps[0] * rim[0], 0.9), min(steps[1] * rim[1], 0.9)
 
 
 def _nudged(config: SegmentConfig) -> tuple[SegmentConfig, SegmentConfig]:
