@@ -130,10 +130,10 @@ class SegmentConfig:
         ... and it holds a point worn through at least this share.
     nudge : float
         How far the alternates move every threshold (1: the seed by 1.5 noise levels up
-        toward fewer contacts, the seed share by half again either way, the rim share of
-        the peak by 0.4 times again and that of the film by 0.25 times again, the split
-        share and the coat shares by 0.1; the default 1.5 times that); they bound the
-        range the measure stage reports.  Toward more, the
+        toward fewer contacts, the seed share by half again either way, the rim shares
+        by 0.4 times again (that of the film by 0.25 times toward more), the split share
+        and the coat shares by 0.1; the default 1.5 times that); they bound the range
+        the measure stage reports.  Toward more, the
         seed keeps its significance over the noise (see :func:`_nudged`).
     paper_bgr : (float, float, float) or None
         The white paper of the markers as this photo shows it (B, G, R, 8-bit), a
@@ -427,19 +427,18 @@ def segment(
         # the loosest decision's seeds and growth, and its watershed, serve all three
         loose = _seeds_and_growth(field, more)
         cut = watershed_regions(loose[1], _cut_on(field).height, px_per_mm=s, seeds=loose[0])
-    # the rim shares decide the bearing: their steps set how wide the bearing's range is.
-    # Where a contact's edge lies varies less as a share of its film than of its peak
-    # (on both renderers' prints 0.22-0.5 of the film, 0.1-0.3 of the peak): the film's
-    # share moves by less
-    steps = (1.0 + 0.4 * config.nudge, 1.0 + 0.25 * config.nudge)
+    # the rim shares decide the bearing: their steps set how wide the bearing's range
+    # is.  On both renderers' prints a contact's edge lies at 0.22-0.5 of its film (0.1-
+    # 0.3 of its peak): toward fewer pixels the film's share moves as far as the peak's,
+    # up to half the film (where a blurred step's edge lies), toward more by less
+    step = 1.0 + 0.4 * config.nudge
+    steps = ((step, step), (1.0 / step, 1.0 / (1.0 + 0.25 * config.nudge)))
     # the alternates are decided on a spare core where one helps (they only read the
     # shared field), and the measure stage goes on with the mask meanwhile
     pixels = field.score.size
     alternates = [
-        on_spare_core(pixels, _decide, field, fewer, s, _rims(rim, steps), cut, None),
-        on_spare_core(
-            pixels, _decide, field, more, s, _rims(rim, (1 / steps[0], 1 / steps[1])), cut, loose
-        ),
+        on_spare_core(pixels, _decide, field, fewer, s, _rims(rim, steps[0]), cut, None),
+        on_spare_core(pixels, _decide, field, more, s, _rims(rim, steps[1]), cut, loose),
     ]
     mask = _decide(field, config, s, rim, cut, None)
     clear = (
