@@ -175,6 +175,7 @@ def finish(
     rejoin_px: int = 0,
     rim_of_film: float | None = None,
     film_depth_px: float = 2.0,
+    hidden: np.ndarray | None = None,
 ) -> np.ndarray:
     """Cut each contact at ``rim_share`` of its peak, keep those with a seed (and, with
     ``min_core_px``, at least that many pixels above half their peak, or with ``level``
@@ -189,7 +190,8 @@ def finish(
 
     With ``rim_of_film``, each contact's outline is drawn again at that share of its
     film's level just inside the first outline (:func:`_film_shares`), where the film
-    lies ``film_depth_px`` inside it, clear of the blur.
+    lies ``film_depth_px`` inside it, clear of the blur; where the surface is
+    ``hidden`` ((M, N) bool, a card's cut-out), a contact the card cuts has no edge.
 
     With ``rejoin_px``, lobes of one contact that the rim cut parted are joined again
     across a neck up to twice that wide (:func:`_rejoined`)."""
@@ -204,7 +206,7 @@ def finish(
         if rim_of_film is not None:
             of_peak = np.where(peak > 0, rim_of_film / np.where(peak > 0, peak, 1), np.nan)
             share = _film_shares(
-                labels.shape, idx, lab, sc, keep, n, film_depth_px, of_peak, rim_share
+                labels.shape, idx, lab, sc, keep, n, film_depth_px, of_peak, rim_share, hidden
             )
             keep = sc > (share * peak)[lab]
         if min_core_px > 0:
@@ -241,11 +243,17 @@ def _film_shares(
     depth_px: float,
     of_peak: np.ndarray,
     default: float,
+    hidden: np.ndarray | None = None,
 ) -> np.ndarray:
     """Each of ``n`` labels' rim share of its peak: ``of_peak`` (the share of the film
     asked, over each peak) times the mean value of its pixels between ``depth_px`` and a
     pixel more inside its first outline (``keep`` of the pixels ``idx``, labelled
-    ``lab``, valued ``sc``); ``default`` where it has none so deep, never above half.
+    ``lab``, valued ``sc``); ``default`` where it has none so deep.  Never above half
+    the peak (a blurred step's edge), nor above ``default`` where that is higher.
+
+    The depth is taken from the outer edge of the film alone: a hole in a contact (its
+    middle worn through) is not where its film ends, nor is ``hidden`` surface (a card's
+    cut-out, under which a contact it cuts goes on).
 
     A contact's film thins towards its rim, by as much as a print's compound and its
     pressure make it: one contact's middle is several times darker than its rim, the
@@ -257,14 +265,31 @@ def _film_shares(
     rim_of_film`) holds on the prints of both renderers the project is measured on."""
     first = np.zeros(shape[0] * shape[1], np.uint8)
     first[idx[keep]] = 1
-    inside = cv2.distanceTransform(first.reshape(shape), cv2.DIST_L2, cv2.DIST_MASK_3)
+    first = _holes_filled(first.reshape(shape))
+    if hidden is not None:
+        first[hidden] = 1
+    inside = cv2.distanceTransform(first, cv2.DIST_L2, cv2.DIST_MASK_3)
     depth = inside.ravel()[idx]
     ring = keep & (depth >= depth_px) & (depth < depth_px + 1.0)
     count = np.bincount(lab[ring], minlength=n)
     total = np.bincount(lab[ring], sc[ring].astype(np.float64), minlength=n)
     film = total / np.maximum(count, 1)
     share = np.where((count > 0) & np.isfinite(of_peak), of_peak * film, default)
-    return np.minimum(share, 0.5).astype(np.float32)
+    return np.minimum(share, max(0.5, default)).astype(np.float32)
+
+
+def _holes_filled(mask: np.ndarray) -> np.ndarray:
+    """``mask`` (uint8, 0 or 1) with 1 in every part of its 0s (4-connected) that does
+    not reach the frame's border."""
+    n, parts = cv2.connectedComponents(1 - mask, connectivity=4, ltype=cv2.CV_32S)
+    if n <= 2:
+        return mask
+    outer = np.zeros(n, bool)
+    for side in (parts[0], parts[-1], parts[:, 0], parts[:, -1]):
+        outer[side] = True
+    outer[0] = True  # the mask's own 1s
+    hole = ~outer
+    return np.where(hole[parts], np.uint8(1), mask)
 
 
 def _rejoined(

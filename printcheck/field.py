@@ -56,6 +56,7 @@ class Field:
     edge: np.ndarray | None = None  # visible, within EDGE_MM of where the surface is hidden
     relief: np.ndarray | None = None  # how much darker than the bare metal (see with_relief())
     relief_noise: float = 0.0  # its spread over the bare metal
+    body: np.ndarray | None = None  # inside a contact at spot scale (see segment.with_body())
 
 
 def map_median(level: np.ndarray, where: np.ndarray) -> float:

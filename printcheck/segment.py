@@ -99,7 +99,8 @@ class SegmentConfig:
     seed_share : float
         ... and at least this share of the compound's local level.
     grow_sigma : float
-        A contact grows over connected pixels at least this many noise levels up.
+        A contact grows over connected pixels at least this many noise levels up, and
+        over those inside it at spot scale (as far up as a seed, see :func:`with_body`).
     rim_share : float
         A contact's outline is first drawn at this share of its own peak (where its film
         thins to nothing at the rim); a contact too small for the film's level inside
@@ -109,7 +110,9 @@ class SegmentConfig:
         their first outline, beyond the reach of the photo's blur (see
         :func:`printcheck.contacts.finish`): how far a film thins towards its rim
         differs from print to print, and a share of the peak puts the outline too far
-        in where the middle of a contact is much darker than its rim.
+        in where the middle of a contact is much darker than its rim.  The second
+        outline's share of the peak is held to half the peak (where a blurred step's
+        edge lies), or to ``rim_share`` where that is higher.
     blur_px : float or None
         The photo's blur (Gaussian sigma) in the rectified image's pixels, where known
         (the card's edges say it): a contact's film is read two of it inside its first
@@ -402,7 +405,7 @@ def segment(
         washed = washed & (field.z >= 2.0)
     if config.compound_on == "reference":
         field = with_relief(
-            with_edge(field, s),
+            with_body(with_edge(field, s), config),
             image,
             stat,
             px_per_mm=s,
@@ -562,6 +565,7 @@ def _decide(
             rim_of_film=rim[1],
             # two blur sigmas in, never under a pixel's (colour has half the resolution)
             film_depth_px=2.0 * max(config.blur_px or 1.0, 1.0),
+            hidden=~field.visible,
             score=field.score,
             min_core_px=config.min_spot_mm2 * s * s,
             level=field.local,
@@ -660,9 +664,7 @@ def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, 
     few noise levels high, so that many of its own pixels fall under the growth's
     threshold and it would break into crumbs, each counted; at spot scale the noise is
     averaged down and the contact is whole.  Inside means as far above the noise as a
-    seed, and at least half the strongest evidence within two spot radii (a blurred
-    edge is at half its contact's level): the smoothing's spread past an edge is not
-    grown into, where the pixels' own noise would pass the rim share.
+    seed, and in its body (:func:`with_body`).
     """
     strong = field.zs >= config.seed_sigma
     seeds = strong & (field.smooth >= config.seed_share * field.local)
@@ -671,11 +673,49 @@ def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, 
         at = flat_where(field.edge & strong & ~seeds)
         half = np.float32(0.5 * config.seed_share)
         np.put(seeds, at[field.smooth.ravel()[at] >= half * field.local.ravel()[at]], True)
-    reach = max(1, int(round(2.0 * config.spot_mm * config.px_per_mm)))
-    inside = strong & (field.smooth >= 0.5 * cv2.dilate(field.smooth, disc(reach)))
-    grow = (field.z >= config.grow_sigma) | inside
+    body = field.body if field.body is not None else with_body(field, config).body
+    assert body is not None
+    grow = (field.z >= config.grow_sigma) | (strong & body)
     grown = seeds_and_growth(seeds & field.valid, grow & field.valid)
     return seeds, grown
+
+
+#: A pixel lies in a valley between two contacts when it is this many noise levels (at
+#: spot scale) below both sides of it along some line (:func:`with_body`).
+_VALLEY_SIGMA = 3.0
+
+
+def with_body(field: Field, config: SegmentConfig) -> Field:
+    """``field`` with its :attr:`Field.body`: the pixels that lie inside a contact at spot
+    scale, which a contact may grow over however noisy its own pixels
+    (:func:`_seeds_and_growth`).
+
+    Inside means at least half the strongest evidence within two spot radii (a blurred
+    edge is at half its contact's level: the smoothing's spread past an edge is not
+    inside), and not in a valley: not :data:`_VALLEY_SIGMA` noise levels below the
+    pixels two spot radii away on both sides along a row, a column or a diagonal.  In
+    the gap between two contacts a fraction of a millimetre apart the smoothing's tails
+    of both add up to over half their level, but the gap stands below both; at an edge
+    one side is bare, and in a contact's body neither side stands clear above it.  Grown
+    over, such a gap would join the two contacts into one.
+
+    At the coarsest scales (two spot radii under a pixel and a half) the reach is a
+    pixel, where the spot-scale smoothing averages almost nothing and the rule adds
+    next to nothing to the pixels' own growth."""
+    r = max(1, int(round(2.0 * config.spot_mm * config.px_per_mm)))
+    body = field.smooth >= 0.5 * cv2.dilate(field.smooth, disc(r))
+    zs = field.zs
+    for a, b in _SIDES:
+        kernel = np.zeros((2 * r + 1, 2 * r + 1), np.uint8)
+        kernel[r + a * r, r + b * r] = kernel[r - a * r, r - b * r] = 1
+        # the lower of the two sides; beyond the frame's border a side is no bound
+        lower = cv2.erode(zs, kernel, borderType=cv2.BORDER_CONSTANT, borderValue=-1e30)
+        body &= zs >= lower - _VALLEY_SIGMA
+    return replace(field, body=body)
+
+
+#: The lines a valley is looked for along: a row, a column and both diagonals.
+_SIDES = ((0, 1), (1, 0), (1, 1), (1, -1))
 
 
 def _rims(rim: tuple[float, float], steps: tuple[float, float]) -> tuple[float, float]:
