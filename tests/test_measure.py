@@ -562,6 +562,31 @@ def test_faint_contacts_make_a_small_print_doubtful_only_beyond_its_own_spread()
         assert ("barely stand out" in c.reason) == doubtful
 
 
+def test_faint_contacts_reach_beyond_a_large_counts_spread_before_it_is_doubtful() -> None:
+    # a hundred contacts: the count's own spread is two points (2 % of it, rounded), so
+    # faint contacts make the photo doubtful only when they reach more than 15 % of the
+    # count beyond those two: 17 faint reach 15 points beyond, not doubtful; 18 reach 16.
+    # Contacts by scipy's labels
+    shape = (200, 200)
+    frame = _frame(shape)
+    an = _window_mask(frame)
+    centres = [(10 + 20 * i, 10 + 20 * j) for i in range(10) for j in range(10)]
+    mask = np.zeros(shape, bool)
+    for cy, cx in centres:
+        mask |= _disc(shape, cy, cx, 5)
+    n = ndimage.label(mask, EIGHT)[1]
+    assert n == 100
+    for n_faint, doubtful in ((17, False), (18, True)):
+        clear = np.zeros(shape, bool)
+        for cy, cx in centres[n_faint:]:
+            clear[cy, cx] = True
+        c = measure(mask, frame=frame, analysed=an, alternates=(mask, mask), clear=clear)
+        c = c.confidence
+        assert (c.count_low, c.count_high) == (n - 2, n + n_faint)
+        assert c.doubtful == doubtful, c.reason
+        assert ("barely stand out" in c.reason) == doubtful
+
+
 def test_the_segmentations_clear_map_reaches_the_measure_stage() -> None:
     # the pipeline's one join of the two stages hands on where the colour stands clear
     from printcheck.pipeline import measure_segmented

@@ -62,18 +62,19 @@ def _render(
     noise: float = 3.0,
     jpeg: int = 85,
     white: tuple[float, float, float] = (1.0, 1.0, 1.0),
+    s: float = S,
 ) -> np.ndarray:
     rng = np.random.default_rng(seed)
     h, w = mask.shape
-    facet = ndimage.gaussian_filter(rng.standard_normal((h, w)), 0.05 * S)
+    facet = ndimage.gaussian_filter(rng.standard_normal((h, w)), 0.05 * s)
     facet /= facet.std()
     yy, xx = np.mgrid[:h, :w]
-    strokes = np.sin((xx + yy) * 2 * np.pi / (0.8 * S))
+    strokes = np.sin((xx + yy) * 2 * np.pi / (0.8 * s))
     bare = 0.55 * (1 + 0.08 * facet + 0.05 * strokes)
     bare = bare[..., None] * np.array([0.97, 1.0, 1.03])  # slightly warm steel
     if on == "reference":
         edt = cv2.distanceTransform(np.pad(mask, 1).astype(np.uint8), cv2.DIST_L2, 5)[1:-1, 1:-1]
-        thick = np.clip(edt / (0.25 * S), 0, 1)
+        thick = np.clip(edt / (0.25 * s), 0, 1)
         opacity = np.where(mask, 0.45 - 0.3 * pale + 0.5 * thick, haze)
         shade = np.where(mask, 1 - 0.5 * thick, 1.0)
     else:
@@ -93,7 +94,7 @@ def _render(
         )
     img = np.clip(img, 0, 1) ** (1 / 2.2) * 255  # sRGB-like gamma
     if blur_mm:
-        img = cv2.GaussianBlur(img, (0, 0), blur_mm * S)
+        img = cv2.GaussianBlur(img, (0, 0), blur_mm * s)
     img = np.clip(img + rng.normal(0, noise, img.shape), 0, 255).astype(np.uint8)
     if jpeg:
         ok, buf = cv2.imencode(".jpg", img, [cv2.IMWRITE_JPEG_QUALITY, jpeg])
@@ -519,6 +520,75 @@ def test_a_lobe_the_rim_cut_parts_is_kept_and_joined_again() -> None:
     joined = finish(labels, seeds, score, rejoin_px=3, **kw)  # the neck: 4 px long
     assert joined[right].mean() > 0.95 and joined[left].mean() > 0.95
     assert ndimage.label(joined, structure=np.ones((3, 3)))[1] == 1  # joined again
+
+
+def _domed_film(hole_r: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+    """A contact 28 px across whose film is twice as dark in its middle as at its rim,
+    its edge blurred (sigma 1.2 px, scipy), and its distance map from the middle;
+    with ``hole_r``, its middle worn through that far."""
+    yy, xx = np.mgrid[:60, :60]
+    d = np.hypot(yy - 30.0, xx - 30.0)
+    film = np.where(d < 14, 1.0 - 0.5 * (d / 14) ** 2, 0.0)
+    if hole_r:
+        film = np.where(d < hole_r, 0.0, film)
+    return ndimage.gaussian_filter(film, 1.2).astype(np.float32), d
+
+
+@pytest.mark.parametrize("cut", ["hole", "card"])
+def test_a_contacts_outline_is_drawn_from_its_outer_edge_alone(cut: str) -> None:
+    # the outline is drawn at a share of the film's level read just inside the contact's
+    # edge: a middle worn through, or a card's cut-out across the contact, is not where
+    # its film ends, and reading the film beside it (the darkest, in the middle) drew the
+    # rest of its outline further in.  Where the contact shows, its outline is the one it
+    # has whole
+    from printcheck.contacts import finish
+
+    whole, d = _domed_film()
+    kw = dict(rim_share=0.175, rim_of_film=0.3, film_depth_px=2.4)
+    seeds = d < 3
+    plain = finish((whole > 0.01).astype(np.int32), seeds, whole, **kw)
+    assert 0.9 < plain.sum() / (np.pi * 14**2) < 1.1  # the drawn disc's area, within 10 %
+    if cut == "hole":
+        holed, _ = _domed_film(hole_r=5.0)
+        labels = (holed > 0.01).astype(np.int32)
+        seeds = (d > 8) & (d < 10)
+        mask = finish(labels, seeds, holed, **kw)
+        shows = d > 9  # beyond the hole's blurred edge
+    else:
+        hidden = np.zeros(d.shape, bool)
+        hidden[:, 33:] = True  # the card covers the contact's right part
+        labels = ((whole > 0.01) & ~hidden).astype(np.int32)
+        mask = finish(labels, seeds, whole, hidden=hidden, **kw)
+        shows = ~hidden
+    assert np.array_equal(mask[shows], plain[shows])
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_pale_contacts_close_together_in_a_noisy_photo_are_not_joined(seed: int) -> None:
+    # pairs of pale contacts 0.4 mm across, 0.15 mm of bare metal between them (4.5 px
+    # at 30 px/mm), in a noisy photo (noise 12 of 255), too pale to darken the metal
+    # clearly: the colour alone parts them.  A contact grows over the pixels inside it at
+    # spot scale, where the smoothing's tails of two neighbours add up to over half
+    # their level in the gap; grown over, the gap joined the pairs (54 and 58 of the 72
+    # found).  The truth is the rendered mask, counted with scipy.ndimage.label
+    s = 30.0
+    shape = (360, 360)
+    yy, xx = np.mgrid[: shape[0], : shape[1]]
+    mask = np.zeros(shape, bool)
+    r, half_gap = 0.2 * s, 0.075 * s
+    for i in range(6):
+        for j in range(6):
+            cy, cx = (i + 0.75) * 1.6 * s + 0.5 * s, (j + 0.75) * 1.6 * s + 0.5 * s
+            for dx in (-(r + half_gap), r + half_gap):
+                mask |= np.hypot(yy - cy, xx - (cx + dx)) < r
+    n_true = ndimage.label(mask, structure=np.ones((3, 3)))[1]
+    assert n_true == 72
+    img = _render(mask, seed=seed, pale=1.0, noise=12.0, haze=0.02, blur_mm=0.03, s=s)
+    seg = segment(
+        img, visible=np.ones(shape, bool), config=SegmentConfig(compound="blue", px_per_mm=s)
+    )
+    found = ndimage.label(seg.mask, structure=np.ones((3, 3)))[1]
+    assert found >= 0.9 * n_true, found
 
 
 def test_the_segmentation_says_what_its_contacts_need_between_them(spots, visible) -> None:
