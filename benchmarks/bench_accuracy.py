@@ -20,6 +20,8 @@ Run::
     python benchmarks/bench_accuracy.py                 # all 44 photos (about 15 min)
     python benchmarks/bench_accuracy.py --only 0-9      # a subset by index
     python benchmarks/bench_accuracy.py --cache /tmp/pc-bench   # keep renders for reruns
+    python benchmarks/bench_accuracy.py --tone srgb     # the same photos stored as a phone
+                                                        # stores them (sRGB transfer curve)
 
 This is a script, not a timed test; it prints one line per photo and a summary.
 """
@@ -31,7 +33,7 @@ import math
 import pickle
 import sys
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import cv2
@@ -363,8 +365,24 @@ def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--only", help="indices to run, e.g. 0-9 or 3,5,7")
     ap.add_argument("--cache", type=Path, help="folder to keep rendered photos in")
+    ap.add_argument(
+        "--tone",
+        choices=("linear", "srgb"),
+        default="linear",
+        help="how the photos store their light (default linear, as the renderer does; "
+        "srgb: through the sRGB transfer curve, as a phone does)",
+    )
     args = ap.parse_args(argv)
     all_cases = cases()
+    if args.tone != "linear":
+        all_cases = [
+            replace(
+                c,
+                name=f"{c.name}-{args.tone}",
+                scene=replace(c.scene, lighting=replace(c.scene.lighting, tone=args.tone)),
+            )
+            for c in all_cases
+        ]
     chosen = list(range(len(all_cases)))
     if args.only:
         chosen = []

@@ -203,6 +203,30 @@ def test_a_pale_film_in_dim_noisy_light_is_not_broken_into_crumbs(seed: int) -> 
     assert c.count_low <= truth.spot_count <= c.count_high
 
 
+@pytest.mark.parametrize(
+    ("density", "light", "scene"),
+    [
+        (16, {}, {}),
+        (20, {}, dict(compound="red")),
+        (20, dict(exposure=0.5, noise_sigma=4.0), {}),
+    ],
+    ids=["plain", "red", "dim"],
+)
+def test_a_photo_stored_through_the_srgb_curve_is_measured_alike(
+    density: float, light: dict[str, float], scene: dict[str, str]
+) -> None:
+    # a phone stores its photos through the sRGB transfer curve (IEC 61966-2-1), not in
+    # proportion to the light: the darks are lifted, and a blurred edge's half-way point
+    # in the stored values lies nearer the darker side than in the light.  The outlines
+    # are drawn at shares of each contact's own film, so the curve moves neither the
+    # count nor the bearing out of the photo tolerance, and the ranges hold the truth
+    truth, meas, _ = _measure(_scene(density, dict(light, tone="srgb"), **scene), seed=2)
+    _within(truth, meas)
+    c = meas.confidence
+    assert c.count_low <= truth.spot_count <= c.count_high
+    assert c.bearing_low <= truth.bearing_percent <= c.bearing_high
+
+
 def test_light_so_bright_that_the_compound_channel_burns_out_widens_the_range() -> None:
     # a lamp close to the part: the light rises across the window until the red channel
     # of red compound reaches its ceiling over much of it (green and blue do not): the

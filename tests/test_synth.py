@@ -419,3 +419,24 @@ def test_colour_smoothing_blurs_the_chroma_and_keeps_the_brightness():
         before = ndimage.laplace(sharp[..., k]).std()
         after = ndimage.laplace(smoothed[..., k]).std()
         assert after < 0.3 * before, (k, before, after)
+
+
+def test_the_srgb_tone_curve_is_the_standards() -> None:
+    # a neutral grey stored through the sRGB curve (IEC 61966-2-1) decodes back to its
+    # light: scikit-image's rgb2xyz undoes the curve, and a grey's Y is its linear level
+    # (the luminance row of the sRGB matrix sums to 1)
+    from skimage.color import rgb2xyz
+
+    from printcheck.synth.render import srgb_encoded
+
+    light = np.linspace(0.0, 255.0, 256, dtype=np.float32)
+    stored = srgb_encoded(light)
+    grey = np.repeat((stored / 255.0)[:, None], 3, axis=1)[None]
+    assert np.allclose(rgb2xyz(grey)[0, :, 1], light / 255.0, atol=1e-5)
+    # an 18 % grey card is stored at about 46 % (118 of 255): common practice
+    assert abs(srgb_encoded(np.float32([0.18 * 255]))[0] - 118.0) < 1.0
+
+
+def test_an_unknown_tone_curve_is_refused() -> None:
+    with pytest.raises(OptionError, match="tone"):
+        render_photo(Scene(density=8, camera=None, lighting=Lighting(tone="log")), seed=3)  # type: ignore[arg-type]

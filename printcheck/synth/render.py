@@ -158,6 +158,10 @@ class Lighting:
         Sensor noise at mid grey, in 8-bit levels.
     jpeg_quality : int or None
         JPEG quality (1-100); None leaves the photo uncompressed.
+    tone : {"linear", "srgb"}
+        How the sensor's light is stored: "linear", in proportion; "srgb", through the
+        sRGB transfer curve (IEC 61966-2-1), as a phone stores its photos: the darks
+        lifted, a blurred edge's half-way point moved toward the darker side.
     """
 
     exposure: float = 1.0
@@ -183,6 +187,7 @@ class Lighting:
     colour_blur_px: float = 0.0
     noise_sigma: float = 2.0
     jpeg_quality: int | None = 90
+    tone: Literal["linear", "srgb"] = "linear"
 
 
 @dataclass(frozen=True, eq=False)
@@ -653,6 +658,8 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
         raise OptionError(f"compound must be 'blue' or 'red', got {scene.compound!r}")
     if scene.compound_on not in ("reference", "work"):
         raise OptionError(f"compound_on must be 'reference' or 'work', got {scene.compound_on!r}")
+    if scene.lighting.tone not in ("linear", "srgb"):
+        raise OptionError(f"tone must be 'linear' or 'srgb', got {scene.lighting.tone!r}")
     film = 1.5 if scene.film_um is None else float(scene.film_um)
     if not film > 0:
         raise OptionError(f"film_um must be greater than zero, got {scene.film_um!r}")
@@ -750,6 +757,8 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
     if light.noise_sigma > 0:
         sigma = np.sqrt(np.maximum(img, f32(1.0)) * f32(light.noise_sigma**2 / 128.0))
         img += sigma * rng.standard_normal(img.shape, dtype=f32)
+    if light.tone == "srgb":
+        img = srgb_encoded(img)
     if light.colour_blur_px > 0:
         ycc = cv2.cvtColor(np.clip(img, 0, 255).astype(f32) / f32(255.0), cv2.COLOR_BGR2YCrCb)
         for k in (1, 2):
@@ -775,6 +784,19 @@ def render_photo(scene: Scene, *, seed: int = 0) -> Rendered:
         film_um=film,
         marker_corners_px=corners_px,
     )
+
+
+def srgb_encoded(img: np.ndarray) -> np.ndarray:
+    """Linear light in 8-bit units (0-255, float32) through the sRGB transfer curve
+    (IEC 61966-2-1: 12.92 x below 0.0031308, else 1.055 x^(1/2.4) - 0.055), 0-255."""
+    f32 = np.float32
+    x = np.clip(img, 0, 255) / f32(255.0)
+    curve = np.where(
+        x <= f32(0.0031308),
+        f32(12.92) * x,
+        f32(1.055) * np.power(np.maximum(x, f32(0.0031308)), f32(1.0 / 2.4)) - f32(0.055),
+    )
+    return (curve * f32(255.0)).astype(f32)
 
 
 def _encode_jpeg(image_bgr: np.ndarray, quality: int) -> bytes:
