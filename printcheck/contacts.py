@@ -265,7 +265,7 @@ def _film_shares(
     rim_of_film`) holds on the prints of both renderers the project is measured on."""
     first = np.zeros(shape[0] * shape[1], np.uint8)
     first[idx[keep]] = 1
-    first = _holes_filled(first.reshape(shape))
+    first = _holes_filled(first.reshape(shape), _labels_of(shape, idx, lab))
     if hidden is not None:
         first[hidden] = 1
     inside = cv2.distanceTransform(first, cv2.DIST_L2, cv2.DIST_MASK_3)
@@ -278,18 +278,41 @@ def _film_shares(
     return np.minimum(share, max(0.5, default)).astype(np.float32)
 
 
-def _holes_filled(mask: np.ndarray) -> np.ndarray:
+def _labels_of(shape: tuple[int, int], idx: np.ndarray, lab: np.ndarray) -> np.ndarray:
+    """The (M, N) label image of pixels ``idx`` (flat) labelled ``lab``, 0 elsewhere."""
+    out = np.zeros(shape[0] * shape[1], np.int32)
+    out[idx] = lab
+    return out.reshape(shape)
+
+
+def _holes_filled(mask: np.ndarray, labels: np.ndarray) -> np.ndarray:
     """``mask`` (uint8, 0 or 1) with 1 in every part of its 0s (4-connected) that does
-    not reach the frame's border."""
-    n, parts = cv2.connectedComponents(1 - mask, connectivity=4, ltype=cv2.CV_32S)
-    if n <= 2:
+    not reach the frame's border and that one contact alone encloses (its 4-neighbours in
+    ``mask`` all of one of ``labels``): bare metal that several contacts enclose between
+    them stays bare."""
+    # the 0s that reach the border: flooded from outside a one-pixel frame of 0s
+    outer = cv2.copyMakeBorder(mask, 1, 1, 1, 1, cv2.BORDER_CONSTANT, value=0)
+    cv2.floodFill(outer, None, (0, 0), 2, flags=4)
+    holes = outer[1:-1, 1:-1] == 0
+    if not holes.any():
         return mask
-    outer = np.zeros(n, bool)
-    for side in (parts[0], parts[-1], parts[:, 0], parts[:, -1]):
-        outer[side] = True
-    outer[0] = True  # the mask's own 1s
-    hole = ~outer
-    return np.where(hole[parts], np.uint8(1), mask)
+    n, parts = cv2.connectedComponents(holes.view(np.uint8), connectivity=4, ltype=cv2.CV_32S)
+    # each hole's neighbouring contacts: (hole, label) pairs across the four sides
+    lab = np.where(mask > 0, labels, 0)
+    m = int(labels.max()) + 1
+    keys = []
+    for a, b in (
+        (parts[1:], lab[:-1]),
+        (parts[:-1], lab[1:]),
+        (parts[:, 1:], lab[:, :-1]),
+        (parts[:, :-1], lab[:, 1:]),
+    ):
+        on = (a > 0) & (b > 0)
+        keys.append(a[on].astype(np.int64) * m + b[on])
+    pairs = np.unique(np.concatenate(keys))
+    one = np.bincount((pairs // m).astype(np.intp), minlength=n) == 1
+    one[0] = False
+    return np.where(one[parts], np.uint8(1), mask)
 
 
 def _rejoined(

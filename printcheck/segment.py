@@ -692,24 +692,28 @@ def with_body(field: Field, config: SegmentConfig) -> Field:
 
     Inside means at least half the strongest evidence within two spot radii (a blurred
     edge is at half its contact's level: the smoothing's spread past an edge is not
-    inside), and not in a valley: not :data:`_VALLEY_SIGMA` noise levels below the
-    pixels two spot radii away on both sides along a row, a column or a diagonal.  In
-    the gap between two contacts a fraction of a millimetre apart the smoothing's tails
-    of both add up to over half their level, but the gap stands below both; at an edge
-    one side is bare, and in a contact's body neither side stands clear above it.  Grown
-    over, such a gap would join the two contacts into one.
+    inside), and not in a valley: not :data:`_VALLEY_SIGMA` noise levels below both
+    pixels about two spot radii away on either side along a row, a column or a
+    diagonal.  In the gap between two contacts a fraction of a millimetre apart the
+    smoothing's tails of both add up to over half their level, but the gap stands below
+    both; at an edge one side is bare, and in a contact's body neither side stands clear
+    above it.  Grown over, such a gap would join the two contacts into one.  Surface the
+    photo does not show (a card, an exclusion) is no side: a contact goes on under it.
 
     At the coarsest scales (two spot radii under a pixel and a half) the reach is a
     pixel, where the spot-scale smoothing averages almost nothing and the rule adds
     next to nothing to the pixels' own growth."""
-    r = max(1, int(round(2.0 * config.spot_mm * config.px_per_mm)))
+    reach = 2.0 * config.spot_mm * config.px_per_mm
+    r = max(1, int(round(reach)))
     body = field.smooth >= 0.5 * cv2.dilate(field.smooth, disc(r))
-    zs = field.zs
+    # beyond the frame's border, or where the surface is hidden, a side is no bound
+    low = np.float32(-1e30)
+    zs = np.where(field.visible, field.zs, low)
     for a, b in _SIDES:
-        kernel = np.zeros((2 * r + 1, 2 * r + 1), np.uint8)
-        kernel[r + a * r, r + b * r] = kernel[r - a * r, r - b * r] = 1
-        # the lower of the two sides; beyond the frame's border a side is no bound
-        lower = cv2.erode(zs, kernel, borderType=cv2.BORDER_CONSTANT, borderValue=-1e30)
+        k = r if a == 0 or b == 0 else max(1, int(round(reach / math.sqrt(2.0))))
+        kernel = np.zeros((2 * k + 1, 2 * k + 1), np.uint8)
+        kernel[k + a * k, k + b * k] = kernel[k - a * k, k - b * k] = 1
+        lower = cv2.erode(zs, kernel, borderType=cv2.BORDER_CONSTANT, borderValue=float(low))
         body &= zs >= lower - _VALLEY_SIGMA
     return replace(field, body=body)
 

@@ -563,6 +563,28 @@ def test_a_contacts_outline_is_drawn_from_its_outer_edge_alone(cut: str) -> None
     assert np.array_equal(mask[shows], plain[shows])
 
 
+def test_bare_metal_between_contacts_is_an_edge_of_each() -> None:
+    # a small contact in the bare middle of a ring-shaped one (two labels, as the valleys
+    # decided): the bare metal between them is where both films end, not a hole in
+    # either, and the small one is outlined as it is alone
+    from printcheck.contacts import finish
+
+    yy, xx = np.mgrid[:60, :60]
+    d = np.hypot(yy - 30.0, xx - 30.0)
+    dome = np.where(d < 7, 1.0 - 0.5 * (d / 7) ** 2, 0.0)
+    ring = np.where((d > 13) & (d < 22), 1.0 - 0.5 * (np.abs(d - 17.5) / 4.5) ** 2, 0.0)
+    kw = dict(rim_share=0.175, rim_of_film=0.3, film_depth_px=2.4)
+    alone = ndimage.gaussian_filter(dome, 1.2).astype(np.float32)
+    both = ndimage.gaussian_filter(dome + ring, 1.2).astype(np.float32)
+    labels = np.where(d < 10.5, 1, np.where(both > 0.01, 2, 0)).astype(np.int32)
+    seeds = (d < 2) | (np.abs(d - 17.5) < 1)
+    whole = finish(((alone > 0.01) & (d < 10.5)).astype(np.int32), d < 2, alone, **kw)
+    mask = finish(labels * (both > 0.01), seeds, both, **kw)
+    assert whole.sum() > 0.8 * np.pi * 7**2
+    inner = d < 10.5
+    assert np.array_equal(mask[inner], whole[inner])
+
+
 @pytest.mark.parametrize("seed", [0, 1])
 def test_pale_contacts_close_together_in_a_noisy_photo_are_not_joined(seed: int) -> None:
     # pairs of pale contacts 0.4 mm across, 0.15 mm of bare metal between them (4.5 px
