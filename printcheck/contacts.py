@@ -297,22 +297,23 @@ def _holes_filled(mask: np.ndarray, labels: np.ndarray) -> np.ndarray:
     if not holes.any():
         return mask
     n, parts = cv2.connectedComponents(holes.view(np.uint8), connectivity=4, ltype=cv2.CV_32S)
-    # each hole's neighbouring contacts: (hole, label) pairs across the four sides
-    lab = np.where(mask > 0, labels, 0)
+    # each hole's neighbouring contacts: (hole, label) pairs across the four sides, on
+    # the holes' own pixels (none lies on the frame's border, so every side is inside)
+    at = flat_where(holes)
+    hole = parts.ravel()[at].astype(np.int64)
+    flat_mask, flat_labels = mask.ravel(), labels.ravel()
     m = int(labels.max()) + 1
     keys = []
-    for a, b in (
-        (parts[1:], lab[:-1]),
-        (parts[:-1], lab[1:]),
-        (parts[:, 1:], lab[:, :-1]),
-        (parts[:, :-1], lab[:, 1:]),
-    ):
-        on = (a > 0) & (b > 0)
-        keys.append(a[on].astype(np.int64) * m + b[on])
+    for step in (1, -1, mask.shape[1], -mask.shape[1]):
+        side = at + step
+        on = flat_mask[side] > 0
+        keys.append(hole[on] * m + flat_labels[side[on]])
     pairs = np.unique(np.concatenate(keys))
     one = np.bincount((pairs // m).astype(np.intp), minlength=n) == 1
     one[0] = False
-    return np.where(one[parts], np.uint8(1), mask)
+    out = mask.copy()
+    out.ravel()[at[one[hole]]] = 1
+    return out
 
 
 def _rejoined(
