@@ -265,7 +265,11 @@ def _film_shares(
     rim_of_film`) holds on the prints of both renderers the project is measured on."""
     first = np.zeros(shape[0] * shape[1], np.uint8)
     first[idx[keep]] = 1
-    first = _holes_filled(first.reshape(shape), _labels_of(shape, idx, lab))
+    # a speck too small to hold a ring of film that deep does not part a hole from the
+    # contact round it (a grain of compound left in a worn-through middle)
+    speck = np.bincount(lab[keep], minlength=n) < math.pi * (depth_px + 1.0) ** 2
+    enclosing = np.where(speck[lab], 0, lab)
+    first = _holes_filled(first.reshape(shape), _labels_of(shape, idx, enclosing))
     if hidden is not None:
         first[hidden] = 1
     inside = cv2.distanceTransform(first, cv2.DIST_L2, cv2.DIST_MASK_3)
@@ -288,8 +292,8 @@ def _labels_of(shape: tuple[int, int], idx: np.ndarray, lab: np.ndarray) -> np.n
 def _holes_filled(mask: np.ndarray, labels: np.ndarray) -> np.ndarray:
     """``mask`` (uint8, 0 or 1) with 1 in every part of its 0s (4-connected) that does
     not reach the frame's border and that one contact alone encloses (its 4-neighbours in
-    ``mask`` all of one of ``labels``): bare metal that several contacts enclose between
-    them stays bare."""
+    ``mask`` all of one of ``labels``, or 0): bare metal that several contacts enclose
+    between them stays bare."""
     # the 0s that reach the border: flooded from outside a one-pixel frame of 0s
     outer = cv2.copyMakeBorder(mask, 1, 1, 1, 1, cv2.BORDER_CONSTANT, value=0)
     cv2.floodFill(outer, None, (0, 0), 2, flags=4)
@@ -306,7 +310,7 @@ def _holes_filled(mask: np.ndarray, labels: np.ndarray) -> np.ndarray:
     keys = []
     for step in (1, -1, mask.shape[1], -mask.shape[1]):
         side = at + step
-        on = flat_mask[side] > 0
+        on = (flat_mask[side] > 0) & (flat_labels[side] > 0)
         keys.append(hole[on] * m + flat_labels[side[on]])
     pairs = np.unique(np.concatenate(keys))
     one = np.bincount((pairs // m).astype(np.intp), minlength=n) == 1

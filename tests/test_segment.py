@@ -585,6 +585,25 @@ def test_bare_metal_between_contacts_is_an_edge_of_each() -> None:
     assert np.array_equal(mask[inner], whole[inner])
 
 
+def test_a_speck_in_a_worn_through_middle_leaves_it_a_hole() -> None:
+    # a grain of compound left in a contact's worn-through middle, found as a contact of
+    # its own: too small to hold a ring of film, it does not part the middle from the
+    # contact round it, whose outline is the one it has without the grain
+    from printcheck.contacts import finish
+
+    holed, d = _domed_film(hole_r=5.0)
+    grain = d < 1.5
+    with_grain = np.where(grain, np.float32(0.9), holed)
+    kw = dict(rim_share=0.175, rim_of_film=0.3, film_depth_px=2.4)
+    ring_seeds = (d > 8) & (d < 10)
+    plain = finish((holed > 0.01).astype(np.int32), ring_seeds, holed, **kw)
+    labels = np.where(grain, 2, (with_grain > 0.01) & ~grain).astype(np.int32)
+    mask = finish(labels, ring_seeds | grain, with_grain, **kw)
+    ring = d > 9
+    assert plain[ring].sum() > 0.8 * np.pi * (14**2 - 9**2)
+    assert np.array_equal(mask[ring], plain[ring])
+
+
 @pytest.mark.parametrize("seed", [0, 1])
 def test_pale_contacts_close_together_in_a_noisy_photo_are_not_joined(seed: int) -> None:
     # pairs of pale contacts 0.4 mm across, 0.15 mm of bare metal between them (4.5 px
