@@ -755,3 +755,44 @@ def test_the_contacts_of_a_clean_photo_stand_clear_of_the_noise(spots, visible) 
         config=SegmentConfig(px_per_mm=S, compound_on="work"),
     )
     assert work.clear is None
+
+
+def test_a_pixel_below_both_sides_is_a_valley_unless_a_side_is_hidden() -> None:
+    # the body a contact may grow over at spot scale (segment.with_body): a pixel 3 noise
+    # levels below the pixels two spot radii away on both sides along a row lies in the
+    # gap between two contacts; beside a card's edge the far side is hidden, goes on under
+    # the card, and is no bound.  A hand-built field: even evidence, significance 20
+    # everywhere but a column at 15, once in the open and once two pixels from the card
+    from dataclasses import replace as with_
+
+    from printcheck.field import Field
+    from printcheck.segment import with_body
+
+    shape = (40, 60)
+    zs = np.full(shape, 20.0, np.float32)
+    zs[:, 15] = 15.0  # in the open: both sides at 20
+    zs[:, 46] = 15.0  # beside the card, which hides columns 48 on (compound under it: 50)
+    zs[:, 48:] = 50.0
+    visible = np.ones(shape, bool)
+    visible[:, 48:] = False
+    flat = np.ones(shape, np.float32)
+    field = Field(
+        score=flat,
+        smooth=flat,
+        z=zs,
+        zs=zs,
+        local=flat,
+        valid=visible,
+        visible=visible,
+        glare=np.zeros(shape, bool),
+        noise=1.0,
+    )
+    config = SegmentConfig(px_per_mm=10.0)  # two spot radii: 2.4 px, 2 along a row
+    body = with_body(field, config).body
+    assert body is not None
+    assert not body[10:30, 15].any()  # a valley in the open
+    assert body[10:30, 46].all()  # beside the card: its hidden side is no bound
+    assert body[10:30, 20:40].all()
+    # the same column with the card's side shown: a valley again
+    shown = with_body(with_(field, visible=np.ones(shape, bool)), config).body
+    assert shown is not None and not shown[10:30, 46].any()
