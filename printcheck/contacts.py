@@ -268,8 +268,8 @@ def _film_shares(
     # a speck too small to hold a ring of film that deep does not part a hole from the
     # contact round it (a grain of compound left in a worn-through middle)
     speck = np.bincount(lab[keep], minlength=n) < math.pi * (depth_px + 1.0) ** 2
-    enclosing = np.where(speck[lab], 0, lab)
-    first = _holes_filled(first.reshape(shape), _labels_of(shape, idx, enclosing))
+    wall = keep & ~speck[lab]
+    first = _holes_filled(first.reshape(shape), idx[wall], lab[wall])
     if hidden is not None:
         first[hidden] = 1
     inside = cv2.distanceTransform(first, cv2.DIST_L2, cv2.DIST_MASK_3)
@@ -282,41 +282,34 @@ def _film_shares(
     return np.minimum(share, max(0.5, default)).astype(np.float32)
 
 
-def _labels_of(shape: tuple[int, int], idx: np.ndarray, lab: np.ndarray) -> np.ndarray:
-    """The (M, N) label image of pixels ``idx`` (flat) labelled ``lab``, 0 elsewhere."""
-    out = np.zeros(shape[0] * shape[1], np.int32)
-    out[idx] = lab
-    return out.reshape(shape)
-
-
-def _holes_filled(mask: np.ndarray, labels: np.ndarray) -> np.ndarray:
+def _holes_filled(mask: np.ndarray, at: np.ndarray, lab: np.ndarray) -> np.ndarray:
     """``mask`` (uint8, 0 or 1) with 1 in every part of its 0s (4-connected) that does
-    not reach the frame's border and that one contact alone encloses (its 4-neighbours in
-    ``mask`` all of one of ``labels``, or 0): bare metal that several contacts enclose
-    between them stays bare."""
+    not reach the frame's border and whose 4-neighbours are all of one contact: the
+    pixels ``at`` (flat, ascending) labelled ``lab``; bare metal that several contacts
+    enclose between them stays bare, and neighbours not among ``at`` part nothing."""
     # the 0s that reach the border: flooded from outside a one-pixel frame of 0s
     outer = cv2.copyMakeBorder(mask, 1, 1, 1, 1, cv2.BORDER_CONSTANT, value=0)
     cv2.floodFill(outer, None, (0, 0), 2, flags=4)
     holes = outer[1:-1, 1:-1] == 0
-    if not holes.any():
+    if not holes.any() or not at.size:
         return mask
     n, parts = cv2.connectedComponents(holes.view(np.uint8), connectivity=4, ltype=cv2.CV_32S)
     # each hole's neighbouring contacts: (hole, label) pairs across the four sides, on
     # the holes' own pixels (none lies on the frame's border, so every side is inside)
-    at = flat_where(holes)
-    hole = parts.ravel()[at].astype(np.int64)
-    flat_mask, flat_labels = mask.ravel(), labels.ravel()
-    m = int(labels.max()) + 1
+    px = flat_where(holes)
+    hole = parts.ravel()[px].astype(np.int64)
+    m = int(lab.max()) + 1
     keys = []
     for step in (1, -1, mask.shape[1], -mask.shape[1]):
-        side = at + step
-        on = (flat_mask[side] > 0) & (flat_labels[side] > 0)
-        keys.append(hole[on] * m + flat_labels[side[on]])
+        side = px + step
+        where = np.minimum(np.searchsorted(at, side), at.size - 1)
+        on = at[where] == side
+        keys.append(hole[on] * m + lab[where[on]])
     pairs = np.unique(np.concatenate(keys))
     one = np.bincount((pairs // m).astype(np.intp), minlength=n) == 1
     one[0] = False
     out = mask.copy()
-    out.ravel()[at[one[hole]]] = 1
+    out.ravel()[px[one[hole]]] = 1
     return out
 
 

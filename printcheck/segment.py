@@ -673,8 +673,8 @@ def _seeds_and_growth(field: Field, config: SegmentConfig) -> tuple[np.ndarray, 
         at = flat_where(field.edge & strong & ~seeds)
         half = np.float32(0.5 * config.seed_share)
         np.put(seeds, at[field.smooth.ravel()[at] >= half * field.local.ravel()[at]], True)
-    body = field.body if field.body is not None else with_body(field, config).body
-    assert body is not None
+    # a field not made by segment() (the stage's own tests) has no body yet
+    body = _body(field, config) if field.body is None else field.body
     grow = (field.z >= config.grow_sigma) | (strong & body)
     grown = seeds_and_growth(seeds & field.valid, grow & field.valid)
     return seeds, grown
@@ -703,6 +703,11 @@ def with_body(field: Field, config: SegmentConfig) -> Field:
     At the coarsest scales (two spot radii under a pixel and a half) the reach is a
     pixel, where the spot-scale smoothing averages almost nothing and the rule adds
     next to nothing to the pixels' own growth."""
+    return replace(field, body=_body(field, config))
+
+
+def _body(field: Field, config: SegmentConfig) -> np.ndarray:
+    """The body map of :func:`with_body`."""
     reach = 2.0 * config.spot_mm * config.px_per_mm
     r = max(1, int(round(reach)))
     body = field.smooth >= 0.5 * cv2.dilate(field.smooth, disc(r))
@@ -715,7 +720,7 @@ def with_body(field: Field, config: SegmentConfig) -> Field:
         kernel[k + a * k, k + b * k] = kernel[k - a * k, k - b * k] = 1
         lower = cv2.erode(zs, kernel, borderType=cv2.BORDER_CONSTANT, borderValue=float(low))
         body &= zs >= lower - _VALLEY_SIGMA
-    return replace(field, body=body)
+    return body
 
 
 #: The lines a valley is looked for along: a row, a column and both diagonals.

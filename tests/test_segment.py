@@ -522,6 +522,11 @@ def test_a_lobe_the_rim_cut_parts_is_kept_and_joined_again() -> None:
     assert ndimage.label(joined, structure=np.ones((3, 3)))[1] == 1  # joined again
 
 
+#: The outline rules as the segment stage applies them (SegmentConfig's rim_share and
+#: rim_of_film), the film read two blur sigmas in for a 1.2 px blur
+_FILM_OUTLINE = dict(rim_share=0.175, rim_of_film=0.3, film_depth_px=2.4)
+
+
 def _domed_film(hole_r: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
     """A contact 28 px across whose film is twice as dark in its middle as at its rim,
     its edge blurred (sigma 1.2 px, scipy), and its distance map from the middle;
@@ -544,21 +549,20 @@ def test_a_contacts_outline_is_drawn_from_its_outer_edge_alone(cut: str) -> None
     from printcheck.contacts import finish
 
     whole, d = _domed_film()
-    kw = dict(rim_share=0.175, rim_of_film=0.3, film_depth_px=2.4)
     seeds = d < 3
-    plain = finish((whole > 0.01).astype(np.int32), seeds, whole, **kw)
+    plain = finish((whole > 0.01).astype(np.int32), seeds, whole, **_FILM_OUTLINE)
     assert 0.9 < plain.sum() / (np.pi * 14**2) < 1.1  # the drawn disc's area, within 10 %
     if cut == "hole":
         holed, _ = _domed_film(hole_r=5.0)
         labels = (holed > 0.01).astype(np.int32)
         seeds = (d > 8) & (d < 10)
-        mask = finish(labels, seeds, holed, **kw)
+        mask = finish(labels, seeds, holed, **_FILM_OUTLINE)
         shows = d > 9  # beyond the hole's blurred edge
     else:
         hidden = np.zeros(d.shape, bool)
         hidden[:, 33:] = True  # the card covers the contact's right part
         labels = ((whole > 0.01) & ~hidden).astype(np.int32)
-        mask = finish(labels, seeds, whole, hidden=hidden, **kw)
+        mask = finish(labels, seeds, whole, hidden=hidden, **_FILM_OUTLINE)
         shows = ~hidden
     assert np.array_equal(mask[shows], plain[shows])
 
@@ -573,13 +577,12 @@ def test_bare_metal_between_contacts_is_an_edge_of_each() -> None:
     d = np.hypot(yy - 30.0, xx - 30.0)
     dome = np.where(d < 7, 1.0 - 0.5 * (d / 7) ** 2, 0.0)
     ring = np.where((d > 13) & (d < 22), 1.0 - 0.5 * (np.abs(d - 17.5) / 4.5) ** 2, 0.0)
-    kw = dict(rim_share=0.175, rim_of_film=0.3, film_depth_px=2.4)
     alone = ndimage.gaussian_filter(dome, 1.2).astype(np.float32)
     both = ndimage.gaussian_filter(dome + ring, 1.2).astype(np.float32)
     labels = np.where(d < 10.5, 1, np.where(both > 0.01, 2, 0)).astype(np.int32)
     seeds = (d < 2) | (np.abs(d - 17.5) < 1)
-    whole = finish(((alone > 0.01) & (d < 10.5)).astype(np.int32), d < 2, alone, **kw)
-    mask = finish(labels * (both > 0.01), seeds, both, **kw)
+    whole = finish(((alone > 0.01) & (d < 10.5)).astype(np.int32), d < 2, alone, **_FILM_OUTLINE)
+    mask = finish(labels * (both > 0.01), seeds, both, **_FILM_OUTLINE)
     assert whole.sum() > 0.8 * np.pi * 7**2
     inner = d < 10.5
     assert np.array_equal(mask[inner], whole[inner])
@@ -594,11 +597,10 @@ def test_a_speck_in_a_worn_through_middle_leaves_it_a_hole() -> None:
     holed, d = _domed_film(hole_r=5.0)
     grain = d < 1.5
     with_grain = np.where(grain, np.float32(0.9), holed)
-    kw = dict(rim_share=0.175, rim_of_film=0.3, film_depth_px=2.4)
     ring_seeds = (d > 8) & (d < 10)
-    plain = finish((holed > 0.01).astype(np.int32), ring_seeds, holed, **kw)
+    plain = finish((holed > 0.01).astype(np.int32), ring_seeds, holed, **_FILM_OUTLINE)
     labels = np.where(grain, 2, (with_grain > 0.01) & ~grain).astype(np.int32)
-    mask = finish(labels, ring_seeds | grain, with_grain, **kw)
+    mask = finish(labels, ring_seeds | grain, with_grain, **_FILM_OUTLINE)
     ring = d > 9
     assert plain[ring].sum() > 0.8 * np.pi * (14**2 - 9**2)
     assert np.array_equal(mask[ring], plain[ring])
