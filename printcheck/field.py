@@ -10,6 +10,7 @@ from the coat to bare metal (with compound on the work).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 
 import cv2
@@ -28,7 +29,7 @@ from printcheck.evidence import (
 )
 from printcheck.ranks import median, quantile
 
-__all__ = ["Field", "contact_field", "with_relief"]
+__all__ = ["Field", "colour_spread_px", "contact_field", "with_relief"]
 
 _BROAD_MM2 = 64.0  # no contact island is larger (an 8 mm square)
 # A faint film: a mark under this share of the compound's level nearby ...
@@ -57,6 +58,7 @@ class Field:
     relief: np.ndarray | None = None  # how much darker than the bare metal (see with_relief())
     relief_noise: float = 0.0  # its spread over the bare metal
     body: np.ndarray | None = None  # inside a contact at spot scale (see segment.with_body())
+    colour_spread: float = 0.0  # the colour's edges' spread past the brightness's, px
 
 
 def map_median(level: np.ndarray, where: np.ndarray) -> float:
@@ -289,3 +291,58 @@ def with_relief(
     if np.count_nonzero(strong) < 20 or quantile(relief[strong], 0.9) < _RELIEF_CONTRAST * noise:
         return field
     return replace(field, relief=relief, relief_noise=noise)
+
+
+#: How far (px) either side of the contacts' outlines their edges are read.
+SPREAD_REACH_PX = 8
+
+
+def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> float:
+    """How much further the colour's edges are spread than the brightness's, as a
+    Gaussian's sigma in pixels: sqrt(var_colour - var_brightness), 0 where it is not.
+
+    A phone keeps colour at half the resolution of brightness (JPEG's 4:2:0 sampling)
+    and smooths it again against noise, by as much as the phone likes: the colour of a
+    contact spreads further over its edge than the blur of the card's edges (a
+    brightness edge) says.  Read where the compound darkens the metal (``field`` with a
+    relief): at the same edges the brightness steps as the colour does, and a film
+    thinning to its rim widens both alike, so the difference of their spreads is the
+    colour's own.  ``region`` ((M, N) bool) holds the contacts; only those with an
+    inside :data:`SPREAD_REACH_PX` deep are read, on their edge profiles averaged over
+    every contact (the distance from the outline, in whole pixels, out to that reach):
+    the spread of each profile is the variance of its rise.  0 with no relief, or with
+    fewer than five contacts that large.
+    """
+    if field.relief is None:
+        return 0.0
+    reach = SPREAD_REACH_PX
+    n, lab, stats, _ = cv2.connectedComponentsWithStats(
+        region.view(np.uint8), connectivity=8, ltype=cv2.CV_32S
+    )
+    large = stats[:, cv2.CC_STAT_AREA] >= math.pi * reach * reach
+    large[0] = False
+    if np.count_nonzero(large) < 5:
+        return 0.0
+    big = large[lab]
+    inside = cv2.distanceTransform(big.view(np.uint8), cv2.DIST_L2, cv2.DIST_MASK_5)
+    outside = cv2.distanceTransform((~big).view(np.uint8), cv2.DIST_L2, cv2.DIST_MASK_5)
+    signed = np.where(big, inside - 0.5, 0.5 - outside)
+    # the large contacts and the bare metal round them (not another contact's pixels)
+    at = flat_where(field.valid & (np.abs(signed) <= reach) & (big | ~region))
+    bins = np.rint(signed.ravel()[at]).astype(np.int64) + reach
+    count = np.bincount(bins, minlength=2 * reach + 1)
+    if count.min() < 50:
+        return 0.0
+    gray = cv2.cvtColor(image, cv2.COLOR_BGR2GRAY).ravel()[at].astype(np.float32)
+    darkness = -np.log(gray + np.float32(LOG_OFFSET))
+    spreads = []
+    for values in (field.score.ravel()[at], darkness):
+        profile = np.bincount(bins, values.astype(np.float64), minlength=2 * reach + 1) / count
+        rise = np.clip(np.diff(profile), 0.0, None)
+        if rise.sum() <= 0:
+            return 0.0
+        w = rise / rise.sum()
+        pos = np.arange(rise.size, dtype=np.float64)
+        mean = float((w * pos).sum())
+        spreads.append(float((w * (pos - mean) ** 2).sum()))
+    return math.sqrt(max(spreads[0] - spreads[1], 0.0))

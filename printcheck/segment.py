@@ -58,7 +58,7 @@ from printcheck.evidence import (
     neutral_evidence,
     rebuilt_highlights,
 )
-from printcheck.field import Field, contact_field, map_median, with_relief
+from printcheck.field import Field, colour_spread_px, contact_field, map_median, with_relief
 from printcheck.ranks import median, quantile, quantiles
 from printcheck.sparecore import Later, on_spare_core
 
@@ -430,6 +430,7 @@ def segment(
         # the loosest decision's seeds and growth, and its watershed, serve all three
         loose = _seeds_and_growth(field, more)
         cut = watershed_regions(loose[1], _cut_on(field).height, px_per_mm=s, seeds=loose[0])
+        field = replace(field, colour_spread=colour_spread_px(image, field, loose[1]))
     # the rim shares decide the bearing: their steps set how wide the bearing's range
     # is.  On both renderers' prints a contact's edge lies at 0.22-0.5 of its film (0.1-
     # 0.3 of its peak): toward fewer pixels the film's share moves as far as the peak's,
@@ -563,8 +564,8 @@ def _decide(
             field.smooth,
             rim_share=rim[0],
             rim_of_film=rim[1],
-            # two blur sigmas in, never under a pixel's (colour has half the resolution)
-            film_depth_px=2.0 * max(config.blur_px or 1.0, 1.0),
+            # two sigmas of the colour's blur in, never under a pixel's
+            film_depth_px=2.0 * max(math.hypot(config.blur_px or 1.0, field.colour_spread), 1.0),
             hidden=~field.visible,
             score=field.score,
             min_core_px=config.min_spot_mm2 * s * s,

@@ -798,3 +798,30 @@ def test_a_pixel_below_both_sides_is_a_valley_unless_a_side_is_hidden() -> None:
     # the same column with the card's side shown: a valley again
     shown = with_body(with_(field, visible=np.ones(shape, bool)), config).body
     assert shown is not None and not shown[10:30, 46].any()
+
+
+def test_the_colours_own_spread_is_read_at_the_contacts_edges(monkeypatch, spots) -> None:
+    # the same print twice, the second with its colour (the chroma of YCrCb, as OpenCV
+    # converts it) smoothed over 3 px more, as a phone's colour noise reduction does: the
+    # spread read at the contacts' edges, colour against brightness, is about nothing on
+    # the first and clearly more on the second.  Seen in a ratio of two channels part of
+    # the brightness's sharp step stays, so it reads less than the 3 px added
+    import printcheck.segment as segment_module
+
+    read: list[float] = []
+    original = segment_module.colour_spread_px
+
+    def spy(*args):  # type: ignore[no-untyped-def]
+        read.append(original(*args))
+        return read[-1]
+
+    monkeypatch.setattr(segment_module, "colour_spread_px", spy)
+    img = _render(spots, seed=4, jpeg=0)
+    ycc = cv2.cvtColor(img, cv2.COLOR_BGR2YCrCb).astype(np.float32)
+    ycc[..., 1:] = cv2.GaussianBlur(ycc[..., 1:], (0, 0), 3.0)
+    smoothed = cv2.cvtColor(np.clip(np.rint(ycc), 0, 255).astype(np.uint8), cv2.COLOR_YCrCb2BGR)
+    for photo in (img, smoothed):
+        segment(photo, visible=np.ones(SHAPE, bool), config=SegmentConfig(px_per_mm=S))
+    plain, spread = read
+    assert plain < 0.5, plain
+    assert spread > plain + 0.8, (plain, spread)
