@@ -323,13 +323,17 @@ def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> flo
     large[0] = False
     if np.count_nonzero(large) < 5:
         return 0.0
-    big = large[lab]
-    inside = cv2.distanceTransform(big.view(np.uint8), cv2.DIST_L2, cv2.DIST_MASK_5)
-    outside = cv2.distanceTransform((~big).view(np.uint8), cv2.DIST_L2, cv2.DIST_MASK_5)
-    signed = np.where(big, inside - 0.5, 0.5 - outside)
-    # the large contacts and the bare metal round them (not another contact's pixels)
-    at = flat_where(field.valid & (np.abs(signed) <= reach) & (big | ~region))
-    bins = np.rint(signed.ravel()[at]).astype(np.int64) + reach
+    big = large.view(np.uint8)[lab]
+    inside = cv2.distanceTransform(big, cv2.DIST_L2, cv2.DIST_MASK_5)
+    outside = cv2.distanceTransform(1 - big, cv2.DIST_L2, cv2.DIST_MASK_5)
+    # the large contacts and the bare metal round them (not another contact's pixels),
+    # out to the reach; a pixel's centre lies half a pixel from the outline
+    limit = np.float32(reach + 0.5)
+    near = (inside <= limit) & (outside <= limit) & (field.valid & ~(region & (big == 0)))
+    at = flat_where(near)
+    d_in, d_out = inside.ravel()[at], outside.ravel()[at]
+    signed = np.where(d_in > 0, d_in - 0.5, 0.5 - d_out)
+    bins = np.rint(signed).astype(np.int64) + reach
     count = np.bincount(bins, minlength=2 * reach + 1)
     if count.min() < 50:
         return 0.0
