@@ -296,6 +296,11 @@ def with_relief(
 #: How far (px) either side of the contacts' outlines their edges are read.
 SPREAD_REACH_PX = 8
 
+#: The most the colour's spread is taken to be (px): phones smooth colour over 1-3 px
+#: (from memory); a wider reading is the profile of something else round the contacts
+#: (a haze or a glare's edge), and would read each film from deep in its middle.
+SPREAD_MAX_PX = 3.0
+
 
 def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> float:
     """How much further the colour's edges are spread than the brightness's, as a
@@ -311,7 +316,7 @@ def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> flo
     inside :data:`SPREAD_REACH_PX` deep are read, on their edge profiles averaged over
     every contact (the distance from the outline, in whole pixels, out to that reach):
     the spread of each profile is the variance of its rise.  0 with no relief, or with
-    fewer than five contacts that large.
+    fewer than five contacts that large; never above :data:`SPREAD_MAX_PX`.
     """
     if field.relief is None:
         return 0.0
@@ -349,4 +354,4 @@ def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> flo
         pos = np.arange(rise.size, dtype=np.float64)
         mean = float((w * pos).sum())
         spreads.append(float((w * (pos - mean) ** 2).sum()))
-    return math.sqrt(max(spreads[0] - spreads[1], 0.0))
+    return min(math.sqrt(max(spreads[0] - spreads[1], 0.0)), SPREAD_MAX_PX)
