@@ -312,11 +312,12 @@ def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> flo
     brightness edge) says.  Read where the compound darkens the metal (``field`` with a
     relief): at the same edges the brightness steps as the colour does, and a film
     thinning to its rim widens both alike, so the difference of their spreads is the
-    colour's own.  ``region`` ((M, N) bool) holds the contacts; only those with an
-    inside :data:`SPREAD_REACH_PX` deep are read, on their edge profiles averaged over
-    every contact (the distance from the outline, in whole pixels, out to that reach):
-    the spread of each profile is the variance of its rise.  0 with no relief, or with
-    fewer than five contacts that large; never above :data:`SPREAD_MAX_PX`.
+    colour's own.  ``region`` ((M, N) bool) holds the contacts; only those as large as
+    a disc :data:`SPREAD_REACH_PX` in radius are read, on their edge profiles averaged
+    over every such contact (by the distance from the outline, in whole pixels, out to
+    that reach either side): the spread of each profile is the variance of its rise.
+    0 with no relief, or with fewer than five contacts that large; never above
+    :data:`SPREAD_MAX_PX`.
     """
     if field.relief is None:
         return 0.0
