@@ -287,10 +287,7 @@ def _holes_filled(mask: np.ndarray, at: np.ndarray, lab: np.ndarray) -> np.ndarr
     not reach the frame's border and whose 4-neighbours are all of one contact: the
     pixels ``at`` (flat, ascending) labelled ``lab``; bare metal that several contacts
     enclose between them stays bare, and neighbours not among ``at`` part nothing."""
-    # the 0s that reach the border: flooded from outside a one-pixel frame of 0s
-    outer = cv2.copyMakeBorder(mask, 1, 1, 1, 1, cv2.BORDER_CONSTANT, value=0)
-    cv2.floodFill(outer, None, (0, 0), 2, flags=4)
-    holes = outer[1:-1, 1:-1] == 0
+    holes = _enclosed(mask == 0)
     if not holes.any() or not at.size:
         return mask
     n, parts = cv2.connectedComponents(holes.view(np.uint8), connectivity=4, ltype=cv2.CV_32S)
@@ -611,18 +608,22 @@ def _carved(labels: np.ndarray, idx: np.ndarray, height: np.ndarray) -> np.ndarr
     return drop
 
 
+def _enclosed(free: np.ndarray) -> np.ndarray:
+    """The pixels of ``free`` ((M, N) bool) that do not reach the frame's border through
+    ``free`` (4-connected): the holes that the rest of the frame encloses.  Found by
+    flooding from a one-pixel frame of ``free`` round the image."""
+    framed = np.pad(free, 1, constant_values=True).view(np.uint8) * np.uint8(255)
+    cv2.floodFill(framed, None, (0, 0), 0, flags=4)
+    return framed[1:-1, 1:-1] > 0
+
+
 def fill_small_holes(mask: np.ndarray, max_px: float, glare: np.ndarray | None) -> np.ndarray:
     """Fill holes of ``mask`` up to ``max_px`` pixels (20 times that when mostly glare)."""
-    # the holes: what is not contact and not joined to the image's edge (4-connected),
-    # found by flooding from a frame of background around the image
-    framed = np.pad(~mask, 1, constant_values=True).view(np.uint8) * np.uint8(255)
-    cv2.floodFill(framed, None, (0, 0), 0, flags=4)
-    holes = framed[1:-1, 1:-1]
+    holes = _enclosed(~mask)
     if not holes.any():
         return mask
-    holes = np.ascontiguousarray(holes)
-    n, lab = cv2.connectedComponents(holes, connectivity=4, ltype=cv2.CV_32S)
-    at = flat_where(holes > 0)
+    n, lab = cv2.connectedComponents(holes.view(np.uint8), connectivity=4, ltype=cv2.CV_32S)
+    at = flat_where(holes)
     hole = lab.ravel()[at]
     area = np.bincount(hole, minlength=n)
     fill = area <= max_px
