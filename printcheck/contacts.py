@@ -336,15 +336,11 @@ def _rejoined(
     m, bits = cv2.connectedComponents(added.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     if m <= 1:
         return mask
-    bits_p = np.pad(bits, 1)
-    pieces_p = np.pad(pieces, 1)
-    labels_p = np.pad(labels, 1)
-    width = bits_p.shape[1]
-    at = flat_where(bits_p > 0)
-    here, lab_here = bits_p.ravel()[at], labels_p.ravel()[at]
+    at = flat_where(bits > 0)
+    here, lab_here = bits.ravel()[at], labels.ravel()[at]
     pairs = []
-    for off in (-width - 1, -width, -width + 1, -1, 1, width - 1, width, width + 1):
-        nb = pieces_p.ravel()[at + off]
+    for nb_at, inside in _neighbours(at, mask.shape, _EIGHT):
+        nb = np.where(inside, pieces.ravel()[nb_at], 0)
         same = (nb > 0) & (owner[nb] == lab_here)
         pairs.append(np.stack([here[same], nb[same]]))
     touch = np.unique(np.concatenate(pairs, axis=1), axis=1)
@@ -520,7 +516,7 @@ def merge_regions(
     lab = regions.ravel()[idx]
     peak = _label_max(lab, height.ravel()[idx], n + 1).astype(np.float64)
     area = np.bincount(lab, minlength=n + 1).astype(np.float64)
-    keys, saddles = _saddles(regions, idx, n, height)
+    keys, saddles = _saddles(regions, n, height)
     parent = np.arange(n + 1)
 
     def find(i: int) -> int:
@@ -557,29 +553,24 @@ def merge_regions(
     return out.reshape(regions.shape)
 
 
-def _saddles(
-    regions: np.ndarray, at: np.ndarray, n: int, height: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """Each pair of touching regions (key ``a * (n + 1) + b``, a < b) and its saddle;
-    ``at``: the regions' pixels (flat indices, row-major).
+def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Each pair of touching regions (key ``a * (n + 1) + b``, a < b) and its saddle.
 
     The saddle is the highest value, along their shared boundary, of the lower of two
-    8-neighbours that lie one in each region.
+    8-neighbours that lie one in each region (found from the pixels where two touch).
     """
-    padded = np.pad(regions, 1)
-    flat = padded.ravel()
-    hf = np.pad(height, 1).ravel()  # in its own type: the saddles are its values
-    width = padded.shape[1]
-    idx = at + 2 * (at // regions.shape[1]) + width + 1
-    here = flat[idx]
+    lab = regions.ravel()
+    hf = height.ravel()  # in its own type: the saddles are its values
+    at = _touching(regions)
+    here = lab[at]
     keys_l, vals_l = [], []
-    for off in (1, width - 1, width, width + 1):
-        nb = flat[idx + off]
+    for nb_at, inside in _neighbours(at, regions.shape, _FORWARD):
+        nb = np.where(inside, lab[nb_at], 0)
         sel = (nb != 0) & (nb != here)
         if sel.any():
             a, b = here[sel].astype(np.int64), nb[sel].astype(np.int64)
             keys_l.append(np.minimum(a, b) * (n + 1) + np.maximum(a, b))
-            vals_l.append(np.minimum(hf[idx[sel]], hf[idx[sel] + off]))
+            vals_l.append(np.minimum(hf[at[sel]], hf[nb_at[sel]]))
     if not keys_l:
         return np.zeros(0, np.int64), np.zeros(0)
     keys = np.concatenate(keys_l)
@@ -591,21 +582,62 @@ def _saddles(
 
 
 def _carved(labels: np.ndarray, idx: np.ndarray, height: np.ndarray) -> np.ndarray:
-    """Of the contact pixels ``idx`` (flat indices of ``labels``), those removed to leave
-    a gap where two contacts touch (the lower side)."""
-    # only contact pixels can touch another contact: work on their flat indices, in the
-    # labels padded by one pixel all round
-    lab = np.pad(labels, 1).ravel()
-    hp = np.pad(height, 1, constant_values=-np.inf).ravel()
-    width = labels.shape[1] + 2
-    at = idx + 2 * (idx // labels.shape[1]) + width + 1
-    here, h = lab[at], hp[at]
-    drop = np.zeros(idx.size, bool)
-    for off in (-width - 1, -width, -width + 1, -1, 1, width - 1, width, width + 1):
-        nb = lab[at + off]
-        nh = hp[at + off]
+    """Of the contact pixels ``idx`` (flat indices of ``labels``, all its labelled
+    pixels), those removed to leave a gap where two contacts touch (the lower side)."""
+    # only the pixels where two contacts touch can be removed: a few in a hundred
+    lab = labels.ravel()
+    hf = height.ravel()
+    at = _touching(labels)
+    here, h = lab[at], hf[at]
+    drop = np.zeros(at.size, bool)
+    for nb_at, inside in _neighbours(at, labels.shape, _EIGHT):
+        nb = np.where(inside, lab[nb_at], 0)
+        nh = hf[nb_at]
         drop |= (nb > 0) & (nb != here) & ((h < nh) | ((h == nh) & (here < nb)))
-    return drop
+    out = np.zeros(labels.size, bool)
+    out[at[drop]] = True
+    return out[idx]
+
+
+#: The 8-neighbours of a pixel (row, column steps), and the four of them that follow it
+#: in row-major order (each pair of neighbours is met once from the first of them).
+_EIGHT = ((-1, -1), (-1, 0), (-1, 1), (0, -1), (0, 1), (1, -1), (1, 0), (1, 1))
+_FORWARD = ((0, 1), (1, -1), (1, 0), (1, 1))
+_SQUARE = np.ones((3, 3), np.uint8)
+
+
+def _touching(labels: np.ndarray) -> np.ndarray:
+    """Flat indices (ascending) of the labelled pixels of ``labels`` (int, 0 unlabelled)
+    that have an 8-neighbour of another label, not 0: the highest label round a pixel
+    (a dilation) or the lowest one (an erosion of the labels less one, in which the
+    unlabelled pixels wrap round to the highest value) differs from its own."""
+    kind = np.uint16 if int(labels.max(initial=0)) < np.iinfo(np.uint16).max else np.float64
+    u = labels.astype(kind)
+    high = cv2.dilate(u, _SQUARE)  # beyond the frame: below any label (OpenCV's default)
+    if kind is np.uint16:
+        less = u - np.uint16(1)
+    else:
+        less = np.where(labels > 0, u - 1.0, np.inf)
+    low = cv2.erode(less, _SQUARE)  # beyond the frame: above any label
+    return flat_where((u > 0) & ((high != u) | (low != less)))
+
+
+def _neighbours(
+    at: np.ndarray, shape: tuple[int, int], steps: tuple[tuple[int, int], ...]
+) -> list[tuple[np.ndarray, np.ndarray]]:
+    """For each (row, column) step, the flat indices of the pixels ``at``'s neighbours
+    that way, and whether each is inside the frame (else the index is the pixel's own)."""
+    h, w = shape
+    r, c = np.divmod(at, w)
+    out = []
+    for dr, dc in steps:
+        inside = np.ones(at.size, bool)
+        if dr:
+            inside &= (r + dr >= 0) & (r + dr < h)
+        if dc:
+            inside &= (c + dc >= 0) & (c + dc < w)
+        out.append((np.where(inside, at + dr * w + dc, at), inside))
+    return out
 
 
 def _enclosed(free: np.ndarray) -> np.ndarray:

@@ -825,3 +825,53 @@ def test_the_colours_own_spread_is_read_at_the_contacts_edges(monkeypatch, spots
     plain, spread = read
     assert plain < 0.5, plain
     assert spread > plain + 0.8, (plain, spread)
+
+
+@pytest.mark.parametrize("many", [False, True])
+def test_where_contacts_touch_is_where_a_3x3_neighbourhood_holds_another_label(many) -> None:
+    """The pixels that carving and the saddles look at (``_touching``) are those with an
+    8-neighbour of another label, not 0: checked against ``scipy.ndimage.generic_filter``
+    over each 3 x 3 neighbourhood (outside the frame: no label), with labels past 16 bits
+    (``many``) as with few."""
+    from printcheck.contacts import _touching
+
+    rng = np.random.default_rng(7)
+    lab = rng.integers(0, 4, (40, 50)).astype(np.int32)
+    lab[rng.random(lab.shape) < 0.4] = 0
+    if many:
+        lab[lab > 0] += 70_000
+
+    def other(window: np.ndarray) -> float:
+        own = window[4]
+        return float(own > 0 and bool(np.any((window > 0) & (window != own))))
+
+    want = ndimage.generic_filter(lab, other, size=3, mode="constant", cval=0)
+    assert np.array_equal(_touching(lab), np.flatnonzero(want))
+
+
+def test_the_saddles_are_the_highest_of_the_lower_sides_along_each_shared_boundary() -> None:
+    """``_saddles`` against a plain loop over every pair of 8-neighbours in two regions
+    (the definition in its docstring)."""
+    from printcheck.contacts import _saddles
+
+    rng = np.random.default_rng(3)
+    regions = np.kron(rng.integers(0, 6, (8, 10)), np.ones((4, 4), np.int32)).astype(np.int32)
+    regions[rng.random(regions.shape) < 0.15] = 0
+    height = rng.random(regions.shape).astype(np.float32)
+    n = int(regions.max())
+    want: dict[int, float] = {}
+    rows, cols = regions.shape
+    for r in range(rows):
+        for c in range(cols):
+            for dr, dc in ((-1, -1), (-1, 0), (-1, 1), (0, -1), (0, 1), (1, -1), (1, 0), (1, 1)):
+                rr, cc = r + dr, c + dc
+                if not (0 <= rr < rows and 0 <= cc < cols):
+                    continue
+                a, b = int(regions[r, c]), int(regions[rr, cc])
+                if a and b and a != b:
+                    key = min(a, b) * (n + 1) + max(a, b)
+                    low = float(min(height[r, c], height[rr, cc]))
+                    want[key] = max(want.get(key, -np.inf), low)
+    keys, saddles = _saddles(regions, n, height)
+    assert keys.tolist() == sorted(want)
+    assert np.allclose(saddles, [want[k] for k in sorted(want)])
