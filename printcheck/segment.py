@@ -403,15 +403,22 @@ def segment(
         # of the washed pixels, those whose colour reads above the bare metal's: a trace
         # of compound, of which the ceiling may hide more
         washed = washed & (field.z >= 2.0)
+    pixels = field.score.size
     if config.compound_on == "reference":
-        field = with_relief(
-            with_body(with_edge(field, s), config),
+        # the relief reads neither the edge band nor the body: on a spare core meanwhile
+        relieved = on_spare_core(
+            pixels,
+            with_relief,
+            field,
             image,
             stat,
             px_per_mm=s,
             spot_mm=config.spot_mm,
             background_mm=config.background_mm,
         )
+        field = with_body(with_edge(field, s), config)
+        relief = relieved.result()
+        field = replace(field, relief=relief.relief, relief_noise=relief.relief_noise)
     level = map_median(field.local, stat)
     if level / field.noise < _NO_COMPOUND_CONTRAST:
         # the strongest marks are no stronger than the metal's own colour noise: there is
@@ -429,8 +436,9 @@ def segment(
     if config.compound_on == "reference":
         # the loosest decision's seeds and growth, and its watershed, serve all three
         loose = _seeds_and_growth(field, more)
+        spread = on_spare_core(pixels, colour_spread_px, image, field, loose[1])
         cut = watershed_regions(loose[1], _cut_on(field).height, px_per_mm=s, seeds=loose[0])
-        field = replace(field, colour_spread=colour_spread_px(image, field, loose[1]))
+        field = replace(field, colour_spread=spread.result())
     # the rim shares decide the bearing: their steps set how wide the bearing's range
     # is.  On both renderers' prints a contact's edge lies at 0.22-0.5 of its film (0.1-
     # 0.3 of its peak): toward fewer pixels the film's share moves as far as the peak's,
@@ -439,7 +447,6 @@ def segment(
     steps = ((step, step), (1.0 / step, 1.0 / (1.0 + 0.25 * config.nudge)))
     # the alternates are decided on a spare core where one helps (they only read the
     # shared field), and the measure stage goes on with the mask meanwhile
-    pixels = field.score.size
     alternates = [
         on_spare_core(pixels, _decide, field, fewer, s, _rims(rim, steps[0]), cut, None),
         on_spare_core(pixels, _decide, field, more, s, _rims(rim, steps[1]), cut, loose),
