@@ -257,11 +257,14 @@ def detect_markers(
         two markers with the same id are in view).
     """
     arr = np.asarray(image)
-    grey_full = _grey(arr)
-    rows, cols = grey_full.shape
+    rows, cols = arr.shape[:2]
     aruco_dict = _dictionary(dictionary)
-    factor = reduction(grey_full.shape)
+    factor = reduction((rows, cols))
+    # the grey of the whole photo where the markers are looked for on it; with them found
+    # on a reduced copy, only that of each marker's crop (the conversion is per pixel)
+    grey_full = None
     if coarse is None and factor >= 2:  # by a whole factor (OpenCV's area average is fastest so)
+        grey_full = _grey(arr)
         crop = grey_full[: rows - rows % factor, : cols - cols % factor]
         small = cv2.resize(
             crop, (crop.shape[1] // factor, crop.shape[0] // factor), interpolation=cv2.INTER_AREA
@@ -270,6 +273,7 @@ def detect_markers(
     if coarse is not None and coarse.found:
         raw, tolerance = list(coarse.found), coarse.tolerance
     else:  # small markers may only show at full resolution
+        grey_full = _grey(arr) if grey_full is None else grey_full
         raw = _detect_raw(grey_full, aruco_dict)
         tolerance = 1.5
     bits = int(aruco_dict.markerSize)
@@ -281,7 +285,7 @@ def detect_markers(
         y0 = max(int(np.floor(corners[:, 1].min())) - pad, 0)
         x1 = min(int(np.ceil(corners[:, 0].max())) + pad + 1, cols)
         y1 = min(int(np.ceil(corners[:, 1].max())) + pad + 1, rows)
-        crop = grey_full[y0:y1, x0:x1].astype(np.float32)
+        crop = _grey(arr[y0:y1, x0:x1]).astype(np.float32)
         offset = np.array([x0, y0], dtype=np.float64)
         refined = _refine_corners(crop, corners - offset, bits, tolerance)
         if refined is None:
