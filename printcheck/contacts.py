@@ -46,13 +46,12 @@ __all__ = [
 
 
 def flat_where(mask: np.ndarray) -> np.ndarray:
-    """Row-major flat indices of the true pixels of a 2-D bool mask: ``np.flatnonzero``,
-    found by OpenCV's ``findNonZero``, many times faster on a large, sparse mask."""
-    pts = cv2.findNonZero(np.ascontiguousarray(mask, dtype=bool).view(np.uint8))
-    if pts is None:
-        return np.zeros(0, np.intp)
-    pts = pts.reshape(-1, 2).astype(np.intp)
-    return np.asarray(pts[:, 1] * mask.shape[1] + pts[:, 0])
+    """Row-major flat indices of the true pixels of a 2-D bool mask (``np.flatnonzero``).
+
+    NumPy 2 finds them in bool masks several times faster than OpenCV's ``findNonZero``
+    where a mask is not sparse (a fifth of the frame or more: 0.5 against 2-3 ms on a
+    0.7 MP mask), and as fast where it is."""
+    return np.flatnonzero(np.asarray(mask, dtype=bool))
 
 
 def disc(radius: int) -> np.ndarray:
