@@ -177,12 +177,13 @@ def _marks(
         if wide.any():
             from scipy import ndimage
 
-            region = np.asarray(ndimage.binary_fill_holes(wide[film_lab]), bool)
-            marked = marked & ~wide[film_lab]
+            film_wide = np.take(wide, film_lab)
+            region = np.asarray(ndimage.binary_fill_holes(film_wide), bool)
+            marked = marked & ~film_wide
             area, lab = _pieces(marked)
     broad = area > _BROAD_MM2 * s * s
     if broad.any():
-        marked &= ~broad[lab]
+        marked &= ~np.take(broad, lab)
     return marked, region
 
 
@@ -329,7 +330,7 @@ def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> flo
     large[0] = False
     if np.count_nonzero(large) < 5:
         return 0.0
-    big = large.view(np.uint8)[lab]
+    big = np.take(large.view(np.uint8), lab)
     inside = cv2.distanceTransform(big, cv2.DIST_L2, cv2.DIST_MASK_5)
     outside = cv2.distanceTransform(1 - big, cv2.DIST_L2, cv2.DIST_MASK_5)
     # the large contacts and the bare metal round them (not another contact's pixels),

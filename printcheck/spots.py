@@ -113,7 +113,7 @@ def spots_of(
     kept = kept[np.argsort(_first_pixels(lab, stats, kept), kind="stable")]
     lut = np.zeros(n, np.int32)
     lut[kept] = np.arange(1, kept.size + 1, dtype=np.int32)
-    labels = lut[lab]
+    labels = np.take(lut, lab)
     area = stats[kept, cv2.CC_STAT_AREA].astype(np.float64)
     centroid = cent[kept][:, ::-1].astype(np.float64)  # cv2 gives (x, y)
     return labels, int(kept.size), area, centroid
