@@ -480,7 +480,9 @@ def _watershed(
         rows = slice(int(used[0]), int(used[-1]) + 1)
         mask, seeds_in = mask[rows], markers[rows]
         ws = watershed(  # type: ignore[no-untyped-call]
-            -height[rows], markers=np.where(mask & (seeds_in > 0), seeds_in + n, 0), mask=mask,
+            -height[rows],
+            markers=np.where(mask & (seeds_in > 0), seeds_in + n, 0),
+            mask=mask,
             connectivity=2,
         )
         return rows, mask, ws

@@ -68,9 +68,7 @@ def cores_available() -> int:
         return os.cpu_count() or 1
 
 
-def _rectify(
-    image: np.ndarray, options: InspectOptions, coarse: Coarse | None = None
-) -> Rectified:
+def _rectify(image: np.ndarray, options: InspectOptions, coarse: Coarse | None = None) -> Rectified:
     """The locate stage: markers (or the explicit scale) to the rectified window;
     ``coarse``: the markers already found on a reduced copy (see :func:`inspect_photo`)."""
     from printcheck.locate import LocateConfig, locate, rectify_scale
