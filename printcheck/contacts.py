@@ -396,11 +396,9 @@ def _drop_crumbs(
     sel = split[lab]
     flat = idx[sel]
     lab_f = lab[sel]
-    order = np.lexsort((height.ravel()[flat], lab_f))
-    last = np.r_[lab_f[order][1:] != lab_f[order][:-1], True]
     keep = np.ones(n, bool)
     keep[np.unique(piece[sel])] = False
-    keep[pieces.ravel()[flat[order][last]]] = True
+    keep[pieces.ravel()[_highest(flat, lab_f, height.ravel()[flat])]] = True
     if seeds is not None and lobe_px > 0:
         seeded = np.zeros(n, bool)
         seeded[piece[seeds.ravel()[idx]]] = True
@@ -410,6 +408,23 @@ def _drop_crumbs(
     mask.ravel()[idx[~keep[piece]]] = False
     owner[~keep] = 0
     return mask, pieces, owner
+
+
+def _highest(flat: np.ndarray, lab: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Of the pixels ``flat`` (ascending) labelled ``lab``, each label's highest by
+    ``values``, the last of them where several are as high (a NaN above any number): the
+    last of each label in ``np.lexsort((values, lab))``, found by two maxima per label
+    in place of the sort."""
+    if np.isnan(values).any():
+        order = np.lexsort((values, lab))
+        return np.asarray(flat[order][np.r_[lab[order][1:] != lab[order][:-1], True]])
+    n = int(lab.max()) + 1
+    peak = np.full(n, -np.inf, values.dtype)
+    np.maximum.at(peak, lab, values)
+    top = np.flatnonzero(values == peak[lab])
+    last = np.full(n, -1, np.intp)
+    np.maximum.at(last, lab[top], top)
+    return np.asarray(flat[last[last >= 0]])
 
 
 def _pieces_of(
@@ -519,7 +534,9 @@ def merge_regions(
     peak = _label_max(lab, height.ravel()[idx], n + 1).astype(np.float64)
     area = np.bincount(lab, minlength=n + 1).astype(np.float64)
     keys, saddles = _saddles(regions, n, height)
-    parent = np.arange(n + 1)
+    # the merging goes pair by pair, each decision on the merges before it: on Python
+    # lists and floats, many times faster one at a time than numpy's scalars
+    parent = list(range(n + 1))
 
     def find(i: int) -> int:
         root = i
@@ -529,27 +546,37 @@ def merge_regions(
             parent[i], i = root, parent[i]
         return root
 
-    top = peak.copy()
+    top = peak.tolist()
+    size = area.tolist()
     small_px = (0.75 * px_per_mm) ** 2 * math.pi  # a lobe 1.5 mm across
-    for k in np.argsort(-saddles, kind="stable"):
-        a, b = find(int(keys[k] // (n + 1))), find(int(keys[k] % (n + 1)))
+    order = np.argsort(-saddles, kind="stable")
+    pairs = zip(
+        (keys[order] // (n + 1)).tolist(),
+        (keys[order] % (n + 1)).tolist(),
+        saddles[order].tolist(),
+        strict=True,
+    )
+    for first, second, saddle in pairs:
+        a, b = find(first), find(second)
         if a == b:
             continue
-        saddle = float(saddles[k])
         low = min(top[a], top[b])
         # lobes up to 1.5 mm across: a shallow valley may be a gap the blur filled in;
         # between lobes twice that, a gap would show deep, so a shallow valley is the
         # film thinning within one contact
         share = split_share
         if large_lobes_deeper:
-            across = math.sqrt(min(area[a], area[b]) / small_px)
+            across = math.sqrt(min(size[a], size[b]) / small_px)
             share *= min(max(2.0 - across, 0.4), 1.0)
         if saddle < share * low and low - saddle >= min_dip and low >= min_low:
             continue
         parent[b] = a
         top[a] = max(top[a], top[b])
-        area[a] += area[b]
-    roots = np.array([find(i) for i in range(n + 1)], dtype=np.int32)
+        size[a] += size[b]
+    # every region's root, by pointer jumping
+    roots = np.asarray(parent, dtype=np.int32)
+    while not np.array_equal(jumped := roots[roots], roots):
+        roots = jumped
     out = np.zeros(regions.size, np.int32)
     out[idx] = roots[lab]
     return out.reshape(regions.shape)
