@@ -877,3 +877,22 @@ def test_the_saddles_are_the_highest_of_the_lower_sides_along_each_shared_bounda
     keys, saddles = _saddles(regions, n, height)
     assert keys.tolist() == sorted(want)
     assert np.allclose(saddles, [want[k] for k in sorted(want)])
+
+
+def test_each_labels_highest_pixel_is_the_last_of_a_lexsort() -> None:
+    """``_highest`` (two maxima per label) picks what the last of each label in
+    ``np.lexsort((values, labels))`` is: the highest, the last of equals, a NaN above
+    any number (numpy's sort order)."""
+    from printcheck.contacts import _highest
+
+    rng = np.random.default_rng(5)
+    for case in range(200):
+        m = int(rng.integers(1, 300))
+        flat = np.sort(rng.choice(5000, m, replace=False))
+        lab = rng.integers(1, 12, m)
+        values = np.round(rng.random(m) * 3, 1).astype(np.float32)  # many ties
+        if case % 5 == 0:
+            values[rng.random(m) < 0.1] = np.nan
+        order = np.lexsort((values, lab))
+        want = flat[order][np.r_[lab[order][1:] != lab[order][:-1], True]]
+        assert sorted(_highest(flat, lab, values).tolist()) == sorted(want.tolist())
