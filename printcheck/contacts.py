@@ -26,6 +26,7 @@ level to the bare metal: a worn-through contact is where the coat is more than h
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import cv2
 import numpy as np
@@ -39,6 +40,8 @@ __all__ = [
     "contact_labels",
     "watershed_regions",
     "merge_regions",
+    "Boundary",
+    "boundary",
     "finish",
     "fill_small_holes",
     "drop_edge_slivers",
@@ -518,6 +521,7 @@ def merge_regions(
     px_per_mm: float,
     large_lobes_deeper: bool = True,
     min_low: float = -math.inf,
+    shared: Boundary | None = None,
 ) -> np.ndarray:
     """Join neighbouring watershed regions unless the valley between them is deep.
 
@@ -525,6 +529,10 @@ def merge_regions(
     water rising from the peaks would join them; two stay apart when the saddle is below
     ``split_share`` of the lower peak and at least ``min_dip`` below it (and, with
     ``min_low``, the lower peak reaches that).
+
+    ``shared``: the :class:`Boundary` on ``height`` of a label image of which
+    ``regions`` is part (the same labels, or 0), where several decisions cut the same
+    watershed: read, not found again.
     """
     if n <= 1:
         return regions
@@ -533,7 +541,10 @@ def merge_regions(
     lab = regions.ravel()[idx].astype(np.intp)
     peak = _label_max(lab, height.ravel()[idx], n + 1).astype(np.float64)
     area = np.bincount(lab, minlength=n + 1).astype(np.float64)
-    keys, saddles = _saddles(regions, n, height)
+    if shared is None:
+        keys, saddles = _saddles(regions, n, height)
+    else:
+        keys, saddles = shared.within(regions).saddles()
     # the merging goes pair by pair, each decision on the merges before it: on Python
     # lists and floats, many times faster one at a time than numpy's scalars
     parent = list(range(n + 1))
@@ -582,32 +593,71 @@ def merge_regions(
     return out.reshape(regions.shape)
 
 
-def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Each pair of touching regions (key ``a * (n + 1) + b``, a < b) and its saddle.
+@dataclass(frozen=True, eq=False)
+class Boundary:
+    """Every pair of 8-neighbour pixels of a label image that lie in two regions: their
+    flat indices ``p`` and ``q``, their regions' key ``a * (n + 1) + b`` (a < b) and the
+    lower of their heights (float64), sorted by key (stably)."""
 
-    The saddle is the highest value, along their shared boundary, of the lower of two
-    8-neighbours that lie one in each region (found from the pixels where two touch).
-    """
+    key: np.ndarray
+    p: np.ndarray
+    q: np.ndarray
+    low: np.ndarray
+
+    def within(self, regions: np.ndarray) -> Boundary:
+        """The pairs of which both pixels lie in a region of ``regions`` (the same label
+        image, or it with some regions' pixels set to 0)."""
+        flat = regions.ravel()
+        sel = (flat[self.p] != 0) & (flat[self.q] != 0)
+        return Boundary(self.key[sel], self.p[sel], self.q[sel], self.low[sel])
+
+    def saddles(self) -> tuple[np.ndarray, np.ndarray]:
+        """Each pair of touching regions (its key) and its saddle: the highest of the
+        lower heights along their shared boundary."""
+        if not self.key.size:
+            return np.zeros(0, np.int64), np.zeros(0)
+        starts = np.flatnonzero(np.r_[True, self.key[1:] != self.key[:-1]])
+        return self.key[starts], np.maximum.reduceat(self.low, starts)
+
+
+def boundary(regions: np.ndarray, n: int, height: np.ndarray) -> Boundary:
+    """The :class:`Boundary` of ``regions`` (labels 1..``n``, 0 none) on ``height``,
+    found from the pixels where two regions touch (each pair of neighbours met once,
+    from the first in row-major order)."""
     lab = regions.ravel()
-    hf = height.ravel()  # in its own type: the saddles are its values
+    hf = height.ravel()  # in its own type: the lower heights are its values
     at = _touching(regions)
     here = lab[at]
-    keys_l, vals_l = [], []
+    keys_l, p_l, q_l, low_l = [], [], [], []
     for nb_at, inside in _neighbours(at, regions.shape, _FORWARD):
         nb = np.where(inside, lab[nb_at], 0)
         sel = (nb != 0) & (nb != here)
         if sel.any():
             a, b = here[sel].astype(np.int64), nb[sel].astype(np.int64)
             keys_l.append(np.minimum(a, b) * (n + 1) + np.maximum(a, b))
-            vals_l.append(np.minimum(hf[at[sel]], hf[nb_at[sel]]))
+            p_l.append(at[sel])
+            q_l.append(nb_at[sel])
+            low_l.append(np.minimum(hf[at[sel]], hf[nb_at[sel]]))
     if not keys_l:
-        return np.zeros(0, np.int64), np.zeros(0)
+        none = np.zeros(0, np.intp)
+        return Boundary(none.astype(np.int64), none, none, np.zeros(0))
     keys = np.concatenate(keys_l)
-    vals = np.concatenate(vals_l).astype(np.float64)
     order = np.argsort(keys, kind="stable")
-    keys, vals = keys[order], vals[order]
-    starts = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]])
-    return keys[starts], np.maximum.reduceat(vals, starts)
+    return Boundary(
+        keys[order],
+        np.concatenate(p_l)[order],
+        np.concatenate(q_l)[order],
+        np.concatenate(low_l).astype(np.float64)[order],
+    )
+
+
+def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Each pair of touching regions (key ``a * (n + 1) + b``, a < b) and its saddle.
+
+    The saddle is the highest value, along their shared boundary, of the lower of two
+    8-neighbours that lie one in each region (found from the pixels where two touch).
+    """
+    return boundary(regions, n, height).saddles()
 
 
 def _carved(labels: np.ndarray, idx: np.ndarray, height: np.ndarray) -> np.ndarray:

@@ -37,6 +37,8 @@ import cv2
 import numpy as np
 
 from printcheck.contacts import (
+    Boundary,
+    boundary,
     disc,
     drop_edge_slivers,
     fill_small_holes,
@@ -437,7 +439,10 @@ def segment(
         # the loosest decision's seeds and growth, and its watershed, serve all three
         loose = _seeds_and_growth(field, more)
         spread = on_spare_core(pixels, colour_spread_px, image, field, loose[1])
-        cut = watershed_regions(loose[1], _cut_on(field).height, px_per_mm=s, seeds=loose[0])
+        height = _cut_on(field).height
+        regions, n = watershed_regions(loose[1], height, px_per_mm=s, seeds=loose[0])
+        # where its regions touch, read once for the three decisions
+        cut = (regions, n, boundary(regions, n, height))
         field = replace(field, colour_spread=spread.result())
     # the rim shares decide the bearing: their steps set how wide the bearing's range
     # is.  On both renderers' prints a contact's edge lies at 0.22-0.5 of its film (0.1-
@@ -541,7 +546,7 @@ def _decide(
     config: SegmentConfig,
     s: float,
     rim: tuple[float, float],
-    cut: tuple[np.ndarray, int] | None,
+    cut: tuple[np.ndarray, int, Boundary] | None,
     grown: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> np.ndarray:
     """The contact mask from the field, by ``config``'s thresholds and the rim shares
@@ -549,12 +554,13 @@ def _decide(
     :func:`printcheck.contacts.finish`).
 
     ``cut`` is the watershed of the loosest decision (compound on the reference), shared
-    by the three decisions; ``grown``, its seeds and growth when ``config`` is that one.
+    by the three decisions, with its regions' boundary; ``grown``, its seeds and growth
+    when ``config`` is that one.
     """
     if config.compound_on == "reference":
         assert cut is not None
         seeds, grown_px = grown if grown is not None else _seeds_and_growth(field, config)
-        regions, n = cut
+        regions, n, shared = cut
         on = _cut_on(field)
         labels = merge_regions(
             np.where(grown_px, regions, 0),
@@ -564,6 +570,7 @@ def _decide(
             min_dip=3.0 * on.noise,
             px_per_mm=s,
             min_low=on.min_low,
+            shared=shared,
         )
         mask = finish(
             labels,

@@ -896,3 +896,22 @@ def test_each_labels_highest_pixel_is_the_last_of_a_lexsort() -> None:
         order = np.lexsort((values, lab))
         want = flat[order][np.r_[lab[order][1:] != lab[order][:-1], True]]
         assert sorted(_highest(flat, lab, values).tolist()) == sorted(want.tolist())
+
+
+def test_saddles_read_from_a_shared_boundary_are_those_found_on_part_of_it() -> None:
+    """The three decisions read the saddles of their part of one watershed from its
+    boundary found once: the same as found on that part alone (the plain loop of the
+    saddles test is the reference for the latter)."""
+    from printcheck.contacts import _saddles, boundary
+
+    rng = np.random.default_rng(11)
+    regions = np.kron(rng.integers(1, 9, (10, 12)), np.ones((3, 3), np.int32)).astype(np.int32)
+    height = rng.random(regions.shape).astype(np.float32)
+    n = int(regions.max())
+    shared = boundary(regions, n, height)
+    for _ in range(5):
+        part = np.where(rng.random(regions.shape) < 0.7, regions, 0)
+        keys, saddles = shared.within(part).saddles()
+        want_keys, want = _saddles(part, n, height)
+        assert np.array_equal(keys, want_keys)
+        assert np.array_equal(saddles, want)
