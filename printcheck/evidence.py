@@ -28,6 +28,7 @@ import numpy as np
 
 from printcheck.errors import OptionError
 from printcheck.ranks import median
+from printcheck.sparecore import on_spare_core, spare_core_helps
 
 __all__ = [
     "EVIDENCE_FLOOR",
@@ -277,7 +278,9 @@ def block_quantiles(
     The quantiles are numpy's (linear interpolation between order statistics), of every
     pixel of a block up to 24 x 24; a larger block is read on every k-th row and column
     (k the whole factor that brings it to 24 or fewer), which a smooth level does not
-    miss.
+    miss.  Where a spare core helps and there are pixels enough to read (a few ms'
+    work), the lower half of the rows of blocks is read there meanwhile (each block is
+    read alone: the same grids).
 
     Returns
     -------
@@ -286,6 +289,28 @@ def block_quantiles(
     count : (BY, BX) int ndarray
         Pixels of ``where`` read in each block.
     """
+    by = math.ceil(values.shape[0] / block)
+    read_px = values.size // max(1, block // 24) ** 2
+    if by < 2 or read_px < _SPLIT_READ_PX or not spare_core_helps(values.size):
+        return _block_quantiles(values, where, block, quantiles)
+    half = (by // 2) * block
+    lower = on_spare_core(
+        values.size, _block_quantiles, values[half:], where[half:], block, quantiles
+    )
+    q, count = _block_quantiles(values[:half], where[:half], block, quantiles)
+    q_low, count_low = lower.result()
+    return np.concatenate([q, q_low], axis=1), np.concatenate([count, count_low])
+
+
+#: The pixels :func:`block_quantiles` reads from which it reads half on a spare core:
+#: below, handing the work over costs more than it saves (measured on 0.7 MP frames).
+_SPLIT_READ_PX = 250_000
+
+
+def _block_quantiles(
+    values: np.ndarray, where: np.ndarray, block: int, quantiles: tuple[float, ...]
+) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`block_quantiles` in this thread."""
     rows, cols = values.shape
     by, bx = max(1, math.ceil(rows / block)), max(1, math.ceil(cols / block))
     step = max(1, block // 24)
