@@ -121,16 +121,16 @@ def contact_field(
     score = evidence - maps.bare
     smooth = smoothed - maps.bare
     noise = map_median(maps.sigma_spot, stat)
-    zs = (smooth / maps.sigma_spot).astype(np.float32)
+    zs = (smooth / maps.sigma_spot).astype(np.float32, copy=False)
     if compound_on == "reference":
         strong = zs >= 2.0 * seed_sigma
         local = _compound_level(smooth, valid, stat, strong, s, local_mm)
     else:
         local = _coat_depth(score, smooth, maps.bare, stat, evidence)
     return Field(
-        score=score.astype(np.float32),
-        smooth=smooth.astype(np.float32),
-        z=(score / maps.sigma).astype(np.float32),
+        score=score.astype(np.float32, copy=False),
+        smooth=smooth.astype(np.float32, copy=False),
+        z=(score / maps.sigma).astype(np.float32, copy=False),
         zs=zs,
         local=local,
         valid=valid,
@@ -210,7 +210,7 @@ def _compound_level(
     v = smooth[stat]
     # the top 2 % of the window, or on a sparse print the share that is clearly marked
     # (ten noise levels up), so that a print of a few spots is not judged by its noise
-    top = min(max(float(np.count_nonzero(strong[stat])) / max(v.size, 1), 0.002), 0.02)
+    top = min(max(float(np.count_nonzero(strong & stat)) / max(v.size, 1), 0.002), 0.02)
     typical = median(v[v >= quantile(v, 1.0 - top)]) if v.size else 0.0
     block = max(8, int(round(local_mm * s)))
     q, count = block_quantiles(smooth, valid, block, (0.98,))
@@ -284,7 +284,7 @@ def with_relief(
     if not ok.any():
         return field
     level = upsample(fill_and_smooth(q[0], ok.astype(np.float32), 1.5), block, log_b.shape)
-    relief = (level - log_b).astype(np.float32)
+    relief = (level - log_b).astype(np.float32, copy=False)
     noise = max(float(np.median((q[1] - q[0])[ok])) / 1.645, 1e-4)
     # the middles of the strongly coloured marks (their colour, blurred wider than their
     # darkness, reaches past their edges)
