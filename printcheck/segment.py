@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from concurrent.futures import Future
 from dataclasses import dataclass, replace
 from typing import Literal
 
@@ -441,8 +442,9 @@ def segment(
         spread = on_spare_core(pixels, colour_spread_px, image, field, loose[1])
         height = _cut_on(field).height
         regions, n = watershed_regions(loose[1], height, px_per_mm=s, seeds=loose[0])
-        # where its regions touch, read once for the three decisions
-        cut = (regions, n, boundary(regions, n, height))
+        # where its regions touch, read once for the three decisions (on a spare core
+        # while they find their seeds)
+        cut = (regions, n, on_spare_core(pixels, boundary, regions, n, height))
         field = replace(field, colour_spread=spread.result())
     # the rim shares decide the bearing: their steps set how wide the bearing's range
     # is.  On both renderers' prints a contact's edge lies at 0.22-0.5 of its film (0.1-
@@ -546,7 +548,7 @@ def _decide(
     config: SegmentConfig,
     s: float,
     rim: tuple[float, float],
-    cut: tuple[np.ndarray, int, Boundary] | None,
+    cut: tuple[np.ndarray, int, Future[Boundary]] | None,
     grown: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> np.ndarray:
     """The contact mask from the field, by ``config``'s thresholds and the rim shares
@@ -570,7 +572,7 @@ def _decide(
             min_dip=3.0 * on.noise,
             px_per_mm=s,
             min_low=on.min_low,
-            shared=shared,
+            shared=shared.result(),
         )
         mask = finish(
             labels,
