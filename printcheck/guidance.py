@@ -170,9 +170,10 @@ def guidance(
 def _bare_patches(radius: np.ndarray, limit_px: float, frame: Frame) -> list[BarePatch]:
     """Disjoint circles of radius above ``limit_px``, largest first (at most 20)."""
     cand = (radius > limit_px) & (radius >= cv2.dilate(radius, np.ones((3, 3), np.uint8)))
-    rr, cc = np.nonzero(cand)
-    if rr.size == 0:
+    at = np.flatnonzero(cand)  # row-major, as np.nonzero, in a third of the time
+    if at.size == 0:
         return []
+    rr, cc = np.divmod(at, cand.shape[1])
     rad = radius[rr, cc]
     order = np.argsort(-rad, kind="stable")
     rr, cc, rad = rr[order], cc[order], rad[order]

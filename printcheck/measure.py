@@ -456,7 +456,7 @@ def _count_and_bearing(
     pc = np.clip(np.floor(cent[:, 0] + 0.5).astype(np.int64), 0, cols_px - 1)
     counted = keep & in_an[pr, pc]
     analysed_px = int(np.count_nonzero(in_an))
-    bearing_px = int(np.count_nonzero(keep[lab.ravel()[flat_where(in_an & (lab > 0))]]))
+    bearing_px = int(np.count_nonzero(np.take(keep, lab.ravel()[flat_where(in_an & (lab > 0))])))
     bearing = 100.0 * float(bearing_px) / analysed_px if analysed_px else 0.0
     return int(counted.sum()), bearing
 
@@ -491,7 +491,7 @@ def _faint(labels: np.ndarray, spots: Spots, clear: np.ndarray | None) -> int:
     if clear is None or len(spots.in_window) == 0:
         return 0
     stands = np.zeros(len(spots.in_window) + 1, bool)
-    stands[labels[clear & (labels > 0)]] = True
+    stands[np.take(labels.ravel(), flat_where(clear & (labels > 0)))] = True
     return int(np.count_nonzero(spots.in_window & ~stands[1:]))
 
 
