@@ -3,8 +3,10 @@
 ``printcheck inspect`` measures one photo at a time on a machine with two cores or more.
 The segment stage's decisions nudged for the range do not depend on its main decision, nor
 the measure stage's work on the main mask on them, nor the watershed's flooding of one
-part of the contacts on another's; NumPy, OpenCV and skimage's flooding release the GIL
-in their loops: a thread beside the caller's overlaps them.  Not in a batch's workers (nor
+part of the contacts on another's, nor one block's quantiles on another's, nor the
+brightness's relief on the contacts' body, nor the colour's spread on the watershed;
+NumPy, OpenCV and skimage's flooding release the GIL in their loops: a thread beside the
+caller's overlaps them.  Not in a batch's workers (nor
 the web application's), which hold OpenCV to one thread (one photo a core): there, and
 for windows too large to hold two sets of temporaries at once, the work is done at once
 in the caller's thread, with the same result.
