@@ -605,8 +605,8 @@ class Boundary:
     low: np.ndarray
 
     def within(self, regions: np.ndarray) -> Boundary:
-        """The pairs of which both pixels lie in a region of ``regions`` (the same label
-        image, or it with some regions' pixels set to 0)."""
+        """The pairs of which both pixels lie in a region of ``regions``: the same label
+        image with any of its pixels set to 0 (a decision's growth within the watershed)."""
         flat = regions.ravel()
         sel = (flat[self.p] != 0) & (flat[self.q] != 0)
         return Boundary(self.key[sel], self.p[sel], self.q[sel], self.low[sel])
