@@ -322,10 +322,10 @@ def print_stages(named: list[tuple[str, dict[str, Any]]]) -> None:
     )
     print(
         "  (the whole inspect overlaps work on a second core: the coarse marker search with\n"
-        "  the decode; in segment, half of each block-quantile pass, the relief with the body,\n"
-        "  the colour's spread and half the watershed, the watershed's boundary with the\n"
-        "  seeds, and the range's decisions with the main one and measure; the stage rows\n"
-        "  time each stage alone)"
+        "  the decode; in segment, half of the larger block-quantile passes, the relief with\n"
+        "  the body, the colour's spread and half the watershed, the watershed's boundary\n"
+        "  with the seeds, and the range's decisions with the main one and measure; the\n"
+        "  stage rows time each stage alone)"
     )
     for name, r in named:
         rows, cols = r["rect_shape"]

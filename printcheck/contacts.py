@@ -689,7 +689,8 @@ def _touching(labels: np.ndarray) -> np.ndarray:
     """Flat indices (ascending) of the labelled pixels of ``labels`` (int, 0 unlabelled)
     that have an 8-neighbour of another label, not 0: the highest label round a pixel
     (a dilation) or the lowest one (an erosion of the labels less one, in which the
-    unlabelled pixels wrap round to the highest value) differs from its own."""
+    unlabelled pixels stand above every label: 16-bit labels wrap round to the highest
+    value, wider ones are set to infinity) differs from its own."""
     kind = np.uint16 if int(labels.max(initial=0)) < np.iinfo(np.uint16).max else np.float64
     u = labels.astype(kind)
     high = cv2.dilate(u, _SQUARE)  # beyond the frame: below any label (OpenCV's default)

@@ -443,7 +443,9 @@ def segment(
         height = _cut_on(field).height
         regions, n = watershed_regions(loose[1], height, px_per_mm=s, seeds=loose[0])
         # where its regions touch, read once for the three decisions (on a spare core
-        # while they find their seeds)
+        # while they find their seeds).  Handed over before the decisions are: those on
+        # the spare core wait for it, and work waits only for work handed over before it
+        # (the pool takes it in order), never for work queued behind it
         cut = (regions, n, on_spare_core(pixels, boundary, regions, n, height))
         field = replace(field, colour_spread=spread.result())
     # the rim shares decide the bearing: their steps set how wide the bearing's range

@@ -4,7 +4,8 @@
 The segment stage's decisions nudged for the range do not depend on its main decision, nor
 the measure stage's work on the main mask on them, nor the watershed's flooding of one
 part of the contacts on another's, nor one block's quantiles on another's, nor the
-brightness's relief on the contacts' body, nor the colour's spread on the watershed;
+brightness's relief on the contacts' body, nor the colour's spread on the watershed, nor
+the decisions' seeds on where the watershed's regions touch;
 NumPy, OpenCV and skimage's flooding release the GIL in their loops: a thread beside the
 caller's overlaps them.  Not in a batch's workers (nor
 the web application's), which hold OpenCV to one thread (one photo a core): there, and
@@ -41,7 +42,8 @@ def spare_core_helps(pixels: int) -> bool:
     (else it works at once in the caller's): two cores or more, OpenCV not held to one
     thread, not more than :data:`PARALLEL_MAX_PX` ``pixels``, and not called from work
     already on the pool (a pool thread waiting for work queued behind it, or behind its
-    sibling waiting likewise, would wait for ever)."""
+    sibling waiting likewise, would wait for ever).  Work on the pool may wait for work
+    handed to it earlier: the pool starts work in the order it is handed over."""
     return not (
         cv2.getNumThreads() <= 1
         or (os.cpu_count() or 1) <= 1
