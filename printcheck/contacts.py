@@ -45,6 +45,7 @@ __all__ = [
     "finish",
     "fill_small_holes",
     "drop_edge_slivers",
+    "near_another",
 ]
 
 
@@ -541,10 +542,8 @@ def merge_regions(
     lab = regions.ravel()[idx].astype(np.intp)
     peak = _label_max(lab, height.ravel()[idx], n + 1).astype(np.float64)
     area = np.bincount(lab, minlength=n + 1).astype(np.float64)
-    if shared is None:
-        keys, saddles = _saddles(regions, n, height)
-    else:
-        keys, saddles = shared.within(regions).saddles()
+    touching = boundary(regions, n, height) if shared is None else shared.within(regions)
+    keys, saddles = touching.saddles()
     # the merging goes pair by pair, each decision on the merges before it: on Python
     # lists and floats, many times faster one at a time than numpy's scalars
     parent = list(range(n + 1))
@@ -651,15 +650,6 @@ def boundary(regions: np.ndarray, n: int, height: np.ndarray) -> Boundary:
     )
 
 
-def _saddles(regions: np.ndarray, n: int, height: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Each pair of touching regions (key ``a * (n + 1) + b``, a < b) and its saddle.
-
-    The saddle is the highest value, along their shared boundary, of the lower of two
-    8-neighbours that lie one in each region (found from the pixels where two touch).
-    """
-    return boundary(regions, n, height).saddles()
-
-
 def _carved(labels: np.ndarray, idx: np.ndarray, height: np.ndarray) -> np.ndarray:
     """Of the contact pixels ``idx`` (flat indices of ``labels``, all its labelled
     pixels), those removed to leave a gap where two contacts touch (the lower side)."""
@@ -685,21 +675,29 @@ _FORWARD = ((0, 1), (1, -1), (1, 0), (1, 1))
 _SQUARE = np.ones((3, 3), np.uint8)
 
 
-def _touching(labels: np.ndarray) -> np.ndarray:
-    """Flat indices (ascending) of the labelled pixels of ``labels`` (int, 0 unlabelled)
-    that have an 8-neighbour of another label, not 0: the highest label round a pixel
-    (a dilation) or the lowest one (an erosion of the labels less one, in which the
-    unlabelled pixels stand above every label: 16-bit labels wrap round to the highest
-    value, wider ones are set to infinity) differs from its own."""
+def near_another(labels: np.ndarray, reach: int = 1) -> np.ndarray:
+    """The labelled pixels of ``labels`` ((M, N) int, 0 unlabelled) with a pixel of
+    another label, not 0, within ``reach`` pixels along rows and columns (a square of
+    side 2 ``reach`` + 1; beyond the frame, no label), (M, N) bool: the highest label in
+    the square (a dilation) or the lowest one (an erosion of the labels less one, in
+    which the unlabelled pixels stand above every label: 16-bit labels wrap round to the
+    highest value, wider ones are set to infinity) differs from the pixel's own."""
     kind = np.uint16 if int(labels.max(initial=0)) < np.iinfo(np.uint16).max else np.float64
+    square = _SQUARE if reach == 1 else np.ones((2 * reach + 1, 2 * reach + 1), np.uint8)
     u = labels.astype(kind)
-    high = cv2.dilate(u, _SQUARE)  # beyond the frame: below any label (OpenCV's default)
+    high = cv2.dilate(u, square)  # beyond the frame: below any label (OpenCV's default)
     if kind is np.uint16:
         less = u - np.uint16(1)
     else:
         less = np.where(labels > 0, u - 1.0, np.inf)
-    low = cv2.erode(less, _SQUARE)  # beyond the frame: above any label
-    return flat_where((u > 0) & ((high != u) | (low != less)))
+    low = cv2.erode(less, square)  # beyond the frame: above any label
+    return np.asarray((u > 0) & ((high != u) | (low != less)))
+
+
+def _touching(labels: np.ndarray) -> np.ndarray:
+    """Flat indices (ascending) of the labelled pixels of ``labels`` that have an
+    8-neighbour of another label, not 0 (:func:`near_another`)."""
+    return flat_where(near_another(labels))
 
 
 def _neighbours(

@@ -11,7 +11,7 @@ from the coat to bare metal (with compound on the work).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import cv2
 import numpy as np
@@ -29,7 +29,7 @@ from printcheck.evidence import (
 )
 from printcheck.ranks import median, quantile
 
-__all__ = ["Field", "colour_spread_px", "contact_field", "with_relief"]
+__all__ = ["Field", "colour_spread_px", "contact_field", "relief_of"]
 
 _BROAD_MM2 = 64.0  # no contact island is larger (an 8 mm square)
 # A faint film: a mark under this share of the compound's level nearby ...
@@ -55,7 +55,7 @@ class Field:
     glare: np.ndarray  # burnt out
     noise: float  # median spot-scale noise
     edge: np.ndarray | None = None  # visible, within EDGE_MM of where the surface is hidden
-    relief: np.ndarray | None = None  # how much darker than the bare metal (see with_relief())
+    relief: np.ndarray | None = None  # how much darker than the bare metal (see relief_of())
     relief_noise: float = 0.0  # its spread over the bare metal
     body: np.ndarray | None = None  # inside a contact at spot scale (see segment.with_body())
     colour_spread: float = 0.0  # the colour's edges' spread past the brightness's, px
@@ -245,17 +245,19 @@ def _coat_depth(
 _RELIEF_CONTRAST = 5.0
 
 
-def with_relief(
+def relief_of(
     field: Field,
-    image: np.ndarray,
+    grey: np.ndarray,
     stat: np.ndarray,
     *,
     px_per_mm: float,
     spot_mm: float,
     background_mm: float,
-) -> Field:
-    """``field`` with its :attr:`Field.relief`: how much darker than the bare metal
-    round it each pixel is (log brightness), where the compound darkens the metal.
+) -> tuple[np.ndarray | None, float]:
+    """The :attr:`Field.relief` of ``field`` and its noise: how much darker than the
+    bare metal round it each pixel is (log brightness), where the compound darkens the
+    metal; (None, 0.0) where it does not.  It reads the field's noise levels and the
+    photo's ``grey`` ((M, N) uint8) alone (not the edge band nor the body).
 
     A phone stores brightness at full resolution but colour at a quarter of it (JPEG's
     4:2:0 sampling) and then smooths the colour to hide its noise: two contacts 0.2 mm
@@ -273,7 +275,7 @@ def with_relief(
     the median over 1.645.
     """
     s = px_per_mm
-    bright = cv2.cvtColor(image, cv2.COLOR_BGR2GRAY).astype(np.float32)
+    bright = grey.astype(np.float32)
     log_b = cv2.GaussianBlur(
         cv2.log(bright + np.float32(LOG_OFFSET)), (0, 0), max(0.5 * spot_mm * s, 0.35)
     )
@@ -282,7 +284,7 @@ def with_relief(
     q, count = block_quantiles(log_b, bare, block, (0.5, 0.95))
     ok = well_read(count, block, any_if_none=False)
     if not ok.any():
-        return field
+        return None, 0.0
     level = upsample(fill_and_smooth(q[0], ok.astype(np.float32), 1.5), block, log_b.shape)
     relief = (level - log_b).astype(np.float32, copy=False)
     noise = max(float(np.median((q[1] - q[0])[ok])) / 1.645, 1e-4)
@@ -290,8 +292,8 @@ def with_relief(
     # darkness, reaches past their edges)
     strong = (field.zs >= 10.0) & field.valid
     if np.count_nonzero(strong) < 20 or quantile(relief[strong], 0.9) < _RELIEF_CONTRAST * noise:
-        return field
-    return replace(field, relief=relief, relief_noise=noise)
+        return None, 0.0
+    return relief, noise
 
 
 #: How far (px) either side of the contacts' outlines their edges are read.
@@ -303,7 +305,7 @@ SPREAD_REACH_PX = 8
 SPREAD_MAX_PX = 3.0
 
 
-def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> float:
+def colour_spread_px(grey: np.ndarray, field: Field, region: np.ndarray) -> float:
     """How much further the colour's edges are spread than the brightness's, as a
     Gaussian's sigma in pixels: sqrt(var_colour - var_brightness), 0 where it is not.
 
@@ -313,7 +315,8 @@ def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> flo
     brightness edge) says.  Read where the compound darkens the metal (``field`` with a
     relief): at the same edges the brightness steps as the colour does, and a film
     thinning to its rim widens both alike, so the difference of their spreads is the
-    colour's own.  ``region`` ((M, N) bool) holds the contacts; only those as large as
+    colour's own (the brightness: the photo's ``grey``, (M, N) uint8).  ``region`` ((M, N)
+    bool) holds the contacts; only those as large as
     a disc :data:`SPREAD_REACH_PX` in radius are read, on their edge profiles averaged
     over every such contact (by the distance from the outline, in whole pixels, out to
     that reach either side): the spread of each profile is the variance of its rise.
@@ -344,8 +347,7 @@ def colour_spread_px(image: np.ndarray, field: Field, region: np.ndarray) -> flo
     count = np.bincount(bins, minlength=2 * reach + 1)
     if count.min() < 50:
         return 0.0
-    gray = cv2.cvtColor(image, cv2.COLOR_BGR2GRAY).ravel()[at].astype(np.float32)
-    darkness = -np.log(gray + np.float32(LOG_OFFSET))
+    darkness = -np.log(grey.ravel()[at].astype(np.float32) + np.float32(LOG_OFFSET))
     spreads = []
     for values in (field.score.ravel()[at], darkness):
         profile = np.bincount(bins, values.astype(np.float64), minlength=2 * reach + 1) / count

@@ -36,7 +36,7 @@ import cv2
 import numpy as np
 
 from printcheck.cells import Cell, Grid, cell_sums, cells_of, in_window
-from printcheck.contacts import flat_where
+from printcheck.contacts import flat_where, near_another
 from printcheck.errors import OptionError
 from printcheck.frame import Frame
 from printcheck.guidance import BarePatch, Guidance, HighArea, guidance, largest_bare
@@ -550,17 +550,7 @@ def _crowded(
         return 0
     # a neighbour k pixels away (centre to centre) leaves a gap of k - 1 pixels
     k = max(2, int(round(config.part_px * px_per_mm / photo_px_per_mm)))
-    box = np.ones((2 * k + 1, 2 * k + 1), np.uint8)
-    lab = labels.astype(np.float32)  # exact for fewer than 2**24 spots
-    high = cv2.dilate(lab, box, borderType=cv2.BORDER_CONSTANT, borderValue=0)
-    low = cv2.erode(
-        np.where(labels > 0, lab, np.float32(2**24)),
-        box,
-        borderType=cv2.BORDER_CONSTANT,
-        borderValue=2**24,
-    )
-    own = labels > 0
-    touched = own & ((high != lab) | (low != lab))
+    touched = near_another(labels, k)
     near = np.zeros(int(labels.max()) + 1, bool)
     near[labels[touched]] = True
     return int(np.count_nonzero(near[1:][spots.in_window]))

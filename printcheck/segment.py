@@ -15,7 +15,7 @@ The steps (see :mod:`printcheck.evidence`, :mod:`printcheck.field` and
 3. the local bare level and noise of the evidence, over the pixels that are not contact
    (what stands clearly above a coarse first estimate is left out of the fine one);
 4. the local level of the compound, from the strongest marks nearby; and, where the
-   compound darkens the metal, the brightness's relief (:func:`printcheck.field.with_relief`),
+   compound darkens the metal, the brightness's relief (:func:`printcheck.field.relief_of`),
    kept at the photo's full resolution where the colour is not;
 5. contacts: seeds (at half the share along the edge of what the photo shows, where a
    card cuts spots), growth, separation (on the relief where there is one), outlines (at
@@ -61,7 +61,7 @@ from printcheck.evidence import (
     neutral_evidence,
     rebuilt_highlights,
 )
-from printcheck.field import Field, colour_spread_px, contact_field, map_median, with_relief
+from printcheck.field import Field, colour_spread_px, contact_field, map_median, relief_of
 from printcheck.ranks import median, quantile, quantiles
 from printcheck.sparecore import Later, on_spare_core
 
@@ -408,20 +408,22 @@ def segment(
         washed = washed & (field.z >= 2.0)
     pixels = field.score.size
     if config.compound_on == "reference":
+        # the brightness, for the relief and the colour's spread
+        grey = cv2.cvtColor(image, cv2.COLOR_BGR2GRAY)
         # the relief reads neither the edge band nor the body: on a spare core meanwhile
         relieved = on_spare_core(
             pixels,
-            with_relief,
+            relief_of,
             field,
-            image,
+            grey,
             stat,
             px_per_mm=s,
             spot_mm=config.spot_mm,
             background_mm=config.background_mm,
         )
         field = with_body(with_edge(field, s), config)
-        relief = relieved.result()
-        field = replace(field, relief=relief.relief, relief_noise=relief.relief_noise)
+        relief, relief_noise = relieved.result()
+        field = replace(field, relief=relief, relief_noise=relief_noise)
     level = map_median(field.local, stat)
     if level / field.noise < _NO_COMPOUND_CONTRAST:
         # the strongest marks are no stronger than the metal's own colour noise: there is
@@ -439,7 +441,7 @@ def segment(
     if config.compound_on == "reference":
         # the loosest decision's seeds and growth, and its watershed, serve all three
         loose = _seeds_and_growth(field, more)
-        spread = on_spare_core(pixels, colour_spread_px, image, field, loose[1])
+        spread = on_spare_core(pixels, colour_spread_px, grey, field, loose[1])
         height = _cut_on(field).height
         regions, n = watershed_regions(loose[1], height, px_per_mm=s, seeds=loose[0])
         # where its regions touch, read once for the three decisions (on a spare core

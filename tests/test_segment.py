@@ -835,7 +835,7 @@ def test_where_contacts_touch_is_where_a_3x3_neighbourhood_holds_another_label(m
     8-neighbour of another label, not 0: checked against ``scipy.ndimage.generic_filter``
     over each 3 x 3 neighbourhood (outside the frame: no label), with labels past 16 bits
     (``many``) as with few."""
-    from printcheck.contacts import _touching
+    from printcheck.contacts import _touching, near_another
 
     rng = np.random.default_rng(7)
     lab = rng.integers(0, 4, (40, 50)).astype(np.int32)
@@ -844,23 +844,20 @@ def test_where_contacts_touch_is_where_a_3x3_neighbourhood_holds_another_label(m
         lab[lab > 0] += 70_000
 
     def other(window: np.ndarray) -> float:
-        own = window[4]
+        own = window[window.size // 2]
         return float(own > 0 and bool(np.any((window > 0) & (window != own))))
 
     want = ndimage.generic_filter(lab, other, size=3, mode="constant", cval=0)
     assert np.array_equal(_touching(lab), np.flatnonzero(want))
+    # the measure stage's crowding asks the same two pixels further out (a 5 x 5 square)
+    wide = ndimage.generic_filter(lab, other, size=5, mode="constant", cval=0)
+    assert np.array_equal(near_another(lab, 2), wide > 0)
 
 
-def test_the_saddles_are_the_highest_of_the_lower_sides_along_each_shared_boundary() -> None:
-    """``_saddles`` against a plain loop over every pair of 8-neighbours in two regions
-    (the definition in its docstring)."""
-    from printcheck.contacts import _saddles
-
-    rng = np.random.default_rng(3)
-    regions = np.kron(rng.integers(0, 6, (8, 10)), np.ones((4, 4), np.int32)).astype(np.int32)
-    regions[rng.random(regions.shape) < 0.15] = 0
-    height = rng.random(regions.shape).astype(np.float32)
-    n = int(regions.max())
+def _saddles_by_loop(regions: np.ndarray, n: int, height: np.ndarray) -> dict[int, float]:
+    """Each pair of touching regions (key ``a * (n + 1) + b``, a < b) and its saddle, by a
+    plain loop over every pair of 8-neighbours lying one in each region: the highest of
+    the lower of the two heights (the definition)."""
     want: dict[int, float] = {}
     rows, cols = regions.shape
     for r in range(rows):
@@ -874,7 +871,21 @@ def test_the_saddles_are_the_highest_of_the_lower_sides_along_each_shared_bounda
                     key = min(a, b) * (n + 1) + max(a, b)
                     low = float(min(height[r, c], height[rr, cc]))
                     want[key] = max(want.get(key, -np.inf), low)
-    keys, saddles = _saddles(regions, n, height)
+    return want
+
+
+def test_the_saddles_are_the_highest_of_the_lower_sides_along_each_shared_boundary() -> None:
+    """The saddles of a watershed's regions (``boundary``) against a plain loop over every
+    pair of 8-neighbours in two regions (the definition)."""
+    from printcheck.contacts import boundary
+
+    rng = np.random.default_rng(3)
+    regions = np.kron(rng.integers(0, 6, (8, 10)), np.ones((4, 4), np.int32)).astype(np.int32)
+    regions[rng.random(regions.shape) < 0.15] = 0
+    height = rng.random(regions.shape).astype(np.float32)
+    n = int(regions.max())
+    want = _saddles_by_loop(regions, n, height)
+    keys, saddles = boundary(regions, n, height).saddles()
     assert keys.tolist() == sorted(want)
     assert saddles.tolist() == [want[k] for k in sorted(want)]  # the heights' own values
 
@@ -900,9 +911,8 @@ def test_each_labels_highest_pixel_is_the_last_of_a_lexsort() -> None:
 
 def test_saddles_read_from_a_shared_boundary_are_those_found_on_part_of_it() -> None:
     """The three decisions read the saddles of their part of one watershed from its
-    boundary found once: the same as found on that part alone (the plain loop of the
-    saddles test is the reference for the latter)."""
-    from printcheck.contacts import _saddles, boundary
+    boundary found once: those of the part alone, by the plain loop over neighbours."""
+    from printcheck.contacts import boundary
 
     rng = np.random.default_rng(11)
     regions = np.kron(rng.integers(1, 9, (10, 12)), np.ones((3, 3), np.int32)).astype(np.int32)
@@ -912,6 +922,6 @@ def test_saddles_read_from_a_shared_boundary_are_those_found_on_part_of_it() -> 
     for _ in range(5):
         part = np.where(rng.random(regions.shape) < 0.7, regions, 0)
         keys, saddles = shared.within(part).saddles()
-        want_keys, want = _saddles(part, n, height)
-        assert np.array_equal(keys, want_keys)
-        assert np.array_equal(saddles, want)
+        want = _saddles_by_loop(part, n, height)
+        assert keys.tolist() == sorted(want)
+        assert saddles.tolist() == [want[k] for k in sorted(want)]
